@@ -1,0 +1,5 @@
+import sys
+
+from calib.cli import main
+
+sys.exit(main())
