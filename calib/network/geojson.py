@@ -1,0 +1,298 @@
+"""A network as one GeoJSON FeatureCollection (RFC 7946): reading it, and writing one (e.g. calibrated C).
+
+Point features are nodes (property ``kind``: ``junction``, or ``source`` / ``reservoir`` / ``tank``),
+LineString features are pipes (``kind`` ``pipe``, the default) or pumps (``kind`` ``pump``). Other
+properties carry the same names as the CSV columns, units in brackets (``"elevation [ft]"``).
+
+Coordinates: by RFC 7946 they are WGS84 longitude, latitude [degrees]. A file in a projected map grid
+says so with a top-level member ``"length_unit": "ft"`` (or ``"m"``, any pint length); then
+coordinates are read as lengths and kept in metres. A pipe's length is its ``length [..]`` property
+when present, else the length of its line: the sum of straight segments in a projected grid, or the
+haversine great-circle length on a sphere of radius 6 371 008.8 m for longitude/latitude.
+
+Problems are reported like the CSV ones; ``row`` is then the feature's position in the ``features``
+array counting from 1.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from pathlib import Path
+
+import numpy as np
+
+from calib import fileio
+from calib.errors import NetworkError, Problem
+from calib.network import validate
+from calib.network.model import Network, PipeStatus
+from calib.network.tables import NetworkTables, parse_table
+from calib.units import DISPLAY, from_si, unit_factor
+
+#: Mean Earth radius R1 of the IUGG [m] (Moritz, "Geodetic Reference System 1980", Bulletin
+#: Geodesique 54 (1980), the mean radius of the GRS80 ellipsoid, 6371008.8 m).
+EARTH_RADIUS = 6371008.8
+NODE_KINDS = {"junction": "junction", "source": "reservoir", "reservoir": "reservoir",
+              "tank": "tank"}
+LINK_KINDS = ("pipe", "pump")
+
+
+def haversine_length(lon, lat, radius: float = EARTH_RADIUS) -> float:
+    """Great-circle length [m] of a polyline of longitude/latitude vertices [degrees].
+
+    Haversine formula on a sphere of ``radius`` [m] (Sinnott, "Virtues of the haversine",
+    Sky and Telescope 68(2), 1984, p. 159): for each segment
+    ``d = 2 R asin(sqrt(sin^2(dphi/2) + cos(phi1) cos(phi2) sin^2(dlambda/2)))``, summed.
+    Example: one degree of latitude along a meridian is ``pi R / 180`` = 111 195.08 m.
+    """
+    lam, phi = np.radians(np.asarray(lon, float)), np.radians(np.asarray(lat, float))
+    a = (np.sin(np.diff(phi) / 2) ** 2
+         + np.cos(phi[:-1]) * np.cos(phi[1:]) * np.sin(np.diff(lam) / 2) ** 2)
+    return float(np.sum(2 * radius * np.arcsin(np.sqrt(np.clip(a, 0.0, 1.0)))))
+
+
+def planar_length(x, y) -> float:
+    """Length of a polyline of map-grid vertices (same unit as x, y): sum of straight segments."""
+    return float(np.sum(np.hypot(np.diff(np.asarray(x, float)), np.diff(np.asarray(y, float)))))
+
+
+def _positions(geometry, want: str):
+    """Vertices of a geometry of type ``want`` as an (n, 2) array; None when absent; raises ValueError."""
+    if geometry is None:
+        return None
+    if not isinstance(geometry, dict) or geometry.get("type") != want:
+        got = geometry.get("type") if isinstance(geometry, dict) else type(geometry).__name__
+        raise ValueError(f"the geometry is a {got}, not a {want}")
+    coords = geometry.get("coordinates")
+    try:
+        array = np.asarray([coords] if want == "Point" else coords, dtype=float)
+    except (TypeError, ValueError):
+        raise ValueError("the coordinates are not numbers") from None
+    if array.ndim != 2 or array.shape[1] < 2 or not np.all(np.isfinite(array)):
+        raise ValueError("the coordinates are not positions [x, y]")
+    if want == "LineString" and len(array) < 2:
+        raise ValueError("a LineString needs at least two positions")
+    return array[:, :2]
+
+
+class _Collector:
+    """Raw columns (header -> cells) of one table, filled feature by feature."""
+
+    def __init__(self):
+        self.rows: list[int] = []
+        self.columns: dict[str, list] = {}
+
+    def add(self, row: int, properties: dict) -> None:
+        for key in properties:
+            self.columns.setdefault(key, [None] * len(self.rows))
+        for key, cells in self.columns.items():
+            cells.append(properties.get(key))
+        self.rows.append(row)
+
+    def parse(self, file, table, problems):
+        headers = list(self.columns)
+        return parse_table(file, table, headers, [self.columns[h] for h in headers], self.rows,
+                           problems, header_row=None)
+
+
+def _length_header(properties: dict) -> bool:
+    return any(key.split("[")[0].strip().lower() == "length" for key in properties)
+
+
+def read_geojson(path) -> Network:
+    """Read a network from a GeoJSON FeatureCollection; raises ``NetworkError`` listing every problem."""
+    path = Path(path)
+    file = path.name
+    try:
+        data = json.loads(path.read_text(encoding="utf-8-sig"))
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise NetworkError(Problem(f"cannot be read as GeoJSON: {exc}", file=file)) from None
+    if not isinstance(data, dict) or data.get("type") != "FeatureCollection" or \
+            not isinstance(data.get("features"), list):
+        raise NetworkError(Problem("is not a GeoJSON FeatureCollection", file=file,
+                                   expected='{"type": "FeatureCollection", "features": [...]}'))
+    problems: list[Problem] = []
+    scale = None  # metres per coordinate unit; None = longitude/latitude
+    if data.get("length_unit") is not None:
+        try:
+            scale = unit_factor(str(data["length_unit"]), "length")
+        except ValueError as exc:
+            problems.append(Problem(f"length_unit: {exc}", file=file, field="length_unit",
+                                    expected="ft or m"))
+            scale = 1.0
+    tables = {name: _Collector() for name in ("junctions", "sources", "pipes", "pumps")}
+    geometry = {"pipes": [], "pumps": []}
+    for row, feature in enumerate(data["features"], start=1):
+        _read_feature(file, row, feature, scale, tables, geometry, problems)
+    parsed = {name: c.parse(file, name, problems) for name, c in tables.items()
+              if name != "pumps" or c.rows}
+    network_tables = NetworkTables(parsed["junctions"], parsed["sources"], parsed["pipes"],
+                                   parsed.get("pumps"))
+    return validate.assemble(network_tables, problems, name=path.stem,
+                             pipe_geometry=geometry["pipes"])
+
+
+def _read_feature(file, row, feature, scale, tables, geometry, problems) -> None:
+    """Sort one feature into its table, with its coordinates (nodes) or vertices and length (links)."""
+    if not isinstance(feature, dict) or feature.get("type") != "Feature":
+        problems.append(Problem("is not a GeoJSON Feature", file=file, row=row))
+        return
+    props = dict(feature.get("properties") or {})
+    kind = str(props.pop("kind", "") or "").strip().lower()
+    shape = (feature.get("geometry") or {}).get("type") if isinstance(
+        feature.get("geometry"), dict) else None
+    if not kind:
+        kind = "pipe" if shape == "LineString" else ""
+    ident = str(props.get("id", "") or "") or None
+    if kind not in NODE_KINDS and kind not in LINK_KINDS:
+        problems.append(Problem(f"kind '{kind}' is not known" if kind else "the feature has no kind",
+                                file=file, row=row, id=ident, field="kind",
+                                expected="junction, source (reservoir or tank), pipe or pump"))
+        return
+    want = "Point" if kind in NODE_KINDS else "LineString"
+    try:
+        vertices = _positions(feature.get("geometry"), want)
+    except ValueError as exc:
+        problems.append(Problem(str(exc), file=file, row=row, id=ident, field="geometry",
+                                expected=f"a {want} geometry"))
+        vertices = None
+    factor = 1.0 if scale is None else scale
+    if kind in NODE_KINDS:
+        if kind != "junction":
+            props["kind"] = props.pop("source_kind", None) or NODE_KINDS[kind]
+        props["x"], props["y"] = (None, None) if vertices is None else vertices[0] * factor
+        tables["junctions" if kind == "junction" else "sources"].add(row, props)
+        return
+    table = "pipes" if kind == "pipe" else "pumps"
+    line = None if vertices is None else [tuple(v) for v in vertices * factor]
+    if kind == "pipe" and not _length_header(props):
+        if vertices is None:
+            problems.append(Problem("the pipe has no length property and no line to measure",
+                                    file=file, row=row, id=ident, field="length",
+                                    expected="a 'length [ft]' property or a LineString"))
+        elif scale is None:
+            props["length [m]"] = haversine_length(vertices[:, 0], vertices[:, 1])
+        else:
+            props["length [m]"] = planar_length(vertices[:, 0], vertices[:, 1]) * scale
+    geometry[table].append(line)
+    tables[table].add(row, props)
+
+
+# --- writing -------------------------------------------------------------------------------------
+
+def _clean(value):
+    """A JSON-safe scalar: NaN becomes null, numpy scalars become Python ones."""
+    if isinstance(value, (np.floating, float)):
+        return None if not math.isfinite(float(value)) else float(value)
+    if isinstance(value, np.integer):
+        return int(value)
+    if isinstance(value, np.bool_):
+        return bool(value)
+    return value
+
+
+def network_features(network: Network, units: str = "us", length_unit: str | None = "ft") -> dict:
+    """The FeatureCollection of ``network`` as a dict (see ``write_network_geojson``)."""
+    u = DISPLAY[units]
+    to_map = (lambda v: v) if length_unit is None else (lambda v: from_si(v, "length", length_unit))
+    nj, ids = network.n_junctions, network.node_ids.astype(str)
+
+    def point(i):
+        if not (np.isfinite(network.x[i]) and np.isfinite(network.y[i])):
+            return None
+        return {"type": "Point", "coordinates": [float(to_map(network.x[i])),
+                                                 float(to_map(network.y[i]))]}
+
+    features = []
+    for i in range(network.n_nodes):
+        props = {"id": ids[i]}
+        if i < nj:
+            props.update({"kind": "junction",
+                          f"elevation [{u['elevation']}]": from_si(network.elevation[i],
+                                                                   "elevation", u["elevation"]),
+                          f"demand [{u['flow']}]": from_si(network.demand[i], "flow", u["flow"]),
+                          "hydrant": "yes" if network.hydrant[i] else "no"})
+        else:
+            s = i - nj
+            props.update({"kind": "source", "source_kind": network.source_kind[s],
+                          f"head [{u['head']}]": from_si(network.source_head[s], "head", u["head"]),
+                          f"elevation [{u['elevation']}]": from_si(network.elevation[i],
+                                                                   "elevation", u["elevation"])})
+        props["zone"] = network.zone[i]
+        features.append(_feature(point(i), props))
+    features += _pipe_features(network, units, to_map)
+    features += _pump_features(network, units, to_map)
+    collection = {"type": "FeatureCollection", "name": network.name}
+    if length_unit is not None:
+        collection["length_unit"] = length_unit
+    collection["features"] = features
+    return collection
+
+
+def _feature(geometry, props) -> dict:
+    return {"type": "Feature", "geometry": geometry,
+            "properties": {k: _clean(v) for k, v in props.items()}}
+
+
+def _line(network: Network, k: int, frm: int, to: int, to_map):
+    if network.pipe_geometry is not None and k is not None and network.pipe_geometry[k]:
+        vertices = np.asarray(network.pipe_geometry[k], dtype=float)
+    else:
+        vertices = np.array([[network.x[frm], network.y[frm]], [network.x[to], network.y[to]]])
+    if not np.all(np.isfinite(vertices)):
+        return None
+    return {"type": "LineString", "coordinates": to_map(vertices).tolist()}
+
+
+def _pipe_features(network: Network, units: str, to_map) -> list[dict]:
+    u = DISPLAY[units]
+    ids = network.node_ids.astype(str)
+    words = {int(PipeStatus.OPEN): "open", int(PipeStatus.CLOSED): "closed",
+             int(PipeStatus.CHECK_VALVE): "check"}
+    rh_unit = "mm" if units == "si" else "in"
+    features = []
+    for k in range(network.n_pipes):
+        a, b = int(network.pipe_from[k]), int(network.pipe_to[k])
+        props = {"id": str(network.pipe_ids[k]), "kind": "pipe", "from": ids[a], "to": ids[b],
+                 f"length [{u['length']}]": from_si(network.length[k], "length", u["length"]),
+                 f"diameter [{u['diameter']}]": from_si(network.diameter[k], "diameter",
+                                                        u["diameter"]),
+                 "roughness": network.roughness[k], "group": network.group[k],
+                 "material": network.material[k], "installed": network.installed[k],
+                 "status": words[int(network.status[k])], "minor_loss": network.minor_loss[k],
+                 f"roughness_height [{rh_unit}]": from_si(network.roughness_height[k], "length",
+                                                          rh_unit)}
+        features.append(_feature(_line(network, k, a, b, to_map), props))
+    return features
+
+
+def _pump_features(network: Network, units: str, to_map) -> list[dict]:
+    u, pumps = DISPLAY[units], network.pumps
+    ids = network.node_ids.astype(str)
+    features = []
+    for k in range(len(pumps)):
+        a, b = int(pumps.from_node[k]), int(pumps.to_node[k])
+        h0, r, n = pumps.shutoff_head[k], pumps.curve_r[k], pumps.curve_n[k]
+        q_max = (h0 / r) ** (1.0 / n)
+        props = {"id": str(pumps.ids[k]), "kind": "pump", "from": ids[a], "to": ids[b]}
+        for i, share in enumerate((0.0, 0.5, 0.9), start=1):
+            q = share * q_max
+            props[f"head_{i} [{u['head']}]"] = from_si(h0 - r * q ** n, "head", u["head"])
+            props[f"flow_{i} [{u['flow']}]"] = from_si(q, "flow", u["flow"])
+        props["speed"] = pumps.speed[k]
+        features.append(_feature(_line(network, None, a, b, to_map), props))
+    return features
+
+
+def write_network_geojson(network: Network, path, units: str = "us",
+                          length_unit: str | None = "ft") -> Path:
+    """Write ``network`` as a GeoJSON FeatureCollection, atomically (e.g. to share calibrated C).
+
+    ``units`` chooses the property units (``us``: ft, in, gpm; ``si``: m, mm, L/s). Coordinates
+    (``Network.x/y`` and pipe vertices) are written in ``length_unit`` with a top-level
+    ``"length_unit"`` member; pass ``None`` for a network read as longitude/latitude, whose
+    coordinates are written as they are. Every pipe carries its ``length`` property, so a read back
+    gives the same lengths whatever the geometry.
+    """
+    text = json.dumps(network_features(network, units, length_unit), indent=1)
+    return fileio.write_text(path, text + "\n")

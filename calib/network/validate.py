@@ -1,0 +1,215 @@
+"""Checks between a network's tables, and the assembly of the ``Network`` once they pass.
+
+Every problem is collected (file, row, id, field, what is wrong, what is plausible) and raised at once
+as one ``NetworkError``: duplicate ids (also across junctions and sources, and across pipes and pumps),
+link ends that name no node, links from a node to itself, non-positive length or diameter, C outside
+1-200, negative minor loss or roughness height, bad pump curves, a source with no pipe, and parts of
+the network that no fixed-grade source feeds (``scipy.sparse.csgraph.connected_components`` over open
+pipes and running pumps).
+
+This module does not read files (``calib.network.tables``, ``calib.network.geojson``).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import scipy.sparse as sp
+from scipy.sparse.csgraph import connected_components
+
+from calib.errors import NetworkError, Problem
+from calib.network import pump_curve
+from calib.network.model import Network, PipeStatus, Pumps
+from calib.network.tables import NetworkTables, ParsedTable
+
+#: Plausible Hazen-Williams C: new smooth pipe is about 150, badly tuberculated mains go below 40.
+C_RANGE = (1.0, 200.0)
+#: How many junction ids to name for a part of the network with no source.
+NAMED_IDS = 5
+
+
+def _problem(table: ParsedTable, i: int, message: str, field: str | None = None,
+             expected: str | None = None) -> Problem:
+    ids = table.get("id", "")
+    return Problem(message, file=table.file, row=int(table.rows[i]), id=str(ids[i]) or None,
+                   field=field, expected=expected)
+
+
+def _check_ids(tables: list[ParsedTable], what: str, problems: list[Problem]) -> None:
+    """Ids must be unique across ``tables`` (e.g. junctions and sources share one id space)."""
+    first: dict[str, tuple[ParsedTable, int]] = {}
+    for table in tables:
+        for i, key in enumerate(table.get("id", "")):
+            if key == "":
+                continue
+            if key in first:
+                other, j = first[key]
+                problems.append(_problem(table, i, f"duplicate {what} id '{key}', already used in "
+                                         f"{other.file} row {int(other.rows[j])}", field="id",
+                                         expected=f"ids unique across {what}s"))
+            else:
+                first[key] = (table, i)
+
+
+def _link_ends(table: ParsedTable, index: dict[str, int], problems: list[Problem]):
+    """Node numbers of each link's ends (-1 where unknown), with a problem per bad end."""
+    ends = {}
+    node_files = "junctions.csv or sources.csv" if table.file.endswith(".csv") else "the nodes"
+    for end in ("from", "to"):
+        names = table.get(end, "")
+        numbers = np.array([index.get(n, -1) for n in names], dtype=np.int64)
+        for i in np.flatnonzero((numbers < 0) & (names != "")):
+            problems.append(_problem(table, i, f"node '{names[i]}' is not in {node_files}",
+                                     field=end, expected="the id of a junction or a source"))
+        ends[end] = numbers
+    same = (ends["from"] >= 0) & (ends["from"] == ends["to"])
+    for i in np.flatnonzero(same):
+        problems.append(_problem(table, i, f"the link runs from node '{table.get('from')[i]}' to "
+                                 "itself", field="to", expected="two different nodes"))
+    return ends["from"], ends["to"]
+
+
+def _check_pipe_values(pipes: ParsedTable, problems: list[Problem]) -> None:
+    for name, what in (("length", "length"), ("diameter", "diameter")):
+        values = pipes.get(name)
+        for i in np.flatnonzero(np.isfinite(values) & (values <= 0)):
+            problems.append(_problem(pipes, i, f"the {what} must be positive", field=name,
+                                     expected=f"a {what} above zero"))
+    c = pipes.get("roughness")
+    lo, hi = C_RANGE
+    for i in np.flatnonzero(np.isfinite(c) & ((c < lo) | (c > hi))):
+        problems.append(_problem(pipes, i, f"Hazen-Williams C {c[i]:g} is out of range",
+                                 field="roughness", expected=f"C between {lo:g} and {hi:g}; "
+                                 "new PVC about 150, old unlined cast iron 40-100"))
+    for name in ("minor_loss", "roughness_height"):
+        values = pipes.get(name)
+        for i in np.flatnonzero(np.isfinite(values) & (values < 0)):
+            problems.append(_problem(pipes, i, f"{name.replace('_', ' ')} must not be negative",
+                                     field=name, expected="zero or more"))
+
+
+def _pump_curves(pumps: ParsedTable, problems: list[Problem]) -> np.ndarray:
+    """(n_pumps, 3) array of h0, r, n; NaN rows where the curve is missing or bad."""
+    curves = np.full((len(pumps), 3), np.nan)
+    three = [pumps.get(f"{q}_{k}") for k in (1, 2, 3) for q in ("flow", "head")]
+    design = [pumps.get(name) for name in ("design_head", "design_flow", "shutoff_head")]
+    for i in range(len(pumps)):
+        points = np.array([c[i] for c in three])
+        try:
+            if np.all(np.isfinite(points)):
+                curves[i] = pump_curve.three_point_curve(points[0::2], points[1::2])
+            elif np.isfinite(design[0][i]) and np.isfinite(design[1][i]):
+                curves[i] = pump_curve.design_point_curve(design[0][i], design[1][i],
+                                                          design[2][i])
+            else:
+                problems.append(_problem(pumps, i, "the pump has no head curve", field="head_1",
+                                         expected="head_1..3 and flow_1..3, or design_head and "
+                                         "design_flow (shutoff_head optional)"))
+        except ValueError as exc:
+            problems.append(_problem(pumps, i, f"bad head curve: {exc}", field="head_1",
+                                     expected="heads falling as flows grow"))
+    speed = pumps.get("speed")
+    for i in np.flatnonzero(np.isfinite(speed) & (speed < 0)):
+        problems.append(_problem(pumps, i, "the speed must not be negative", field="speed",
+                                 expected="a relative speed such as 1 (0 = off)"))
+    return curves
+
+
+def _check_connectivity(tables: NetworkTables, n_junctions: int, n_nodes: int, links,
+                        problems: list[Problem]) -> None:
+    """Each connected part (over open pipes and running pumps) needs a source; each source a link."""
+    frm, to, active = links
+    ok = (frm >= 0) & (to >= 0)
+    for s in range(n_junctions, n_nodes):
+        if not np.any(ok & ((frm == s) | (to == s))):
+            problems.append(_problem(tables.sources, s - n_junctions, "the source has no pipe",
+                                     expected="at least one pipe or pump joining it to the "
+                                     "network"))
+    use = ok & active
+    graph = sp.coo_matrix((np.ones(use.sum()), (frm[use], to[use])), shape=(n_nodes, n_nodes))
+    _, label = connected_components(graph, directed=False)
+    fed = np.zeros(label.max() + 1 if n_nodes else 0, dtype=bool)
+    fed[label[n_junctions:]] = True
+    junctions = tables.junctions
+    ids = junctions.get("id", "")
+    for part in np.flatnonzero(~fed):
+        members = np.flatnonzero(label[:n_junctions] == part)
+        if len(members) == 0:
+            continue
+        named = ", ".join(f"'{ids[m]}'" for m in members[:NAMED_IDS])
+        more = f" and {len(members) - NAMED_IDS} more" if len(members) > NAMED_IDS else ""
+        problems.append(_problem(
+            junctions, members[0],
+            f"{len(members)} junction(s) ({named}{more}) reach no source through open pipes "
+            "or running pumps", expected="a path of open pipes to a reservoir or tank; check "
+            "closed valves and missing pipes"))
+
+
+def assemble(tables: NetworkTables, problems: list[Problem], name: str = "network",
+             pipe_geometry: list | None = None) -> Network:
+    """Check ``tables`` against each other and build the ``Network``.
+
+    ``problems`` holds what parsing found already; this adds the checks between tables and raises
+    one ``NetworkError`` listing them all when there is any.
+    """
+    problems = list(problems)
+    j, s, p = tables.junctions, tables.sources, tables.pipes
+    pumps = tables.pumps
+    _check_ids([j, s], "node", problems)
+    _check_ids([p] + ([pumps] if pumps is not None else []), "pipe or pump", problems)
+    if len(j) == 0:
+        problems.append(Problem("the network has no junctions", file=j.file))
+    if len(s) == 0:
+        problems.append(Problem("the network has no source (reservoir or tank)", file=s.file,
+                                expected="at least one row with a fixed hydraulic grade"))
+    node_ids = np.concatenate([j.get("id", ""), s.get("id", "")]).astype(object)
+    index = {str(k): i for i, k in enumerate(node_ids) if k != ""}
+    p_from, p_to = _link_ends(p, index, problems)
+    _check_pipe_values(p, problems)
+    status = p.get("status", 0) if "status" in p.values else np.zeros(len(p), np.int8)
+    status = np.asarray(status, dtype=np.int8)
+    frm, to, active = p_from, p_to, status != PipeStatus.CLOSED
+    pump_parts = None
+    if pumps is not None and len(pumps):
+        u_from, u_to = _link_ends(pumps, index, problems)
+        curves = _pump_curves(pumps, problems)
+        speed = pumps.get("speed")
+        speed = np.where(np.isfinite(speed), speed, 1.0)
+        pump_parts = (u_from, u_to, curves, speed)
+        frm, to = np.concatenate([frm, u_from]), np.concatenate([to, u_to])
+        active = np.concatenate([active, speed > 0])
+    if len(j) and len(s):
+        _check_connectivity(tables, len(j), len(node_ids), (frm, to, active), problems)
+    if problems:
+        raise NetworkError(problems)
+    return _build(tables, node_ids, p_from, p_to, status, pump_parts, name, pipe_geometry)
+
+
+def _or(values: np.ndarray, default: float) -> np.ndarray:
+    return np.where(np.isfinite(values), values, default)
+
+
+def _build(tables, node_ids, p_from, p_to, status, pump_parts, name, pipe_geometry) -> Network:
+    j, s, p = tables.junctions, tables.sources, tables.pipes
+    head = s.get("head")
+    pumps = Pumps()
+    if pump_parts is not None:
+        u_from, u_to, curves, speed = pump_parts
+        pumps = Pumps(ids=tables.pumps.get("id", "").astype(object), from_node=u_from,
+                      to_node=u_to, shutoff_head=curves[:, 0], curve_r=curves[:, 1],
+                      curve_n=curves[:, 2], speed=speed)
+    return Network(
+        node_ids=node_ids, n_junctions=len(j),
+        elevation=np.concatenate([j.get("elevation"), np.where(np.isfinite(s.get("elevation")),
+                                                               s.get("elevation"), head)]),
+        demand=j.get("demand"), source_head=head,
+        pipe_ids=p.get("id", "").astype(object), pipe_from=p_from, pipe_to=p_to,
+        length=p.get("length"), diameter=p.get("diameter"), roughness=p.get("roughness"),
+        minor_loss=_or(p.get("minor_loss"), 0.0), status=status,
+        roughness_height=p.get("roughness_height"),
+        group=p.get("group", "").astype(object), material=p.get("material", "").astype(object),
+        installed=p.get("installed"),
+        source_kind=s.get("kind", "reservoir").astype(object),
+        hydrant=np.asarray(j.get("hydrant", False), dtype=bool),
+        x=np.concatenate([j.get("x"), s.get("x")]), y=np.concatenate([j.get("y"), s.get("y")]),
+        zone=np.concatenate([j.get("zone", ""), s.get("zone", "")]).astype(object),
+        pumps=pumps, pipe_geometry=pipe_geometry, name=name)
