@@ -1,0 +1,121 @@
+"""Sparse linear algebra of the global gradient method: incidence products and the Schur complement.
+
+The matrix solved at every iteration is ``S = A21 diag(w) A12`` over the junctions (w = 1/D per
+link), symmetric positive definite while every junction is joined to a fixed-grade source by links
+with w > 0. Its sparsity pattern depends only on which nodes the links join, so it is built once per
+network: the CSC index arrays, the position in the CSC data array of each link's four contributions,
+and a fill-reducing ordering. Assembly is then one ``np.bincount`` per iteration, and the
+factorization is a no-reordering sparse LU in symmetric mode.
+
+Not here: the head-loss laws (``headloss``) and the iteration itself (``solver``).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import scipy.linalg
+import scipy.sparse as sp
+import scipy.sparse.linalg as spla
+
+
+class SchurPattern:
+    """Fixed structure of ``A21 diag(w) A12`` for links ``link_from -> link_to`` over ``n_junctions``.
+
+    Nodes numbered ``>= n_junctions`` are fixed-grade sources and do not appear in the matrix.
+    ``dense=True`` factors with a dense Cholesky instead (for checks on small networks).
+    """
+
+    def __init__(self, n_junctions: int, link_from: np.ndarray, link_to: np.ndarray,
+                 n_nodes: int, dense: bool = False):
+        self.n = int(n_junctions)
+        self.n_nodes = int(n_nodes)
+        self.link_from = np.asarray(link_from, dtype=np.int64)
+        self.link_to = np.asarray(link_to, dtype=np.int64)
+        self.dense = dense
+        f, t = self.link_from, self.link_to
+        nj = self.n
+        k = np.arange(len(f))
+        jf, jt = f < nj, t < nj
+        both = jf & jt
+        # contributions: (row, col, link, sign); diagonal +w at each junction end, -w off-diagonal
+        rows = np.concatenate([f[jf], t[jt], f[both], t[both], np.arange(nj)])
+        cols = np.concatenate([f[jf], t[jt], t[both], f[both], np.arange(nj)])
+        self._contrib_link = np.concatenate([k[jf], k[jt], k[both], k[both]])
+        self._contrib_sign = np.concatenate([np.ones(jf.sum()), np.ones(jt.sum()),
+                                             -np.ones(2 * both.sum())])
+        n_contrib = len(self._contrib_link)
+        self.perm = self._ordering(rows, cols)  # perm[new] = old
+        inv = np.empty(nj, dtype=np.int64)
+        inv[self.perm] = np.arange(nj)
+        self.inv = inv  # inv[old] = new
+        pr, pc = inv[rows], inv[cols]
+        key = pc * nj + pr  # CSC order: by column, then row
+        uniq, pos = np.unique(key, return_inverse=True)
+        self.indices = (uniq % nj).astype(np.int32)
+        col_of = uniq // nj
+        self.indptr = np.searchsorted(col_of, np.arange(nj + 1)).astype(np.int32)
+        self.nnz = len(uniq)
+        self._contrib_pos = pos[:n_contrib]
+        self.diag_pos = np.empty(nj, dtype=np.int64)
+        self.diag_pos[self.perm] = pos[n_contrib:]  # diag_pos[old junction] -> data position
+
+    def _ordering(self, rows, cols) -> np.ndarray:
+        """Fill-reducing ordering of the pattern, computed once: SuperLU's minimum degree on A^T+A."""
+        nj = self.n
+        if nj == 0:
+            return np.zeros(0, dtype=np.int64)
+        if self.dense or nj < 3:
+            return np.arange(nj)
+        pattern = sp.csc_matrix((np.ones(len(rows)), (rows, cols)), shape=(nj, nj))
+        pattern = pattern + sp.identity(nj, format="csc") * (abs(pattern).sum(axis=0).max() + 1.0)
+        lu = spla.splu(pattern, permc_spec="MMD_AT_PLUS_A",
+                       options=dict(SymmetricMode=True), diag_pivot_thresh=0.0)
+        # splu: Pr A Pc = L U with Pc[i, perm_c[i]] = 1, i.e. old column i moves to perm_c[i]
+        return np.argsort(lu.perm_c).astype(np.int64)
+
+    # --- per iteration -----------------------------------------------------------------------
+    def assemble(self, w: np.ndarray, extra_diag: np.ndarray | None = None) -> sp.csc_matrix:
+        """``S = A21 diag(w) A12`` in the permuted order, plus ``extra_diag`` (old order) on the diagonal."""
+        data = np.bincount(self._contrib_pos, weights=w[self._contrib_link] * self._contrib_sign,
+                           minlength=self.nnz)
+        if extra_diag is not None:
+            data[self.diag_pos] += extra_diag
+        return sp.csc_matrix((data, self.indices, self.indptr), shape=(self.n, self.n))
+
+    def factorize(self, matrix: sp.csc_matrix):
+        """Factor S once; returns a callable ``solve(b)`` taking and giving old-order arrays."""
+        perm, inv = self.perm, self.inv
+        if self.dense:
+            factor = scipy.linalg.cho_factor(matrix.toarray())
+
+            def solve_dense(b):
+                b = np.asarray(b, dtype=float)
+                return scipy.linalg.cho_solve(factor, b[perm])[inv]
+            return solve_dense
+        lu = spla.splu(matrix, permc_spec="NATURAL", diag_pivot_thresh=0.0,
+                       options=dict(SymmetricMode=True))
+
+        def solve_sparse(b):
+            b = np.asarray(b, dtype=float)
+            return lu.solve(b[perm])[inv]
+        return solve_sparse
+
+    # --- incidence products -------------------------------------------------------------------
+    def inflow(self, x: np.ndarray) -> np.ndarray:
+        """``A21 x`` over all nodes: sum of x over links ending at a node minus those leaving it."""
+        return (np.bincount(self.link_to, weights=x, minlength=self.n_nodes)
+                - np.bincount(self.link_from, weights=x, minlength=self.n_nodes))
+
+    def inflow_matrix(self, x: sp.spmatrix | np.ndarray):
+        """``A21 X`` restricted to junctions for a matrix X (n_links x p), dense or sparse."""
+        m = len(self.link_from)
+        a21 = sp.csr_matrix((np.concatenate([np.ones(m), -np.ones(m)]),
+                             (np.concatenate([self.link_to, self.link_from]),
+                              np.concatenate([np.arange(m), np.arange(m)]))),
+                            shape=(self.n_nodes, m))[: self.n]
+        out = a21 @ x
+        return out.toarray() if sp.issparse(out) else np.asarray(out)
+
+    def across(self, head: np.ndarray) -> np.ndarray:
+        """Head difference ``H[from] - H[to]`` per link, for heads over all nodes."""
+        return head[self.link_from] - head[self.link_to]

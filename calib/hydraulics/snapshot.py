@@ -1,0 +1,103 @@
+"""A snapshot: the loading of one steady state of a network (demands, flowing hydrants, tank levels).
+
+A snapshot is plain data in SI units. ``resolve`` checks it against a network at the front door,
+before any iteration, and turns names into index arrays the solver uses directly.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from calib.errors import InputError, Problem
+
+
+@dataclass(frozen=True)
+class Snapshot:
+    """Loading of one steady state.
+
+    - ``demand_factor`` [-]: multiplies every base demand (e.g. 1.3 for the hour of the test).
+    - ``extra_demand`` {junction id: m3/s}: added demands, e.g. the flowing hydrants of a test.
+    - ``source_head`` {source id: m}: fixed grades that replace the network's, e.g. the tank level
+      read at the time of the test.
+    - ``label``: free text carried to the result (a test id, a scenario name).
+    """
+
+    demand_factor: float = 1.0
+    extra_demand: dict = field(default_factory=dict)
+    source_head: dict = field(default_factory=dict)
+    label: str = ""
+
+
+@dataclass
+class ResolvedSnapshot:
+    """A snapshot checked against one network: demand per junction and head per source [SI]."""
+
+    demand: np.ndarray  # (n_junctions,) [m3/s]
+    source_head: np.ndarray  # (n_sources,) [m]
+    snapshot: Snapshot
+
+
+def resolve(snapshot: Snapshot | None, network) -> ResolvedSnapshot:
+    """Check ``snapshot`` against ``network`` and return demands and source heads as arrays.
+
+    Raises ``InputError`` listing every problem: a name that is not a junction (for extra demand)
+    or not a source (for a head), or a value that is not a finite number.
+    """
+    snapshot = snapshot if snapshot is not None else Snapshot()
+    problems: list[Problem] = []
+    factor = snapshot.demand_factor
+    try:
+        factor = float(factor)
+        if not math.isfinite(factor):
+            raise ValueError
+    except (TypeError, ValueError):
+        problems.append(Problem(f"demand factor {snapshot.demand_factor!r} is not a finite number",
+                                field="demand_factor", expected="a number such as 1.0"))
+        factor = 1.0
+    nj = network.n_junctions
+    index = network.node_index
+    demand = network.demand * factor
+    extra = np.zeros(nj)
+    for node, value in snapshot.extra_demand.items():
+        i = index.get(str(node))
+        if i is None or i >= nj:
+            what = "is a fixed-grade source, not a junction" if i is not None else \
+                "is not in the network"
+            problems.append(Problem(f"node '{node}' {what}", id=str(node), field="extra_demand",
+                                    expected="the id of a junction"))
+            continue
+        try:
+            v = float(value)
+            if not math.isfinite(v):
+                raise ValueError
+        except (TypeError, ValueError):
+            problems.append(Problem(f"extra demand {value!r} is not a finite number [m3/s]",
+                                    id=str(node), field="extra_demand",
+                                    expected="a flow in m3/s, e.g. 0.063 for 1000 gpm"))
+            continue
+        extra[i] += v
+    heads = network.source_head.copy()
+    for node, value in snapshot.source_head.items():
+        i = index.get(str(node))
+        if i is None or i < nj:
+            what = "is a junction, not a fixed-grade source" if i is not None else \
+                "is not in the network"
+            problems.append(Problem(f"node '{node}' {what}", id=str(node), field="source_head",
+                                    expected="the id of a reservoir or tank"))
+            continue
+        try:
+            v = float(value)
+            if not math.isfinite(v):
+                raise ValueError
+        except (TypeError, ValueError):
+            problems.append(Problem(f"source head {value!r} is not a finite number [m]",
+                                    id=str(node), field="source_head",
+                                    expected="a hydraulic grade in m"))
+            continue
+        heads[i - nj] = v
+    if problems:
+        raise InputError(problems)
+    return ResolvedSnapshot(demand=demand + extra, source_head=heads, snapshot=snapshot)

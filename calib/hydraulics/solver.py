@@ -1,0 +1,421 @@
+"""Steady-state network solver: the global gradient method of Todini and Pilati (1988).
+
+Unknowns are the flows Q of all links (pipes, then pumps) and the heads H of the junctions; the
+fixed-grade sources hold their heads. Newton's method on the energy and mass equations
+
+    F1_k = h_k(Q_k) - (H[from_k] - H[to_k]) = 0        (every open link)
+    F2_i = sum(Q_k, to_k = i) - sum(Q_k, from_k = i) - d_i = 0    (every junction)
+
+eliminates the flow correction and solves, per iteration, the symmetric positive definite system
+``(A21 D^-1 A12) dH = F2 - A21 D^-1 F1`` with ``D = dh/dQ``, then ``dQ = -D^-1 (F1 + A12 dH)``.
+Source: Todini, E. and Pilati, S. (1988), "A gradient algorithm for the analysis of pipe networks",
+in Coulbeck and Orr (eds), Computer Applications in Water Supply, vol. 1, 1-20.
+
+Closed pipes, closed check valves and idle pumps leave the equations (their flow is exactly 0);
+junctions that this cuts off from every source are reported in ``SolveResult.isolated``.
+Not here: the head-loss laws (``headloss``), the sparse algebra (``assembly``), file reading.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import scipy.sparse as sp
+from scipy.sparse.csgraph import connected_components
+
+from calib.errors import ConvergenceError, InputError, NetworkError, Problem
+from calib.hydraulics import headloss as hl
+from calib.hydraulics.assembly import SchurPattern
+from calib.hydraulics.snapshot import Snapshot, resolve
+from calib.network.model import PipeStatus
+from calib.units import FT, GAMMA_WATER
+
+HEADLOSS_MODELS = ("hazen-williams", "darcy-weisbach")
+
+
+@dataclass
+class SolveResult:
+    """A converged steady state. Arrays in SI: heads [m], pressures [Pa gauge], flows [m3/s].
+
+    ``head``/``pressure`` cover all nodes (junctions, then sources); ``flow``, ``velocity`` and
+    ``headloss`` (friction plus minor loss h(Q), 0 on a closed pipe) cover pipes; ``pump_flow`` pumps.
+    ``negative_pressure`` lists junction ids below 0 gauge; ``isolated`` the junctions cut off from
+    every source by closed links (head set to their elevation, pressure 0, no supply).
+    """
+
+    head: np.ndarray
+    pressure: np.ndarray
+    flow: np.ndarray
+    pump_flow: np.ndarray
+    velocity: np.ndarray
+    headloss: np.ndarray
+    iterations: int
+    max_mass_error: float
+    max_energy_error: float
+    converged: bool
+    negative_pressure: list
+    isolated: list
+    closed_links: list
+    snapshot: Snapshot
+    roughness: np.ndarray
+    _grad: np.ndarray = field(default=None, repr=False)
+    _active: np.ndarray = field(default=None, repr=False)
+    _isolated_mask: np.ndarray = field(default=None, repr=False)
+
+    @property
+    def link_flow(self) -> np.ndarray:
+        """Flows of all links, pipes then pumps [m3/s]."""
+        return np.concatenate([self.flow, self.pump_flow])
+
+
+class NetworkSolver:
+    """Solve snapshots of one network; the sparsity pattern and ordering are built once here.
+
+    Parameters (all SI):
+    - ``headloss``: ``"hazen-williams"`` (default; ``roughness`` = C) or ``"darcy-weisbach"``
+      (``roughness`` = absolute roughness height [m], from ``network.roughness_height``).
+    - ``q_eps`` [m3/s]: Hazen-Williams regularization flow (``headloss.hazen_williams_law``).
+    - Convergence, all at the returned point: largest flow change <= ``flow_tol`` x reference flow
+      (total demand, or the largest flow when larger); largest head change <= ``head_tol`` [m];
+      largest energy residual <= ``energy_tol`` [m]; largest mass-balance error <=
+      max(``mass_tol`` x total demand, ``mass_tol_abs`` [m3/s]); and no status change in the last step.
+    - ``max_iterations``; ``max_status_changes``: flips allowed per check valve or pump before its
+      status is frozen (guard against cycling; a frozen status that contradicts the final heads or
+      flows raises ``ConvergenceError``).
+    - ``viscosity`` [m2/s] for Darcy-Weisbach; ``dense=True`` factors densely (checks only).
+    """
+
+    def __init__(self, network, headloss: str = "hazen-williams", *, q_eps: float = hl.HW_Q_EPS,
+                 max_iterations: int = 100, flow_tol: float = 1e-8, head_tol: float = 1e-6,
+                 energy_tol: float = 1e-6, mass_tol: float = 1e-8, mass_tol_abs: float = 1e-9,
+                 max_status_changes: int = 8, viscosity: float = hl.NU_WATER_60F,
+                 dense: bool = False):
+        if headloss not in HEADLOSS_MODELS:
+            raise InputError(f"unknown head-loss model '{headloss}'", field="headloss",
+                             expected=" or ".join(HEADLOSS_MODELS))
+        self.network = net = network
+        self.headloss = headloss
+        self.q_eps = float(q_eps)
+        self.max_iterations = int(max_iterations)
+        self.flow_tol, self.head_tol, self.energy_tol = flow_tol, head_tol, energy_tol
+        self.mass_tol, self.mass_tol_abs = mass_tol, mass_tol_abs
+        self.max_status_changes = int(max_status_changes)
+        self.viscosity = float(viscosity)
+        self.nj, self.np_, self.nu = net.n_junctions, net.n_pipes, len(net.pumps)
+        self.link_from = np.concatenate([net.pipe_from, np.asarray(net.pumps.from_node, np.int64)])
+        self.link_to = np.concatenate([net.pipe_to, np.asarray(net.pumps.to_node, np.int64)])
+        self.link_ids = np.concatenate([net.pipe_ids, np.asarray(net.pumps.ids, dtype=object)])
+        self.pattern = SchurPattern(self.nj, self.link_from, self.link_to, net.n_nodes, dense=dense)
+        self.area = np.pi * net.diameter ** 2 / 4.0
+        self.minor = hl.minor_loss_coefficient(net.minor_loss, net.diameter)
+        self.is_cv = net.status == PipeStatus.CHECK_VALVE
+        self.pipe_closed = net.status == PipeStatus.CLOSED
+        pumps = net.pumps
+        self.speed = np.asarray(pumps.speed, dtype=float)
+        self.pump_h0 = np.asarray(pumps.shutoff_head, dtype=float)
+        self.pump_r = np.asarray(pumps.curve_r, dtype=float)
+        self.pump_n = np.asarray(pumps.curve_n, dtype=float)
+        self._graph_rows = np.concatenate([self.link_from, self.link_to])
+        self._graph_cols = np.concatenate([self.link_to, self.link_from])
+        if headloss == "darcy-weisbach":
+            self._check_roughness_height(net.roughness_height)
+
+    # --- set-up ------------------------------------------------------------------------------
+    def _check_roughness_height(self, e):
+        bad = ~(np.isfinite(e) & (e >= 0))
+        if bad.any():
+            ids = [str(i) for i in self.network.pipe_ids[bad]]
+            shown = ", ".join(ids[:20]) + (f" and {len(ids) - 20} more" if len(ids) > 20 else "")
+            raise InputError(Problem(
+                f"Darcy-Weisbach needs the absolute roughness of every pipe; missing or invalid "
+                f"for {len(ids)} pipe(s): {shown}", field="roughness_height",
+                expected="a height in m >= 0, e.g. 0.00026 for cast iron, 1.5e-6 for PVC"))
+
+    def _params(self, roughness):
+        """Per-pipe coefficient of the head-loss law: HW resistance r, or DW roughness height."""
+        net = self.network
+        if roughness is None:
+            roughness = net.roughness if self.headloss == "hazen-williams" else net.roughness_height
+        roughness = np.asarray(roughness, dtype=float)
+        if roughness.shape != (self.np_,):
+            raise InputError(f"roughness has shape {roughness.shape}, expected ({self.np_},)",
+                             field="roughness", expected="one value per pipe")
+        if self.headloss == "hazen-williams":
+            bad = ~(np.isfinite(roughness) & (roughness > 0))
+            if bad.any():
+                ids = ", ".join(str(i) for i in net.pipe_ids[bad][:20])
+                raise InputError(f"Hazen-Williams C not a positive number for pipe(s) {ids}",
+                                 field="roughness", expected="C between 1 and 200")
+            return roughness, hl.hazen_williams_resistance(net.length, net.diameter, roughness)
+        self._check_roughness_height(roughness)
+        return roughness, roughness
+
+    # --- the link laws -----------------------------------------------------------------------
+    def _laws(self, q, coef):
+        """Head loss h(Q) and slope dh/dQ of every link (pipes then pumps)."""
+        qp = q[: self.np_]
+        if self.headloss == "hazen-williams":
+            h, g = hl.hazen_williams_law(qp, coef, self.q_eps)
+        else:
+            h, g, _ = hl.darcy_weisbach_law(qp, self.network.length, self.network.diameter, coef,
+                                            self.viscosity)
+        aq = np.abs(qp)
+        h = h + self.minor * aq * qp
+        g = g + 2.0 * self.minor * aq
+        if self.nu:
+            hu, gu = self._pump_law(q[self.np_:])
+            h, g = np.concatenate([h, hu]), np.concatenate([g, gu])
+        return h, g
+
+    def _pump_law(self, q):
+        """Pump as a link with head loss ``-gain``; gain ``s^2 h0 - r s^(2-n) q^n`` (affinity laws),
+        continued linearly (value and slope) below q_eps so the slope stays positive."""
+        s = np.where(self.speed > 0, self.speed, 1.0)
+        n, r = self.pump_n, self.pump_r
+        coef = r * s ** (2.0 - n)
+        qe = self.q_eps
+        qq = np.maximum(q, qe)
+        gain = s ** 2 * self.pump_h0 - coef * qq ** n
+        slope = np.maximum(n * coef * qq ** (n - 1.0), 1e-9)
+        gain = np.where(q >= qe, gain, gain - slope * (q - qe))
+        return -gain, slope
+
+    def _initial_flow(self):
+        q = np.concatenate([FT * self.area, np.zeros(self.nu)])  # 1 ft/s from -> to
+        if self.nu:
+            s = np.where(self.speed > 0, self.speed, 1.0)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                q_half = s * (self.pump_h0 / (2.0 * self.pump_r)) ** (1.0 / self.pump_n)
+            q[self.np_:] = np.where(np.isfinite(q_half) & (q_half > 0), q_half, 1e-3)
+        return q
+
+    def _reachable(self, active):
+        """Junctions joined to some source through active links -> (isolated junction mask)."""
+        net = self.network
+        a = np.concatenate([active, active])
+        g = sp.csr_matrix((np.ones(int(a.sum())), (self._graph_rows[a], self._graph_cols[a])),
+                          shape=(net.n_nodes, net.n_nodes))
+        _, labels = connected_components(g, directed=False)
+        fed = np.zeros(labels.max() + 1, dtype=bool)
+        fed[labels[self.nj:]] = True
+        return ~fed[labels[: self.nj]]
+
+    # --- solving -----------------------------------------------------------------------------
+    def solve(self, snapshot: Snapshot | None = None, roughness=None, warm_start=None) -> SolveResult:
+        """Solve one snapshot; ``roughness`` overrides the network's C (or DW height) per pipe;
+        ``warm_start`` is a previous ``SolveResult`` (flows and statuses start from it)."""
+        resolved = resolve(snapshot, self.network)
+        rough, coef = self._params(roughness)
+        if warm_start is not None:
+            q = warm_start.link_flow.astype(float).copy()
+            active = warm_start._active.copy()
+        else:
+            q = self._initial_flow()
+            active = np.ones(self.np_ + self.nu, dtype=bool)
+        fixed_closed = np.concatenate([self.pipe_closed, self.speed <= 0])
+        active &= ~fixed_closed
+        q[~active] = 0.0
+        return self._iterate(resolved, rough, coef, q, active, fixed_closed)
+
+    def solve_many(self, snapshots, roughness=None) -> list[SolveResult]:
+        """Solve snapshots in turn, each warm-started from the last; pattern and ordering reused."""
+        results, last = [], None
+        for snap in snapshots:
+            last = self.solve(snap, roughness=roughness, warm_start=last)
+            results.append(last)
+        return results
+
+    def _iterate(self, resolved, rough, coef, q, active, fixed_closed):
+        net, nj, pat = self.network, self.nj, self.pattern
+        f, t = self.link_from, self.link_to
+        demand = resolved.demand
+        H = np.empty(net.n_nodes)
+        H[nj:] = resolved.source_head
+        H[:nj] = resolved.source_head.max() if net.n_sources else 0.0
+        total_demand = float(np.abs(demand).sum())
+        mass_tol = max(self.mass_tol * total_demand, self.mass_tol_abs)
+        dynamic = np.concatenate([self.is_cv, np.ones(self.nu, dtype=bool)]) & ~fixed_closed
+        flips = np.zeros(len(q), dtype=np.int64)
+        isolated = self._reachable(active)
+        self._check_isolated(isolated, demand)
+        dq_max = dh_max = np.inf
+        changed = False
+        dq = np.zeros(len(q))
+        dH = np.zeros(nj)
+        for it in range(self.max_iterations + 1):
+            h, grad = self._laws(q, coef)
+            F1 = np.where(active, h - (H[f] - H[t]), 0.0)
+            F2 = pat.inflow(q)[:nj] - demand
+            F2[isolated] = 0.0
+            e1 = float(np.abs(F1).max(initial=0.0))
+            e2 = float(np.abs(F2).max(initial=0.0))
+            q_ref = max(total_demand, float(np.abs(q).max(initial=0.0)), self.q_eps)
+            if (it > 0 and not changed and dq_max <= self.flow_tol * q_ref
+                    and dh_max <= self.head_tol and e1 <= self.energy_tol and e2 <= mass_tol):
+                self._check_frozen(q, H, active, dynamic, flips)
+                return self._result(resolved, rough, coef, q, H, h, grad, active, isolated,
+                                    it, e1, e2)
+            if it == self.max_iterations:
+                break
+            w = np.where(active, 1.0 / grad, 0.0)
+            S = pat.assemble(w, isolated.astype(float))
+            rhs = F2 - pat.inflow(w * F1)[:nj]
+            rhs[isolated] = 0.0
+            dH = pat.factorize(S)(rhs)
+            dHn = np.concatenate([dH, np.zeros(net.n_sources)])
+            dq = -w * (F1 - (dHn[f] - dHn[t]))
+            if not (np.all(np.isfinite(dH)) and np.all(np.isfinite(dq))):
+                self._fail("the linear system broke down (non-finite step)", it + 1, F2, dH, dq,
+                           e2)
+            q = q + dq
+            H[:nj] += dH
+            dq_max = float(np.abs(dq).max(initial=0.0))
+            dh_max = float(np.abs(dH).max(initial=0.0))
+            changed = False
+            if dynamic.any():
+                changed, active, q = self._update_status(q, H, active, dynamic, flips)
+                if changed:
+                    isolated = self._reachable(active)
+                    self._check_isolated(isolated, demand)
+        self._fail(f"no convergence in {self.max_iterations} iterations", self.max_iterations,
+                   F2, dH, dq, e2)
+
+    def _update_status(self, q, H, active, dynamic, flips):
+        """Check valves close on reverse flow and reopen when the head would drive forward flow;
+        pumps stop on reverse flow and restart when the lift needed is below their shutoff head."""
+        np_ = self.np_
+        f, t = self.link_from, self.link_to
+        frozen = flips >= self.max_status_changes
+        lift = H[t] - H[f]
+        can_close = dynamic & active & (q < 0.0) & ~frozen
+        reopen = np.zeros(len(q), dtype=bool)
+        reopen[:np_] = self.is_cv & (-lift[:np_] > self.head_tol)
+        if self.nu:
+            s = self.speed
+            reopen[np_:] = lift[np_:] < s ** 2 * self.pump_h0 - self.head_tol
+        can_open = dynamic & ~active & reopen & ~frozen
+        changed = bool(can_close.any() or can_open.any())
+        if changed:
+            active = active.copy()
+            active[can_close] = False
+            active[can_open] = True
+            q = q.copy()
+            q[can_close] = 0.0
+            q[can_open] = self._initial_flow()[can_open]
+            flips[can_close | can_open] += 1
+        return changed, active, q
+
+    def _check_frozen(self, q, H, active, dynamic, flips):
+        frozen = dynamic & (flips >= self.max_status_changes)
+        if not frozen.any():
+            return
+        f, t = self.link_from, self.link_to
+        bad = frozen & ((active & (q < -self.q_eps)) | (~active & (H[f] - H[t] > self.head_tol)))
+        if bad.any():
+            ids = [str(i) for i in self.link_ids[bad][:10]]
+            raise ConvergenceError(
+                f"check valve / pump status kept flipping and was frozen inconsistent with the "
+                f"solution at link(s) {', '.join(ids)}; check their direction and settings",
+                iterations=int(flips.max()), worst_links=ids)
+
+    def _check_isolated(self, isolated, demand):
+        bad = isolated & (np.abs(demand) > 0)
+        if bad.any():
+            ids = [str(i) for i in self.network.node_ids[: self.nj][bad]]
+            shown = ", ".join(ids[:20]) + (f" and {len(ids) - 20} more" if len(ids) > 20 else "")
+            raise NetworkError(Problem(
+                f"junction(s) {shown} have a demand but are cut off from every fixed-grade source "
+                f"by closed pipes, closed check valves or idle pumps", field="status",
+                expected="an open path from each junction with demand to a reservoir or tank"))
+
+    def _fail(self, why, iterations, F2, dH, dq, e2):
+        net = self.network
+        mass_bad = np.abs(F2) > max(self.mass_tol_abs, 0.0)
+        node_key = np.abs(F2) if mass_bad.any() else np.abs(np.nan_to_num(dH, nan=np.inf))
+        worst_nodes = [str(net.node_ids[i]) for i in np.argsort(-node_key)[:5]]
+        worst_links = [str(self.link_ids[i])
+                       for i in np.argsort(-np.abs(np.nan_to_num(dq, nan=np.inf)))[:5]]
+        raise ConvergenceError(
+            f"network '{net.name}': {why}; largest mass-balance error {e2:.3g} m3/s; "
+            f"worst nodes {', '.join(worst_nodes)}; largest flow changes at links "
+            f"{', '.join(worst_links)}. Check closed valves, pump curves and very small or very "
+            f"long pipes there", iterations=iterations, worst_nodes=worst_nodes,
+            worst_links=worst_links, max_mass_error=e2)
+
+    def _result(self, resolved, rough, coef, q, H, h, grad, active, isolated, it, e1, e2):
+        net, nj, np_ = self.network, self.nj, self.np_
+        H = H.copy()
+        H[:nj][isolated] = net.elevation[:nj][isolated]
+        pressure = GAMMA_WATER * (H - net.elevation)
+        flow = q[:np_].copy()
+        flow[~active[:np_]] = 0.0
+        pump_flow = q[np_:].copy()
+        pump_flow[~active[np_:]] = 0.0
+        headloss = np.where(active[:np_], h[:np_], 0.0)
+        neg = np.flatnonzero((pressure[:nj] < 0) & ~isolated)
+        return SolveResult(
+            head=H, pressure=pressure, flow=flow, pump_flow=pump_flow,
+            velocity=flow / self.area, headloss=headloss, iterations=it,
+            max_mass_error=e2, max_energy_error=e1, converged=True,
+            negative_pressure=[str(net.node_ids[i]) for i in neg],
+            isolated=[str(i) for i in net.node_ids[:nj][isolated]],
+            closed_links=[str(i) for i in self.link_ids[~active]],
+            snapshot=resolved.snapshot, roughness=rough, _grad=grad, _active=active.copy(),
+            _isolated_mask=isolated.copy())
+
+    # --- derivatives at a solution -----------------------------------------------------------
+    def sensitivities(self, result: SolveResult, dF1_dp, dF2_dp):
+        """Implicit differentiation at a converged snapshot: ``(dH, dQ)`` for p parameters.
+
+        Solves ``[[D, A12], [A21, 0]] [dQ; dH] = -[dF1/dp; dF2/dp]`` (D = dh/dQ at the solution)
+        by the same Schur complement as the solver, one factorization for all p columns:
+        ``S dH = dF2/dp - A21 D^-1 dF1/dp``, ``dQ = -D^-1 (dF1/dp + A12 dH)``.
+        ``dF1_dp`` (n_links x p), ``dF2_dp`` (n_junctions x p), dense or sparse. Closed links keep
+        dQ = 0 (their rows of dF1 are ignored); isolated junctions keep dH = 0.
+        Returns dH (n_junctions x p) [m per unit p] and dQ (n_links x p) [m3/s per unit p].
+        Source: the implicit function theorem on the Todini-Pilati system; e.g. Lansey and Basnet
+        (1991), J. Water Resour. Plann. Manage. 117(1), for its use in calibration.
+        """
+        nj, pat = self.nj, self.pattern
+        active, iso = result._active, result._isolated_mask
+        w = np.where(active, 1.0 / result._grad, 0.0)
+        b1 = dF1_dp.toarray() if sp.issparse(dF1_dp) else np.asarray(dF1_dp, dtype=float)
+        b2 = dF2_dp.toarray() if sp.issparse(dF2_dp) else np.asarray(dF2_dp, dtype=float)
+        vector = b1.ndim == 1
+        b1 = b1.reshape(len(w), -1)
+        b2 = b2.reshape(nj, -1)
+        if b1.shape[1] != b2.shape[1]:
+            raise InputError(f"dF1_dp has {b1.shape[1]} columns but dF2_dp {b2.shape[1]}",
+                             field="dF1_dp", expected="the same number p of parameters")
+        wb1 = w[:, None] * b1
+        rhs = b2 - pat.inflow_matrix(wb1)
+        rhs[iso] = 0.0
+        S = pat.assemble(w, iso.astype(float))
+        solve = pat.factorize(S)
+        dH = solve(rhs) if rhs.shape[1] else np.zeros((nj, 0))
+        dHn = np.vstack([dH, np.zeros((self.network.n_sources, dH.shape[1]))])
+        dQ = -(wb1 - w[:, None] * (dHn[self.link_from] - dHn[self.link_to]))
+        if vector:
+            return dH[:, 0], dQ[:, 0]
+        return dH, dQ
+
+    def dheadloss_droughness(self, result: SolveResult) -> np.ndarray:
+        """Derivative of each pipe's head loss with respect to its own roughness parameter.
+
+        Hazen-Williams: ``dh_k/dC_k = -1.852 hf_k / C_k`` [m per unit C], hf the friction part only
+        (minor losses do not depend on C), exact also in the regularized blend since hf is
+        proportional to C^-1.852 there too. Darcy-Weisbach: ``dh_k/de_k`` [m per m of roughness
+        height] through Colebrook (see ``headloss.darcy_weisbach_law``). 0 for a closed pipe.
+        """
+        net = self.network
+        active = result._active[: self.np_]
+        q = result.flow
+        if self.headloss == "hazen-williams":
+            r = hl.hazen_williams_resistance(net.length, net.diameter, result.roughness)
+            hf, _ = hl.hazen_williams_law(q, r, self.q_eps)
+            d = -hl.HW_FLOW_EXPONENT * hf / result.roughness
+        else:
+            _, _, d = hl.darcy_weisbach_law(q, net.length, net.diameter, result.roughness,
+                                            self.viscosity)
+        return np.where(active, d, 0.0)
