@@ -11,7 +11,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from calib.flowtest import classes, findings, pitot, rating
+from calib import flowtest
 from calib.errors import CalibError
 
 
@@ -34,31 +34,29 @@ class Results:
     curve: tuple | None = None  # (flows [m3/s], pressures [Pa]) of the hydrant curve
 
 
-def outlet_flow(outlet: dict, readings: dict) -> float | None:
-    """Discharge of one outlet [m3/s] from its pitot (NFPA 291 pitot formula) or its meter reading."""
+def outlet_record(outlet: dict, readings: dict) -> flowtest.Outlet | None:
+    """The ``calib.flowtest.Outlet`` of one set-up outlet, or None while its reading is missing."""
     if outlet.get("kind") == "meter":
         r = readings.get(f"flow@{outlet['uid']}")
-        return None if r is None else r.si_value
+        return None if r is None else flowtest.Outlet(flow=r.si_value, hydrant=outlet["hydrant"])
     r = readings.get(f"pitot@{outlet['uid']}")
     if r is None:
         return None
-    coefficient = pitot.outlet_coefficient(outlet.get("shape", "smooth"))
-    q = float(pitot.pitot_discharge(r.si_value, outlet["diameter"], coefficient))
-    if outlet.get("pumper"):
-        q *= float(pitot.pumper_factor(r.si_value))
-    return q
+    return flowtest.Outlet(diameter=outlet["diameter"], shape=outlet.get("shape", "smooth"),
+                           pitot=r.si_value, pumper=bool(outlet.get("pumper")),
+                           hydrant=outlet["hydrant"])
 
 
 def compute(header: dict, readings: dict, system: str = "us") -> Results:
     """Everything computable now from ``header`` (the test set-up) and ``readings`` (slot -> Reading)."""
-    res = Results(target=header.get("target"))
-    for g in header.get("gauges", []):
+    res = Results(target=header.get("target") or flowtest.DEFAULT_TARGET)
+    gauges = header.get("gauges", [])
+    for g in gauges:
         s, r = readings.get(f"static@{g}"), readings.get(f"residual@{g}")
         if s is not None and r is not None:
             res.static, res.residual, res.gauge = s.si_value, r.si_value, g
             break
     else:
-        gauges = header.get("gauges", [])
         if not gauges:
             res.missing.append("a gauge hydrant")
         for g in gauges[:1]:
@@ -69,37 +67,41 @@ def compute(header: dict, readings: dict, system: str = "us") -> Results:
     outlets = header.get("outlets", [])
     if not outlets:
         res.missing.append("a flow hydrant outlet")
-    for o in outlets:
-        q = outlet_flow(o, readings)
-        if q is None:
-            res.missing.append(f"{'flow' if o.get('kind') == 'meter' else 'pitot'} at {o['hydrant']} "
-                               f"outlet {o['uid']}")
-        else:
-            res.outlet_flows[o["uid"]] = q
-    if res.outlet_flows:
-        res.flow = float(np.sum(list(res.outlet_flows.values())))  # flows add; pitots never average
-    if res.missing or res.static is None:
-        return res
-    target = header.get("target") or rating.DEFAULT_TARGET
-    res.target = target
+    records = []
     try:
-        res.rated_flow = float(rating.rated_flow(res.flow, res.static, res.residual, target=target))
-        hc = classes.hydrant_class(res.rated_flow if target == rating.DEFAULT_TARGET else
-                                    rating.rated_flow(res.flow, res.static, res.residual))
-        res.class_label, res.class_colour, res.class_note = hc.label, hc.colour, hc.note
-        pitots = [readings[f"pitot@{o['uid']}"].si_value for o in outlets
-                  if o.get("kind") != "meter"]
-        res.findings = [(f.severity, f.code, f.message) for f in findings.check_test(
-            res.static, res.residual, pitots=pitots, test_flow=res.flow, rated=res.rated_flow, system=system,
-            **_extra_checks(header))]
-        curve = rating.hydrant_curve(res.flow, res.static, res.residual, target=target)
-        res.curve = tuple(np.asarray(a, dtype=float) for a in curve.line(n=40))
+        for o in outlets:
+            rec = outlet_record(o, readings)
+            if rec is None:
+                what = "meter flow" if o.get("kind") == "meter" else "pitot"
+                res.missing.append(f"{what} at {o['hydrant']} ({o['uid']})")
+            else:
+                records.append(rec)
+                res.outlet_flows[o["uid"]] = float(rec.discharge)
     except CalibError as exc:
         res.findings.append(("error", "not-computable", str(exc)))
+        return res
+    if res.outlet_flows:
+        res.flow = float(flowtest.total_flow(list(res.outlet_flows.values())))
+    if res.missing or res.static is None:
+        return res
+    flowing = {o["hydrant"] for o in outlets}
+    height = (header.get("gauge_height") or {}).get("si", 0.0)
+    try:
+        test = flowtest.FlowTest(res.static, res.residual, records, target=res.target,
+                                 gauge_height=height, residual_on_flowing=res.gauge in flowing,
+                                 label=header.get("test_id", ""))
+        out = flowtest.evaluate(test, system=system)
+    except CalibError as exc:
+        res.findings.append(("error", "not-computable", str(exc)))
+        return res
+    res.findings = [(f.severity, f.code, f.message) for f in out.findings]
+    if out.curve is None or not np.isfinite(out.rated_flow):
+        return res
+    res.rated_flow = float(out.rated_flow)
+    # The class is defined at 20 psi residual whatever target the crew rates at (NFPA 291 marking).
+    at20 = res.rated_flow if res.target == flowtest.DEFAULT_TARGET else float(
+        flowtest.rated_flow(res.flow, res.static, res.residual))
+    hc = flowtest.hydrant_class(at20)
+    res.class_label, res.class_colour, res.class_note = hc.label, hc.colour, hc.note
+    res.curve = tuple(np.asarray(a, dtype=float) for a in out.curve.line(n=40))
     return res
-
-
-def _extra_checks(header: dict) -> dict:
-    gauges = header.get("gauges", [])
-    flowing = {o["hydrant"] for o in header.get("outlets", [])}
-    return {"residual_on_flowing": bool(gauges) and all(g in flowing for g in gauges)}

@@ -56,7 +56,7 @@ FIELDS = {
     "pitot": FieldSpec("pitot", "pressure", 0.5 * P, 150 * P, "pitot pressure"),
     "flow": FieldSpec("flow", "flow", 10 * G, 6000 * G, "metered flow"),
     "diameter": FieldSpec("diameter", "diameter", 1.0 * IN, 8.0 * IN, "outlet diameter"),
-    "gauge_height": FieldSpec("gauge_height", "length", -20 * FT, 60 * FT, "gauge height"),
+    "gauge_height": FieldSpec("gauge_height", "length", -20 * FT, 30 * FT, "gauge height"),
     "target": FieldSpec("target", "pressure", 5 * P, 100 * P, "target residual"),
 }
 

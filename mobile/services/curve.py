@@ -1,0 +1,74 @@
+"""The hydrant curve of a test drawn on the N^1.85 scale, as a PNG for the results screen.
+
+On this scale (flow raised to the power 1.85 along x, pressure along y) a hydrant's supply curve
+P = Ps - (Ps - Pr) (Q / Qf)^1.85 is a straight line, which is how the trade reads and extrapolates it
+(NFPA 291; the N^1.85 graph paper). The points come from ``calib.flowtest`` (``HydrantCurve``); this
+module only draws, with matplotlib's Agg backend (no display needed), large type and thick lines
+for reading in sunlight.
+"""
+
+from __future__ import annotations
+
+import io
+
+import matplotlib
+
+matplotlib.use("Agg")
+import matplotlib.pyplot as plt  # noqa: E402
+import numpy as np  # noqa: E402
+
+from calib import fileio, flowtest  # noqa: E402
+
+from mobile.services import values  # noqa: E402
+
+
+def _nice_ticks(top: float, n: int = 6) -> np.ndarray:
+    raw = top / n
+    mag = 10 ** np.floor(np.log10(raw))
+    step = min((s for s in (1, 2, 2.5, 5, 10) if s * mag >= raw), default=10) * mag
+    return np.arange(0.0, top + 0.5 * step, step)
+
+
+def render_curve(results, path, system: str = "us", width_px: int = 1000, height_px: int = 620) -> bool:
+    """Draw ``results`` (``mobile.services.compute.Results``) to the PNG ``path``; False if no curve."""
+    if results.curve is None or results.rated_flow is None:
+        return False
+    q_si, p_si = results.curve
+    q = values.convert(np.asarray(q_si), "flow", system)
+    p = values.convert(np.asarray(p_si), "pressure", system)
+    qf = values.convert(results.flow, "flow", system)
+    qr = values.convert(results.rated_flow, "flow", system)
+    ps = values.convert(results.static, "pressure", system)
+    pr = values.convert(results.residual, "pressure", system)
+    pt = values.convert(results.target, "pressure", system)
+    uq, up = values.field_unit("flow", system), values.field_unit("pressure", system)
+
+    dpi = 100
+    fig, ax = plt.subplots(figsize=(width_px / dpi, height_px / dpi), dpi=dpi)
+    fig.patch.set_facecolor("white")
+    top = max(qr, qf) * 1.15
+    ticks = _nice_ticks(top)
+    ax.plot(flowtest.n185(q), p, color="black", lw=4, solid_capstyle="round")
+    ax.plot([0, flowtest.n185(qf), flowtest.n185(qr)], [ps, pr, pt], "o", ms=14, color="#0046ad", mec="black", mew=2)
+    ax.axhline(pt, color="#b00020", lw=2.5, ls="--")
+    ax.annotate(f"test {qf:,.0f} {uq}\nat {pr:.1f} {up}", (flowtest.n185(qf), pr), textcoords="offset points",
+                xytext=(14, 10), fontsize=17, fontweight="bold")
+    ax.annotate(f"{qr:,.0f} {uq} at {pt:.0f} {up}", (flowtest.n185(qr), pt), textcoords="offset points",
+                xytext=(-10, 14), ha="right", fontsize=17, fontweight="bold", color="#b00020")
+    ax.set_xticks(flowtest.n185(ticks))
+    ax.set_xticklabels([f"{t:,.0f}" for t in ticks], fontsize=14)
+    ax.set_xlim(0, flowtest.n185(ticks[-1]))
+    ax.set_ylim(0, ps * 1.12)
+    ax.tick_params(axis="y", labelsize=14, width=2, length=6)
+    ax.tick_params(axis="x", width=2, length=6)
+    ax.grid(True, color="#999999", lw=1)
+    for side in ax.spines.values():
+        side.set_linewidth(2)
+    ax.set_xlabel(f"flow [{uq}]  (N^1.85 scale)", fontsize=16, fontweight="bold")
+    ax.set_ylabel(f"pressure [{up}]", fontsize=16, fontweight="bold")
+    fig.tight_layout()
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=dpi, facecolor="white")
+    plt.close(fig)
+    fileio.write_bytes(path, buf.getvalue())
+    return True

@@ -1,0 +1,120 @@
+"""Export to the office: the tests folder that ``python -m calib fit`` reads, plus one JSON per test.
+
+Tables (units in brackets, in the units chosen in the settings):
+
+- ``flows.csv``: ``test_id, node, flow`` per flowing outlet, with the pitot, outlet diameter and
+  coefficient it came from (the flow is the one the app showed; the reader takes it as it is);
+- ``pressures.csv``: ``test_id, node, static, residual, gauge_height`` per gauge hydrant;
+- ``boundary.csv``: ``test_id, source, head`` where the crew noted a source grade (may be empty);
+- ``tests.csv``: ``test_id, date, time, crew, area, weather, notes, revision, ...``;
+- ``<test_id>.json``: everything recorded - every revision's set-up, every reading as typed with its
+  unit and time, the checklist, the computed results and the cautions.
+
+Only finished tests are exported unless drafts are asked for. Every file is written atomically through
+``calib.fileio``, so a full card or a pulled cable never leaves half a table.
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import asdict
+from pathlib import Path
+
+import pandas as pd
+
+from calib import fileio, flowtest
+
+from mobile.services import checklist, values
+from mobile.services.compute import outlet_record
+
+TABLES = ("flows.csv", "pressures.csv", "boundary.csv", "tests.csv")
+
+
+def _u(kind: str, system: str) -> str:
+    return values.field_unit(kind, system)
+
+
+def test_record(service, tid: str) -> dict:
+    """Everything recorded for one test, as a JSON-ready dict (SI values with the entered text)."""
+    t = service.store.test(tid)
+    res = service.results(tid)
+    revisions = []
+    for rev in service.store.revisions(tid):
+        revisions.append({**rev, "header": service.header(tid, rev["revision"]),
+                          "readings_in_force": {s: asdict(r) for s, r in
+                                                service.readings(tid, rev["revision"]).items()}})
+    return {
+        "format": "hydrant-calib field test, version 1",
+        "units_note": "values '*_si' in m, m3/s and Pa (gauge); 'unit' and 'entered_text' as typed",
+        "test_id": tid, "status": t.status, "area": t.area, "created_at": t.created_at,
+        "current_revision": t.current_revision,
+        "revisions": revisions,
+        "history": [asdict(r) for r in service.store.history(tid)],
+        "checklist": {i.key: {"title": i.title, "ticked": bool(service.header(tid)["checklist"].get(i.key))}
+                      for i in checklist.ITEMS},
+        "results_si": {"flow": res.flow, "outlet_flows": res.outlet_flows, "rated_flow": res.rated_flow,
+                       "target": res.target, "class": res.class_label, "gauge": res.gauge,
+                       "findings": [{"severity": s, "code": c, "message": m} for s, c, m in res.findings],
+                       "missing": res.missing},
+        "cautions": list(flowtest.CAUTIONS) + [checklist.LOCAL_RULES],
+    }
+
+
+def export_tests(service, folder, include_drafts: bool = False) -> dict:
+    """Write the tests folder into ``folder``; returns counts ``{"tests": n, "files": [...]}``."""
+    folder = Path(folder)
+    system = service.system
+    uq, up, ud, ul = (_u(k, system) for k in ("flow", "pressure", "diameter", "length"))
+    flows, pressures, boundary, tests, written = [], [], [], [], []
+    for t in reversed(service.store.tests()):  # oldest first
+        if t.status != "finished" and not include_drafts:
+            continue
+        h = service.header(t.test_id)
+        readings = service.readings(t.test_id)
+        res = service.results(t.test_id)
+        for o in h["outlets"]:
+            rec = outlet_record(o, readings)
+            if rec is None:
+                continue
+            pitot = None if rec.pitot is None else values.convert(rec.pitot, "pressure", system)
+            dia = None if rec.diameter is None else values.convert(rec.diameter, "diameter", system)
+            flows.append({"test_id": t.test_id, "node": o["hydrant"],
+                          f"flow [{uq}]": values.convert(rec.discharge, "flow", system),
+                          f"pitot [{up}]": pitot, f"outlet_diameter [{ud}]": dia,
+                          "coefficient": rec.coefficient if rec.flow is None else None,
+                          "pumper_factor": rec.factor, "outlet": o["uid"], "read_by": o["kind"]})
+        gh = (h.get("gauge_height") or {}).get("si", 0.0)
+        for g in h["gauges"]:
+            s, r = readings.get(f"static@{g}"), readings.get(f"residual@{g}")
+            if s is None and r is None:
+                continue
+            pressures.append({"test_id": t.test_id, "node": g,
+                              f"static [{up}]": None if s is None else values.convert(s.si_value, "pressure", system),
+                              f"residual [{up}]": None if r is None else values.convert(r.si_value, "pressure", system),
+                              f"gauge_height [{ul}]": values.convert(gh, "length", system)})
+        for b in h.get("boundary", []):
+            boundary.append({"test_id": t.test_id, "source": b["source"],
+                             f"head [{ul}]": values.convert(b["si"], "length", system)})
+        started = h.get("started_at", "")
+        tests.append({"test_id": t.test_id, "date": started[:10], "time": started[11:16],
+                      "crew": h.get("crew", ""), "area": t.area, "weather": h.get("weather", ""),
+                      "notes": h.get("notes", ""), "revision": t.current_revision, "status": t.status,
+                      f"rated_flow [{uq}]": None if res.rated_flow is None else
+                      values.convert(res.rated_flow, "flow", system),
+                      f"target [{up}]": values.convert(res.target, "pressure", system),
+                      "class": res.class_label})
+        path = folder / f"{t.test_id}.json"
+        fileio.write_text(path, json.dumps(test_record(service, t.test_id), indent=1, default=str))
+        written.append(path.name)
+    columns = {
+        "flows.csv": ["test_id", "node", f"flow [{uq}]", f"pitot [{up}]", f"outlet_diameter [{ud}]",
+                      "coefficient", "pumper_factor", "outlet", "read_by"],
+        "pressures.csv": ["test_id", "node", f"static [{up}]", f"residual [{up}]", f"gauge_height [{ul}]"],
+        "boundary.csv": ["test_id", "source", f"head [{ul}]"],
+        "tests.csv": ["test_id", "date", "time", "crew", "area", "weather", "notes", "revision",
+                      "status", f"rated_flow [{uq}]", f"target [{up}]", "class"],
+    }
+    for name, rows in zip(TABLES, (flows, pressures, boundary, tests)):
+        fileio.write_csv(folder / name, pd.DataFrame(rows, columns=columns[name]))
+        written.append(name)
+    return {"tests": len(tests), "files": written, "folder": str(folder)}
