@@ -39,6 +39,9 @@ STATIC_HIGH = 200.0 * PSI
 #: Common practice: a static that moved more than 2 psi between the start and the end of the test
 #: points to gauge drift or a system that changed (pump, tank, valve) during the test.
 STATIC_CHANGE = 2.0 * PSI
+#: Relative slack on every threshold so that a reading exactly at a limit (2 psi entered as psi and
+#: converted to Pa) is judged as entered, not by its last binary digit.
+_SLACK = 1e-9
 
 
 @dataclass(frozen=True)
@@ -72,12 +75,12 @@ def check_pressures(static: float, residual: float, system: str = "us") -> list[
             out.append(Finding(f"negative-{name}", "error",
                                f"The {name} reading ({fmt_pressure(value, system)}) is below zero. "
                                "Check the gauge and that it reads gauge pressure, then re-read."))
-    if static >= 0 and static > STATIC_HIGH:
+    if static > STATIC_HIGH * (1 + _SLACK):
         out.append(Finding("static-high", "warning",
                            f"The static ({fs}) is above {fmt_pressure(STATIC_HIGH, system)}, which is "
                            "unusual for a distribution main. Check the gauge range and the units.",
                            "common practice"))
-    elif 0 <= static < STATIC_LOW:
+    elif 0 <= static < STATIC_LOW * (1 - _SLACK):
         out.append(Finding("static-low", "warning",
                            f"The static ({fs}) is below {fmt_pressure(STATIC_LOW, system)}. Check the "
                            "gauge; do not flow this hydrant until the low pressure is explained.",
@@ -98,13 +101,13 @@ def check_drop(static: float, residual: float, system: str = "us") -> list[Findi
     if drop <= 0 or static <= 0:
         return []
     out = []
-    if drop < MIN_DROP:
+    if drop < MIN_DROP * (1 - _SLACK):
         out.append(Finding("drop-below-10psi", "warning",
                            f"The pressure dropped only {fmt_pressure(drop, system)}. Modelling practice asks "
                            f"for at least {fmt_pressure(MIN_DROP, system)} so that gauge error does not "
                            "swamp it (Walski 2000, JAWWA). Open another outlet or hydrant if it is safe.",
                            "Walski, Model calibration data: the good, the bad and the useless, JAWWA 2000"))
-    if drop < MIN_DROP_FRACTION * static:
+    if drop < MIN_DROP_FRACTION * static * (1 - _SLACK):
         out.append(Finding("drop-below-25pct", "warning",
                            f"The pressure dropped {100 * drop / static:.0f} % of the static; NFPA 291 "
                            "(2010 ed., 4.3.6) asks for at least 25 %, or a test at the flow needed for "
@@ -117,13 +120,13 @@ def check_pitots(pitots, system: str = "us") -> list[Finding]:
     """Pitot readings outside about 10 - 30 psi, where the reading is less reliable."""
     out = []
     for i, p in enumerate(np.asarray(pitots, dtype=float).ravel(), start=1):
-        if p < PITOT_LOW:
+        if p < PITOT_LOW * (1 - _SLACK):
             out.append(Finding("pitot-low", "warning",
                                f"Outlet {i}: the pitot reading ({fmt_pressure(p, system)}) is below "
                                f"{fmt_pressure(PITOT_LOW, system)}; NFPA 291 advises against such low "
                                "readings. Use a smaller outlet or fewer outlets.",
                                "NFPA 291 (from memory)"))
-        elif p > PITOT_HIGH:
+        elif p > PITOT_HIGH * (1 + _SLACK):
             out.append(Finding("pitot-high", "warning",
                                f"Outlet {i}: the pitot reading ({fmt_pressure(p, system)}) is above about "
                                f"{fmt_pressure(PITOT_HIGH, system)}; the stream is hard to read steadily. "
@@ -134,7 +137,7 @@ def check_pitots(pitots, system: str = "us") -> list[Finding]:
 
 def check_extrapolation(test_flow: float, rated: float, system: str = "us") -> list[Finding]:
     """Rated flow far beyond the flowed rate (ratio above ``MAX_EXTRAPOLATION``, common practice)."""
-    if not (test_flow > 0 and np.isfinite(rated)) or rated <= MAX_EXTRAPOLATION * test_flow:
+    if not (test_flow > 0 and np.isfinite(rated)) or rated <= MAX_EXTRAPOLATION * test_flow * (1 + _SLACK):
         return []
     return [Finding("far-extrapolation", "warning",
                     f"The rated flow is {rated / test_flow:.2f} times the flow tested; beyond "
@@ -144,7 +147,7 @@ def check_extrapolation(test_flow: float, rated: float, system: str = "us") -> l
 
 def check_residual_minimum(residual: float, system: str = "us") -> list[Finding]:
     """Residual below 20 psi during the test (NFPA 291): risk of vacuum and back-siphonage."""
-    if not (0 <= residual < MIN_RESIDUAL):
+    if not (0 <= residual < MIN_RESIDUAL * (1 - _SLACK)):
         return []
     return [Finding("residual-below-20psi", "error",
                     f"The residual fell to {fmt_pressure(residual, system)}, below "
@@ -155,7 +158,7 @@ def check_residual_minimum(residual: float, system: str = "us") -> list[Finding]
 
 def check_static_change(static: float, static_end: float | None, system: str = "us") -> list[Finding]:
     """Static that moved more than ``STATIC_CHANGE`` between the start and the end (common practice)."""
-    if static_end is None or abs(static_end - static) <= STATIC_CHANGE:
+    if static_end is None or abs(static_end - static) <= STATIC_CHANGE * (1 + _SLACK):
         return []
     return [Finding("static-changed", "warning",
                     f"The static was {fmt_pressure(static, system)} at the start and "

@@ -1,0 +1,186 @@
+"""``python -m calib flowtest``: the arithmetic of one hydrant flow test from the command line.
+
+Thin: parses the options into a ``calib.flowtest.FlowTest``, calls ``evaluate`` and prints the
+discharge, rated flow, NFPA 291 class, findings and the cautions (or one JSON object with ``--json``).
+Bad input raises ``FlowTestError`` naming the option, which the dispatcher turns into exit code 2.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+
+from calib.errors import FlowTestError, Problem
+from calib.flowtest import CAUTIONS, FlowTest, Outlet, evaluate
+from calib.flowtest.findings import fmt_pressure
+from calib.flowtest.pitot import OUTLET_COEFFICIENTS
+from calib.units import DISPLAY, from_si, to_si
+
+#: Default unit of a bare number, by option kind and unit system.
+_BARE = {"us": {"pressure": "psi", "diameter": "in", "flow": "gpm", "elevation": "ft", "length": "ft"},
+         "si": {"pressure": "kPa", "diameter": "mm", "flow": "L/s", "elevation": "m", "length": "m"}}
+#: Plausible ranges shown in messages.
+_RANGE = {
+    "--static": "10 - 200 psi (70 - 1400 kPa)",
+    "--static-end": "10 - 200 psi (70 - 1400 kPa)",
+    "--residual": "20 psi (140 kPa) up to the static",
+    "--target": "0 up to the static, usually 20 psi (140 kPa)",
+    "--pitot": "10 - 30 psi (70 - 210 kPa) for a good reading",
+    "--outlet": "1.5 - 6 in (38 - 150 mm), usually 2.5 in or 4.5 in",
+    "--flow": "a measured flow such as 800 gpm or 50 L/s",
+    "--coefficient": "0.70 - 0.90 (NFPA 291 outlet figure)",
+    "--elevation": "an elevation such as 120 ft or 35 m",
+    "--gauge-height": "0 - 3 ft (0 - 1 m)",
+}
+
+
+def register(subparsers) -> None:
+    p = subparsers.add_parser(
+        "flowtest", help="discharge, rated flow, NFPA 291 class and findings of one hydrant flow test",
+        description="Arithmetic of one hydrant flow test (NFPA 291 formulas). Values take a unit "
+                    "(72psi, 496kPa, 2.5in, 64mm); a bare number is in the --units system "
+                    "(psi, in, gpm, ft or kPa, mm, L/s, m). Several --pitot/--outlet pairs for "
+                    "several outlets or hydrants; their flows are summed.")
+    p.add_argument("--static", required=True, help="static pressure at the residual hydrant")
+    p.add_argument("--residual", required=True, help="residual pressure while flowing")
+    p.add_argument("--pitot", action="append", default=[], help="pitot reading of an outlet (repeat)")
+    p.add_argument("--outlet", action="append", default=[], help="inside diameter of that outlet (repeat)")
+    p.add_argument("--outlet-shape", action="append", default=[], choices=sorted(OUTLET_COEFFICIENTS),
+                   help="outlet shape: one for all outlets or one per outlet (default smooth)")
+    p.add_argument("--coefficient", action="append", default=[],
+                   help="outlet coefficient instead of the shape's: one for all or one per outlet")
+    p.add_argument("--pumper", action="store_true",
+                   help="outlets are pumper outlets read without a flow tube (extra NFPA 291 factor)")
+    p.add_argument("--flow", action="append", default=[],
+                   help="a flow read directly (meter, or diffuser with its own coefficient); repeat")
+    p.add_argument("--target", default=None, help="target residual for the rating (default 20 psi)")
+    p.add_argument("--static-end", default=None, help="static pressure read again after the test")
+    p.add_argument("--elevation", default=None, help="elevation of the residual hydrant (gives grades)")
+    p.add_argument("--gauge-height", default="0", help="height of the gauge above that elevation")
+    p.add_argument("--units", choices=("us", "si"), default="us", help="units of bare numbers and output")
+    p.add_argument("--json", action="store_true", help="print one JSON object instead of text")
+    p.set_defaults(func=run)
+
+
+def _value(text, kind: str, option: str, units: str) -> float:
+    try:
+        return to_si(text, kind, _BARE[units][kind])
+    except (ValueError, TypeError) as exc:
+        message = str(exc).split(" (expected")[0]  # the plausible range below says it better
+        raise FlowTestError(Problem(message, field=option, expected=_RANGE.get(option))) from exc
+
+
+def _bad(option: str, message: str):
+    raise FlowTestError(Problem(message, field=option, expected=_RANGE.get(option)))
+
+
+def _per_outlet(values: list, n: int, option: str) -> list:
+    if not values:
+        return [None] * n
+    if len(values) == 1:
+        return values * n
+    if len(values) != n:
+        _bad(option, f"{len(values)} values given for {n} outlets: give one for all or one per outlet")
+    return values
+
+
+def build_test(args) -> FlowTest:
+    """The ``FlowTest`` an argument namespace describes; raises ``FlowTestError`` naming the option."""
+    u = args.units
+    static = _value(args.static, "pressure", "--static", u)
+    residual = _value(args.residual, "pressure", "--residual", u)
+    target = _value(args.target if args.target is not None else "20 psi", "pressure", "--target", u)
+    static_end = None if args.static_end is None else _value(args.static_end, "pressure", "--static-end", u)
+    for option, value in (("--static", static), ("--residual", residual), ("--target", target),
+                          ("--static-end", static_end)):
+        if value is not None and (not math.isfinite(value) or value < 0):
+            _bad(option, f"a gauge pressure cannot be below zero ({fmt_pressure(value, u)})")
+    if residual >= static:
+        _bad("--residual", f"the residual ({fmt_pressure(residual, u)}) must be below the static "
+             f"({fmt_pressure(static, u)}); re-read both gauges")
+    if target >= static:
+        _bad("--target", f"the target ({fmt_pressure(target, u)}) must be below the static "
+             f"({fmt_pressure(static, u)})")
+    if len(args.pitot) != len(args.outlet):
+        _bad("--outlet", f"{len(args.pitot)} --pitot and {len(args.outlet)} --outlet given: give them "
+             "in pairs, one --outlet diameter per --pitot reading")
+    n = len(args.pitot)
+    if n == 0 and not args.flow:
+        _bad("--pitot", "give at least one --pitot/--outlet pair or a --flow")
+    shapes = _per_outlet(args.outlet_shape, n, "--outlet-shape") if n else []
+    coefficients = _per_outlet(args.coefficient, n, "--coefficient") if n else []
+    outlets = []
+    for i in range(n):
+        pitot = _value(args.pitot[i], "pressure", "--pitot", u)
+        diameter = _value(args.outlet[i], "diameter", "--outlet", u)
+        if not math.isfinite(pitot) or pitot < 0:
+            _bad("--pitot", f"pitot reading {args.pitot[i]} is below zero")
+        if not math.isfinite(diameter) or diameter <= 0:
+            _bad("--outlet", f"outlet diameter {args.outlet[i]} must be more than zero")
+        coefficient = None
+        if coefficients[i] is not None:
+            try:
+                coefficient = float(coefficients[i])
+            except ValueError:
+                _bad("--coefficient", f"'{coefficients[i]}' is not a number")
+            if not 0 < coefficient <= 1:
+                _bad("--coefficient", f"outlet coefficient {coefficient} is out of range")
+        outlets.append(Outlet(diameter=diameter, coefficient=coefficient, shape=shapes[i] or "smooth",
+                              pitot=pitot, pumper=args.pumper))
+    for text in args.flow:
+        flow = _value(text, "flow", "--flow", u)
+        if not math.isfinite(flow) or flow <= 0:
+            _bad("--flow", f"a measured flow must be more than zero, not {text}")
+        outlets.append(Outlet(flow=flow))
+    elevation = None if args.elevation is None else _value(args.elevation, "elevation", "--elevation", u)
+    gauge_height = _value(args.gauge_height, "length", "--gauge-height", u)
+    return FlowTest(static=static, residual=residual, outlets=outlets, target=target,
+                    static_end=static_end, elevation=elevation, gauge_height=gauge_height)
+
+
+def format_text(result, system: str) -> str:
+    """The text report of a result in ``system`` units."""
+    du = DISPLAY[system]
+    t = result.test
+
+    def q(v):
+        return f"{from_si(v, 'flow', du['flow']):.1f} {du['flow']}"
+
+    lines = [f"Flow test - NFPA 291 arithmetic ({'US' if system == 'us' else 'SI'} units, gauge pressures)",
+             f"  static {fmt_pressure(t.static, system)}, residual {fmt_pressure(t.residual, system)}, "
+             f"drop {fmt_pressure(result.drop, system)} ({100 * result.drop_fraction:.1f} % of static)"]
+    if t.static_end is not None:
+        lines.append(f"  static at the end {fmt_pressure(t.static_end, system)}")
+    for i, (o, flow) in enumerate(zip(t.outlets, result.outlet_flows), start=1):
+        if o.flow is not None:
+            lines.append(f"  outlet {i}: measured flow {q(flow)}")
+        else:
+            d = from_si(o.diameter, "diameter", du["diameter"])
+            extra = f", pumper factor {o.factor:.2f}" if o.pumper else ""
+            lines.append(f"  outlet {i}: {d:.4g} {du['diameter']}, c {o.coefficient:.2f}{extra}, "
+                         f"pitot {fmt_pressure(o.pitot, system)} -> {q(flow)}")
+    lines.append(f"  discharge (sum of outlets): {q(result.flow)}")
+    lines.append(f"  rated flow at {fmt_pressure(t.target, system)} residual: {q(result.rated_flow)}")
+    cls = result.hydrant_class
+    lines.append(f"  class: {cls.title}")
+    lines.append(f"    {cls.note}")
+    if result.residual_grade is not None:
+        lines.append(f"  hydraulic grade at the gauge: static {from_si(result.static_grade, 'head', du['head']):.2f} "
+                     f"{du['head']}, residual {from_si(result.residual_grade, 'head', du['head']):.2f} {du['head']}")
+    lines.append("Findings:" if result.findings else "Findings: none")
+    lines += [f"  [{f.severity}] {f.message}" for f in result.findings]
+    lines.append("Cautions:")
+    lines += [f"  - {c}" for c in CAUTIONS]
+    return "\n".join(lines)
+
+
+def run(args: argparse.Namespace) -> int:
+    test = build_test(args)
+    result = evaluate(test, system=args.units)
+    if args.json:
+        doc = {"command": "flowtest", **result.to_dict(args.units), "cautions": list(CAUTIONS)}
+        print(json.dumps(doc, indent=2, allow_nan=False))
+    else:
+        print(format_text(result, args.units))
+    return 0
