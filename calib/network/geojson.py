@@ -128,7 +128,8 @@ def read_geojson(path) -> Network:
               if name != "pumps" or c.rows}
     network_tables = NetworkTables(parsed["junctions"], parsed["sources"], parsed["pipes"],
                                    parsed.get("pumps"))
-    return validate.assemble(network_tables, problems, name=path.stem,
+    name = path.stem if path.stem != "network" else (path.parent.name or "network")
+    return validate.assemble(network_tables, problems, name=name,
                              pipe_geometry=geometry["pipes"])
 
 
