@@ -1,0 +1,391 @@
+"""The calibration fit: bounded weighted least squares, honest intervals, flags, fit statistics.
+
+Method (published names kept):
+- Bounded nonlinear weighted least squares, ``scipy.optimize.least_squares`` (trust-region reflective),
+  weights 1/sigma per reading, an optional robust loss (``soft_l1``, ``huber``); C bounded (40-160 by
+  default). Weighted least squares over several loadings after Lansey and Basnet (1991), J. Water
+  Resour. Plann. Manage. 117(1).
+- Covariance ``Cov = s^2 (J^T W J)^-1`` (Bard 1974, *Nonlinear Parameter Estimation*) from the final
+  analytic Jacobian through an SVD pseudo-inverse that cuts singular values below
+  ``eps * max(m, n) * s_max`` (as ``scipy.optimize.curve_fit`` does); a parameter with a part in the cut
+  space is *undetermined* (infinite interval), never given a narrow one. ``s^2 = 1`` (the stated sigma)
+  unless a chi-square test of the weighted sum of squares S on n - p degrees of freedom rejects it at
+  the 5 % level on the high side; then ``s^2 = S / (n - p)``. 95 % intervals ``theta +/- t(0.975, n-p)
+  sqrt(Cov_ii)``.
+- A gross error must not drag the others: readings flagged by the face checks are left out from the
+  start; readings whose standardized residual exceeds the threshold after a first fit are left out of a
+  second fit; both fits are reported and the second is the result.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy import optimize, stats
+
+from calib import units
+from calib.calibration import criteria as _criteria
+from calib.calibration import flags as _flags
+from calib.calibration.groups import Grouping, make_groups
+from calib.calibration.priors import GroupPrior, group_prior
+from calib.calibration.problem import CalibrationProblem
+from calib.errors import CalibrationError, InputError
+
+LOSSES = ("linear", "soft_l1", "huber", "cauchy")
+
+
+@dataclass
+class Estimate:
+    """One least-squares solution with its covariance."""
+
+    x: np.ndarray
+    sd: np.ndarray  # inf where undetermined
+    low: np.ndarray
+    high: np.ndarray
+    cov: np.ndarray
+    undetermined: np.ndarray  # bool
+    at_bound: np.ndarray  # bool
+    s2: float  # variance factor used (1.0 = stated sigma)
+    scaled: bool
+    chi2: float  # weighted sum of squares S
+    dof: int
+    chi2_p: float
+    t: float
+    nfev: int
+    message: str
+    jac: np.ndarray  # weighted Jacobian at x (readings then prior rows)
+    residual: np.ndarray  # weighted residuals at x
+    used: np.ndarray  # bool over all readings
+
+
+@dataclass
+class FitResult:
+    """Everything the exports, the report and the command line show."""
+
+    network: object
+    tests: object
+    grouping: Grouping
+    prior: GroupPrior | None
+    params: list
+    estimate: Estimate  # the result (without the gross errors)
+    first: Estimate | None  # the fit with every reading that passed the face checks, when a refit was made
+    corr: np.ndarray
+    move_together: list  # (name_i, name_j, r)
+    informed: np.ndarray  # per group: share of its precision from the tests (0-1)
+    status: list  # per group: "informed" | "weakly informed" | "undetermined"
+    simulated: np.ndarray  # per reading: simulated gauge pressure [Pa]
+    z: np.ndarray  # per reading: standardized residual
+    cook: np.ndarray  # per reading: Cook's distance (nan for readings left out)
+    flag: list  # per reading: "" or a short reason
+    rmse: float  # [Pa] over readings used
+    criteria: list
+    max_headloss: float  # [m], largest head loss across the system in a static snapshot
+    findings: list = field(default_factory=list)
+    n_solves: int = 0
+    options: dict = field(default_factory=dict)
+
+    # --- convenience views -------------------------------------------------------------------
+    @property
+    def c(self) -> np.ndarray:
+        """Fitted C per group."""
+        return self.estimate.x[self._c_cols]
+
+    @property
+    def _c_cols(self):
+        return np.array([i for i, p in enumerate(self.params) if p.kind == "c"], dtype=np.int64)
+
+    @property
+    def c_low(self) -> np.ndarray:
+        return self.estimate.low[self._c_cols]
+
+    @property
+    def c_high(self) -> np.ndarray:
+        return self.estimate.high[self._c_cols]
+
+    @property
+    def c_sd(self) -> np.ndarray:
+        return self.estimate.sd[self._c_cols]
+
+    def roughness(self) -> np.ndarray:
+        """Per-pipe calibrated C (pipes in no group keep the model's)."""
+        c = self.network.roughness.copy()
+        sel = self.grouping.index >= 0
+        c[sel] = self.c[self.grouping.index[sel]]
+        return c
+
+    @property
+    def residual(self) -> np.ndarray:
+        """Observed minus simulated gauge pressure per reading [Pa]."""
+        return self.tests.pressure - self.simulated
+
+
+def covariance(J: np.ndarray, rcond: float | None = None):
+    """Pseudo-inverse of ``J^T J`` by SVD, and which parameters the cut singular values leave undetermined.
+
+    Returns ``(cov, undetermined)``; variances of undetermined parameters are set to inf.
+    """
+    J = np.asarray(J, float)
+    p = J.shape[1]
+    if J.shape[0] == 0 or not np.any(J):
+        return np.full((p, p), np.inf), np.ones(p, dtype=bool)
+    _, s, vt = np.linalg.svd(J, full_matrices=False)
+    cut = (np.finfo(float).eps * max(J.shape) if rcond is None else rcond) * s[0]
+    keep = s > cut
+    vk = vt[keep]
+    cov = (vk.T / s[keep] ** 2) @ vk
+    # theta_i has a finite variance only when e_i lies in the row space kept: |V_k^T e_i|^2 = 1
+    undetermined = 1.0 - np.sum(vk ** 2, axis=0) > 1e-6
+    cov[undetermined, :] = np.nan
+    cov[:, undetermined] = np.nan
+    cov[undetermined, undetermined] = np.inf
+    return cov, undetermined
+
+
+def _estimate(problem: CalibrationProblem, x0, loss, f_scale, max_nfev, used) -> Estimate:
+    sol = optimize.least_squares(problem.residuals, x0, jac=problem.jacobian,
+                                 bounds=(problem.lower, problem.upper), method="trf", loss=loss,
+                                 f_scale=f_scale, x_scale="jac", max_nfev=max_nfev,
+                                 xtol=1e-10, ftol=1e-10, gtol=1e-10)
+    x = sol.x
+    r = problem.residuals(x)
+    J = problem.jacobian(x)
+    cov1, undetermined = covariance(J)
+    n_rows, p = J.shape
+    # prior rows are observations too (of the parameters), so they count in n
+    dof = int(n_rows - p)
+    S = float(r @ r)
+    if dof > 0:
+        chi2_p = float(stats.chi2.sf(S, dof))
+        scaled = chi2_p < 0.05
+        s2 = S / dof if scaled else 1.0
+        t = float(stats.t.ppf(0.975, dof))
+    else:
+        chi2_p, scaled, s2, t = float("nan"), False, 1.0, float(stats.norm.ppf(0.975))
+    cov = cov1 * s2
+    sd = np.sqrt(np.where(np.isfinite(np.diag(cov)), np.diag(cov), np.inf))
+    sd[undetermined] = np.inf
+    tol = 1e-6 * np.maximum(1.0, np.abs(problem.upper - problem.lower))
+    at_bound = (x - problem.lower < tol) | (problem.upper - x < tol)
+    return Estimate(x=x, sd=sd, low=x - t * sd, high=x + t * sd, cov=cov, undetermined=undetermined,
+                    at_bound=at_bound, s2=s2, scaled=scaled, chi2=S, dof=dof, chi2_p=chi2_p, t=t,
+                    nfev=int(sol.nfev), message=str(sol.message), jac=J, residual=r, used=used)
+
+
+def _resolve_prior(prior, network, grouping, tests, year):
+    if prior is None or (isinstance(prior, str) and prior.lower() == "none"):
+        return None
+    if isinstance(prior, GroupPrior):
+        return prior
+    if isinstance(prior, str) and prior.lower() == "handbook":
+        if year is None:
+            year = _test_year(tests)
+        return group_prior(network, grouping, year)
+    raise InputError(f"unknown prior '{prior}'", field="--prior", expected="handbook or none")
+
+
+def _test_year(tests) -> float:
+    """Year of the tests (from tests.csv dates), else this year; used to age cast iron."""
+    years = []
+    for d in tests.days:
+        try:
+            years.append(_dt.date.fromisoformat(d[:10]).year)
+        except (ValueError, TypeError):
+            pass
+    return float(np.median(years)) if years else float(_dt.date.today().year)
+
+
+def fit(network, tests, group_by: str | None = None, grouping: Grouping | None = None,
+        prior="handbook", c_bounds=(40.0, 160.0), loss: str = "linear", demand_factor: bool = False,
+        source_offsets: bool = False, threshold: float = 3.0, refit: bool = True,
+        influence: bool = True, solver=None, progress=None, year: float | None = None,
+        max_nfev: int = 60) -> FitResult:
+    """Fit group C-factors (and optional demand factors, source grade offsets) to a ``TestSet``.
+
+    ``prior``: ``"handbook"`` (``priors.group_prior``), ``"none"``/None, or a ``GroupPrior``.
+    ``threshold``: |standardized residual| above which a reading is flagged and left out of the refit.
+    ``influence``: leave-one-out refits of the most influential remaining readings (Cook's D > 4/n, at
+    most three) to say how far each moves the C-factors.
+    ``progress(n_solves, stage)`` is called after every solver call.
+    """
+    if loss not in LOSSES:
+        raise InputError(f"unknown loss '{loss}'", field="--loss", expected=", ".join(LOSSES))
+    if threshold <= 0:
+        raise InputError(f"threshold {threshold} must be positive", field="threshold",
+                         expected="about 3 standardized units")
+    grouping = grouping if grouping is not None else make_groups(network, group_by)
+    gp = _resolve_prior(prior, network, grouping, tests, year)
+    if solver is None:
+        from calib.hydraulics import NetworkSolver
+        solver = NetworkSolver(network, headloss="hazen-williams")
+    count = {"n": 0, "stage": "fit"}
+
+    def tick(n_total):
+        count["n"] += 1
+        if progress is not None:
+            progress(count["n"], count["stage"])
+
+    def make(subset_mask, x0=None):
+        return CalibrationProblem(network, tests.subset(subset_mask), grouping, prior=gp,
+                                  c_bounds=c_bounds, demand_factor=demand_factor,
+                                  source_offsets=source_offsets, solver=solver, progress=tick, x0=x0)
+
+    n = tests.n_readings
+    if n == 0:
+        raise CalibrationError("the tests folder has no gauge readings to fit")
+    face = _flags.face_checks(network, tests)
+    flag = [""] * n
+    for i, reason in face.items():
+        flag[i] = reason
+    used0 = np.array([f == "" for f in flag])
+    if not used0.any():
+        raise CalibrationError("every reading fails a face check; nothing left to fit")
+    f_scale = 2.0  # robust losses act beyond about 2 standardized units
+
+    count["stage"] = "fit"
+    prob = make(used0)
+    est = _estimate(prob, prob.x0, loss, f_scale, max_nfev, used0)
+    first = None
+    z_used, cook_used = _diagnostics(est, prob)
+    gross = np.zeros(n, dtype=bool)
+    gross[np.flatnonzero(used0)[np.abs(z_used) > threshold]] = True
+    if refit and gross.any() and (used0 & ~gross).any():
+        first = est
+        count["stage"] = "refit without flagged readings"
+        used1 = used0 & ~gross
+        prob = make(used1, x0=est.x)
+        est = _estimate(prob, est.x, loss, f_scale, max_nfev, used1)
+        z_used, cook_used = _diagnostics(est, prob)
+
+    # simulated values for every reading (left-out ones too) at the final parameters
+    count["stage"] = "simulate every reading"
+    full = make(np.ones(n, dtype=bool), x0=est.x)
+    h_sim = full.simulated_head(est.x)
+    results = full.solve(est.x)
+    simulated = units.head_to_pressure(h_sim - tests.elevation - tests.gauge_height)
+    # shown as observed minus simulated; for left-out readings it is the prediction error
+    z = (tests.hgl - h_sim) / tests.sigma_head
+    z[est.used] = -z_used
+    cook = np.full(n, np.nan)
+    cook[est.used] = cook_used
+    p = prob.n_params
+    for i in np.flatnonzero(gross):
+        flag[i] = f"standardized residual {z[i]:+.1f} beyond +/-{threshold:g}; left out of the refit"
+    # a reading that survives the refit but is still beyond the threshold
+    for i in np.flatnonzero(est.used & (np.abs(z) > threshold)):
+        flag[i] = f"standardized residual {z[i]:+.1f} beyond +/-{threshold:g}"
+    findings: list[str] = []
+
+    # influence: Cook's distance, then leave-one-out refits of the strongest candidates
+    n_used = int(est.used.sum())
+    used_idx = np.flatnonzero(est.used)
+    for i in used_idx[cook[used_idx] > 1.0]:
+        if not flag[i]:
+            flag[i] = f"influential: Cook's distance {cook[i]:.2f} > 1"
+    if influence and n_used > p + 1:
+        cand = [i for i in used_idx[np.argsort(-cook[used_idx])][:3] if cook[i] > 4.0 / n_used]
+        sd_c = est.sd[prob.c_cols]
+        for i in cand:
+            count["stage"] = f"leave-one-out {i}"
+            mask = est.used.copy()
+            mask[i] = False
+            loo_prob = make(mask, x0=est.x)
+            loo = optimize.least_squares(loo_prob.residuals, est.x, jac=loo_prob.jacobian,
+                                         bounds=(loo_prob.lower, loo_prob.upper), method="trf",
+                                         loss=loss, f_scale=f_scale, x_scale="jac", max_nfev=20)
+            shift = np.abs(loo.x[prob.c_cols] - est.x[prob.c_cols])
+            rel = np.where(np.isfinite(sd_c) & (sd_c > 0), shift / np.where(sd_c > 0, sd_c, 1), 0.0)
+            g = int(np.argmax(rel))
+            if rel[g] > 1.0:
+                text = (f"influential: leaving it out moves C of {grouping.names[g]} by "
+                        f"{shift[g]:.1f} ({rel[g]:.1f} sd)")
+                flag[i] = flag[i] + "; " + text if flag[i] else text
+
+    # identifiability
+    cov = est.cov
+    d = np.sqrt(np.abs(np.diag(cov)))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        corr = cov / np.outer(d, d)
+    corr[~np.isfinite(corr)] = np.nan
+    np.fill_diagonal(corr, 1.0)
+    names = [q.name for q in prob.params]
+    together = [(names[a], names[b], float(corr[a, b])) for a in range(p) for b in range(a + 1, p)
+                if np.isfinite(corr[a, b]) and abs(corr[a, b]) > 0.9]
+    sd_c = est.sd[prob.c_cols]
+    if gp is not None:
+        # share of each group's precision that comes from the tests: 1 - posterior var / prior var
+        post_var = sd_c ** 2 / est.s2
+        informed = np.clip(1.0 - post_var / gp.spread ** 2, 0.0, 1.0)
+        informed[~np.isfinite(informed)] = 0.0
+        status = ["informed" if s > 0.75 else "weakly informed" if s > 0.25 else "undetermined"
+                  for s in informed]
+    else:
+        half = est.t * sd_c
+        informed = np.where(np.isfinite(half), 1.0 / (1.0 + (half / 10.0) ** 2), 0.0)
+        status = ["undetermined" if not np.isfinite(h) or h > 50 else
+                  "weakly informed" if h > 15 else "informed" for h in half]
+
+    # statistics and criteria over the readings used
+    resid_pa = tests.pressure - simulated
+    rmse = float(np.sqrt(np.mean(resid_pa[est.used] ** 2)))
+    max_hl = 0.0
+    nj = network.n_junctions
+    for (t, kind), res in zip(full.pairs, results):
+        if kind == "static":
+            head = np.asarray(res.head, float)
+            max_hl = max(max_hl, float(np.max(head[nj:]) - np.min(head[:nj]))) if nj and \
+                network.n_sources else max_hl
+    head_err = units.pressure_to_head(resid_pa[est.used])
+    crit = _criteria.wrc_1989(head_err, max_hl) + _criteria.awwa_ecac_1999(resid_pa[est.used])
+
+    # findings in words
+    scale_text = (f"the weighted sum of squares {est.chi2:.1f} on {est.dof} degrees of freedom "
+                  f"(chi-square p = {est.chi2_p:.3g})")
+    if est.scaled:
+        findings.append(f"Intervals are scaled by the residual variance s^2 = {est.s2:.2f}: {scale_text} "
+                        "says the stated gauge sigma is too small for these readings.")
+    else:
+        findings.append(f"Intervals use the stated gauge sigma: {scale_text} does not reject it.")
+    for g, name in enumerate(grouping.names):
+        col = prob.c_cols[g]
+        if status[g] == "undetermined":
+            where = (f"stays near its prior {gp.c[g]:.0f} with the prior's width" if gp is not None
+                     else "has an infinite or very wide interval")
+            findings.append(f"Group {name}: no test determines it; its C {where}.")
+        if est.at_bound[col]:
+            findings.append(f"Group {name}: C {est.x[col]:.1f} is at a bound of "
+                            f"{c_bounds[0]:g}-{c_bounds[1]:g}; its interval is not reliable. Check the "
+                            "model (closed valves, diameters) before trusting it.")
+    for a, b, r in together:
+        findings.append(f"{a} and {b} move together (correlation {r:+.2f}): the tests determine a "
+                        "combination of them better than each alone.")
+    if first is not None:
+        moved = np.abs(first.x[prob.c_cols] - est.x[prob.c_cols])
+        findings.append(f"{int(gross.sum())} reading(s) beyond the threshold were left out and the fit "
+                        f"repeated; C moved by up to {moved.max():.1f} between the two fits "
+                        "(both are in groups.csv).")
+    for i, reason in face.items():
+        findings.append(f"Reading {tests.test_ids[tests.test[i]]} / {network.node_ids[tests.node[i]]} "
+                        f"({tests.kind[i]}) fails a face check: {reason}; left out.")
+    if loss != "linear":
+        findings.append(f"Robust loss '{loss}' (f_scale {f_scale:g} standardized units): the intervals "
+                        "are the linearized ones at the solution.")
+    findings.extend(tests.notes)
+
+    return FitResult(network=network, tests=tests, grouping=grouping, prior=gp, params=prob.params,
+                     estimate=est, first=first, corr=corr, move_together=together, informed=informed,
+                     status=status, simulated=simulated, z=z, cook=cook, flag=flag, rmse=rmse,
+                     criteria=crit, max_headloss=max_hl, findings=findings, n_solves=count["n"],
+                     options=dict(group_by=group_by or "group column", prior=prior if isinstance(prior, str)
+                                  else ("none" if prior is None else "given"), c_bounds=tuple(c_bounds),
+                                  loss=loss, demand_factor=demand_factor, source_offsets=source_offsets,
+                                  threshold=threshold))
+
+
+def _diagnostics(est: Estimate, problem: CalibrationProblem):
+    """Standardized residuals and Cook's distances of the readings used in ``est``."""
+    n = problem.n_readings
+    h = _flags.leverage(est.jac, n)
+    z = _flags.standardized(est.residual[:n], h)
+    return z, _flags.cooks_distance(z, h, problem.n_params)

@@ -1,0 +1,258 @@
+"""The weighted least-squares problem of C-factor calibration: parameters, residuals and Jacobian.
+
+Parameters, in this order: one Hazen-Williams C per group; optionally a demand factor per test day;
+optionally a grade offset [m] per source per test where boundary.csv gives no head for it.
+
+Each test gives two snapshots: *static* (normal demand) and *residual* (normal demand plus the test's
+flows at their nodes). Both kinds of reading are observations: static readings mostly inform the source
+grades and demands, residual readings the C-factors. A reading's residual row is
+``(H_sim - H_obs) / sigma`` in head [m / m]; a prior adds rows ``(C_g - C_prior_g) / spread_g``.
+
+The Jacobian is analytic: at each converged snapshot, implicit differentiation of the solver's
+equations (Todini and Pilati global gradient system) gives dH/dp for all parameters with one
+factorization (``NetworkSolver.sensitivities``):
+``[[D, A12], [A21, 0]] [dQ; dH] = -[dF1/dp; dF2/dp]``, with dF1_k/dC_g = dh_k/dC_k for pipes k of
+group g (Hazen-Williams: -1.852 h_k / C_k), dF2_i/d(demand factor) = -base demand_i, and for a source
+grade H_s: dF1_k = -1 where from_k = s, +1 where to_k = s.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.sparse as sp
+
+from calib.errors import CalibrationError
+
+
+@dataclass
+class Parameter:
+    """One fitted unknown."""
+
+    name: str
+    kind: str  # "c" | "demand" | "offset"
+    index: int  # group number, day number, or (test, source) position in the offset list
+    x0: float
+    lower: float
+    upper: float
+
+
+class CalibrationProblem:
+    """Residuals and Jacobian of the calibration for one network, one set of readings and groups.
+
+    ``solver`` follows the ``calib.hydraulics.NetworkSolver`` contract; it is built here when None.
+    ``prior`` is a ``priors.GroupPrior`` or None. ``progress(n_solves)`` is called after every solve.
+    """
+
+    def __init__(self, network, tests, grouping, prior=None, c_bounds=(40.0, 160.0),
+                 demand_factor: bool = False, source_offsets: bool = False, solver=None,
+                 progress=None, x0=None):
+        if solver is None:
+            from calib.hydraulics import NetworkSolver
+            solver = NetworkSolver(network, headloss="hazen-williams")
+        self.network, self.tests, self.grouping, self.prior = network, tests, grouping, prior
+        self.solver = solver
+        self.progress = progress
+        self.n_solves = 0
+        lo, hi = float(c_bounds[0]), float(c_bounds[1])
+        if not 0 < lo < hi:
+            raise CalibrationError(f"C bounds {lo:g}, {hi:g} are not an increasing positive pair")
+        self.c_bounds = (lo, hi)
+        nj = network.n_junctions
+
+        # --- parameters ---------------------------------------------------------------------
+        params: list[Parameter] = []
+        base_c = self._group_start(network, grouping)
+        if prior is not None:
+            base_c = np.asarray(prior.c, float)
+        for g, name in enumerate(grouping.names):
+            params.append(Parameter(f"C {name}", "c", g, float(np.clip(base_c[g], lo + 1e-6, hi - 1e-6)),
+                                    lo, hi))
+        used_tests = sorted(set(tests.test.tolist()))
+        if demand_factor:
+            used_days = sorted({int(tests.day[t]) for t in used_tests})
+            for d in used_days:
+                label = tests.days[d] or "all tests"
+                params.append(Parameter(f"demand factor {label}", "demand", d, 1.0, 0.1, 5.0))
+        self.offsets: list[tuple[int, int]] = []  # (test, source node)
+        if source_offsets:
+            for t in used_tests:
+                for s in range(nj, network.n_nodes):
+                    if s not in tests.source_head[t]:
+                        params.append(Parameter(f"grade offset {network.node_ids[s]} in test "
+                                                f"{tests.test_ids[t]}", "offset", len(self.offsets),
+                                                0.0, -30.0, 30.0))
+                        self.offsets.append((t, s))
+        self.params = params
+        self.kind = np.array([p.kind for p in params], dtype=object)
+        self.c_cols = np.flatnonzero(self.kind == "c")
+        self.x0 = np.array([p.x0 for p in params]) if x0 is None else np.asarray(x0, float)
+        self.lower = np.array([p.lower for p in params])
+        self.upper = np.array([p.upper for p in params])
+        self.day_col = {p.index: i for i, p in enumerate(params) if p.kind == "demand"}
+        self.offset_col = {self.offsets[p.index]: i for i, p in enumerate(params) if p.kind == "offset"}
+
+        # --- snapshots: (test, kind) pairs that have readings ------------------------------------
+        pairs = sorted({(int(t), str(k)) for t, k in zip(tests.test, tests.kind)})
+        self.pairs = pairs
+        pos = {pair: i for i, pair in enumerate(pairs)}
+        self.reading_snapshot = np.array([pos[(int(t), str(k))] for t, k in zip(tests.test, tests.kind)],
+                                         dtype=np.int64)
+        self.h_obs = tests.hgl
+        self.sigma_h = tests.sigma_head
+        if len(self.h_obs) == 0:
+            raise CalibrationError("no gauge readings to fit")
+
+        # --- constant parts of dF/dp --------------------------------------------------------
+        n_pipes = network.n_pipes
+        self.n_links = n_pipes + len(network.pumps)
+        link_from = np.concatenate([network.pipe_from, network.pumps.from_node]).astype(np.int64)
+        link_to = np.concatenate([network.pipe_to, network.pumps.to_node]).astype(np.int64)
+        self._source_incidence = {}
+        for (t, s), col in self.offset_col.items():
+            v = np.where(link_from == s, -1.0, 0.0) + np.where(link_to == s, 1.0, 0.0)
+            self._source_incidence[(t, s)] = (np.flatnonzero(v), v[v != 0])
+        self.grouped = np.flatnonzero(grouping.index >= 0)
+        self._cache_key = None
+        self._cache = None
+
+    @staticmethod
+    def _group_start(network, grouping) -> np.ndarray:
+        """Length-weighted model C of each group: the start when there is no prior."""
+        sel = grouping.index >= 0
+        w = network.length[sel]
+        tot = np.bincount(grouping.index[sel], weights=w, minlength=grouping.n_groups)
+        num = np.bincount(grouping.index[sel], weights=w * network.roughness[sel],
+                          minlength=grouping.n_groups)
+        return num / np.where(tot > 0, tot, 1.0)
+
+    # --- sizes ----------------------------------------------------------------------------------
+    @property
+    def n_params(self) -> int:
+        return len(self.params)
+
+    @property
+    def n_readings(self) -> int:
+        return len(self.h_obs)
+
+    @property
+    def n_prior_rows(self) -> int:
+        return 0 if self.prior is None else self.grouping.n_groups
+
+    # --- model ------------------------------------------------------------------------------------
+    def roughness(self, x) -> np.ndarray:
+        """Per-pipe C for parameter vector ``x`` (pipes in no group keep the model's C)."""
+        c = self.network.roughness.copy()
+        c[self.grouped] = np.asarray(x)[self.c_cols][self.grouping.index[self.grouped]]
+        return c
+
+    def snapshots(self, x):
+        """The ``Snapshot`` of every (test, kind) pair at parameters ``x``."""
+        from calib.hydraulics import Snapshot
+        net, tests = self.network, self.tests
+        out = []
+        for t, kind in self.pairs:
+            heads = {str(net.node_ids[s]): float(h) for s, h in tests.source_head[t].items()}
+            for (tt, s), col in self.offset_col.items():
+                if tt == t:
+                    nj = net.n_junctions
+                    heads[str(net.node_ids[s])] = float(net.source_head[s - nj] + x[col])
+            col = self.day_col.get(int(tests.day[t]))
+            factor = float(x[col]) if col is not None else 1.0
+            extra = {}
+            if kind == "residual":
+                extra = {str(net.node_ids[n]): float(q) for n, q in tests.flows[t].items()}
+            out.append(Snapshot(demand_factor=factor, extra_demand=extra, source_head=heads,
+                                label=f"{tests.test_ids[t]} {kind}"))
+        return out
+
+    def solve(self, x):
+        """Solve every snapshot at ``x`` (cached for the last ``x``): list of ``SolveResult``."""
+        x = np.asarray(x, float)
+        key = x.tobytes()
+        if key == self._cache_key:
+            return self._cache
+        roughness = self.roughness(x)
+        results = []
+        snaps = self.snapshots(x)
+        solve_many = getattr(self.solver, "solve_many", None)
+        if solve_many is not None and self.progress is None:
+            results = list(solve_many(snaps, roughness=roughness))
+            self.n_solves += len(snaps)
+        else:
+            previous = self._cache
+            for i, snap in enumerate(snaps):
+                # warm start from the same snapshot at the last parameters: a few iterations only
+                warm = previous[i] if previous is not None else (results[-1] if results else None)
+                res = self.solver.solve(snap, roughness=roughness, warm_start=warm)
+                results.append(res)
+                self.n_solves += 1
+                if self.progress is not None:
+                    self.progress(self.n_solves)
+        self._cache_key, self._cache = key, results
+        return results
+
+    def simulated_head(self, x) -> np.ndarray:
+        """Simulated grade at each reading's node [m]."""
+        results = self.solve(x)
+        heads = np.stack([np.asarray(r.head, float) for r in results])
+        return heads[self.reading_snapshot, self.tests.node]
+
+    def residuals(self, x) -> np.ndarray:
+        """Weighted residual vector: readings ``(H_sim - H_obs)/sigma`` then prior rows."""
+        r = (self.simulated_head(x) - self.h_obs) / self.sigma_h
+        if self.prior is not None:
+            x = np.asarray(x, float)
+            r = np.concatenate([r, (x[self.c_cols] - self.prior.c) / self.prior.spread])
+        return r
+
+    def jacobian(self, x) -> np.ndarray:
+        """Analytic Jacobian of ``residuals`` (dense, rows x parameters), one factorization per snapshot."""
+        x = np.asarray(x, float)
+        results = self.solve(x)
+        net, tests, p = self.network, self.tests, self.n_params
+        nj = net.n_junctions
+        J = np.zeros((self.n_readings + self.n_prior_rows, p))
+        grp = self.grouping.index[self.grouped]
+        for si, ((t, kind), res) in enumerate(zip(self.pairs, results)):
+            rows = np.flatnonzero(self.reading_snapshot == si)
+            if rows.size == 0:
+                continue
+            dhdc = np.asarray(self.solver.dheadloss_droughness(res), float)
+            f1_rows = [self.grouped]
+            f1_cols = [self.c_cols[grp]]
+            f1_vals = [dhdc[self.grouped]]
+            for (tt, s), col in self.offset_col.items():
+                if tt == t:
+                    links, vals = self._source_incidence[(tt, s)]
+                    f1_rows.append(links)
+                    f1_cols.append(np.full(len(links), col))
+                    f1_vals.append(vals)
+            dF1 = sp.csc_matrix((np.concatenate(f1_vals), (np.concatenate(f1_rows),
+                                                           np.concatenate(f1_cols))),
+                                shape=(self.n_links, p))
+            col = self.day_col.get(int(tests.day[t]))
+            if col is not None:
+                dF2 = sp.csc_matrix((-net.demand, (np.arange(nj), np.full(nj, col))), shape=(nj, p))
+            else:
+                dF2 = sp.csc_matrix((nj, p))
+            dH, _ = self.solver.sensitivities(res, dF1, dF2)
+            dH = dH.toarray() if sp.issparse(dH) else np.asarray(dH)
+            J[rows] = dH[tests.node[rows]] / self.sigma_h[rows, None]
+        if self.prior is not None:
+            n = self.n_readings
+            J[n + np.arange(len(self.c_cols)), self.c_cols] = 1.0 / self.prior.spread
+        return J
+
+    def jacobian_fd(self, x, step: float = 1e-6) -> np.ndarray:
+        """Central finite-difference Jacobian (for checks and the benchmark): 2 p solves per snapshot."""
+        x = np.asarray(x, float)
+        cols = []
+        for j in range(self.n_params):
+            h = step * max(1.0, abs(x[j]))
+            xp, xm = x.copy(), x.copy()
+            xp[j] += h
+            xm[j] -= h
+            cols.append((self.residuals(xp) - self.residuals(xm)) / (2 * h))
+        return np.column_stack(cols)

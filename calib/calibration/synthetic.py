@@ -1,0 +1,127 @@
+"""Synthetic networks and flow-test readings with a known truth: for checks, the benchmark and demos.
+
+Nothing here is real: a grid of junctions fed by one reservoir, pipe groups by district, and readings
+solved with chosen "true" C-factors plus Gaussian gauge noise. The fit must give the truth back within
+its intervals; that is the synthetic-truth check of the calibration.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from calib import units
+from calib.calibration.tests_io import TestSet
+from calib.network.model import Network
+
+MATERIALS = ("cast iron", "ductile iron", "pvc", "asbestos cement", "steel")
+
+
+def grid_network(nx: int, ny: int, spacing: float = 150.0, n_groups: int = 3, seed: int = 0,
+                 source_head: float = 75.0, demand: float = 0.3e-3) -> Network:
+    """A looped ``nx`` x ``ny`` grid [m spacing] fed at a corner by one reservoir (grade ``source_head`` m).
+
+    Groups ``G1..Gn`` are vertical bands of the grid (districts); each band has one material and
+    install decade. Diameters 6 and 8 in, with a 10 in spine along the first row and column.
+    """
+    rng = np.random.default_rng(seed)
+    nj = nx * ny
+    ix, iy = np.meshgrid(np.arange(nx), np.arange(ny))
+    ix, iy = ix.ravel(), iy.ravel()
+    node = iy * nx + ix
+    frm, to = [], []
+    h = ix < nx - 1
+    frm.append(node[h]); to.append(node[h] + 1)
+    v = iy < ny - 1
+    frm.append(node[v]); to.append(node[v] + nx)
+    frm = np.concatenate(frm + [[nj]])
+    to = np.concatenate(to + [[0]])
+    n_pipes = len(frm)
+    diam_in = rng.choice([6.0, 6.0, 8.0], size=n_pipes)
+    x_mid = (ix[np.minimum(frm, nj - 1)] + ix[np.minimum(to, nj - 1)]) / 2.0
+    spine = (iy[np.minimum(frm, nj - 1)] == 0) | (ix[np.minimum(frm, nj - 1)] == 0)
+    diam_in[spine[:n_pipes]] = 10.0
+    diam_in[-1] = 16.0
+    band = np.minimum((x_mid / max(nx - 1, 1) * n_groups).astype(int), n_groups - 1)
+    band[-1] = 0
+    group = np.array([f"G{b + 1}" for b in band], dtype=object)
+    material = np.array([MATERIALS[b % len(MATERIALS)] for b in band], dtype=object)
+    installed = np.array([1950.0 + 15 * (b % 5) for b in band])
+    length = spacing * rng.uniform(0.8, 1.2, size=n_pipes)
+    length[-1] = 200.0
+    elevation = np.concatenate([rng.uniform(0.0, 15.0, size=nj), [source_head]])
+    ids = np.array([f"J{i}" for i in range(nj)] + ["R1"], dtype=object)
+    return Network(
+        node_ids=ids, n_junctions=nj, elevation=elevation, demand=np.full(nj, demand),
+        source_head=np.array([source_head]), pipe_ids=np.array([f"P{k}" for k in range(n_pipes)],
+                                                               dtype=object),
+        pipe_from=frm, pipe_to=to, length=length, diameter=diam_in * units.INCH,
+        roughness=np.full(n_pipes, 120.0), group=group, material=material, installed=installed,
+        hydrant=np.ones(nj, dtype=bool), x=np.concatenate([ix * spacing, [-200.0]]),
+        y=np.concatenate([iy * spacing, [0.0]]), name="synthetic grid")
+
+
+def plan_tests(network: Network, n_tests: int, seed: int = 0, flow_gpm=(800.0, 1500.0),
+               n_gauges: int = 2, spread_over=None):
+    """Pick ``n_tests`` tests: a flowing hydrant and ``n_gauges`` gauges among its neighbours.
+
+    Returns a list of ``(flows {node: m3/s}, gauges [node, ...])``. ``spread_over`` limits the flowing
+    hydrants to those junction numbers (default: every junction but the one next to the source).
+    """
+    rng = np.random.default_rng(seed)
+    nj = network.n_junctions
+    cand = np.arange(1, nj) if spread_over is None else np.asarray(spread_over)
+    # spread the flowing hydrants across the map (by x) so that every district is loaded
+    order = cand[np.argsort(network.x[cand] + rng.uniform(0, 1e-3, size=len(cand)), kind="stable")]
+    slots = np.array_split(order, n_tests)
+    picks = np.array([rng.choice(s) for s in slots if len(s)])
+    adj = [[] for _ in range(nj)]
+    for a, b in zip(network.pipe_from, network.pipe_to):
+        if a < nj and b < nj:
+            adj[a].append(b)
+            adj[b].append(a)
+    plan = []
+    for node in picks:
+        q = rng.uniform(*flow_gpm) * units.GPM
+        ring = [int(n) for n in adj[node]]
+        gauges = [int(node)] + list(rng.choice(ring, size=min(n_gauges - 1, len(ring)), replace=False))
+        plan.append(({int(node): q}, gauges))
+    return plan
+
+
+def synthetic_tests(network: Network, roughness: np.ndarray, plan, sigma: float = units.PSI,
+                    seed: int = 0, round_to: float | None = None, solver=None,
+                    static: bool = True) -> TestSet:
+    """Solve ``plan`` with ``roughness`` and return the readings with N(0, sigma) noise [Pa].
+
+    ``round_to`` [Pa] rounds readings as a gauge is read (e.g. 0.5 psi). Gauge height 0.
+    """
+    from calib.hydraulics import NetworkSolver, Snapshot
+    rng = np.random.default_rng(seed)
+    solver = solver or NetworkSolver(network, headloss="hazen-williams")
+    ids = network.node_ids
+    cols = {k: [] for k in ("test", "node", "kind", "pressure")}
+    for t, (flows, gauges) in enumerate(plan):
+        snaps = [("residual", Snapshot(extra_demand={str(ids[n]): q for n, q in flows.items()}))]
+        if static:
+            snaps.insert(0, ("static", Snapshot()))
+        for kind, snap in snaps:
+            res = solver.solve(snap, roughness=roughness)
+            for g in gauges:
+                cols["test"].append(t)
+                cols["node"].append(g)
+                cols["kind"].append(kind)
+                cols["pressure"].append(float(res.pressure[g]))
+    p = np.asarray(cols["pressure"]) + rng.normal(0.0, sigma, size=len(cols["pressure"]))
+    if round_to:
+        p = np.round(p / round_to) * round_to
+    node = np.asarray(cols["node"], dtype=np.int64)
+    n_tests = len(plan)
+    import pandas as pd
+    return TestSet(folder="<synthetic>", test_ids=[f"T{t + 1}" for t in range(n_tests)],
+                   flows=[dict(f) for f, _ in plan], source_head=[{} for _ in range(n_tests)],
+                   day=np.zeros(n_tests, dtype=np.int64), days=[""], info=pd.DataFrame(),
+                   test=np.asarray(cols["test"], dtype=np.int64), node=node,
+                   kind=np.asarray(cols["kind"], dtype=object), pressure=p,
+                   gauge_height=np.zeros(len(p)), sigma=np.full(len(p), sigma),
+                   row=np.arange(len(p), dtype=np.int64) + 2,
+                   elevation=network.elevation[node].astype(float))

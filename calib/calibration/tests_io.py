@@ -1,0 +1,391 @@
+"""Read a folder of hydrant flow tests into plain SI arrays, and turn gauge readings into grades.
+
+The folder holds CSV tables with units in brackets in the headers (``flow [gpm]``, ``static [kPa]``):
+
+- ``flows.csv``: ``test_id, node, flow`` per flowing outlet, or ``pitot, outlet_diameter, coefficient``
+  (converted with ``calib.flowtest.pitot_discharge``); both forms may be mixed row by row.
+- ``pressures.csv``: ``test_id, node, static, residual`` with optional ``gauge_height`` and ``sigma``.
+- ``boundary.csv`` (optional): ``test_id, source, head`` - a source's grade during that test.
+- ``tests.csv`` (optional): ``test_id, date, ...`` - free notes, carried through to the report.
+
+Extra columns and other files (the field app's per-test JSON) are ignored. Every problem found is
+collected and raised at once as ``calib.errors.InputError`` naming file, row, id and field; rows are
+counted as a spreadsheet shows them (the header is row 1).
+
+This module does not solve anything; ``problem.py`` builds the least-squares problem from a ``TestSet``.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from calib import units
+from calib.errors import InputError, Problem
+
+#: Unit assumed for a column whose header has no bracket (the trade's US units).
+DEFAULT_UNIT = {"flow": "gpm", "pitot": "psi", "outlet_diameter": "in", "static": "psi",
+                "residual": "psi", "gauge_height": "ft", "sigma": "psi", "head": "ft"}
+KIND = {"flow": "flow", "pitot": "pressure", "outlet_diameter": "diameter", "static": "pressure",
+        "residual": "pressure", "gauge_height": "length", "sigma": "pressure", "head": "head"}
+#: Plausible ranges in SI, with the text shown in messages (US units, as crews read them).
+RANGE = {
+    "flow": (0.0, 10000 * units.GPM, "more than 0 and at most 10000 gpm"),
+    "pitot": (0.0, 200 * units.PSI, "more than 0 and at most 200 psi (NFPA 291 asks for about 10-30)"),
+    "outlet_diameter": (0.5 * units.INCH, 8 * units.INCH, "0.5 to 8 in (hose 2.5 in, pumper 4-4.5 in)"),
+    "coefficient": (0.5, 1.0, "0.5 to 1.0 (NFPA 291: 0.90 smooth, 0.80 square, 0.70 projecting)"),
+    "static": (0.0, 300 * units.PSI, "0 to 300 psi"),
+    "residual": (0.0, 300 * units.PSI, "0 to 300 psi"),
+    "gauge_height": (-20 * units.FT, 30 * units.FT, "-20 to 30 ft above the node elevation"),
+    "sigma": (0.0, 20 * units.PSI, "more than 0 and at most 20 psi"),
+    "head": (-500.0, 3000.0, "a hydraulic grade between -500 and 3000 m"),
+}
+DEFAULT_COEFFICIENT = 0.90  # NFPA 291 outlet figure: smooth, well-rounded outlet
+
+
+@dataclass
+class TestSet:
+    """A season of flow tests in SI, indexed against one network's node numbers.
+
+    Readings are a structure of arrays, one entry per gauge reading (a pressures.csv row gives a
+    static and a residual reading). ``kind`` is ``"static"`` (normal demand) or ``"residual"``
+    (normal demand plus the test's flows).
+    """
+
+    __test__ = False  # not a pytest class
+
+    folder: str
+    test_ids: list[str]
+    flows: list[dict[int, float]]  # per test: node number -> flow drawn [m3/s]
+    source_head: list[dict[int, float]]  # per test: source node number -> grade [m] (boundary.csv)
+    day: np.ndarray  # (n_tests,) index into ``days``
+    days: list[str]
+    info: pd.DataFrame  # tests.csv as read (strings), one row per test id, may be empty
+    test: np.ndarray  # (n_readings,) test index
+    node: np.ndarray  # (n_readings,) node number
+    kind: np.ndarray  # (n_readings,) "static" | "residual"
+    pressure: np.ndarray  # observed gauge pressure [Pa]
+    gauge_height: np.ndarray  # gauge above the node elevation [m]
+    sigma: np.ndarray  # stated accuracy of the reading [Pa]
+    row: np.ndarray  # row in pressures.csv (header = row 1)
+    elevation: np.ndarray  # node elevation at each reading [m]
+    pitot_tests: list[str] = field(default_factory=list)  # tests whose flows came as pitot readings
+    notes: list[str] = field(default_factory=list)
+
+    @property
+    def n_tests(self) -> int:
+        return len(self.test_ids)
+
+    @property
+    def n_readings(self) -> int:
+        return len(self.node)
+
+    @property
+    def hgl(self) -> np.ndarray:
+        """Observed hydraulic grade at each gauge's node [m]: HGL = p / gamma + elevation + gauge height."""
+        return units.pressure_to_head(self.pressure) + self.elevation + self.gauge_height
+
+    @property
+    def sigma_head(self) -> np.ndarray:
+        """Stated accuracy as head [m of water]."""
+        return units.pressure_to_head(self.sigma)
+
+    def subset(self, keep: np.ndarray) -> "TestSet":
+        """The same tests with only the readings where ``keep`` is True."""
+        keep = np.asarray(keep, dtype=bool)
+        arrays = {name: getattr(self, name)[keep] for name in
+                  ("test", "node", "kind", "pressure", "gauge_height", "sigma", "row", "elevation")}
+        return TestSet(folder=self.folder, test_ids=self.test_ids, flows=self.flows,
+                       source_head=self.source_head, day=self.day, days=self.days, info=self.info,
+                       pitot_tests=self.pitot_tests, notes=list(self.notes), **arrays)
+
+
+# --- reading tables --------------------------------------------------------------------------
+class _Table:
+    """One CSV file read as text, with its columns mapped by name and their units resolved."""
+
+    def __init__(self, path: Path, problems: list[Problem], required: tuple[str, ...]):
+        self.path, self.name, self.problems = path, path.name, problems
+        self.frame = pd.read_csv(path, dtype=str, keep_default_na=False, skipinitialspace=True)
+        self.columns: dict[str, str] = {}  # name -> raw header
+        self.factor: dict[str, float] = {}
+        for header in self.frame.columns:
+            name, unit = units.parse_header(header)
+            name = name.replace(" ", "_")
+            if name in self.columns:
+                problems.append(Problem(f"column '{name}' appears twice", file=self.name, field=header))
+                continue
+            self.columns[name] = header
+            if name in KIND:
+                try:
+                    self.factor[name] = units.unit_factor(unit or DEFAULT_UNIT[name], KIND[name])
+                except ValueError as exc:
+                    problems.append(Problem(str(exc), file=self.name, field=header,
+                                            expected=f"a {KIND[name]} unit in brackets, "
+                                                     f"e.g. '{name} [{DEFAULT_UNIT[name]}]'"))
+                    self.factor[name] = math.nan
+        missing = [c for c in required if c not in self.columns]
+        if missing:
+            problems.append(Problem(f"missing column(s) {', '.join(missing)}", file=self.name,
+                                    expected="columns " + ", ".join(required)))
+        self.ok = not missing
+
+    def __len__(self) -> int:
+        return len(self.frame)
+
+    def text(self, i: int, name: str) -> str:
+        if name not in self.columns:
+            return ""
+        return str(self.frame.iloc[i][self.columns[name]]).strip()
+
+    def number(self, i: int, name: str, row_id: str | None, required: bool = False) -> float:
+        """The SI value in row i, column ``name``; nan when blank (a problem if ``required``)."""
+        raw = self.text(i, name)
+        where = dict(file=self.name, row=i + 2, id=row_id, field=self.columns.get(name, name))
+        if raw == "":
+            if required:
+                self.problems.append(Problem("value is missing", **where,
+                                             expected=RANGE[name][2] if name in RANGE else None))
+            return math.nan
+        try:
+            value = float(raw)
+        except ValueError:
+            self.problems.append(Problem(f"'{raw}' is not a number", **where,
+                                         expected=RANGE[name][2] if name in RANGE else None))
+            return math.nan
+        if not math.isfinite(value):
+            self.problems.append(Problem(f"'{raw}' is not a finite number", **where))
+            return math.nan
+        value *= self.factor.get(name, 1.0)
+        if name in RANGE:
+            low, high, text = RANGE[name]
+            strict_low = name in ("flow", "pitot", "sigma")
+            if value > high or value < low or (strict_low and value <= low):
+                self.problems.append(Problem(f"{raw} is outside the plausible range", **where,
+                                             expected=text))
+                return math.nan
+        return value
+
+
+def _pitot_discharge(pitot: float, diameter: float, coefficient: float) -> float:
+    """NFPA 291 pitot discharge through the flow-test functions (SI in, m3/s out)."""
+    from calib.flowtest import pitot_discharge
+    return float(pitot_discharge(pitot, diameter, coefficient))
+
+
+def _coefficient(table: _Table, i: int, row_id: str) -> float:
+    raw = table.text(i, "coefficient")
+    if raw == "":
+        return DEFAULT_COEFFICIENT
+    try:
+        value = float(raw)
+    except ValueError:
+        try:
+            from calib.flowtest import outlet_coefficient
+            return float(outlet_coefficient(raw.lower()))
+        except Exception:
+            table.problems.append(Problem(f"'{raw}' is neither a number nor an outlet shape",
+                                          file=table.name, row=i + 2, id=row_id, field="coefficient",
+                                          expected=RANGE["coefficient"][2]
+                                          + " or smooth / square / projecting"))
+            return math.nan
+    low, high, text = RANGE["coefficient"]
+    if not low <= value <= high:
+        table.problems.append(Problem(f"{raw} is outside the plausible range", file=table.name,
+                                      row=i + 2, id=row_id, field="coefficient", expected=text))
+        return math.nan
+    return value
+
+
+def _node(network, table: _Table, i: int, row_id: str, problems, junction_only=True) -> int | None:
+    raw = table.text(i, "node" if "node" in table.columns else "source")
+    fld = "node" if "node" in table.columns else "source"
+    if raw == "":
+        problems.append(Problem("node id is missing", file=table.name, row=i + 2, id=row_id,
+                                field=fld))
+        return None
+    idx = network.node_index.get(raw)
+    if idx is None:
+        problems.append(Problem(f"node '{raw}' is not in the network", file=table.name, row=i + 2,
+                                id=row_id, field=fld, expected="a node id of the network files"))
+        return None
+    if junction_only and idx >= network.n_junctions:
+        problems.append(Problem(f"node '{raw}' is a source (reservoir or tank), not a junction",
+                                file=table.name, row=i + 2, id=row_id, field=fld,
+                                expected="a junction where a hydrant or gauge stands"))
+        return None
+    if not junction_only and idx < network.n_junctions:
+        problems.append(Problem(f"'{raw}' is a junction, not a source", file=table.name, row=i + 2,
+                                id=row_id, field=fld, expected="a reservoir or tank id"))
+        return None
+    return int(idx)
+
+
+def read_tests(folder, network, sigma: float = units.PSI) -> TestSet:
+    """Read a tests folder against ``network``; ``sigma`` [Pa] is the gauge accuracy where none is given.
+
+    Raises ``InputError`` listing every problem (file, row, test id, field, plausible range).
+    """
+    folder = Path(folder)
+    problems: list[Problem] = []
+    if not folder.is_dir():
+        raise InputError(f"tests folder '{folder}' does not exist", file=str(folder),
+                         expected="a folder with flows.csv and pressures.csv")
+    for name in ("flows.csv", "pressures.csv"):
+        if not (folder / name).is_file():
+            problems.append(Problem(f"{name} is missing", file=str(folder / name),
+                                    expected="flows.csv and pressures.csv in the tests folder"))
+    if problems:
+        raise InputError(problems)
+
+    # tests.csv first: it fixes the order of tests and their dates
+    info = pd.DataFrame()
+    order: list[str] = []
+    if (folder / "tests.csv").is_file():
+        t = _Table(folder / "tests.csv", problems, ("test_id",))
+        if t.ok:
+            info = t.frame.rename(columns={t.columns["test_id"]: "test_id"})
+            info["test_id"] = info["test_id"].astype(str).str.strip()
+            for i, tid in enumerate(info["test_id"]):
+                if tid == "":
+                    problems.append(Problem("test_id is missing", file="tests.csv", row=i + 2,
+                                            field="test_id"))
+                elif tid in order:
+                    problems.append(Problem(f"test '{tid}' appears twice", file="tests.csv",
+                                            row=i + 2, id=tid, field="test_id"))
+                else:
+                    order.append(tid)
+
+    def test_index(tid: str, table: _Table, i: int) -> int | None:
+        if tid == "":
+            problems.append(Problem("test_id is missing", file=table.name, row=i + 2, field="test_id"))
+            return None
+        if tid not in order:
+            if not info.empty:
+                problems.append(Problem(f"test '{tid}' is not in tests.csv", file=table.name,
+                                        row=i + 2, id=tid, field="test_id",
+                                        expected="a test_id listed in tests.csv"))
+                return None
+            order.append(tid)
+        return order.index(tid)
+
+    # flows.csv
+    flows: dict[int, dict[int, float]] = {}
+    pitot_tests: set[str] = set()
+    f = _Table(folder / "flows.csv", problems, ("test_id", "node"))
+    if f.ok and "flow" not in f.columns and "pitot" not in f.columns:
+        problems.append(Problem("neither a flow nor a pitot column", file="flows.csv",
+                                expected="'flow [gpm]', or 'pitot [psi]' with 'outlet_diameter [in]'"))
+        f.ok = False
+    if f.ok:
+        for i in range(len(f)):
+            tid = f.text(i, "test_id")
+            t_idx = test_index(tid, f, i)
+            n_idx = _node(network, f, i, tid, problems)
+            q = f.number(i, "flow", tid) if "flow" in f.columns else math.nan
+            if math.isnan(q) and f.text(i, "flow") == "":
+                if "pitot" not in f.columns or f.text(i, "pitot") == "":
+                    problems.append(Problem("neither flow nor pitot is given", file="flows.csv",
+                                            row=i + 2, id=tid, field="flow",
+                                            expected="a flow [gpm] or a pitot reading [psi]"))
+                    continue
+                p = f.number(i, "pitot", tid, required=True)
+                d = f.number(i, "outlet_diameter", tid, required=True)
+                c = _coefficient(f, i, tid)
+                if math.isnan(p) or math.isnan(d) or math.isnan(c):
+                    continue
+                q = _pitot_discharge(p, d, c)
+                pitot_tests.add(tid)
+            if t_idx is None or n_idx is None or math.isnan(q):
+                continue
+            per = flows.setdefault(t_idx, {})
+            per[n_idx] = per.get(n_idx, 0.0) + q  # two outlets on one hydrant add up
+
+    # pressures.csv
+    cols = {k: [] for k in ("test", "node", "kind", "pressure", "gauge_height", "sigma", "row")}
+    pr = _Table(folder / "pressures.csv", problems, ("test_id", "node"))
+    if pr.ok and "static" not in pr.columns and "residual" not in pr.columns:
+        problems.append(Problem("neither a static nor a residual column", file="pressures.csv",
+                                expected="'static [psi]' and 'residual [psi]'"))
+        pr.ok = False
+    if pr.ok:
+        for i in range(len(pr)):
+            tid = pr.text(i, "test_id")
+            t_idx = test_index(tid, pr, i)
+            n_idx = _node(network, pr, i, tid, problems)
+            gh = pr.number(i, "gauge_height", tid)
+            sg = pr.number(i, "sigma", tid)
+            gh = 0.0 if math.isnan(gh) else gh
+            sg = sigma if math.isnan(sg) else sg
+            values = {k: pr.number(i, k, tid) for k in ("static", "residual") if k in pr.columns}
+            if all(math.isnan(v) for v in values.values()) and all(pr.text(i, k) == "" for k in values):
+                problems.append(Problem("no reading in the row", file="pressures.csv", row=i + 2,
+                                        id=tid, field="static", expected="a static and/or a residual"))
+                continue
+            if t_idx is None or n_idx is None:
+                continue
+            for kind, value in values.items():
+                if math.isnan(value):
+                    continue
+                cols["test"].append(t_idx)
+                cols["node"].append(n_idx)
+                cols["kind"].append(kind)
+                cols["pressure"].append(value)
+                cols["gauge_height"].append(gh)
+                cols["sigma"].append(sg)
+                cols["row"].append(i + 2)
+
+    # boundary.csv
+    heads: dict[int, dict[int, float]] = {}
+    if (folder / "boundary.csv").is_file():
+        b = _Table(folder / "boundary.csv", problems, ("test_id", "source", "head"))
+        if b.ok:
+            for i in range(len(b)):
+                tid = b.text(i, "test_id")
+                t_idx = test_index(tid, b, i)
+                s_idx = _node(network, b, i, tid, problems, junction_only=False)
+                h = b.number(i, "head", tid, required=True)
+                if t_idx is None or s_idx is None or math.isnan(h):
+                    continue
+                heads.setdefault(t_idx, {})[s_idx] = h
+
+    if problems:
+        raise InputError(problems)
+
+    n_tests = len(order)
+    notes = []
+    residual_tests = {t for t, k in zip(cols["test"], cols["kind"]) if k == "residual"}
+    for t in sorted(residual_tests):
+        if not flows.get(t):
+            notes.append(f"test {order[t]}: residual readings but no flows in flows.csv")
+    for t in range(n_tests):
+        if t not in {*cols["test"]}:
+            notes.append(f"test {order[t]}: no gauge readings in pressures.csv; it informs nothing")
+    if any(not flows.get(t) for t in residual_tests):
+        bad = [order[t] for t in sorted(residual_tests) if not flows.get(t)]
+        raise InputError([Problem("residual readings given but the test has no flowing hydrant",
+                                  file="flows.csv", id=t, field="test_id",
+                                  expected="one row per flowing outlet of the test") for t in bad])
+
+    # days for the optional demand factor: the date column of tests.csv, else one day
+    dates = ["" for _ in range(n_tests)]
+    if not info.empty and "date" in {units.parse_header(c)[0] for c in info.columns}:
+        date_col = next(c for c in info.columns if units.parse_header(c)[0] == "date")
+        by_id = dict(zip(info["test_id"], info[date_col].astype(str).str.strip()))
+        dates = [by_id.get(t, "")[:10] for t in order]
+    days = sorted(set(dates))
+    day = np.array([days.index(d) for d in dates], dtype=np.int64)
+
+    node = np.asarray(cols["node"], dtype=np.int64)
+    return TestSet(
+        folder=str(folder), test_ids=order, flows=[flows.get(t, {}) for t in range(n_tests)],
+        source_head=[heads.get(t, {}) for t in range(n_tests)], day=day, days=days, info=info,
+        test=np.asarray(cols["test"], dtype=np.int64), node=node,
+        kind=np.asarray(cols["kind"], dtype=object), pressure=np.asarray(cols["pressure"], float),
+        gauge_height=np.asarray(cols["gauge_height"], float), sigma=np.asarray(cols["sigma"], float),
+        row=np.asarray(cols["row"], dtype=np.int64), elevation=network.elevation[node].astype(float),
+        pitot_tests=sorted(pitot_tests), notes=notes)
