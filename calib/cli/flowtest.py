@@ -30,6 +30,7 @@ _RANGE = {
     "--outlet": "1.5 - 6 in (38 - 150 mm), usually 2.5 in or 4.5 in",
     "--flow": "a measured flow such as 800 gpm or 50 L/s",
     "--coefficient": "0.70 - 0.90 (NFPA 291 outlet figure)",
+    "--outlet-shape": "smooth (0.90), square (0.80) or projecting (0.70)",
     "--elevation": "an elevation such as 120 ft or 35 m",
     "--gauge-height": "0 - 3 ft (0 - 1 m)",
 }
