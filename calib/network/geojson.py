@@ -295,5 +295,8 @@ def write_network_geojson(network: Network, path, units: str = "us",
     coordinates are written as they are. Every pipe carries its ``length`` property, so a read back
     gives the same lengths whatever the geometry.
     """
-    text = json.dumps(network_features(network, units, length_unit), indent=1)
-    return fileio.write_text(path, text + "\n")
+    collection = network_features(network, units, length_unit)
+    features = collection.pop("features")
+    head = json.dumps(collection)[:-1]  # one feature a line: small files, readable diffs
+    body = ",\n".join(json.dumps(f, separators=(",", ":")) for f in features)
+    return fileio.write_text(path, f'{head}, "features": [\n{body}\n]}}\n')

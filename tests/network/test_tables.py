@@ -1,0 +1,149 @@
+"""CSV tables: unit headers parsed by pint, the optional columns, and US vs SI round trips.
+
+Unit factors checked here are exact by definition: 1 ft = 0.3048 m, 1 in = 0.0254 m, 1 US gallon =
+231 in^3 = 3.785411784 L (NIST SP 811, 2008 edition, appendix B).
+"""
+
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from calib.errors import InputError, NetworkError
+from calib.network import PipeStatus
+from calib.network.io import read_network, write_network_tables
+
+DEMO = Path(__file__).resolve().parents[2] / "field_samples" / "tallowmere" / "network"
+FT, INCH, GALLON = 0.3048, 0.0254, 3.785411784e-3  # NIST SP 811, exact
+
+
+def assert_same_network(a, b, rtol=1e-12):
+    """Every array of two networks equal: numbers to ``rtol`` relative, text and codes exactly."""
+    assert list(a.node_ids) == list(b.node_ids)
+    assert list(a.pipe_ids) == list(b.pipe_ids)
+    assert a.n_junctions == b.n_junctions
+    for name in ("elevation", "demand", "source_head", "length", "diameter", "roughness",
+                 "minor_loss", "roughness_height", "installed", "x", "y"):
+        np.testing.assert_allclose(getattr(a, name), getattr(b, name), rtol=rtol, atol=0,
+                                   equal_nan=True, err_msg=name)
+    for name in ("pipe_from", "pipe_to", "status", "hydrant"):
+        np.testing.assert_array_equal(getattr(a, name), getattr(b, name), err_msg=name)
+    for name in ("group", "material", "source_kind", "zone"):
+        assert list(getattr(a, name)) == list(getattr(b, name)), name
+
+
+def test_us_headers_convert_by_exact_definitions(make_folder):
+    net = read_network(make_folder())
+    # NIST SP 811 exact factors (module docstring)
+    np.testing.assert_allclose(net.elevation, [100 * FT, 110 * FT, 300 * FT], rtol=1e-15)
+    np.testing.assert_allclose(net.source_head, [300 * FT], rtol=1e-15)
+    np.testing.assert_allclose(net.demand, [50 * GALLON / 60, 20 * GALLON / 60], rtol=1e-15)
+    np.testing.assert_allclose(net.length, [1000 * FT, 500 * FT], rtol=1e-15)
+    np.testing.assert_allclose(net.diameter, [8 * INCH, 6 * INCH], rtol=1e-15)
+    assert list(net.node_ids) == ["J1", "J2", "R1"]  # junctions first, then sources (contract)
+    assert list(net.pipe_from) == [2, 0] and list(net.pipe_to) == [0, 1]
+    assert list(net.hydrant) == [True, False]
+
+
+def test_any_unit_pint_knows(make_folder):
+    folder = make_folder(
+        junctions="id,elevation [m],demand [L/s]\nJ1,30,2.5\nJ2,31,1\n",
+        sources="id,head [m]\nR1,90\n",
+        pipes="id,from,to,length [km],diameter [mm],roughness\nP1,R1,J1,0.3,200,100\n"
+              "P2,J1,J2,0.15,150,120\n")
+    net = read_network(folder)
+    np.testing.assert_allclose(net.elevation, [30, 31, 90], rtol=1e-15)
+    np.testing.assert_allclose(net.demand, [2.5e-3, 1e-3], rtol=1e-15)  # 1 L = 1e-3 m3 (SI)
+    np.testing.assert_allclose(net.length, [300, 150], rtol=1e-15)
+    np.testing.assert_allclose(net.diameter, [0.2, 0.15], rtol=1e-15)
+
+
+def test_us_and_si_tables_give_the_same_network(tmp_path):
+    demo = read_network(DEMO)
+    write_network_tables(demo, tmp_path / "us", units="us")
+    write_network_tables(demo, tmp_path / "si", units="si")
+    us, si = read_network(tmp_path / "us"), read_network(tmp_path / "si")
+    header = (tmp_path / "si" / "pipes.csv").read_text().splitlines()[0]
+    assert "length [m]" in header and "diameter [mm]" in header
+    assert "demand [L/s]" in (tmp_path / "si" / "junctions.csv").read_text().splitlines()[0]
+    assert_same_network(us, si)
+    assert_same_network(demo, si)
+
+
+def test_column_without_unit_names_it_and_suggests_units(make_folder):
+    folder = make_folder(junctions="id,elevation,demand [gpm]\nJ1,100,50\nJ2,110,20\n")
+    with pytest.raises(NetworkError) as err:
+        read_network(folder)
+    assert str(err.value) == ("junctions.csv, row 1, field 'elevation': column 'elevation' has no "
+                              "unit in its header (expected a unit in brackets, e.g. "
+                              "'elevation [ft]' or 'elevation [m]')")
+    assert isinstance(err.value, InputError)
+
+
+def test_roughness_height_without_unit_suggests_mm(make_folder):
+    folder = make_folder(pipes="id,from,to,length [ft],diameter [in],roughness,roughness_height\n"
+                               "P1,R1,J1,1000,8,100,0.26\nP2,J1,J2,500,6,120,0.26\n")
+    with pytest.raises(NetworkError, match=r"'roughness_height \[mm\]'"):
+        read_network(folder)
+
+
+@pytest.mark.parametrize("header, text", [
+    ("elevation [ftt]", "unknown unit 'ftt'"),
+    ("elevation [gpm]", "unit 'gpm' is not a elevation unit"),
+])
+def test_unknown_or_wrong_units_are_reported(make_folder, header, text):
+    folder = make_folder(junctions=f"id,{header},demand [gpm]\nJ1,100,50\nJ2,110,20\n")
+    with pytest.raises(NetworkError) as err:
+        read_network(folder)
+    assert text in str(err.value) and "junctions.csv, row 1, field 'elevation'" in str(err.value)
+
+
+def test_optional_pipe_columns(make_folder):
+    folder = make_folder(
+        pipes="id,from,to,length [ft],diameter [in],roughness,status,minor_loss,"
+              "roughness_height [mm],group,material,installed\n"
+              "P1,R1,J1,1000,8,100,Open,2.5,0.26,CI-1950s,cast iron,1955\n"
+              "P2,J1,J2,500,6,120,check,,,,,\n")
+    net = read_network(folder)
+    assert list(net.status) == [PipeStatus.OPEN, PipeStatus.CHECK_VALVE]
+    np.testing.assert_allclose(net.minor_loss, [2.5, 0.0])
+    np.testing.assert_allclose(net.roughness_height[0], 0.26e-3, rtol=1e-15)
+    assert np.isnan(net.roughness_height[1]) and np.isnan(net.installed[1])
+    assert list(net.group) == ["CI-1950s", ""] and net.installed[0] == 1955
+
+
+def test_hydrant_and_status_words(make_folder):
+    folder = make_folder(
+        junctions="id,elevation [ft],demand [gpm],hydrant\nJ1,100,50,True\nJ2,110,20,0\n"
+                  "J3,105,0,Y\nJ4,105,0,maybe\n",
+        pipes="id,from,to,length [ft],diameter [in],roughness,status\n"
+              "P1,R1,J1,1000,8,100,CLOSED\nP2,J1,J2,500,6,120,shut\n"
+              "P3,R1,J3,500,6,120,\nP4,J3,J4,500,6,120,Check Valve\n")
+    with pytest.raises(NetworkError) as err:
+        read_network(folder)
+    text = str(err.value)
+    assert ("junctions.csv, row 5, id 'J4', field 'hydrant': 'maybe' is not yes or no "
+            "(expected yes/no, true/false or 1/0)") in text
+    assert ("pipes.csv, row 3, id 'P2', field 'status': 'shut' is not a pipe status "
+            "(expected open, closed or check") in text
+
+
+def test_rows_count_blank_lines_as_a_person_does(make_folder):
+    folder = make_folder(pipes="id,from,to,length [ft],diameter [in],roughness\n"
+                               "P1,R1,J1,1000,8,100\n\nP2,J1,J2,five hundred,6,120\n")
+    with pytest.raises(NetworkError) as err:
+        read_network(folder)
+    assert str(err.value) == ("pipes.csv, row 4, id 'P2', field 'length': 'five hundred' is not "
+                              "a number")
+
+
+def test_the_demo_town_matches_its_description():
+    net = read_network(DEMO)
+    assert 400 <= net.n_pipes <= 700
+    assert set(net.source_kind) == {"reservoir", "tank"}
+    relief = (net.elevation[: net.n_junctions].max() - net.elevation[: net.n_junctions].min()) / FT
+    assert 20 <= relief <= 60
+    total_gpm = net.demand.sum() / (GALLON / 60)
+    assert 300 <= total_gpm <= 1500
+    assert 5 <= len(set(net.group)) <= 7
+    assert 0.25 <= net.hydrant.mean() <= 0.4
