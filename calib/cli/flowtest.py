@@ -12,7 +12,7 @@ import json
 import math
 
 from calib.errors import FlowTestError, Problem
-from calib.flowtest import CAUTIONS, FlowTest, Outlet, evaluate
+from calib.flowtest import CAUTIONS, DEFAULT_TARGET, FlowTest, Outlet, evaluate
 from calib.flowtest.findings import fmt_pressure
 from calib.flowtest.pitot import OUTLET_COEFFICIENTS
 from calib.units import DISPLAY, from_si, to_si
@@ -164,6 +164,8 @@ def format_text(result, system: str) -> str:
     lines.append(f"  discharge (sum of outlets): {q(result.flow)}")
     lines.append(f"  rated flow at {fmt_pressure(t.target, system)} residual: {q(result.rated_flow)}")
     cls = result.hydrant_class
+    if t.target != DEFAULT_TARGET:
+        lines.append(f"  flow at 20 psi residual (the class is by it): {q(result.rated_flow_20psi)}")
     lines.append(f"  class: {cls.title}")
     lines.append(f"    {cls.note}")
     if result.residual_grade is not None:

@@ -121,6 +121,9 @@ class FlowTestResult:
     test: FlowTest | None = None
     static_grade: float | None = None
     residual_grade: float | None = None
+    #: Flow at 20 psi residual [m3/s], the flow NFPA 291 classes by (equals ``rated_flow`` at the
+    #: default target; 0 when the static is not above 20 psi).
+    rated_flow_20psi: float = math.nan
 
     @property
     def drop(self) -> float:
@@ -163,6 +166,7 @@ class FlowTestResult:
             "static_end": p(t.static_end),
             "drop": p(self.drop), "drop_percent": 100.0 * self.drop_fraction if math.isfinite(self.drop_fraction) else None,
             "outlets": outlets, "flow": q(self.flow), "rated_flow": q(self.rated_flow),
+            "rated_flow_20psi": q(self.rated_flow_20psi),
             "hydrant_class": None if cls is None else {
                 "label": cls.label, "standard": cls.standard, "colour": cls.colour,
                 "lower_gpm": cls.lower_gpm, "upper_gpm": None if math.isinf(cls.upper_gpm) else cls.upper_gpm,
@@ -197,10 +201,16 @@ def evaluate(test: FlowTest, system: str = "us") -> FlowTestResult:
     if not 0 <= pt < ps and pr < ps:
         findings.append(Finding("target-above-static", "error",
                                 "The target residual is at or above the static: no rated flow exists."))
+    # NFPA 291 classes are defined by the flow at 20 psi residual, whatever target the user rates at.
+    at20 = math.nan
+    if ratable:
+        at20 = rated if pt == DEFAULT_TARGET else (
+            float(rated_flow(total, ps, pr, DEFAULT_TARGET)) if ps > DEFAULT_TARGET else 0.0)
     grades = (None, None)
     if test.elevation is not None:
         grades = tuple(float(hydraulic_grade(v, test.elevation, test.gauge_height)) for v in (ps, pr))
     return FlowTestResult(
-        flow=total, rated_flow=rated, hydrant_class=hydrant_class(rated) if ratable else None,
+        flow=total, rated_flow=rated, hydrant_class=hydrant_class(at20) if ratable else None,
         findings=findings, curve=HydrantCurve(ps, total, pr, rated, pt) if ratable else None,
-        outlet_flows=flows, test=test, static_grade=grades[0], residual_grade=grades[1])
+        outlet_flows=flows, test=test, static_grade=grades[0], residual_grade=grades[1],
+        rated_flow_20psi=at20)

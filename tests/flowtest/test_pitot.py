@@ -8,7 +8,7 @@ import math
 
 import numpy as np
 import pytest
-from hypothesis import given
+from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from calib.errors import FlowTestError
@@ -104,12 +104,14 @@ def test_bad_inputs_raise_flowtesterror_naming_the_argument(args, field):
         pitot_discharge(*args)
 
 
+@settings(deadline=None)  # no timed assertions in this suite
 @given(p=st.floats(0.1, 200.0), dp=st.floats(0.01, 50.0), d=st.floats(1.0, 6.0), c=st.floats(0.6, 1.0))
 def test_more_pitot_pressure_gives_more_flow(p, dp, d, c):
     # Property of Q = 29.83 c d^2 sqrt(p) (NFPA 291): strictly increasing in p.
     assert pitot_discharge_gpm(p + dp, d, c) > pitot_discharge_gpm(p, d, c)
 
 
+@settings(deadline=None)  # no timed assertions in this suite
 @given(p=st.floats(1.0, 100.0), d=st.floats(1.0, 6.0), k=st.floats(1.1, 4.0))
 def test_flow_scales_with_square_root_of_pitot_and_square_of_diameter(p, d, k):
     # Closed form of the NFPA 291 formula: Q(k p) = sqrt(k) Q(p); Q(k d) = k^2 Q(d).

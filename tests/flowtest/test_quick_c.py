@@ -4,7 +4,7 @@ back-calculation against a handbook-form value, recovery of a synthetic C, and t
 import math
 
 import pytest
-from hypothesis import given
+from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from calib.errors import FlowTestError
@@ -39,6 +39,7 @@ def test_recovers_the_c_of_a_synthetic_reading(c_true, d_in, q_gpm):
     assert est.findings == []
 
 
+@settings(deadline=None)  # no timed assertions in this suite
 @given(c=st.floats(40.0, 160.0), q=st.floats(100.0, 3000.0), d=st.floats(4.0, 24.0), length=st.floats(100.0, 5000.0))
 def test_round_trip_against_the_si_form_written_out(c, q, d, length):
     # Hazen-Williams SI form (check-values.md): h = 10.67 L Q^1.852 / (C^1.852 D^4.8704), written here.

@@ -8,7 +8,7 @@ import math
 
 import numpy as np
 import pytest
-from hypothesis import assume, given
+from hypothesis import assume, given, settings
 from hypothesis import strategies as st
 
 from calib.errors import FlowTestError
@@ -58,6 +58,7 @@ def test_arrays_are_rated_elementwise():
 pressures = st.tuples(st.floats(20.0, 200.0), st.floats(0.05, 0.95), st.floats(0.0, 0.99))
 
 
+@settings(deadline=None)  # no timed assertions in this suite
 @given(flow=st.floats(10.0, 5000.0), p=pressures, lower=st.floats(0.01, 0.99))
 def test_lower_target_gives_more_rated_flow(flow, p, lower):
     # Property of the NFPA 291 formula: Q_R decreases as P_t rises.
@@ -68,6 +69,7 @@ def test_lower_target_gives_more_rated_flow(flow, p, lower):
     assert rated_flow(flow * GPM, ps * PSI, pr * PSI, pt * lower * PSI) > rated_flow(flow * GPM, ps * PSI, pr * PSI, pt * PSI)
 
 
+@settings(deadline=None)  # no timed assertions in this suite
 @given(flow=st.floats(10.0, 5000.0), p=pressures)
 def test_target_equal_to_residual_returns_the_test_flow(flow, p):
     ps, fr, _ = p
@@ -75,6 +77,7 @@ def test_target_equal_to_residual_returns_the_test_flow(flow, p):
     assert rated_flow(flow * GPM, ps * PSI, pr, pr) == pytest.approx(flow * GPM, rel=1e-12)
 
 
+@settings(deadline=None)  # no timed assertions in this suite
 @given(flow=st.floats(10.0, 5000.0), p=pressures)
 def test_inverse_round_trip(flow, p):
     # residual_at_flow is rated_flow solved for the pressure: both ways round.

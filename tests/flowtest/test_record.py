@@ -96,3 +96,14 @@ def test_cautions_cover_the_usual_hazards():
     for word in ("slowly", "water hammer", "traffic", "discoloured", "20 psi", "licensed engineer",
                  "authority having jurisdiction"):
         assert word in text
+
+
+def test_class_is_by_the_flow_at_20_psi_whatever_the_target():
+    # NFPA 291 marking: classes by rated flow at 20 psi. The 22 psi example rated at 40 psi gives
+    # 1229.87 gpm (class A by itself) but its 20 psi flow 1598.53 gpm is class AA (check-values.md).
+    r = evaluate(FlowTest("72 psi", "58 psi", [Outlet("2.5 in", pitot="22 psi")], target="40 psi"))
+    assert r.rated_flow / GPM == pytest.approx(1229.87, abs=PRINTED)
+    assert r.rated_flow_20psi / GPM == pytest.approx(1598.53, abs=PRINTED)
+    assert r.hydrant_class.label == "AA"
+    low = evaluate(FlowTest("18 psi", "12 psi", [Outlet("2.5 in", pitot="10 psi")], target="5 psi"))
+    assert low.rated_flow_20psi == 0.0 and low.hydrant_class.label == "C"
