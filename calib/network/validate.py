@@ -115,12 +115,15 @@ def _pump_curves(pumps: ParsedTable, problems: list[Problem]) -> np.ndarray:
 
 
 def _check_connectivity(tables: NetworkTables, n_junctions: int, n_nodes: int, links,
-                        problems: list[Problem]) -> None:
-    """Each connected part (over open pipes and running pumps) needs a source; each source a link."""
+                        repeated: np.ndarray, problems: list[Problem]) -> None:
+    """Each connected part (over open pipes and running pumps) needs a source; each source a link.
+
+    Rows that repeat an id (``repeated``, reported already) are left out of both checks.
+    """
     frm, to, active = links
     ok = (frm >= 0) & (to >= 0)
     for s in range(n_junctions, n_nodes):
-        if not np.any(ok & ((frm == s) | (to == s))):
+        if not repeated[s] and not np.any(ok & ((frm == s) | (to == s))):
             problems.append(_problem(tables.sources, s - n_junctions, "the source has no pipe",
                                      expected="at least one pipe or pump joining it to the "
                                      "network"))
@@ -128,11 +131,11 @@ def _check_connectivity(tables: NetworkTables, n_junctions: int, n_nodes: int, l
     graph = sp.coo_matrix((np.ones(use.sum()), (frm[use], to[use])), shape=(n_nodes, n_nodes))
     _, label = connected_components(graph, directed=False)
     fed = np.zeros(label.max() + 1 if n_nodes else 0, dtype=bool)
-    fed[label[n_junctions:]] = True
+    fed[label[n_junctions:][~repeated[n_junctions:]]] = True
     junctions = tables.junctions
     ids = junctions.get("id", "")
     for part in np.flatnonzero(~fed):
-        members = np.flatnonzero(label[:n_junctions] == part)
+        members = np.flatnonzero((label[:n_junctions] == part) & ~repeated[:n_junctions])
         if len(members) == 0:
             continue
         named = ", ".join(f"'{ids[m]}'" for m in members[:NAMED_IDS])
@@ -162,7 +165,11 @@ def assemble(tables: NetworkTables, problems: list[Problem], name: str = "networ
         problems.append(Problem("the network has no source (reservoir or tank)", file=s.file,
                                 expected="at least one row with a fixed hydraulic grade"))
     node_ids = np.concatenate([j.get("id", ""), s.get("id", "")]).astype(object)
-    index = {str(k): i for i, k in enumerate(node_ids) if k != ""}
+    index: dict[str, int] = {}
+    for i, k in enumerate(node_ids):  # the first row of a duplicated id is the node
+        if k != "":
+            index.setdefault(str(k), i)
+    repeated = np.array([index.get(str(k), -1) != i for i, k in enumerate(node_ids)], dtype=bool)
     p_from, p_to = _link_ends(p, index, problems)
     _check_pipe_values(p, problems)
     status = p.get("status", 0) if "status" in p.values else np.zeros(len(p), np.int8)
@@ -178,7 +185,8 @@ def assemble(tables: NetworkTables, problems: list[Problem], name: str = "networ
         frm, to = np.concatenate([frm, u_from]), np.concatenate([to, u_to])
         active = np.concatenate([active, speed > 0])
     if len(j) and len(s):
-        _check_connectivity(tables, len(j), len(node_ids), (frm, to, active), problems)
+        _check_connectivity(tables, len(j), len(node_ids), (frm, to, active), repeated,
+                            problems)
     if problems:
         raise NetworkError(problems)
     return _build(tables, node_ids, p_from, p_to, status, pump_parts, name, pipe_geometry)
