@@ -165,7 +165,7 @@ def _read_feature(file, row, feature, scale, tables, geometry, problems) -> None
         tables["junctions" if kind == "junction" else "sources"].add(row, props)
         return
     table = "pipes" if kind == "pipe" else "pumps"
-    line = None if vertices is None else [tuple(v) for v in vertices * factor]
+    line = None if vertices is None else [tuple(map(float, v)) for v in vertices * factor]
     if kind == "pipe" and not _length_header(props):
         if vertices is None:
             problems.append(Problem("the pipe has no length property and no line to measure",

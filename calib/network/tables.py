@@ -241,7 +241,7 @@ def _merge_columns(file, column, parts, rows, ids, problems):
     filled = np.zeros(len(rows), dtype=int)
     for text, factor in parts:
         values, _ = _numbers(text)
-        scaled = np.array([t if t == "" or not np.isfinite(v) else repr(v * factor)
+        scaled = np.array([t if t == "" or not np.isfinite(v) else repr(float(v * factor))
                            for t, v in zip(text, values)], dtype=object)
         take = (text != "") & (merged == "")
         merged[take] = scaled[take]
