@@ -77,7 +77,7 @@ class SchurPattern:
     def assemble(self, w: np.ndarray, extra_diag: np.ndarray | None = None) -> sp.csc_matrix:
         """``S = A21 diag(w) A12`` in the permuted order, plus ``extra_diag`` (old order) on the diagonal."""
         data = np.bincount(self._contrib_pos, weights=w[self._contrib_link] * self._contrib_sign,
-                           minlength=self.nnz)
+                           minlength=self.nnz).astype(float, copy=False)
         if extra_diag is not None:
             data[self.diag_pos] += extra_diag
         return sp.csc_matrix((data, self.indices, self.indptr), shape=(self.n, self.n))

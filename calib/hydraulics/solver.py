@@ -240,6 +240,7 @@ class NetworkSolver:
         isolated = self._reachable(active)
         self._check_isolated(isolated, demand)
         dq_max = dh_max = np.inf
+        self.trace = []  # per iteration: (flow change / q_ref, head change, energy, mass error)
         changed = False
         dq = np.zeros(len(q))
         dH = np.zeros(nj)
@@ -251,6 +252,7 @@ class NetworkSolver:
             e1 = float(np.abs(F1).max(initial=0.0))
             e2 = float(np.abs(F2).max(initial=0.0))
             q_ref = max(total_demand, float(np.abs(q).max(initial=0.0)), self.q_eps)
+            self.trace.append((dq_max / q_ref, dh_max, e1, e2))
             if (it > 0 and not changed and dq_max <= self.flow_tol * q_ref
                     and dh_max <= self.head_tol and e1 <= self.energy_tol and e2 <= mass_tol):
                 self._check_frozen(q, H, active, dynamic, flips)
@@ -262,7 +264,7 @@ class NetworkSolver:
             S = pat.assemble(w, isolated.astype(float))
             rhs = F2 - pat.inflow(w * F1)[:nj]
             rhs[isolated] = 0.0
-            dH = pat.factorize(S)(rhs)
+            dH = pat.factorize(S)(rhs) if nj else np.zeros(0)
             dHn = np.concatenate([dH, np.zeros(net.n_sources)])
             dq = -w * (F1 - (dHn[f] - dHn[t]))
             if not (np.all(np.isfinite(dH)) and np.all(np.isfinite(dq))):
@@ -392,8 +394,7 @@ class NetworkSolver:
         rhs = b2 - pat.inflow_matrix(wb1)
         rhs[iso] = 0.0
         S = pat.assemble(w, iso.astype(float))
-        solve = pat.factorize(S)
-        dH = solve(rhs) if rhs.shape[1] else np.zeros((nj, 0))
+        dH = pat.factorize(S)(rhs) if (rhs.shape[1] and nj) else np.zeros((nj, rhs.shape[1]))
         dHn = np.vstack([dH, np.zeros((self.network.n_sources, dH.shape[1]))])
         dQ = -(wb1 - w[:, None] * (dHn[self.link_from] - dHn[self.link_to]))
         if vector:
