@@ -166,7 +166,7 @@ def format_text(result, system: str) -> str:
     cls = result.hydrant_class
     if t.target != DEFAULT_TARGET:
         lines.append(f"  flow at 20 psi residual (the class is by it): {q(result.rated_flow_20psi)}")
-    lines.append(f"  class: {cls.title}")
+    lines.append(f"  class: {cls.describe(system)}")
     lines.append(f"    {cls.note}")
     if result.residual_grade is not None:
         lines.append(f"  hydraulic grade at the gauge: static {from_si(result.static_grade, 'head', du['head']):.2f} "

@@ -30,12 +30,20 @@ class HydrantClass:
     @property
     def title(self) -> str:
         """For display, e.g. ``"NFPA 291 class AA (1500 gpm or more), light blue"``."""
+        return self.describe("us")
+
+    def describe(self, system: str = "us") -> str:
+        """``title``; with ``"si"`` the bounds also in L/s (the standard defines them in gpm)."""
+        def b(gpm):
+            return f"{gpm:.0f} gpm" + (f" = {gpm * GPM * 1000:.1f} L/s" if system == "si" else "")
         if math.isinf(self.upper_gpm):
-            span = f"{self.lower_gpm:.0f} gpm or more"
+            span = f"{b(self.lower_gpm)} or more"
         elif self.lower_gpm == 0:
-            span = f"less than {self.upper_gpm:.0f} gpm"
+            span = f"less than {b(self.upper_gpm)}"
         else:
-            span = f"{self.lower_gpm:.0f} - {self.upper_gpm - 1:.0f} gpm"
+            span = f"{self.lower_gpm:.0f} - {self.upper_gpm - 1:.0f} gpm" + (
+                f" = {self.lower_gpm * GPM * 1000:.1f} - {self.upper_gpm * GPM * 1000:.1f} L/s"
+                if system == "si" else "")
         return f"{self.standard} class {self.label} ({span}), {self.colour}"
 
 

@@ -177,6 +177,14 @@ def check_gauge_position(residual_on_flowing: bool) -> list[Finding]:
                     "common practice")]
 
 
+def check_flow(static: float, residual: float, test_flow: float | None) -> list[Finding]:
+    """No flow recorded while the pressure dropped: a pitot or meter reading is missing or wrong."""
+    if test_flow is None or test_flow > 0 or not residual < static:
+        return []
+    return [Finding("no-flow", "error",
+                    "No flow was recorded, yet the pressure dropped. Check the pitot or meter readings.")]
+
+
 def check_test(static: float, residual: float, pitots=(), test_flow: float | None = None,
                rated: float | None = None, static_end: float | None = None, system: str = "us",
                residual_on_flowing: bool = False) -> list[Finding]:
@@ -185,6 +193,7 @@ def check_test(static: float, residual: float, pitots=(), test_flow: float | Non
     out += check_drop(static, residual, system)
     out += check_residual_minimum(residual, system)
     out += check_pitots(pitots, system)
+    out += check_flow(static, residual, test_flow)
     if test_flow is not None and rated is not None:
         out += check_extrapolation(test_flow, rated, system)
     if static_end is not None:

@@ -195,9 +195,9 @@ def evaluate(test: FlowTest, system: str = "us") -> FlowTestResult:
     ratable = 0 <= pr < ps and 0 <= pt < ps
     rated = float(rated_flow(total, ps, pr, pt)) if ratable else math.nan
     pitots = [o.pitot for o in test.outlets if o.flow is None]
-    findings = check_test(ps, pr, pitots, total if ratable and pt < pr else None,
-                          rated if ratable and pt < pr else None, test.static_end, system,
-                          test.residual_on_flowing)
+    extrapolated = ratable and pt < pr
+    findings = check_test(ps, pr, pitots, total, rated if extrapolated else None, test.static_end,
+                          system, test.residual_on_flowing)
     if not 0 <= pt < ps and pr < ps:
         findings.append(Finding("target-above-static", "error",
                                 "The target residual is at or above the static: no rated flow exists."))

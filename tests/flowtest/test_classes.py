@@ -50,3 +50,9 @@ def test_negative_or_junk_rated_flow_raises():
         hydrant_class(-1.0)
     with pytest.raises(FlowTestError, match="rated flow"):
         hydrant_class("20 psi")
+
+
+def test_si_description_gives_litres_per_second_beside_gpm():
+    # 1500 gpm = 94.6 L/s; 1000 gpm = 63.1 L/s (1 gal = 3.785411784 L, NIST SP 811)
+    assert hydrant_class("100 L/s").describe("si") == "NFPA 291 class AA (1500 gpm = 94.6 L/s or more), light blue"
+    assert "1000 - 1499 gpm = 63.1 - 94.6 L/s" in hydrant_class("70 L/s").describe("si")
