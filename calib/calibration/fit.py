@@ -249,11 +249,23 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
     first = None
     z_used, cook_used = _diagnostics(est, prob)
     gross = np.zeros(n, dtype=bool)
-    gross[np.flatnonzero(used0)[np.abs(z_used) > threshold]] = True
-    if refit and gross.any() and (used0 & ~gross).any():
-        first = est
+    z_with = np.full(n, np.nan)  # standardized residual in the fit that still held the reading
+    # leave out the worst reading beyond the threshold and refit, one at a time, so that a gross
+    # error's neighbours (dragged in the first fit) are not left out with it
+    max_out = max(1, n // 10)
+    while refit and gross.sum() < max_out:
+        idx = np.flatnonzero(est.used)
+        worst = int(np.argmax(np.abs(z_used)))
+        if abs(z_used[worst]) <= threshold or est.used.sum() - 1 <= prob.n_params:
+            break
+        if first is None:
+            first = est
+        i = int(idx[worst])
+        gross[i] = True
+        z_with[i] = -z_used[worst]
         count["stage"] = "refit without flagged readings"
-        used1 = used0 & ~gross
+        used1 = est.used.copy()
+        used1[i] = False
         prob = make(used1, x0=est.x)
         est = _estimate(prob, est.x, loss, f_scale, max_nfev, used1)
         z_used, cook_used = _diagnostics(est, prob)
@@ -271,7 +283,8 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
     cook[est.used] = cook_used
     p = prob.n_params
     for i in np.flatnonzero(gross):
-        flag[i] = f"standardized residual {z[i]:+.1f} beyond +/-{threshold:g}; left out of the refit"
+        flag[i] = (f"standardized residual {z_with[i]:+.1f} beyond +/-{threshold:g} "
+                   f"({z[i]:+.1f} against the refit); left out")
     # a reading that survives the refit but is still beyond the threshold
     for i in np.flatnonzero(est.used & (np.abs(z) > threshold)):
         flag[i] = f"standardized residual {z[i]:+.1f} beyond +/-{threshold:g}"
@@ -287,7 +300,8 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
         cand = [i for i in used_idx[np.argsort(-cook[used_idx])][:3] if cook[i] > 4.0 / n_used]
         sd_c = est.sd[prob.c_cols]
         for i in cand:
-            count["stage"] = f"leave-one-out {i}"
+            count["stage"] = (f"leave-one-out {tests.test_ids[tests.test[i]]} "
+                              f"{network.node_ids[tests.node[i]]}")
             mask = est.used.copy()
             mask[i] = False
             loo_prob = make(mask, x0=est.x)
@@ -318,7 +332,7 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
         post_var = sd_c ** 2 / est.s2
         informed = np.clip(1.0 - post_var / gp.spread ** 2, 0.0, 1.0)
         informed[~np.isfinite(informed)] = 0.0
-        status = ["informed" if s > 0.75 else "weakly informed" if s > 0.25 else "undetermined"
+        status = ["informed" if s > 0.5 else "weakly informed" if s > 0.1 else "undetermined"
                   for s in informed]
     else:
         half = est.t * sd_c
@@ -353,6 +367,10 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
             where = (f"stays near its prior {gp.c[g]:.0f} with the prior's width" if gp is not None
                      else "has an infinite or very wide interval")
             findings.append(f"Group {name}: no test determines it; its C {where}.")
+        elif status[g] == "weakly informed":
+            findings.append(f"Group {name}: the tests inform it weakly ({informed[g]:.0%} of its "
+                            "precision comes from them"
+                            + ("; its C leans on the prior)." if gp is not None else ")."))
         if est.at_bound[col]:
             findings.append(f"Group {name}: C {est.x[col]:.1f} is at a bound of "
                             f"{c_bounds[0]:g}-{c_bounds[1]:g}; its interval is not reliable. Check the "
@@ -362,12 +380,16 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
                         "combination of them better than each alone.")
     if first is not None:
         moved = np.abs(first.x[prob.c_cols] - est.x[prob.c_cols])
-        findings.append(f"{int(gross.sum())} reading(s) beyond the threshold were left out and the fit "
-                        f"repeated; C moved by up to {moved.max():.1f} between the two fits "
-                        "(both are in groups.csv).")
+        findings.append(f"{int(gross.sum())} reading(s) beyond the threshold were left out one at a "
+                        f"time and the fit repeated; C moved by up to {moved.max():.1f} between the fit "
+                        "with every reading and the result (both are in groups.csv).")
     for i, reason in face.items():
         findings.append(f"Reading {tests.test_ids[tests.test[i]]} / {network.node_ids[tests.node[i]]} "
                         f"({tests.kind[i]}) fails a face check: {reason}; left out.")
+    sig_m = float(np.median(tests.sigma_head))
+    if sig_m > 0.5:
+        findings.append(f"The gauges' stated accuracy ({sig_m:.2f} m of head) is coarser than the "
+                        "WRc 0.5 m tolerance: that criterion cannot be met by these gauges alone.")
     if loss != "linear":
         findings.append(f"Robust loss '{loss}' (f_scale {f_scale:g} standardized units): the intervals "
                         "are the linearized ones at the solution.")

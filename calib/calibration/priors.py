@@ -56,8 +56,16 @@ _CI_12IN = np.array([130.0, 120.0, 111.0, 96.0, 87.0, 80.0, 74.0])
 
 def normalize_material(material: str) -> str:
     """Map a material name or abbreviation onto a key of ``TYPICAL`` (``"unknown"`` when not known)."""
-    key = str(material).strip().lower()
-    return ALIASES.get(key, ALIASES.get(key.replace("_", " "), "unknown"))
+    key = str(material).strip().lower().replace("_", " ")
+    if key in ALIASES:
+        return ALIASES[key]
+    # descriptive names such as "cement-lined ductile iron" or "unlined cast iron"
+    for word, name in (("ductile", "ductile iron"), ("cast iron", "cast iron"), ("pvc", "pvc"),
+                       ("asbestos", "asbestos cement"), ("polyethylene", "hdpe"), ("hdpe", "hdpe"),
+                       ("steel", "steel"), ("concrete", "concrete")):
+        if word in key:
+            return name
+    return "unknown"
 
 
 def cast_iron_c(age_years, diameter_m):

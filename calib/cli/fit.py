@@ -1,0 +1,157 @@
+"""``python -m calib fit NETWORK TESTS --out OUT``: calibrate group C-factors from a season of flow tests.
+
+Thin: read the network (``calib.network.io``) and the tests folder (``calib.calibration.read_tests``),
+fit (``calib.calibration.fit``), write the exports and the report into OUT, print a summary table.
+A progress bar on stderr is updated after every solver call. Bad input exits 2 with every problem
+listed; a fit that cannot be carried out exits 1.
+"""
+
+from __future__ import annotations
+
+import math
+import sys
+import time
+
+from calib import units
+from calib.errors import InputError
+
+CAUTION = ("A calibrated model supports, never replaces, field verification and review by a licensed "
+           "engineer; for fire-protection design follow local codes and the authority having "
+           "jurisdiction. Flowing hydrants: open and close slowly, control traffic and the water's "
+           "path, and notify the fire service.")
+
+
+def register(subparsers) -> None:
+    p = subparsers.add_parser(
+        "fit", help="calibrate Hazen-Williams C-factors of pipe groups from flow tests",
+        description="Fit one Hazen-Williams C per pipe group to the static and residual readings of "
+                    "a folder of hydrant flow tests (bounded weighted least squares), with 95 %% "
+                    "intervals, flagged readings, exports and an HTML report.", epilog=CAUTION)
+    p.add_argument("network", metavar="NETWORK", help="network folder of CSV tables or a .geojson file")
+    p.add_argument("tests", metavar="TESTS",
+                   help="folder with flows.csv, pressures.csv (boundary.csv, tests.csv)")
+    p.add_argument("--out", required=True, metavar="OUT", help="folder for the outputs")
+    p.add_argument("--group-by", default=None, metavar="RULE",
+                   help="group pipes by a rule: material, decade, diameter (e.g. material,decade or "
+                        "diameter=8,12); default the group column of pipes.csv")
+    p.add_argument("--prior", choices=("handbook", "none"), default="handbook",
+                   help="regularizing prior on C by material and age (default handbook)")
+    p.add_argument("--sigma", default="1 psi", metavar="P",
+                   help="gauge accuracy where pressures.csv gives none (default 1 psi)")
+    p.add_argument("--units", choices=("us", "si"), default="us", help="units of the outputs")
+    p.add_argument("--loss", choices=("linear", "soft_l1", "huber"), default="linear",
+                   help="least-squares loss (default linear; robust losses damp outliers)")
+    p.add_argument("--c-bounds", default="40,160", metavar="LO,HI",
+                   help="plausible range of C (default 40,160)")
+    p.add_argument("--demand-factor", action="store_true",
+                   help="also fit a demand factor per test day")
+    p.add_argument("--source-offsets", action="store_true",
+                   help="also fit a grade offset per source per test where boundary.csv gives none")
+    p.add_argument("--threshold", type=float, default=3.0,
+                   help="flag readings whose standardized residual exceeds this (default 3)")
+    p.add_argument("--no-report", action="store_true", help="skip report.html")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.set_defaults(func=run)
+
+
+def _bounds(text: str) -> tuple[float, float]:
+    parts = [s.strip() for s in str(text).split(",")]
+    try:
+        lo, hi = (float(parts[0]), float(parts[1])) if len(parts) == 2 else (math.nan, math.nan)
+    except ValueError:
+        lo = hi = math.nan
+    if not (math.isfinite(lo) and math.isfinite(hi) and 0 < lo < hi <= 200):
+        raise InputError(f"'{text}' is not a C range", field="--c-bounds",
+                         expected="two numbers LO,HI with 0 < LO < HI <= 200, e.g. 40,160")
+    return lo, hi
+
+
+def _sigma(text: str) -> float:
+    try:
+        value = units.to_si(text, "pressure", "psi")
+    except ValueError as exc:
+        raise InputError(str(exc), field="--sigma", expected="a pressure such as 1psi or 7kPa") from None
+    if not (math.isfinite(value) and 0 < value <= 20 * units.PSI):
+        raise InputError(f"'{text}' is not a plausible gauge accuracy", field="--sigma",
+                         expected="more than 0 and at most 20 psi")
+    return value
+
+
+class ProgressBar:
+    """A plain text bar on stderr, redrawn after every solver call."""
+
+    def __init__(self, stream=None, width: int = 28, expected: int = 400):
+        self.stream = stream or sys.stderr
+        self.width, self.expected = width, max(expected, 1)
+        self.start = time.perf_counter()
+
+    def __call__(self, n: int, stage: str) -> None:
+        now = time.perf_counter()
+        # redraw at most ten times a second (or on a new stage) so that the bar costs nothing
+        if stage == getattr(self, "_stage", None) and now - getattr(self, "_last", 0.0) < 0.1:
+            return
+        self._stage, self._last = stage, now
+        self.expected = max(self.expected, int(n * 1.15))
+        done = int(self.width * min(n / self.expected, 1.0))
+        bar = "#" * done + "." * (self.width - done)
+        self.stream.write(f"\r[{bar}] {n:5d} solves  {time.perf_counter() - self.start:5.1f} s  "
+                          f"{stage[:40]:<40s}")
+        self.stream.flush()
+
+    def close(self) -> None:
+        self.stream.write("\n")
+        self.stream.flush()
+
+
+def summary(result, system: str = "us") -> str:
+    """The table printed at the end: groups, C, interval, pipes, informed; then the flagged readings."""
+    lines = [f"{'group':<24s} {'C':>6s} {'95% interval':>15s} {'pipes':>6s}  informed"]
+    for g, name in enumerate(result.grouping.names):
+        lo, hi = result.c_low[g], result.c_high[g]
+        interval = f"{lo:6.1f}-{hi:6.1f}" if math.isfinite(lo) and math.isfinite(hi) else "undetermined"
+        lines.append(f"{name[:24]:<24s} {result.c[g]:6.1f} {interval:>15s} "
+                     f"{int(result.grouping.n_pipes()[g]):6d}  {result.status[g]}"
+                     f" ({result.informed[g]:.0%})")
+    pu = units.display_unit("pressure", system)
+    rmse = units.from_si(result.rmse, "pressure", pu)
+    lines.append(f"RMSE of pressures {rmse:.2f} {pu} over {int(result.estimate.used.sum())} readings; "
+                 + ("intervals scaled by s^2 = %.2f" % result.estimate.s2 if result.estimate.scaled
+                    else "intervals from the stated sigma"))
+    flagged = [(i, f) for i, f in enumerate(result.flag) if f]
+    if flagged:
+        lines.append("flagged readings:")
+        t, net = result.tests, result.network
+        for i, f in flagged:
+            lines.append(f"  {t.test_ids[t.test[i]]} {net.node_ids[t.node[i]]} {t.kind[i]}: {f}")
+    else:
+        lines.append("no flagged readings")
+    return "\n".join(lines)
+
+
+def run(args) -> int:
+    from calib.calibration import export, fit, read_tests
+    from calib.network.io import read_network
+
+    c_bounds = _bounds(args.c_bounds)
+    sigma = _sigma(args.sigma)
+    if not (math.isfinite(args.threshold) and args.threshold > 0):
+        raise InputError(f"{args.threshold} is not a positive threshold", field="--threshold",
+                         expected="about 3 standardized units")
+    network = read_network(args.network)
+    tests = read_tests(args.tests, network, sigma=sigma)
+    bar = None if args.quiet else ProgressBar(expected=12 * 2 * tests.n_tests)
+    try:
+        result = fit(network, tests, group_by=args.group_by, prior=args.prior, c_bounds=c_bounds,
+                     loss=args.loss, demand_factor=args.demand_factor,
+                     source_offsets=args.source_offsets, threshold=args.threshold, progress=bar)
+    finally:
+        if bar is not None:
+            bar.close()
+    paths = export.write_outputs(result, args.out, args.units)
+    if not args.no_report:
+        from calib.calibration.report import write_report
+        paths.append(write_report(result, args.out, args.units))
+    print(summary(result, args.units))
+    print("wrote " + ", ".join(str(p) for p in paths))
+    print(CAUTION)
+    return 0
