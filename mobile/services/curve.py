@@ -29,7 +29,7 @@ def _nice_ticks(top: float, n: int = 6) -> np.ndarray:
     return np.arange(0.0, top + 0.5 * step, step)
 
 
-def render_curve(results, path, system: str = "us", width_px: int = 1000, height_px: int = 620) -> bool:
+def render_curve(results, path, system: str = "us", width_px: int = 820, height_px: int = 640) -> bool:
     """Draw ``results`` (``mobile.services.compute.Results``) to the PNG ``path``; False if no curve."""
     if results.curve is None or results.rated_flow is None:
         return False
@@ -52,20 +52,20 @@ def render_curve(results, path, system: str = "us", width_px: int = 1000, height
     ax.plot([0, flowtest.n185(qf), flowtest.n185(qr)], [ps, pr, pt], "o", ms=14, color="#0046ad", mec="black", mew=2)
     ax.axhline(pt, color="#b00020", lw=2.5, ls="--")
     ax.annotate(f"test {qf:,.0f} {uq}\nat {pr:.1f} {up}", (flowtest.n185(qf), pr), textcoords="offset points",
-                xytext=(14, 10), fontsize=17, fontweight="bold")
+                xytext=(14, 10), fontsize=21, fontweight="bold")
     ax.annotate(f"{qr:,.0f} {uq} at {pt:.0f} {up}", (flowtest.n185(qr), pt), textcoords="offset points",
-                xytext=(-10, 14), ha="right", fontsize=17, fontweight="bold", color="#b00020")
+                xytext=(-10, 14), ha="right", fontsize=21, fontweight="bold", color="#b00020")
     ax.set_xticks(flowtest.n185(ticks))
-    ax.set_xticklabels([f"{t:,.0f}" for t in ticks], fontsize=14)
+    ax.set_xticklabels([f"{t:,.0f}" if t > 0 else "" for t in ticks], fontsize=18)
     ax.set_xlim(0, flowtest.n185(ticks[-1]))
     ax.set_ylim(0, ps * 1.12)
-    ax.tick_params(axis="y", labelsize=14, width=2, length=6)
+    ax.tick_params(axis="y", labelsize=18, width=2, length=6)
     ax.tick_params(axis="x", width=2, length=6)
     ax.grid(True, color="#999999", lw=1)
     for side in ax.spines.values():
         side.set_linewidth(2)
-    ax.set_xlabel(f"flow [{uq}]  (N^1.85 scale)", fontsize=16, fontweight="bold")
-    ax.set_ylabel(f"pressure [{up}]", fontsize=16, fontweight="bold")
+    ax.set_xlabel(f"flow [{uq}], N^1.85 scale", fontsize=19, fontweight="bold")
+    ax.set_ylabel(f"pressure [{up}]", fontsize=19, fontweight="bold")
     fig.tight_layout()
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=dpi, facecolor="white")

@@ -1,0 +1,210 @@
+"""The Kivy application: builds the store and the service, hands them to the screens, navigates.
+
+The app object holds the navigation state (which test is open) and the few actions that span
+screens (new test, open a test, load an area, export, the curve image). Computation lives in
+``mobile.services``; layout in the ``.kv`` files.
+"""
+
+from __future__ import annotations
+
+import os
+import tempfile
+from pathlib import Path
+
+from kivy.app import App
+from kivy.clock import Clock
+from kivy.core.window import Window
+from kivy.lang import Builder
+from kivy.properties import StringProperty
+from kivy.uix.popup import Popup
+from kivy.uix.screenmanager import NoTransition, ScreenManager
+
+from calib.errors import CalibError
+
+from mobile.screens import SCREENS
+from mobile.screens.check import CheckScreen
+from mobile.screens.checklist import ChecklistScreen
+from mobile.screens.export import ExportScreen
+from mobile.screens.home import HomeScreen
+from mobile.screens.readings import ReadingsScreen
+from mobile.screens.results import ResultsScreen
+from mobile.screens.settings import SettingsScreen
+from mobile.screens.setup import SetupScreen
+from mobile.services import curve, demo, export
+from mobile.services.area import Area
+from mobile.services.session import Outcome, TestService, _first_message
+from mobile.store import Store
+from mobile.widgets import common, folders, keypad  # noqa: F401 - registers the widget classes for kv
+from mobile.widgets.folders import FolderBrowser
+
+HERE = Path(__file__).resolve().parent
+#: Environment variable that overrides the data folder (used by the tests).
+DATA_ENV = "HYDRANT_FIELD_DATA"
+CLASSES = {"home": HomeScreen, "checklist": ChecklistScreen, "setup": SetupScreen,
+           "readings": ReadingsScreen, "results": ResultsScreen, "check": CheckScreen,
+           "export": ExportScreen, "settings": SettingsScreen}
+_KV_LOADED = False
+
+
+def load_kv() -> None:
+    global _KV_LOADED
+    if _KV_LOADED:
+        return
+    for path in [HERE / "widgets" / f"{w}.kv" for w in ("common", "keypad", "folders")] + \
+            [HERE / "screens" / f"{name}.kv" for name in SCREENS]:
+        Builder.load_file(str(path))
+    _KV_LOADED = True
+
+
+class FieldApp(App):
+    title = "Hydrant flow tests"
+    test_id = StringProperty("")
+
+    def __init__(self, data_dir=None, demo_mode: bool = False, snapshot_dir=None, **kwargs):
+        super().__init__(**kwargs)
+        self.demo_mode = demo_mode or snapshot_dir is not None
+        self.snapshot_dir = Path(snapshot_dir) if snapshot_dir else None
+        self._data_dir_arg = data_dir
+        self.snapshots: list[str] = []
+
+    # --- set-up ------------------------------------------------------------------------------
+    def resolve_data_dir(self) -> Path:
+        if self._data_dir_arg:
+            return Path(self._data_dir_arg)
+        if os.environ.get(DATA_ENV):
+            return Path(os.environ[DATA_ENV])
+        if self.snapshot_dir is not None:
+            return Path(tempfile.mkdtemp(prefix="field-snapshot-"))
+        base = Path(self.user_data_dir)
+        return base / "demo" if self.demo_mode else base
+
+    def build(self):
+        Window.clearcolor = (1, 1, 1, 1)
+        Window.bind(on_keyboard=self._on_key)
+        load_kv()
+        self.data_dir = self.resolve_data_dir()
+        self.store = Store.open(self.data_dir)
+        self.service = TestService(self.store, self._initial_area())
+        if self.demo_mode and not self.store.tests():
+            made = demo.log_demo_tests(self.service, self.service.area)
+            self.test_id = made[-1] if made else ""
+        sm = ScreenManager(transition=NoTransition())
+        for name in SCREENS:
+            sm.add_widget(CLASSES[name](name=name))
+        if self.snapshot_dir is not None:
+            Clock.schedule_once(lambda dt: self._snapshot(list(SCREENS)), 1.0)
+        return sm
+
+    def _initial_area(self) -> Area:
+        if self.demo_mode:
+            return demo.demo_area()
+        path = self.store.get_setting("area_path")
+        if path:
+            try:
+                return Area.load(path)
+            except (CalibError, OSError):
+                pass
+        return Area("No area loaded")
+
+    def _on_key(self, window, key, *args):
+        if key == 27 and self.root and self.root.current != "home":  # Android back / Esc
+            self.go("home")
+            return True
+        return False
+
+    # --- navigation and cross-screen actions -------------------------------------------------
+    def go(self, name: str) -> None:
+        if name != "home" and name not in ("settings", "export") and not self.test_id:
+            name = "home"
+        self.root.current = name
+
+    def new_test(self) -> None:
+        try:
+            self.test_id = self.service.new_test()
+        except CalibError as exc:
+            self.root.get_screen("home").show(Outcome(False, _first_message(exc)))
+            return
+        self.go("checklist")
+
+    def open_test(self, tid: str) -> None:
+        self.test_id = tid
+        self.go("results" if self.store.test(tid).status == "finished" else "readings")
+
+    def test_status(self, tid: str) -> str:
+        t = self.store.test(tid)
+        return ("finished" if t.status == "finished" else "DRAFT") + \
+            (f", revision {t.current_revision}" if t.current_revision > 1 else "")
+
+    def area_summary(self) -> str:
+        a = self.service.area
+        if a.network is None and not a.hydrants:
+            return "No area loaded: tap LOAD AREA to pick the office network (folder or .geojson)."
+        return f"Area {a.name}: {len(a.hydrants)} hydrants" + \
+            (", network loaded (model check available)" if a.network is not None else "")
+
+    def pick_area(self) -> None:
+        start = self.store.get_setting("area_path") or str(demo.TALLOWMERE.parent)
+        browser = FolderBrowser(path=str(Path(start).parent) if Path(start).exists() else str(Path.home()),
+                                suffixes=[".geojson"], action="LOAD THIS NETWORK FOLDER")
+        popup = Popup(title="Tap a .geojson file, or open a network folder and load it",
+                      title_size="20sp", content=browser, size_hint=(0.95, 0.95))
+        browser.bind(on_choose=lambda _, path: (popup.dismiss(), self.load_area(path)))
+        popup.open()
+
+    def load_area(self, path) -> Outcome:
+        try:
+            area = Area.load(path)
+            self.store.set_setting("area_path", str(path))
+        except (CalibError, OSError) as exc:
+            outcome = Outcome(False, "Could not load the area: " + _first_message(exc))
+        else:
+            self.service.area = area
+            outcome = Outcome(True, f"Loaded {area.name}: {len(area.hydrants)} hydrants")
+        self.root.get_screen("home").show(outcome)
+        return outcome
+
+    def curve_png(self, tid: str) -> str:
+        """Path of the test's curve image (drawn by the service), '' while it cannot be drawn."""
+        t = self.store.test(tid)
+        path = self.data_dir / "cache" / f"{tid}-r{t.current_revision}-{self.service.system}-" \
+                                         f"{len(self.store.history(tid))}.png"
+        if path.exists():
+            return str(path)
+        return str(path) if curve.render_curve(self.service.results(tid), path,
+                                               self.service.system) else ""
+
+    def default_export_folder(self) -> str:
+        return str(self.data_dir / "export")
+
+    def export_to(self, folder: str, include_drafts: bool = False) -> Outcome:
+        try:
+            done = export.export_tests(self.service, folder, include_drafts)
+        except (CalibError, OSError) as exc:
+            return Outcome(False, f"Export failed, nothing half-written: {exc}")
+        return Outcome(True, f"Exported {done['tests']} tests to {done['folder']}")
+
+    # --- snapshot mode -----------------------------------------------------------------------
+    def _snapshot(self, todo: list[str]) -> None:
+        """Show each main screen in turn, save a PNG of it into ``snapshot_dir``, then stop."""
+        if not todo:
+            self.stop()
+            return
+        name = todo[0]
+        self.go(name)
+        screen = self.root.get_screen(name)
+        if name == "check":
+            screen.run()
+
+        def shoot(dt):
+            if name == "check" and screen.running:
+                Clock.schedule_once(shoot, 0.3)
+                return
+            self.snapshot_dir.mkdir(parents=True, exist_ok=True)
+            target = self.snapshot_dir / f"{SCREENS.index(name) + 1:02d}-{name}.png"
+            made = Window.screenshot(name=str(self.snapshot_dir / f".{name}.png"))
+            if made:
+                os.replace(made, target)
+                self.snapshots.append(str(target))
+            Clock.schedule_once(lambda dt: self._snapshot(todo[1:]), 0.1)
+
+        Clock.schedule_once(shoot, 0.6)

@@ -1,0 +1,6 @@
+"""The screens: one ``.py`` (a thin controller) and one ``.kv`` (layout) per screen.
+
+``SCREENS`` lists them in the order of the crew's workflow; ``mobile.app`` loads their kv files.
+"""
+
+SCREENS = ("home", "checklist", "setup", "readings", "results", "check", "export", "settings")

@@ -1,0 +1,36 @@
+"""What every screen shares: the app and its service, a message line, and refresh on entry."""
+
+from kivy.app import App
+from kivy.properties import BooleanProperty, StringProperty
+from kivy.uix.screenmanager import Screen
+
+
+class FieldScreen(Screen):
+    message = StringProperty("")
+    bad = BooleanProperty(False)
+
+    @property
+    def app(self):
+        return App.get_running_app()
+
+    @property
+    def service(self):
+        return self.app.service
+
+    @property
+    def tid(self) -> str:
+        return self.app.test_id
+
+    def on_pre_enter(self, *args):
+        self.message = ""
+        self.refresh()
+
+    def refresh(self):
+        """Pull what the screen shows from the service (override)."""
+
+    def show(self, outcome) -> bool:
+        """Show an ``Outcome``'s message (red when refused, with any warnings); returns ``ok``."""
+        extra = ("\n" + "\n".join(outcome.warnings)) if outcome.warnings else ""
+        self.message, self.bad = outcome.message + extra, not outcome.ok or bool(outcome.warnings)
+        self.refresh()
+        return outcome.ok

@@ -1,0 +1,52 @@
+"""On-site model check: predicted against observed pressure, with what to do about a suspect reading.
+
+The solve runs in a worker thread (``mobile.services.check.run_in_background``); its result comes
+back through ``kivy.clock.mainthread``, so the screen never freezes. A progress bar moves meanwhile.
+"""
+
+from kivy.animation import Animation
+from kivy.clock import mainthread
+from kivy.properties import BooleanProperty, ListProperty, StringProperty
+
+from mobile.screens.base import FieldScreen
+from mobile.services import check, values
+
+
+class CheckScreen(FieldScreen):
+    running = BooleanProperty(False)
+    rows = ListProperty([])
+    summary = StringProperty("Tap RUN CHECK to simulate this test on the area's network.")
+
+    def refresh(self):
+        pass
+
+    def run(self):
+        if self.running:
+            return
+        self.running, self.rows = True, []
+        self.summary = "Simulating the test on the network..."
+        self._spin()
+        check.run_in_background(self.service, self.tid, self.done)
+
+    def _spin(self):
+        bar = self.ids.progress
+        bar.value = 0
+        self._anim = Animation(value=100, duration=1.0) + Animation(value=0, duration=0)
+        self._anim.repeat = True
+        self._anim.start(bar)
+
+    @mainthread
+    def done(self, result):
+        if getattr(self, "_anim", None):
+            self._anim.cancel(self.ids.progress)
+        self.ids.progress.value = 100 if result.ok else 0
+        self.running = False
+        self.summary, self.bad = result.message, not result.ok or any(g.suspect for g in result.gauges)
+        self.rows = [self.row(g) for g in result.gauges]
+
+    def row(self, g):
+        f = lambda v: values.fmt(v, "pressure", self.service.system)  # noqa: E731
+        lines = [f"{g.node}:  static {f(g.observed_static)} observed / {f(g.predicted_static)} model;"
+                 f"  residual {f(g.observed_residual)} / {f(g.predicted_residual)}"]
+        lines += [f"   -> {a}" for a in g.advice] or ["   -> agrees with the model"]
+        return "\n".join(lines)

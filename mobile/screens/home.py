@@ -1,0 +1,20 @@
+"""Home: the list of tests (today or all, search by hydrant), new test, load area, export."""
+
+from kivy.properties import ListProperty, StringProperty
+
+from mobile.screens.base import FieldScreen
+from mobile.services import views
+
+
+class HomeScreen(FieldScreen):
+    rows = ListProperty([])
+    when = StringProperty("today")
+    area_text = StringProperty("")
+
+    def refresh(self):
+        self.rows = views.test_rows(self.service, self.when, self.ids.search.text)
+        self.area_text = self.app.area_summary()
+
+    def set_when(self, when):
+        self.when = when
+        self.refresh()

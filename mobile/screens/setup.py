@@ -1,0 +1,51 @@
+"""Test set-up: id and time, crew, gauge and flow hydrants from the area's list, outlets, notes."""
+
+from kivy.properties import DictProperty, ListProperty, StringProperty
+
+from mobile.screens.base import FieldScreen
+from mobile.services import views
+
+#: Common outlet sizes offered first (hose 2.5 in, pumper 4 and 4.5 in); any size can be typed.
+OUTLET_SIZES = {"us": ["2.5", "4", "4.5"], "si": ["64", "102", "114"]}
+
+
+class SetupScreen(FieldScreen):
+    view = DictProperty(views.EMPTY_SETUP)
+    hydrants = ListProperty([])
+    picked = StringProperty("")
+    picked_outlet = StringProperty("")
+    sizes = ListProperty(OUTLET_SIZES["us"])
+    diameter_unit = StringProperty("in")
+    length_unit = StringProperty("ft")
+
+    def refresh(self):
+        if not self.tid:
+            return
+        self.view = views.setup_view(self.service, self.tid)
+        self.hydrants = self.service.area.search(self.ids.hsearch.text)
+        self.sizes = OUTLET_SIZES[self.service.system]
+        self.diameter_unit = self.service.unit_of("diameter")
+        self.length_unit = self.service.unit_of("gauge_height")
+
+    def pick(self, hydrant):
+        self.picked = hydrant
+
+    def save_text(self, name, text):
+        self.show(self.service.set_field(self.tid, name, text))
+
+    def add_gauge(self):
+        self.show(self.service.add_gauge(self.tid, self.picked))
+
+    def add_outlet(self):
+        self.show(self.service.add_outlet(self.tid, self.picked, self.ids.diameter.text,
+                                          self.ids.shape.text, self.ids.kind.text,
+                                          self.ids.pumper.state == "down"))
+
+    def remove_gauge(self, hydrant):
+        self.show(self.service.remove_gauge(self.tid, hydrant))
+
+    def remove_outlet(self, uid):
+        self.show(self.service.remove_outlet(self.tid, uid))
+
+    def set_height(self, text):
+        self.show(self.service.set_gauge_height(self.tid, text))

@@ -1,0 +1,1 @@
+"""Widgets shared by the screens: big buttons and labels for sunlight and gloves, the numeric keypad."""

@@ -1,0 +1,35 @@
+"""A touch-sized folder picker: tap a folder to open it, UP to go back, USE to choose."""
+
+import os
+
+from kivy.properties import ListProperty, StringProperty
+from kivy.uix.boxlayout import BoxLayout
+
+from mobile.services import folders
+
+
+class FolderBrowser(BoxLayout):
+    path = StringProperty(os.path.expanduser("~"))
+    entries = ListProperty([])
+    suffixes = ListProperty([])
+    action = StringProperty("USE THIS FOLDER")
+
+    __events__ = ("on_choose",)
+
+    def on_path(self, *args):
+        self.entries = folders.listing(self.path, tuple(self.suffixes))
+
+    def on_kv_post(self, base_widget):
+        self.on_path()
+
+    def open(self, path, is_dir=True):
+        if is_dir:
+            self.path = path
+        else:
+            self.dispatch("on_choose", path)
+
+    def up(self):
+        self.path = folders.parent(self.path)
+
+    def on_choose(self, path):
+        pass
