@@ -15,7 +15,9 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 
-from calib.flowtest._edge import fail, si
+import numpy as np
+
+from calib.flowtest._edge import fail, scalar_or_array, si
 from calib.flowtest.findings import Finding, fmt_pressure
 from calib.hydraulics.headloss import HW_COEFFICIENT, HW_DIAMETER_EXPONENT, HW_FLOW_EXPONENT
 from calib.units import GAMMA_WATER, PSI
@@ -29,13 +31,14 @@ def hazen_williams_c(flow, length, diameter, head_loss) -> float:
 
     Hazen-Williams, SI form (coefficient and exponents ``calib.hydraulics.headloss``): ``flow`` Q
     [m3/s] > 0, ``length`` L [m], ``diameter`` D inside [m], ``head_loss`` h [m] > 0. Returns inf for
-    h <= 0 (no measurable loss: any C above the lower bound fits). Equivalent to C = Q (10.67 L /
+    h <= 0 (no measurable loss: any C above the lower bound fits). Scalars or numpy arrays. Equivalent to C = Q (10.67 L /
     (h D^4.8704))^0.54, so C is proportional to Q and falls as h rises.
     """
-    if head_loss <= 0:
-        return math.inf
-    return (HW_COEFFICIENT * length * flow ** HW_FLOW_EXPONENT
-            / (head_loss * diameter ** HW_DIAMETER_EXPONENT)) ** (1.0 / HW_FLOW_EXPONENT)
+    h = np.asarray(head_loss, dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        c = (HW_COEFFICIENT * np.asarray(length, dtype=float) * np.asarray(flow, dtype=float) ** HW_FLOW_EXPONENT
+             / (h * np.asarray(diameter, dtype=float) ** HW_DIAMETER_EXPONENT)) ** (1.0 / HW_FLOW_EXPONENT)
+    return scalar_or_array(np.where(h > 0, c, np.inf))
 
 
 @dataclass

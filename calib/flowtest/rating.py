@@ -76,6 +76,8 @@ def residual_at_flow(required, flow, static, residual, exponent: float = EXPONEN
 def n185(flow, exponent: float = N185):
     """Abscissa of N^1.85 graph paper: x = Q^1.85 (Q in any consistent unit, e.g. gpm for a plot).
 
+    N^1.85 hydraulic graph paper is the plotting scale NFPA 291 uses for hydrant curves.
+
     On this axis a hydrant curve P(Q) = P_s - (P_s - P_r) (Q / Q_F)^1.85 is a straight line; the
     0.54 rating formula (1/0.54 = 1.852) is straight to within drawing accuracy.
     """

@@ -3,6 +3,7 @@ back-calculation against a handbook-form value, recovery of a synthetic C, and t
 
 import math
 
+import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
@@ -108,3 +109,11 @@ def test_bad_input_raises(kwargs, field):
     args.update(kwargs)
     with pytest.raises(FlowTestError, match=f"field '{field}'"):
         quick_c(**args)
+
+
+def test_hazen_williams_c_takes_arrays():
+    h = np.array([10.0, 5.0, 0.0])
+    c = hazen_williams_c(1000 * GPM, 600.0, 0.2, h)
+    assert c.shape == (3,) and c[2] == math.inf
+    assert c[0] == pytest.approx(hazen_williams_c(1000 * GPM, 600.0, 0.2, 10.0), rel=1e-14)
+    assert c[1] / c[0] == pytest.approx(2 ** (1 / 1.852), rel=1e-12)  # C ~ h^(-1/1.852), closed form
