@@ -12,7 +12,7 @@ from dataclasses import dataclass, field
 
 from calib.flowtest._edge import fail, si
 from calib.flowtest.classes import HydrantClass, hydrant_class
-from calib.flowtest.findings import Finding, check_test
+from calib.flowtest.findings import Finding, check_test, fmt_pressure
 from calib.flowtest.pitot import outlet_coefficient, pitot_discharge, pumper_factor
 from calib.flowtest.rating import DEFAULT_TARGET, HydrantCurve, hydraulic_grade, rated_flow
 from calib.units import DISPLAY, from_si
@@ -198,9 +198,14 @@ def evaluate(test: FlowTest, system: str = "us") -> FlowTestResult:
     extrapolated = ratable and pt < pr
     findings = check_test(ps, pr, pitots, total, rated if extrapolated else None, test.static_end,
                           system, test.residual_on_flowing)
-    if not 0 <= pt < ps and pr < ps:
+    if pt >= ps and 0 <= pr < ps:
         findings.append(Finding("target-above-static", "error",
-                                "The target residual is at or above the static: no rated flow exists."))
+                                f"The target residual ({fmt_pressure(pt, system)}) is at or above the static "
+                                f"({fmt_pressure(ps, system)}): no rated flow exists. Choose a lower target."))
+    elif pt < 0:
+        findings.append(Finding("negative-target", "error",
+                                f"The target residual ({fmt_pressure(pt, system)}) is below zero. "
+                                "Use 20 psi unless your authority asks for another."))
     # NFPA 291 classes are defined by the flow at 20 psi residual, whatever target the user rates at.
     at20 = math.nan
     if ratable:

@@ -45,6 +45,8 @@ def test_clean_test_has_no_findings():
     (dict(static_end=77.9), "static-changed", "warning"),
     (dict(residual_on_flowing=True), "gauge-on-flowing-hydrant", "warning"),
     (dict(pitots=(0,)), "no-flow", "error"),
+    (dict(target="90 psi"), "target-above-static", "error"),
+    (dict(target="-1 psi"), "negative-target", "error"),
 ])
 def test_each_finding_fires_on_its_case(kwargs, code, severity):
     found = {f.code: f for f in evaluate(_test(**kwargs)).findings}
