@@ -1,0 +1,278 @@
+"""Solver behaviour: statuses, snapshots, derivatives, failures; each against an independent result."""
+
+import numpy as np
+import pytest
+
+from calib.errors import ConvergenceError, InputError, NetworkError
+from calib.hydraulics import NetworkSolver, Snapshot
+from calib.network.model import PipeStatus
+
+
+def _drop_pipe(net, k):
+    keep = np.arange(net.n_pipes) != k
+    return net.replace(pipe_ids=net.pipe_ids[keep], pipe_from=net.pipe_from[keep],
+                       pipe_to=net.pipe_to[keep], length=net.length[keep],
+                       diameter=net.diameter[keep], roughness=net.roughness[keep],
+                       minor_loss=net.minor_loss[keep], status=net.status[keep],
+                       roughness_height=net.roughness_height[keep], group=net.group[keep],
+                       material=net.material[keep], installed=net.installed[keep])
+
+
+def test_closed_pipe_carries_no_flow_and_equals_removing_it(make_random):
+    # closed form: a closed pipe is the same network without that pipe
+    net = make_random(40, 7)
+    k = 45  # a loop pipe, so the network stays connected
+    status = net.status.copy()
+    status[k] = PipeStatus.CLOSED
+    res = NetworkSolver(net.replace(status=status)).solve()
+    ref = NetworkSolver(_drop_pipe(net, k)).solve()
+    assert res.flow[k] == 0.0 and res.headloss[k] == 0.0
+    assert str(net.pipe_ids[k]) in res.closed_links
+    np.testing.assert_allclose(res.head, ref.head, atol=1e-7)
+    np.testing.assert_allclose(np.delete(res.flow, k), ref.flow, atol=1e-9)
+
+
+def test_check_valve_blocks_reverse_flow(make):
+    # closed form: a check valve against the gradient passes nothing; with it, it is an open pipe
+    pipes = [("P", "B", "A", 800.0, 0.25, 110.0)]  # from the low to the high reservoir
+    status = [PipeStatus.CHECK_VALVE]
+    blocked = NetworkSolver(make([], [("A", 70.0), ("B", 52.0)], pipes, status=status)).solve()
+    assert blocked.flow[0] == 0.0 and "P" in blocked.closed_links
+    forward = make([], [("A", 52.0), ("B", 70.0)], pipes, status=status)
+    open_pipe = make([], [("A", 52.0), ("B", 70.0)], pipes)
+    assert NetworkSolver(forward).solve().flow[0] == pytest.approx(
+        NetworkSolver(open_pipe).solve().flow[0], rel=1e-12)
+
+
+def test_check_valve_in_a_loop_closes_and_equals_removing_it(make_random):
+    # a check valve set against the flow it would carry ends closed: same as the pipe removed
+    net = make_random(40, 8)
+    base = NetworkSolver(net).solve()
+    k = 50
+    # orient the check valve against the open-pipe flow so it must close
+    flip = base.flow[k] > 0
+    f, t = net.pipe_from.copy(), net.pipe_to.copy()
+    if flip:
+        f[k], t[k] = t[k], f[k]
+    status = net.status.copy()
+    status[k] = PipeStatus.CHECK_VALVE
+    res = NetworkSolver(net.replace(pipe_from=f, pipe_to=t, status=status)).solve()
+    assert res.flow[k] == 0.0
+    ref = NetworkSolver(_drop_pipe(net, k)).solve()
+    np.testing.assert_allclose(res.head, ref.head, atol=1e-7)
+    # the valve holds: head is higher at its downstream end (closed form of a closed check valve)
+    assert res.head[f[k]] <= res.head[t[k]] + 1e-9
+
+
+def test_sparse_and_dense_solves_agree(make_random):
+    # cross-check: the same Newton iteration with a dense Cholesky (scipy.linalg.cho_factor)
+    net = make_random(60, 9, n_sources=2)
+    sparse = NetworkSolver(net).solve()
+    dense = NetworkSolver(net, dense=True).solve()
+    np.testing.assert_allclose(sparse.head, dense.head, atol=1e-9)
+    np.testing.assert_allclose(sparse.flow, dense.flow, atol=1e-11)
+
+
+def _fd(solver, make_snapshot, roughness_at, p0, step):
+    plus = solver.solve(make_snapshot(p0 + step), roughness=roughness_at(p0 + step))
+    minus = solver.solve(make_snapshot(p0 - step), roughness=roughness_at(p0 - step))
+    nj = solver.network.n_junctions
+    return ((plus.head[:nj] - minus.head[:nj]) / (2 * step),
+            (plus.link_flow - minus.link_flow) / (2 * step))
+
+
+def test_sensitivity_to_a_group_c_against_finite_differences(make_random):
+    # common practice: implicit-differentiation derivatives against central differences
+    net = make_random(50, 10, n_sources=2)
+    solver = NetworkSolver(net)
+    res = solver.solve()
+    group = np.zeros(net.n_pipes, dtype=bool)
+    group[::3] = True  # one C factor multiplies this group
+    dh_dc = solver.dheadloss_droughness(res)
+    # parameter k: C_group = k * C0; dF1/dk = dh/dC * C0 on the group
+    b1 = np.where(group, dh_dc * net.roughness, 0.0)[:, None]
+    dH, dQ = solver.sensitivities(res, b1, np.zeros((net.n_junctions, 1)))
+
+    def rough(k):
+        return np.where(group, k * net.roughness, net.roughness)
+
+    fd_h, fd_q = _fd(solver, lambda k: None, rough, 1.0, 1e-4)
+    np.testing.assert_allclose(dH[:, 0], fd_h, atol=1e-6 * np.abs(fd_h).max())
+    np.testing.assert_allclose(dQ[:, 0], fd_q, atol=1e-6 * np.abs(fd_q).max())
+    assert np.abs(fd_h).max() > 0.1  # the check has something to check
+
+
+def test_sensitivity_to_demand_factor_and_source_head(make_random):
+    # contract (DEVELOPERS.md): demand factor dF2 = -base demand; source head s: dF1 = -1 where
+    # from = s, +1 where to = s. Against central differences (common practice).
+    net = make_random(50, 12, n_sources=2)
+    solver = NetworkSolver(net)
+    res = solver.solve()
+    s = net.n_junctions  # first source
+    b1 = np.zeros((net.n_pipes, 2))
+    b1[net.pipe_from == s, 1] = -1.0
+    b1[net.pipe_to == s, 1] = 1.0
+    b2 = np.zeros((net.n_junctions, 2))
+    b2[:, 0] = -net.demand
+    dH, dQ = solver.sensitivities(res, b1, b2)
+    fd_h, fd_q = _fd(solver, lambda x: Snapshot(demand_factor=x), lambda x: None, 1.0, 1e-4)
+    np.testing.assert_allclose(dH[:, 0], fd_h, atol=1e-6 * np.abs(fd_h).max())
+    np.testing.assert_allclose(dQ[:, 0], fd_q, atol=1e-6 * np.abs(fd_q).max())
+    head0 = float(net.source_head[0])
+    fd_h, fd_q = _fd(solver, lambda x: Snapshot(source_head={"R0": x}), lambda x: None, head0, 1e-3)
+    np.testing.assert_allclose(dH[:, 1], fd_h, atol=1e-6 * np.abs(fd_h).max())
+    np.testing.assert_allclose(dQ[:, 1], fd_q, atol=1e-6 * np.abs(fd_q).max())
+
+
+def test_sensitivities_accept_sparse_columns(make_random):
+    import scipy.sparse as sp
+    net = make_random(30, 13)
+    solver = NetworkSolver(net)
+    res = solver.solve()
+    d = solver.dheadloss_droughness(res)
+    b1 = sp.csr_matrix(np.diag(d)[:, :5])
+    dense = solver.sensitivities(res, b1.toarray(), np.zeros((net.n_junctions, 5)))
+    sparse = solver.sensitivities(res, b1, sp.csr_matrix((net.n_junctions, 5)))
+    np.testing.assert_allclose(sparse[0], dense[0], rtol=1e-12, atol=1e-15)
+
+
+def test_dheadloss_droughness_hazen_williams_closed_form(make_random):
+    # check-values.md: dh_k/dC_k = -1.852 h_k / C_k for Hazen-Williams (no minor losses here)
+    net = make_random(20, 14)
+    solver = NetworkSolver(net)
+    res = solver.solve()
+    np.testing.assert_allclose(solver.dheadloss_droughness(res),
+                               -1.852 * res.headloss / net.roughness, rtol=1e-12, atol=1e-18)
+
+
+def test_darcy_weisbach_sensitivity_to_roughness_height(make):
+    # central differences (common practice) on the roughness height of one DW pipe
+    net = make([("J", 0.0, 0.02)], [("A", 40.0), ("B", 38.0)],
+               [("P1", "A", "J", 400.0, 0.2, 100.0), ("P2", "B", "J", 300.0, 0.15, 100.0)],
+               roughness_height=[2.6e-4, 1e-4])
+    solver = NetworkSolver(net, headloss="darcy-weisbach")
+    res = solver.solve()
+    d = solver.dheadloss_droughness(res)
+    b1 = np.array([[d[0]], [0.0]])
+    dH, _ = solver.sensitivities(res, b1, np.zeros((1, 1)))
+    step = 1e-6
+    plus = solver.solve(roughness=np.array([2.6e-4 + step, 1e-4])).head[0]
+    minus = solver.solve(roughness=np.array([2.6e-4 - step, 1e-4])).head[0]
+    assert dH[0, 0] == pytest.approx((plus - minus) / (2 * step), rel=1e-5)
+
+
+def test_non_convergent_case_names_nodes_and_pipes(make_random):
+    net = make_random(60, 15)
+    with pytest.raises(ConvergenceError) as info:
+        NetworkSolver(net, max_iterations=2).solve()
+    err = info.value
+    assert err.iterations == 2
+    assert len(err.worst_nodes) == 5 and len(err.worst_links) == 5
+    assert all(n in str(err) for n in err.worst_nodes)
+    assert all(k in str(err) for k in err.worst_links)
+    assert "no convergence in 2 iterations" in str(err)
+
+
+def test_junction_cut_off_with_demand_is_named(make):
+    net = make([("J1", 0.0, 0.0), ("J2", 0.0, 0.01)], [("R", 50.0)],
+               [("P1", "R", "J1", 100.0, 0.2, 100.0), ("P2", "J1", "J2", 100.0, 0.2, 100.0)],
+               status=[PipeStatus.OPEN, PipeStatus.CLOSED])
+    with pytest.raises(NetworkError, match="J2"):
+        NetworkSolver(net).solve()
+
+
+def test_idle_dead_end_is_reported_isolated(make):
+    net = make([("J1", 0.0, 0.01), ("J2", 3.0, 0.0)], [("R", 50.0)],
+               [("P1", "R", "J1", 100.0, 0.2, 100.0), ("P2", "J1", "J2", 100.0, 0.2, 100.0)],
+               status=[PipeStatus.OPEN, PipeStatus.CLOSED])
+    res = NetworkSolver(net).solve()
+    assert res.isolated == ["J2"] and res.pressure[1] == 0.0
+    assert np.all(np.isfinite(res.head))
+
+
+def test_dead_end_with_no_demand_converges_with_zero_flow(make):
+    # the regularization's purpose: an idle dead end converges, its flow is exactly what mass gives
+    net = make([("J1", 0.0, 0.01), ("J2", 3.0, 0.0)], [("R", 50.0)],
+               [("P1", "R", "J1", 100.0, 0.2, 100.0), ("P2", "J1", "J2", 100.0, 0.2, 100.0)])
+    res = NetworkSolver(net).solve()
+    assert abs(res.flow[1]) < 1e-15 and res.head[1] == pytest.approx(res.head[0], abs=1e-9)
+
+
+def test_negative_pressures_are_reported(make):
+    net = make([("LOW", 0.0, 0.01), ("HILL", 60.0, 0.0)], [("R", 50.0)],
+               [("P1", "R", "LOW", 100.0, 0.2, 100.0), ("P2", "LOW", "HILL", 100.0, 0.2, 100.0)])
+    res = NetworkSolver(net).solve()
+    assert res.negative_pressure == ["HILL"]
+    from calib.units import GAMMA_WATER
+    assert res.pressure[1] == pytest.approx(GAMMA_WATER * (res.head[1] - 60.0), rel=1e-12)
+
+
+def test_snapshot_extra_demand_factor_and_source_head(make):
+    # closed form on one pipe: head drop = r Q^1.852 with Q = factor x base + extra
+    from calib.hydraulics import hazen_williams_resistance
+    net = make([("J", 0.0, 0.01)], [("R", 50.0)], [("P", "R", "J", 500.0, 0.2, 100.0)])
+    res = NetworkSolver(net).solve(Snapshot(demand_factor=1.5, extra_demand={"J": 0.02},
+                                            source_head={"R": 47.0}, label="t1"))
+    r = hazen_williams_resistance(500.0, 0.2, 100.0)
+    assert res.flow[0] == pytest.approx(0.035, rel=1e-12)
+    assert res.head[0] == pytest.approx(47.0 - r * 0.035 ** 1.852, abs=1e-8)
+    assert res.snapshot.label == "t1"
+
+
+def test_snapshot_names_are_validated(make):
+    net = make([("J", 0.0, 0.01)], [("R", 50.0)], [("P", "R", "J", 500.0, 0.2, 100.0)])
+    solver = NetworkSolver(net)
+    with pytest.raises(InputError) as info:
+        solver.solve(Snapshot(extra_demand={"H99": 0.01, "R": 0.01}, source_head={"J": 40.0}))
+    text = str(info.value)
+    assert "3 problems" in text and "'H99'" in text and "'R'" in text and "'J'" in text
+    with pytest.raises(InputError, match="demand factor"):
+        solver.solve(Snapshot(demand_factor=float("nan")))
+
+
+def test_solve_many_matches_single_solves_and_warm_starts(make_random):
+    net = make_random(80, 16, n_sources=2)
+    solver = NetworkSolver(net)
+    snaps = [Snapshot(demand_factor=f, extra_demand={"J7": 0.01 * f}) for f in
+             (0.8, 0.9, 1.0, 1.1, 1.2)]
+    many = solver.solve_many(snaps)
+    single = [solver.solve(s) for s in snaps]
+    for a, b in zip(many, single):
+        np.testing.assert_allclose(a.head, b.head, atol=1e-7)
+    assert sum(r.iterations for r in many[1:]) < sum(r.iterations for r in single[1:])
+
+
+def test_darcy_weisbach_needs_roughness_height(make):
+    net = make([("J", 0.0, 0.01)], [("R", 50.0)],
+               [("P1", "R", "J", 500.0, 0.2, 100.0), ("P2", "R", "J", 500.0, 0.2, 100.0)],
+               roughness_height=[1e-4, np.nan])
+    with pytest.raises(InputError, match="P2") as info:
+        NetworkSolver(net, headloss="darcy-weisbach")
+    assert "P1" not in str(info.value)
+
+
+def test_unknown_headloss_model_lists_the_legal_ones(make):
+    net = make([("J", 0.0, 0.01)], [("R", 50.0)], [("P", "R", "J", 500.0, 0.2, 100.0)])
+    with pytest.raises(InputError, match="hazen-williams or darcy-weisbach"):
+        NetworkSolver(net, headloss="manning")
+
+
+def test_pump_off_or_against_too_high_a_lift_passes_nothing(make):
+    pipes = [("P", "J", "HIGH", 500.0, 0.2, 110.0)]
+    off = make([("J", 0.0, 0.0)], [("LOW", 10.0), ("HIGH", 30.0)], pipes,
+               pumps=[("PU", "LOW", "J", 40.0, 2000.0, 2.0, 0.0)])
+    res = NetworkSolver(off).solve()
+    assert res.pump_flow[0] == 0.0 and res.flow[0] == 0.0 and "PU" in res.closed_links
+    # shutoff 15 m < lift 20 m: the pump cannot deliver; it stops and the junction sits at 30 m
+    weak = make([("J", 0.0, 0.0)], [("LOW", 10.0), ("HIGH", 30.0)], pipes,
+                pumps=[("PU", "LOW", "J", 15.0, 2000.0, 2.0, 1.0)])
+    res = NetworkSolver(weak).solve()
+    assert res.pump_flow[0] == 0.0 and res.head[0] == pytest.approx(30.0, abs=1e-9)
+
+
+def test_roughness_override_is_validated(make):
+    net = make([("J", 0.0, 0.01)], [("R", 50.0)], [("P", "R", "J", 500.0, 0.2, 100.0)])
+    with pytest.raises(InputError, match="shape"):
+        NetworkSolver(net).solve(roughness=[100.0, 90.0])
+    with pytest.raises(InputError, match="'P'|P"):
+        NetworkSolver(net).solve(roughness=[-5.0])
