@@ -105,3 +105,9 @@ def test_fmt_pressure():
     assert fmt_pressure(58 * PSI) == "58 psi"
     assert fmt_pressure(58.5 * PSI) == "58.5 psi"
     assert fmt_pressure(400_000.0, "si") == "400 kPa"
+
+
+def test_negative_static_at_the_end():
+    f = {f.code: f for f in evaluate(_test(static_end=-3)).findings}
+    assert f["negative-static-end"].severity == "error"
+    assert "static-changed" in f  # and it moved by 83 psi

@@ -118,3 +118,21 @@ def test_flow_scales_with_square_root_of_pitot_and_square_of_diameter(p, d, k):
     q = pitot_discharge_gpm(p, d)
     assert pitot_discharge_gpm(k * p, d) == pytest.approx(math.sqrt(k) * q, rel=1e-12)
     assert pitot_discharge_gpm(p, k * d) == pytest.approx(k**2 * q, rel=1e-12)
+
+
+def _orifice_constant_us(rho):
+    """Q = c (pi/4) d^2 sqrt(2 p / rho) (free jet, Bernoulli) expressed in gpm, in, psi."""
+    return math.pi / 4 * math.sqrt(2 / rho) * INCH**2 * math.sqrt(PSI) / GPM
+
+
+def test_29_83_is_the_orifice_equation_for_water():
+    # Closed form: the pitot formula is Bernoulli's free jet, Q = c A sqrt(2 p / rho). With the
+    # 62.4 lb/ft3 water of NFPA 291 (999.552 kg/m3; 1 lb = 0.45359237 kg, 1 ft = 0.3048 m) it gives
+    # 29.83; with water at 60 degF from IAPWS-95 (iapws.IAPWS95) it gives the also-printed 29.84
+    # (check-values.md). Tolerance: the printed 0.01.
+    from iapws import IAPWS95
+
+    assert _orifice_constant_us(62.4 * 0.45359237 / 0.3048**3) == pytest.approx(29.83, abs=0.005)
+    rho_60f = IAPWS95(T=(60 - 32) / 1.8 + 273.15, P=0.101325).rho
+    assert _orifice_constant_us(rho_60f) == pytest.approx(29.84, abs=0.005)
+    assert PITOT_CONSTANT_SI == pytest.approx(math.pi / 4 * math.sqrt(2 / 999.5521), rel=1e-4)
