@@ -76,23 +76,20 @@ def _positions(geometry, want: str):
 
 
 class _Collector:
-    """Raw columns (header -> cells) of one table, filled feature by feature."""
+    """The features of one table (row number, properties), turned into raw columns at the end."""
 
     def __init__(self):
         self.rows: list[int] = []
-        self.columns: dict[str, list] = {}
+        self.records: list[dict] = []
 
     def add(self, row: int, properties: dict) -> None:
-        for key in properties:
-            self.columns.setdefault(key, [None] * len(self.rows))
-        for key, cells in self.columns.items():
-            cells.append(properties.get(key))
         self.rows.append(row)
+        self.records.append(properties)
 
     def parse(self, file, table, problems):
-        headers = list(self.columns)
-        return parse_table(file, table, headers, [self.columns[h] for h in headers], self.rows,
-                           problems, header_row=None)
+        headers = list(dict.fromkeys(key for record in self.records for key in record))
+        cells = [[record.get(h) for record in self.records] for h in headers]
+        return parse_table(file, table, headers, cells, self.rows, problems, header_row=None)
 
 
 def _length_header(properties: dict) -> bool:
@@ -192,35 +189,59 @@ def _clean(value):
     return value
 
 
+def _column(values) -> list:
+    """A column as JSON-safe Python values (NaN -> null)."""
+    return [_clean(v) for v in np.asarray(values).tolist()]
+
+
+def _records(columns: dict) -> list[dict]:
+    """Per-row property dicts from columns of equal length (conversions done column-wise)."""
+    names = list(columns)
+    return [dict(zip(names, row)) for row in zip(*(columns[n] for n in names))]
+
+
+def _points(network: Network, to_map) -> list:
+    x, y = to_map(network.x).tolist(), to_map(network.y).tolist()
+    return [{"type": "Point", "coordinates": [a, b]} if math.isfinite(a) and math.isfinite(b)
+            else None for a, b in zip(x, y)]
+
+
+def _lines(network: Network, frm, to, to_map, geometry=None) -> list:
+    """LineStrings from the kept vertices, else straight from node to node (None without x/y)."""
+    ends = np.stack([network.x[frm], network.y[frm], network.x[to], network.y[to]], axis=1)
+    ends = to_map(ends).tolist()
+    lines = []
+    for k, (x0, y0, x1, y1) in enumerate(ends):
+        if geometry is not None and geometry[k]:
+            coords = to_map(np.asarray(geometry[k], dtype=float)).tolist()
+        else:
+            coords = [[x0, y0], [x1, y1]]
+        ok = all(math.isfinite(c) for pair in coords for c in pair)
+        lines.append({"type": "LineString", "coordinates": coords} if ok else None)
+    return lines
+
+
 def network_features(network: Network, units: str = "us", length_unit: str | None = "ft") -> dict:
     """The FeatureCollection of ``network`` as a dict (see ``write_network_geojson``)."""
     u = DISPLAY[units]
-    to_map = (lambda v: v) if length_unit is None else (lambda v: from_si(v, "length", length_unit))
+    to_map = (lambda v: np.asarray(v, float)) if length_unit is None else \
+        (lambda v: from_si(np.asarray(v, float), "length", length_unit))
     nj, ids = network.n_junctions, network.node_ids.astype(str)
-
-    def point(i):
-        if not (np.isfinite(network.x[i]) and np.isfinite(network.y[i])):
-            return None
-        return {"type": "Point", "coordinates": [float(to_map(network.x[i])),
-                                                 float(to_map(network.y[i]))]}
-
-    features = []
-    for i in range(network.n_nodes):
-        props = {"id": ids[i]}
-        if i < nj:
-            props.update({"kind": "junction",
-                          f"elevation [{u['elevation']}]": from_si(network.elevation[i],
-                                                                   "elevation", u["elevation"]),
-                          f"demand [{u['flow']}]": from_si(network.demand[i], "flow", u["flow"]),
-                          "hydrant": "yes" if network.hydrant[i] else "no"})
-        else:
-            s = i - nj
-            props.update({"kind": "source", "source_kind": network.source_kind[s],
-                          f"head [{u['head']}]": from_si(network.source_head[s], "head", u["head"]),
-                          f"elevation [{u['elevation']}]": from_si(network.elevation[i],
-                                                                   "elevation", u["elevation"])})
-        props["zone"] = network.zone[i]
-        features.append(_feature(point(i), props))
+    elevation = from_si(network.elevation, "elevation", u["elevation"])
+    junctions = _records({
+        "id": ids[:nj].tolist(), "kind": ["junction"] * nj,
+        f"elevation [{u['elevation']}]": _column(elevation[:nj]),
+        f"demand [{u['flow']}]": _column(from_si(network.demand, "flow", u["flow"])),
+        "hydrant": np.where(network.hydrant, "yes", "no").tolist(),
+        "zone": network.zone[:nj].tolist()})
+    sources = _records({
+        "id": ids[nj:].tolist(), "kind": ["source"] * network.n_sources,
+        "source_kind": network.source_kind.tolist(),
+        f"head [{u['head']}]": _column(from_si(network.source_head, "head", u["head"])),
+        f"elevation [{u['elevation']}]": _column(elevation[nj:]),
+        "zone": network.zone[nj:].tolist()})
+    points = _points(network, to_map)
+    features = [_feature(g, p) for g, p in zip(points, junctions + sources)]
     features += _pipe_features(network, units, to_map)
     features += _pump_features(network, units, to_map)
     collection = {"type": "FeatureCollection", "name": network.name}
@@ -231,58 +252,46 @@ def network_features(network: Network, units: str = "us", length_unit: str | Non
 
 
 def _feature(geometry, props) -> dict:
-    return {"type": "Feature", "geometry": geometry,
-            "properties": {k: _clean(v) for k, v in props.items()}}
-
-
-def _line(network: Network, k: int, frm: int, to: int, to_map):
-    if network.pipe_geometry is not None and k is not None and network.pipe_geometry[k]:
-        vertices = np.asarray(network.pipe_geometry[k], dtype=float)
-    else:
-        vertices = np.array([[network.x[frm], network.y[frm]], [network.x[to], network.y[to]]])
-    if not np.all(np.isfinite(vertices)):
-        return None
-    return {"type": "LineString", "coordinates": to_map(vertices).tolist()}
+    return {"type": "Feature", "geometry": geometry, "properties": props}
 
 
 def _pipe_features(network: Network, units: str, to_map) -> list[dict]:
     u = DISPLAY[units]
     ids = network.node_ids.astype(str)
-    words = {int(PipeStatus.OPEN): "open", int(PipeStatus.CLOSED): "closed",
-             int(PipeStatus.CHECK_VALVE): "check"}
+    words = np.array(["open", "closed", "check"], dtype=object)  # PipeStatus codes 0, 1, 2
     rh_unit = "mm" if units == "si" else "in"
-    features = []
-    for k in range(network.n_pipes):
-        a, b = int(network.pipe_from[k]), int(network.pipe_to[k])
-        props = {"id": str(network.pipe_ids[k]), "kind": "pipe", "from": ids[a], "to": ids[b],
-                 f"length [{u['length']}]": from_si(network.length[k], "length", u["length"]),
-                 f"diameter [{u['diameter']}]": from_si(network.diameter[k], "diameter",
-                                                        u["diameter"]),
-                 "roughness": network.roughness[k], "group": network.group[k],
-                 "material": network.material[k], "installed": network.installed[k],
-                 "status": words[int(network.status[k])], "minor_loss": network.minor_loss[k],
-                 f"roughness_height [{rh_unit}]": from_si(network.roughness_height[k], "length",
-                                                          rh_unit)}
-        features.append(_feature(_line(network, k, a, b, to_map), props))
-    return features
+    props = _records({
+        "id": network.pipe_ids.astype(str).tolist(), "kind": ["pipe"] * network.n_pipes,
+        "from": ids[network.pipe_from].tolist(), "to": ids[network.pipe_to].tolist(),
+        f"length [{u['length']}]": _column(from_si(network.length, "length", u["length"])),
+        f"diameter [{u['diameter']}]": _column(from_si(network.diameter, "diameter",
+                                                       u["diameter"])),
+        "roughness": _column(network.roughness), "group": network.group.tolist(),
+        "material": network.material.tolist(), "installed": _column(network.installed),
+        "status": words[network.status].tolist(), "minor_loss": _column(network.minor_loss),
+        f"roughness_height [{rh_unit}]": _column(from_si(network.roughness_height, "length",
+                                                         rh_unit))})
+    lines = _lines(network, network.pipe_from, network.pipe_to, to_map, network.pipe_geometry)
+    return [_feature(g, p) for g, p in zip(lines, props)]
 
 
 def _pump_features(network: Network, units: str, to_map) -> list[dict]:
+    """Pumps as three points of their curve at full speed (q = 0, q_max / 2, 0.9 q_max)."""
     u, pumps = DISPLAY[units], network.pumps
+    if len(pumps) == 0:
+        return []
     ids = network.node_ids.astype(str)
-    features = []
-    for k in range(len(pumps)):
-        a, b = int(pumps.from_node[k]), int(pumps.to_node[k])
-        h0, r, n = pumps.shutoff_head[k], pumps.curve_r[k], pumps.curve_n[k]
-        q_max = (h0 / r) ** (1.0 / n)
-        props = {"id": str(pumps.ids[k]), "kind": "pump", "from": ids[a], "to": ids[b]}
-        for i, share in enumerate((0.0, 0.5, 0.9), start=1):
-            q = share * q_max
-            props[f"head_{i} [{u['head']}]"] = from_si(h0 - r * q ** n, "head", u["head"])
-            props[f"flow_{i} [{u['flow']}]"] = from_si(q, "flow", u["flow"])
-        props["speed"] = pumps.speed[k]
-        features.append(_feature(_line(network, None, a, b, to_map), props))
-    return features
+    h0, r, n = pumps.shutoff_head, pumps.curve_r, pumps.curve_n
+    q_max = (h0 / r) ** (1.0 / n)
+    columns = {"id": pumps.ids.astype(str).tolist(), "kind": ["pump"] * len(pumps),
+               "from": ids[pumps.from_node].tolist(), "to": ids[pumps.to_node].tolist()}
+    for i, share in enumerate((0.0, 0.5, 0.9), start=1):
+        q = share * q_max
+        columns[f"head_{i} [{u['head']}]"] = _column(from_si(h0 - r * q ** n, "head", u["head"]))
+        columns[f"flow_{i} [{u['flow']}]"] = _column(from_si(q, "flow", u["flow"]))
+    columns["speed"] = _column(pumps.speed)
+    lines = _lines(network, pumps.from_node, pumps.to_node, to_map)
+    return [_feature(g, p) for g, p in zip(lines, _records(columns))]
 
 
 def write_network_geojson(network: Network, path, units: str = "us",
