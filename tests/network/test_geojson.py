@@ -160,3 +160,25 @@ def test_not_a_feature_collection(tmp_path):
     path.write_text('{"type": "Feature"}')
     with pytest.raises(NetworkError, match="x.geojson: is not a GeoJSON FeatureCollection"):
         read_network(path)
+
+
+def test_tank_kinds_and_pumps_in_geojson(tmp_path):
+    path = tmp_path / "t.geojson"
+    features = _nodes() + [
+        _point("T1", "tank", 0, 900, **{"head [ft]": 240, "elevation [ft]": 150}),
+        _point("R2", "source", 0, 950, **{"head [ft]": 235, "source_kind": "tank"}),
+        _line("P1", "R1", "J1", [[0, 0], [300, 400]]),
+        _line("P2", "J1", "J2", [[300, 400], [300, 700]]),
+        _line("P3", "T1", "J2", [[0, 900], [300, 700]]),
+        _line("P4", "R2", "J2", [[0, 950], [300, 700]]),
+        {"type": "Feature", "geometry": {"type": "LineString", "coordinates": [[0, 0], [1, 1]]},
+         "properties": {"id": "PU1", "kind": "pump", "from": "R1", "to": "J1",
+                        "design_head [ft]": 60, "design_flow [gpm]": 300}},
+    ]
+    path.write_text(json.dumps(_collection(features, length_unit="ft")))
+    net = read_network(path)
+    assert list(net.source_ids) == ["R1", "T1", "R2"]
+    assert list(net.source_kind) == ["reservoir", "tank", "tank"]
+    # a source without an elevation takes its head (the model contract)
+    np.testing.assert_allclose(net.elevation[2:], [250 * FT, 150 * FT, 235 * FT], rtol=1e-14)
+    assert list(net.pumps.ids) == ["PU1"]

@@ -147,3 +147,34 @@ def test_the_demo_town_matches_its_description():
     assert 300 <= total_gpm <= 1500
     assert 5 <= len(set(net.group)) <= 7
     assert 0.25 <= net.hydrant.mean() <= 0.4
+
+
+def test_coordinates_with_or_without_a_unit(make_folder):
+    net = read_network(make_folder(
+        junctions="id,elevation [ft],demand [gpm],x [ft],y\nJ1,100,50,1000,250\nJ2,110,20,,\n"))
+    np.testing.assert_allclose(net.x[:2], [1000 * FT, np.nan], rtol=1e-15)  # NIST SP 811, exact
+    np.testing.assert_allclose(net.y[:2], [250, np.nan])  # no unit: map units as given
+
+
+def test_one_field_in_two_unit_columns(make_folder):
+    folder = make_folder(
+        junctions="id,elevation [ft],elevation [m],demand [gpm]\nJ1,100,,50\nJ2,,30,20\n"
+                  "J3,100,30,0\n",
+        pipes="id,from,to,length [ft],diameter [in],roughness\nP1,R1,J1,1000,8,100\n"
+              "P2,J1,J2,500,6,120\nP3,J2,J3,500,6,120\n")
+    with pytest.raises(NetworkError) as err:
+        read_network(folder)
+    assert [str(p) for p in err.value.problems] == [
+        "junctions.csv, row 4, id 'J3', field 'elevation': the value is given in more than one "
+        "column (expected one column per field)"]
+    (folder / "junctions.csv").write_text("id,elevation [ft],elevation [m],demand [gpm]\n"
+                                          "J1,100,,50\nJ2,,30,20\nJ3,,31,0\n")
+    net = read_network(folder)
+    np.testing.assert_allclose(net.elevation[:3], [100 * FT, 30, 31], rtol=1e-15)
+
+
+def test_missing_quantity_column_suggests_its_units(make_folder):
+    with pytest.raises(NetworkError) as err:
+        read_network(make_folder(sources="id,level [ft]\nR1,300\n"))
+    assert ("sources.csv, row 1, field 'head': required column 'head' is missing (expected a "
+            "column headed 'head [ft]' or 'head [m]')") in str(err.value)
