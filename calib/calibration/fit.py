@@ -227,9 +227,14 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
             progress(count["n"], count["stage"])
 
     def make(subset_mask, x0=None):
-        return CalibrationProblem(network, tests.subset(subset_mask), grouping, prior=gp,
-                                  c_bounds=c_bounds, demand_factor=demand_factor,
-                                  source_offsets=source_offsets, solver=solver, progress=tick, x0=x0)
+        pr = CalibrationProblem(network, tests.subset(subset_mask), grouping, prior=gp,
+                                c_bounds=c_bounds, demand_factor=demand_factor,
+                                source_offsets=source_offsets, solver=solver,
+                                progress=tick if progress is not None else None, x0=x0)
+        problems.append(pr)
+        return pr
+
+    problems: list[CalibrationProblem] = []
 
     n = tests.n_readings
     if n == 0:
@@ -398,7 +403,8 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
     return FitResult(network=network, tests=tests, grouping=grouping, prior=gp, params=prob.params,
                      estimate=est, first=first, corr=corr, move_together=together, informed=informed,
                      status=status, simulated=simulated, z=z, cook=cook, flag=flag, rmse=rmse,
-                     criteria=crit, max_headloss=max_hl, findings=findings, n_solves=count["n"],
+                     criteria=crit, max_headloss=max_hl, findings=findings,
+                     n_solves=sum(pr.n_solves for pr in problems),
                      options=dict(group_by=group_by or "group column", prior=prior if isinstance(prior, str)
                                   else ("none" if prior is None else "given"), c_bounds=tuple(c_bounds),
                                   loss=loss, demand_factor=demand_factor, source_offsets=source_offsets,

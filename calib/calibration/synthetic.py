@@ -125,3 +125,45 @@ def synthetic_tests(network: Network, roughness: np.ndarray, plan, sigma: float 
                    gauge_height=np.zeros(len(p)), sigma=np.full(len(p), sigma),
                    row=np.arange(len(p), dtype=np.int64) + 2,
                    elevation=network.elevation[node].astype(float))
+
+
+def write_tests_folder(tests: TestSet, network: Network, folder, system: str = "us",
+                       pitot_tests=()) -> None:
+    """Write ``tests`` as a tests folder (flows.csv, pressures.csv) with ``us`` or ``si`` unit headers.
+
+    Tests named in ``pitot_tests`` get their flows in pitot form (one 2.5 in outlet, c 0.90, the pitot
+    pressure computed back from the flow with NFPA 291's Q = 29.83 c d^2 sqrt(p)).
+    """
+    from pathlib import Path
+
+    import pandas as pd
+
+    from calib import fileio
+    folder = Path(folder)
+    fu, pu = units.display_unit("flow", system), units.display_unit("pressure", system)
+    lu, du = units.display_unit("length", system), units.display_unit("diameter", system)
+    rows = []
+    for t, tid in enumerate(tests.test_ids):
+        for n, q in tests.flows[t].items():
+            row = {"test_id": tid, "node": str(network.node_ids[n]), f"flow [{fu}]": "",
+                   f"pitot [{pu}]": "", f"outlet_diameter [{du}]": "", "coefficient": ""}
+            if tid in pitot_tests:
+                p_psi = (q / units.GPM / (29.83 * 0.9 * 2.5 ** 2)) ** 2
+                row[f"pitot [{pu}]"] = repr(float(units.from_si(p_psi * units.PSI, "pressure", pu)))
+                row[f"outlet_diameter [{du}]"] = repr(float(units.from_si(2.5 * units.INCH,
+                                                                          "diameter", du)))
+                row["coefficient"] = "0.9"
+            else:
+                row[f"flow [{fu}]"] = repr(float(units.from_si(q, "flow", fu)))
+            rows.append(row)
+    fileio.write_csv(folder / "flows.csv", pd.DataFrame(rows), float_format=None)
+    prow = {}
+    for i in range(tests.n_readings):
+        key = (tests.test_ids[tests.test[i]], str(network.node_ids[tests.node[i]]))
+        r = prow.setdefault(key, {"test_id": key[0], "node": key[1], f"static [{pu}]": "",
+                                  f"residual [{pu}]": "", f"gauge_height [{lu}]": "",
+                                  f"sigma [{pu}]": ""})
+        r[f"{tests.kind[i]} [{pu}]"] = repr(float(units.from_si(tests.pressure[i], "pressure", pu)))
+        r[f"gauge_height [{lu}]"] = repr(float(units.from_si(tests.gauge_height[i], "length", lu)))
+        r[f"sigma [{pu}]"] = repr(float(units.from_si(tests.sigma[i], "pressure", pu)))
+    fileio.write_csv(folder / "pressures.csv", pd.DataFrame(list(prow.values())), float_format=None)
