@@ -1,0 +1,97 @@
+"""``python -m calib fit`` on the Tallowmere demo day: outputs, recovery of the demo truth, exit codes."""
+
+import json
+from pathlib import Path
+
+import pandas as pd
+import pytest
+
+from calib.cli import main
+
+ROOT = Path(__file__).resolve().parents[2]
+NETWORK = ROOT / "field_samples" / "tallowmere" / "network"
+TESTS = ROOT / "field_samples" / "tallowmere" / "tests"
+
+
+@pytest.fixture(scope="module")
+def demo_run(tmp_path_factory):
+    out = tmp_path_factory.mktemp("fit")
+    import contextlib
+    import io
+    err, std = io.StringIO(), io.StringIO()
+    with contextlib.redirect_stderr(err), contextlib.redirect_stdout(std):
+        code = main(["fit", str(NETWORK), str(TESTS), "--out", str(out)])
+    return code, out, std.getvalue(), err.getvalue()
+
+
+def test_demo_fit_writes_every_output(demo_run):
+    code, out, text, err = demo_run
+    assert code == 0, err
+    for name in ("groups.csv", "roughness.csv", "readings.csv", "report.html", "pipes.geojson"):
+        assert (out / name).is_file(), name
+    assert "solves" in err and "[" in err  # the progress bar
+    assert text.splitlines()[0].split()[:3] == ["group", "C", "95%"]
+    assert "licensed engineer" in text
+
+
+def test_demo_fit_recovers_the_demo_truth_and_flags_the_planted_reading(demo_run):
+    # the demo truth is the generator's own (field_samples/make_tests.py, truth.json): a synthetic
+    # check, readings solved with these C and 1 psi of noise
+    code, out, _, _ = demo_run
+    truth = json.loads((TESTS / "truth.json").read_text())
+    groups = pd.read_csv(out / "groups.csv").set_index("group")
+    for name, c in truth["c_factor"].items():
+        row = groups.loc[name]
+        assert row["c_low"] <= c <= row["c_high"], (name, c, row["c_low"], row["c_high"])
+    # the aged unlined cast iron comes back far below the office model's guess of 100
+    assert groups.loc["CI-1930s", "c_high"] < 100
+    readings = pd.read_csv(out / "readings.csv", keep_default_na=False)
+    p = truth["planted"]
+    bad = readings[(readings.test_id == p["test_id"]) & (readings.node == p["node"])
+                   & (readings.kind == p["kind"])]
+    assert len(bad) == 1 and bad.flag.iloc[0].startswith("standardized residual")
+    assert list(readings.columns[:6]) == ["test_id", "node", "kind", "observed [psi]",
+                                          "simulated [psi]", "residual [psi]"]
+    rough = pd.read_csv(out / "roughness.csv")
+    assert list(rough.columns) == ["pipe_id", "group", "c_factor", "c_low", "c_high"]
+    assert len(rough) == 531
+
+
+def test_report_is_self_contained_with_cautions(demo_run):
+    _, out, _, _ = demo_run
+    page = (out / "report.html").read_text()
+    assert page.count("data:image/png;base64,") >= 4
+    assert "src='http" not in page and 'src="http' not in page
+    assert "licensed engineer" in page and "open and close them slowly" in page
+    assert "WRc (1989)" in page and "AWWA ECAC (1999)" in page
+
+
+def test_si_output_units(tmp_path):
+    code = main(["fit", str(NETWORK), str(TESTS), "--out", str(tmp_path), "--units", "si",
+                 "--quiet", "--no-report"])
+    assert code == 0
+    assert "observed [kPa]" in (tmp_path / "readings.csv").read_text().splitlines()[0]
+
+
+@pytest.mark.parametrize("argv, message", [
+    (["--c-bounds", "160,40"], "--c-bounds"),
+    (["--sigma", "3 gpm"], "--sigma"),
+    (["--group-by", "colour"], "unknown grouping key 'colour'"),
+])
+def test_bad_options_exit_2_with_a_clear_message(tmp_path, capsys, argv, message):
+    code = main(["fit", str(NETWORK), str(TESTS), "--out", str(tmp_path), "--quiet"] + argv)
+    assert code == 2
+    assert message in capsys.readouterr().err
+
+
+def test_bad_tests_folder_exits_2_naming_file_and_row(tmp_path, capsys):
+    folder = tmp_path / "tests"
+    folder.mkdir()
+    (folder / "flows.csv").write_text("test_id,node,flow [gpm]\nX1,NOPE,1000\n")
+    (folder / "pressures.csv").write_text("test_id,node,static [psi],residual [psi]\nX1,J010,80,-5\n")
+    code = main(["fit", str(NETWORK), str(folder), "--out", str(tmp_path / "o"), "--quiet"])
+    err = capsys.readouterr().err
+    assert code == 2
+    assert "flows.csv, row 2, id 'X1', field 'node': node 'NOPE' is not in the network" in err
+    assert "pressures.csv, row 2, id 'X1', field 'residual [psi]'" in err
+    assert not (tmp_path / "o").exists()  # nothing written on bad input
