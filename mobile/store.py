@@ -213,6 +213,9 @@ class Store:
             conn.execute("INSERT INTO revisions VALUES (?, 1, ?, '', ?)",
                          (test_id, stamp, json.dumps(header, sort_keys=True)))
 
+    def has_test(self, test_id: str) -> bool:
+        return self.conn.execute("SELECT 1 FROM tests WHERE test_id=?", (test_id,)).fetchone() is not None
+
     def test(self, test_id: str) -> TestRow:
         row = self.conn.execute("SELECT * FROM tests WHERE test_id=?", (test_id,)).fetchone()
         if row is None:

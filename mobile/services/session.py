@@ -47,6 +47,8 @@ def _first_message(exc: Exception) -> str:
 class TestService:
     """All a crew does with tests. ``store`` is an open ``Store``; ``area`` the loaded ``Area``."""
 
+    __test__ = False  # not a pytest class
+
     def __init__(self, store: Store, area: Area | None = None):
         self.store = store
         self.area = area or Area("No area loaded")

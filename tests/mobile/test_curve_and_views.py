@@ -1,0 +1,59 @@
+"""The hydrant curve image and the display text the screens show."""
+
+import numpy as np
+import pytest
+
+from calib import flowtest
+
+from mobile.services import curve, views
+
+
+def _test(service):
+    h = service.area.hydrants
+    tid = service.new_test(crew="X")
+    service.set_gauges(tid, [h[0]])
+    service.add_outlet(tid, h[1], "2.5")
+    service.enter(tid, f"static@{h[0]}", "72")
+    service.enter(tid, f"residual@{h[0]}", "58")
+    service.enter(tid, "pitot@o1", "22")
+    return tid
+
+
+def test_curve_is_straight_on_the_n185_scale(service):
+    """NFPA 291's N^1.85 graph: the supply curve is a straight line when flow is raised to 1.85
+    (exact for the 1/0.54 exponent up to 1.852 vs 1.85, within drawing accuracy)."""
+    r = service.results(_test(service))
+    q, p = r.curve
+    x = flowtest.n185(q)
+    slope = np.polyfit(x, p, 1)
+    assert np.max(np.abs(np.polyval(slope, x) - p)) < 0.01 * (r.static - r.target)
+
+
+def test_curve_png_is_written(service, tmp_path):
+    tid = _test(service)
+    path = tmp_path / "c.png"
+    assert curve.render_curve(service.results(tid), path)
+    assert path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (PNG spec, ISO 15948)
+
+
+def test_no_curve_until_the_readings_are_in(service, tmp_path):
+    tid = service.new_test(crew="X")
+    assert not curve.render_curve(service.results(tid), tmp_path / "c.png")
+    assert not (tmp_path / "c.png").exists()
+
+
+def test_results_view_shows_the_figures(service):
+    v = views.results_view(service, _test(service))
+    assert v["flow"] == "787 gpm" and v["rated"] == "1,599 gpm"  # check-values: 787.02, 1598.53
+    assert v["klass"] == "Class AA"
+    assert set(views.EMPTY_RESULTS) <= set(v)
+
+
+def test_history_lists_every_reading_as_typed(service):
+    tid = _test(service)
+    service.store.finish(tid)
+    service.correct(tid, "gauge re-read")
+    service.enter(tid, f"residual@{service.area.hydrants[0]}", "57.5")
+    text = views.history_text(service, tid)
+    assert "Revision 2" in text and "gauge re-read" in text
+    assert "typed '58'" in text and "typed '57.5'" in text
