@@ -1,0 +1,118 @@
+"""Benchmark of the network solver on generated square grids (run by hand, never in the test suite).
+
+    python benchmarks/solver.py [--sizes 23,71,159] [--repeats 5]
+
+For each grid of m x m junctions (about 2 m^2 pipes): random C, diameters, lengths, elevations and
+demands, two fixed-grade sources on opposite corners feeding a lattice of larger mains. Prints the
+median solve time, iterations, the floor measured in the same run (iterations x one sparse assemble +
+factorize + solve of the converged matrix) and the ratio of the two, then the time of solve_many on
+20 snapshots (demand factors and a flowing hydrant). The data are invented; no real network.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import platform
+import statistics
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+
+from calib.hydraulics import NetworkSolver, Snapshot  # noqa: E402
+from calib.network.model import Network  # noqa: E402
+
+
+def square_grid(m: int, seed: int = 0) -> Network:
+    """m x m junctions on a 100 m lattice; every 10th row and column a 600 mm main; two sources."""
+    rng = np.random.default_rng(seed)
+    nj = m * m
+    idx = np.arange(nj).reshape(m, m)
+    f = np.concatenate([idx[:, :-1].ravel(), idx[:-1, :].ravel()])
+    t = np.concatenate([idx[:, 1:].ravel(), idx[1:, :].ravel()])
+    row = np.concatenate([np.repeat(np.arange(m), m - 1), np.repeat(np.arange(m - 1), m)])
+    col = np.concatenate([np.tile(np.arange(m - 1), m), np.tile(np.arange(m), m - 1)])
+    horizontal = np.arange(len(f)) < m * (m - 1)
+    main = np.where(horizontal, row % 10 == 0, col % 10 == 0)
+    diameter = rng.choice([0.15, 0.2, 0.25, 0.3], len(f))
+    diameter[main] = 0.6
+    # two sources on opposite corners through 1.2 m mains
+    f = np.concatenate([f, [nj, nj + 1]])
+    t = np.concatenate([t, [0, nj - 1]])
+    diameter = np.concatenate([diameter, [1.2, 1.2]])
+    p = len(f)
+    return Network(
+        node_ids=[f"J{i}" for i in range(nj)] + ["R1", "R2"], n_junctions=nj,
+        elevation=np.concatenate([rng.uniform(0, 20, nj), [80.0, 75.0]]),
+        demand=rng.uniform(0, 2e-4, nj), source_head=[80.0, 75.0],
+        pipe_ids=[f"P{i}" for i in range(p)], pipe_from=f, pipe_to=t,
+        length=rng.uniform(50, 200, p), diameter=diameter, roughness=rng.uniform(60, 140, p),
+        name=f"grid-{m}")
+
+
+def floor_time(solver: NetworkSolver, result, repeats: int) -> float:
+    """Median time of one assemble + factorize + solve of the converged system [s]."""
+    pat = solver.pattern
+    w = np.where(result._active, 1.0 / result._grad, 0.0)
+    rhs = np.random.default_rng(1).standard_normal(solver.nj)
+    extra = result._isolated_mask.astype(float)
+    times = []
+    for _ in range(repeats):
+        t0 = time.perf_counter()
+        S = pat.assemble(w, extra)
+        pat.factorize(S)(rhs)
+        times.append(time.perf_counter() - t0)
+    return statistics.median(times)
+
+
+def run(m: int, repeats: int) -> dict:
+    net = square_grid(m)
+    t0 = time.perf_counter()
+    solver = NetworkSolver(net)
+    setup = time.perf_counter() - t0
+    times, result = [], None
+    for _ in range(repeats):
+        t0 = time.perf_counter()
+        result = solver.solve()
+        times.append(time.perf_counter() - t0)
+    solve = statistics.median(times)
+    one = floor_time(solver, result, max(repeats, 5))
+    floor = result.iterations * one
+    rng = np.random.default_rng(2)
+    hydrants = rng.choice(net.n_junctions, 20)
+    snaps = [Snapshot(demand_factor=0.8 + 0.02 * i,
+                      extra_demand={str(net.node_ids[h]): 0.063}, label=f"s{i}")
+             for i, h in enumerate(hydrants)]  # 0.063 m3/s ~ 1000 gpm at one hydrant
+    t0 = time.perf_counter()
+    many = solver.solve_many(snaps)
+    t_many = time.perf_counter() - t0
+    return dict(pipes=net.n_pipes, junctions=net.n_junctions, setup=setup, solve=solve,
+                iterations=result.iterations, factorizations=result.factorizations, one=one, floor=floor, ratio=solve / floor,
+                many=t_many, many_iterations=statistics.mean(r.iterations for r in many),
+                mass=result.max_mass_error)
+
+
+def main(argv=None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--sizes", default="23,71,159", help="grid sides m (junctions m x m)")
+    parser.add_argument("--repeats", type=int, default=5)
+    args = parser.parse_args(argv)
+    print(f"# {time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime())}, {platform.processor() or platform.machine()}, "
+          f"{os.cpu_count()} cores, Python {platform.python_version()}, load {os.getloadavg()[0]:.2f}")
+    print("| pipes | junctions | set-up s | solve s (median) | iterations | factorizations | one assemble+factor+solve s "
+          "| floor s | ratio | solve_many 20 s | mean iterations (many) | max mass error m3/s |")
+    print("|---|---|---|---|---|---|---|---|---|---|---|---|")
+    for m in (int(v) for v in args.sizes.split(",")):
+        r = run(m, args.repeats)
+        print(f"| {r['pipes']} | {r['junctions']} | {r['setup']:.3f} | {r['solve']:.3f} | "
+              f"{r['iterations']} | {r['factorizations']} | {r['one']:.4f} | {r['floor']:.3f} | {r['ratio']:.2f} | "
+              f"{r['many']:.2f} | {r['many_iterations']:.1f} | {r['mass']:.1e} |", flush=True)
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
