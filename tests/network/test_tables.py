@@ -178,3 +178,15 @@ def test_missing_quantity_column_suggests_its_units(make_folder):
         read_network(make_folder(sources="id,level [ft]\nR1,300\n"))
     assert ("sources.csv, row 1, field 'head': required column 'head' is missing (expected a "
             "column headed 'head [ft]' or 'head [m]')") in str(err.value)
+
+
+def test_pumps_round_trip_through_si_tables(make_folder, tmp_path):
+    folder = make_folder(
+        pumps="id,from,to,head_1 [ft],flow_1 [gpm],head_2 [ft],flow_2 [gpm],head_3 [ft],"
+              "flow_3 [gpm],speed\nPU1,R1,J2,200,100,180,500,120,1000,0.9\n")
+    net = read_network(folder)
+    back = read_network(write_network_tables(net, tmp_path / "si", units="si"))
+    for name in ("shutoff_head", "curve_r", "curve_n", "speed"):
+        np.testing.assert_allclose(getattr(back.pumps, name), getattr(net.pumps, name),
+                                   rtol=1e-9, err_msg=name)
+    assert "head_1 [m]" in (tmp_path / "si" / "pumps.csv").read_text().splitlines()[0]
