@@ -18,56 +18,20 @@ Not here: the head-loss laws (``headloss``), the sparse algebra (``assembly``), 
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
-
 import numpy as np
 import scipy.sparse as sp
 from scipy.sparse.csgraph import connected_components
 
 from calib.errors import ConvergenceError, InputError, NetworkError, Problem
 from calib.hydraulics import headloss as hl
+from calib.hydraulics import sensitivity
 from calib.hydraulics.assembly import SchurPattern
+from calib.hydraulics.result import SolveResult
 from calib.hydraulics.snapshot import Snapshot, resolve
 from calib.network.model import PipeStatus
 from calib.units import FT, GAMMA_WATER
 
 HEADLOSS_MODELS = ("hazen-williams", "darcy-weisbach")
-
-
-@dataclass
-class SolveResult:
-    """A converged steady state. Arrays in SI: heads [m], pressures [Pa gauge], flows [m3/s].
-
-    ``head``/``pressure`` cover all nodes (junctions, then sources); ``flow``, ``velocity`` and
-    ``headloss`` (friction plus minor loss h(Q), 0 on a closed pipe) cover pipes; ``pump_flow`` pumps.
-    ``negative_pressure`` lists junction ids below 0 gauge; ``isolated`` the junctions cut off from
-    every source by closed links (head set to their elevation, pressure 0, no supply).
-    """
-
-    head: np.ndarray
-    pressure: np.ndarray
-    flow: np.ndarray
-    pump_flow: np.ndarray
-    velocity: np.ndarray
-    headloss: np.ndarray
-    iterations: int
-    factorizations: int
-    max_mass_error: float
-    max_energy_error: float
-    converged: bool
-    negative_pressure: list
-    isolated: list
-    closed_links: list
-    snapshot: Snapshot
-    roughness: np.ndarray
-    _grad: np.ndarray = field(default=None, repr=False)
-    _active: np.ndarray = field(default=None, repr=False)
-    _isolated_mask: np.ndarray = field(default=None, repr=False)
-
-    @property
-    def link_flow(self) -> np.ndarray:
-        """Flows of all links, pipes then pumps [m3/s]."""
-        return np.concatenate([self.flow, self.pump_flow])
 
 
 class NetworkSolver:
@@ -403,57 +367,16 @@ class NetworkSolver:
             snapshot=resolved.snapshot, roughness=rough, _grad=grad, _active=active.copy(),
             _isolated_mask=isolated.copy())
 
-    # --- derivatives at a solution -----------------------------------------------------------
+    # --- derivatives at a solution (see ``calib.hydraulics.sensitivity``) ---------------------
     def sensitivities(self, result: SolveResult, dF1_dp, dF2_dp):
         """Implicit differentiation at a converged snapshot: ``(dH, dQ)`` for p parameters.
 
-        Solves ``[[D, A12], [A21, 0]] [dQ; dH] = -[dF1/dp; dF2/dp]`` (D = dh/dQ at the solution)
-        by the same Schur complement as the solver, one factorization for all p columns:
-        ``S dH = dF2/dp - A21 D^-1 dF1/dp``, ``dQ = -D^-1 (dF1/dp + A12 dH)``.
-        ``dF1_dp`` (n_links x p), ``dF2_dp`` (n_junctions x p), dense or sparse. Closed links keep
-        dQ = 0 (their rows of dF1 are ignored); isolated junctions keep dH = 0.
-        Returns dH (n_junctions x p) [m per unit p] and dQ (n_links x p) [m3/s per unit p].
-        Source: the implicit function theorem on the Todini-Pilati system; e.g. Lansey and Basnet
-        (1991), J. Water Resour. Plann. Manage. 117(1), for its use in calibration.
+        Solves ``[[D, A12], [A21, 0]] [dQ; dH] = -[dF1/dp; dF2/dp]`` at the solution, one
+        factorization for all p columns; see ``calib.hydraulics.sensitivity.sensitivities``.
         """
-        nj, pat = self.nj, self.pattern
-        active, iso = result._active, result._isolated_mask
-        w = np.where(active, 1.0 / result._grad, 0.0)
-        b1 = dF1_dp.toarray() if sp.issparse(dF1_dp) else np.asarray(dF1_dp, dtype=float)
-        b2 = dF2_dp.toarray() if sp.issparse(dF2_dp) else np.asarray(dF2_dp, dtype=float)
-        vector = b1.ndim == 1
-        b1 = b1.reshape(len(w), -1)
-        b2 = b2.reshape(nj, -1)
-        if b1.shape[1] != b2.shape[1]:
-            raise InputError(f"dF1_dp has {b1.shape[1]} columns but dF2_dp {b2.shape[1]}",
-                             field="dF1_dp", expected="the same number p of parameters")
-        wb1 = w[:, None] * b1
-        rhs = b2 - pat.inflow_matrix(wb1)
-        rhs[iso] = 0.0
-        S = pat.assemble(w, iso.astype(float))
-        dH = pat.factorize(S)(rhs) if (rhs.shape[1] and nj) else np.zeros((nj, rhs.shape[1]))
-        dHn = np.vstack([dH, np.zeros((self.network.n_sources, dH.shape[1]))])
-        dQ = -(wb1 - w[:, None] * (dHn[self.link_from] - dHn[self.link_to]))
-        if vector:
-            return dH[:, 0], dQ[:, 0]
-        return dH, dQ
+        return sensitivity.sensitivities(self, result, dF1_dp, dF2_dp)
 
     def dheadloss_droughness(self, result: SolveResult) -> np.ndarray:
-        """Derivative of each pipe's head loss with respect to its own roughness parameter.
-
-        Hazen-Williams: ``dh_k/dC_k = -1.852 hf_k / C_k`` [m per unit C], hf the friction part only
-        (minor losses do not depend on C), exact also in the regularized blend since hf is
-        proportional to C^-1.852 there too. Darcy-Weisbach: ``dh_k/de_k`` [m per m of roughness
-        height] through Colebrook (see ``headloss.darcy_weisbach_law``). 0 for a closed pipe.
-        """
-        net = self.network
-        active = result._active[: self.np_]
-        q = result.flow
-        if self.headloss == "hazen-williams":
-            r = hl.hazen_williams_resistance(net.length, net.diameter, result.roughness)
-            hf, _ = hl.hazen_williams_law(q, r, self.q_eps)
-            d = -hl.HW_FLOW_EXPONENT * hf / result.roughness
-        else:
-            _, _, d = hl.darcy_weisbach_law(q, net.length, net.diameter, result.roughness,
-                                            self.viscosity)
-        return np.where(active, d, 0.0)
+        """Derivative of each pipe's head loss with respect to its own roughness parameter
+        (Hazen-Williams: ``-1.852 hf_k / C_k``); see ``calib.hydraulics.sensitivity``."""
+        return sensitivity.dheadloss_droughness(self, result)
