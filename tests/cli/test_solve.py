@@ -154,3 +154,32 @@ def test_darcy_weisbach_on_the_demo_town(tmp_path, capsys):
                          "--headloss", "darcy-weisbach", "--units", "si")
     assert code == 0, err
     assert "kPa" in out
+
+
+def test_darcy_weisbach_without_roughness_heights_exits_2(tmp_path, capsys):
+    out_file = tmp_path / "n.csv"
+    code, _, err = run(capsys, "solve", one_pipe(tmp_path / "net"), "--out", out_file,
+                       "--headloss", "darcy-weisbach")
+    assert code == 2 and "roughness_height" in err and "P1" in err
+    assert not out_file.exists()
+
+
+def test_darcy_weisbach_one_pipe_against_colebrook_from_fluids(tmp_path, capsys):
+    # Outside reference: fluids.friction.Colebrook (PyPI) for the friction factor, then
+    # Darcy-Weisbach h = f L V^2 / (2 g D) with g = 9.80665 m/s2 (standard gravity, CGPM 1901).
+    fluids = pytest.importorskip("fluids")
+    folder = one_pipe(tmp_path / "net", extra="")
+    (folder / "pipes.csv").write_text(
+        "id,from,to,length [ft],diameter [in],roughness,roughness_height [mm]\n"
+        "P1,R1,J1,1000,6,120,0.26\n")
+    pipes_file = tmp_path / "p.csv"
+    code, _, err = run(capsys, "solve", folder, "--out", tmp_path / "n.csv", "--units", "si",
+                       "--pipes", pipes_file, "--headloss", "darcy-weisbach")
+    assert code == 0, err
+    from calib.hydraulics.headloss import NU_WATER_60F  # the solver's viscosity, 60 degF water
+    d, q, length = 6 * 0.0254, 500 * 3.785411784e-3 / 60, 1000 * 0.3048
+    v = q / (3.141592653589793 * d ** 2 / 4)
+    f = fluids.friction.Colebrook(v * d / NU_WATER_60F, 0.26e-3 / d)
+    expected = f * length * v ** 2 / (2 * 9.80665 * d)
+    loss = pd.read_csv(pipes_file)["headloss [m]"][0]
+    assert loss == pytest.approx(expected, rel=1e-4)
