@@ -150,7 +150,7 @@ def _header_factor(file: str, header: str, column: Column, unit: str | None,
     except ValueError as exc:
         problems.append(Problem(f"column '{header}': {exc}", file=file, row=header_row,
                                 field=column.name,
-                                expected=f"a {kind} unit pint knows, e.g. {_example(column)}"))
+                                expected=f"a unit of {kind} that pint knows, e.g. {_example(column)}"))
         return None
 
 
