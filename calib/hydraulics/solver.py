@@ -230,6 +230,8 @@ class NetworkSolver:
             self.trace.append((dq_max / q_ref, dh_max, e1, e2))
             if (it > 0 and not changed and dq_max <= self.flow_tol * q_ref
                     and dh_max <= self.head_tol and e1 <= self.energy_tol and e2 <= mass_tol):
+                self._demand = demand
+                self._check_held(q, active, dynamic)
                 self._check_frozen(q, H, active, dynamic, flips)
                 return self._result(resolved, rough, coef, q, H, h, grad, active, isolated,
                                     it, e1, e2)
@@ -259,9 +261,10 @@ class NetworkSolver:
             dh_max = float(np.abs(dH).max(initial=0.0))
             changed = False
             if dynamic.any():
-                changed, active, q = self._update_status(q, H, active, dynamic, flips)
-                if changed:
-                    isolated = self._reachable(active)
+                changed, active, q, iso = self._update_status(q, H, active, dynamic, flips,
+                                                              demand)
+                if iso is not None:
+                    isolated = iso
                     self._check_isolated(isolated, demand)
         self._fail(f"no convergence in {self.max_iterations} iterations", self.max_iterations,
                    F2, dH, dq, e2)
@@ -283,9 +286,13 @@ class NetworkSolver:
         self._factor = (factor, w, isolated.copy())
         return factor(rhs)
 
-    def _update_status(self, q, H, active, dynamic, flips):
+    def _update_status(self, q, H, active, dynamic, flips, demand):
         """Check valves close on reverse flow and reopen when the head would drive forward flow;
-        pumps stop on reverse flow and restart when the lift needed is below their shutoff head."""
+        pumps stop on reverse flow and restart when the lift needed is below their shutoff head.
+
+        A closing that would cut junctions with demand off every source is held back (a Newton
+        step can reverse a flow on its way); if the flow stays reversed at the solution,
+        ``_check_held`` says so. Returns (changed, active, q, isolated)."""
         np_ = self.np_
         f, t = self.link_from, self.link_to
         frozen = flips >= self.max_status_changes
@@ -297,16 +304,36 @@ class NetworkSolver:
             s = self.speed
             reopen[np_:] = lift[np_:] < s ** 2 * self.pump_h0 - self.head_tol
         can_open = dynamic & ~active & reopen & ~frozen
+        new = active.copy()
+        new[can_close] = False
+        new[can_open] = True
+        isolated = self._reachable(new) if (can_close.any() or can_open.any()) else None
+        if isolated is not None and can_close.any() and (isolated & (demand != 0)).any():
+            new[can_close] = True  # hold them open this step
+            can_close[:] = False
+            isolated = self._reachable(new) if can_open.any() else None
         changed = bool(can_close.any() or can_open.any())
         if changed:
-            active = active.copy()
-            active[can_close] = False
-            active[can_open] = True
             q = q.copy()
             q[can_close] = 0.0
             q[can_open] = self._initial_flow()[can_open]
             flips[can_close | can_open] += 1
-        return changed, active, q
+        return changed, new, q, isolated
+
+    def _check_held(self, q, active, dynamic):
+        """At the solution no open check valve or running pump may carry reverse flow: one that
+        does was held open because closing it cuts off junctions with demand."""
+        bad = dynamic & active & (q < -self.q_eps)
+        if bad.any():
+            links = [str(i) for i in self.link_ids[bad][:20]]
+            new = active & ~bad
+            cut = self._reachable(new) & (np.abs(self._demand) > 0)
+            nodes = [str(i) for i in self.network.node_ids[: self.nj][cut][:20]]
+            raise NetworkError(Problem(
+                f"check valve(s) or pump(s) {', '.join(links)} would close against the flow and cut "
+                f"junction(s) {', '.join(nodes)} with demand off every fixed-grade source",
+                field="status", expected="check valves pointing from the source side, or an "
+                "other open path to those junctions"))
 
     def _check_frozen(self, q, H, active, dynamic, flips):
         frozen = dynamic & (flips >= self.max_status_changes)

@@ -281,3 +281,39 @@ def test_roughness_override_is_validated(make):
         NetworkSolver(net).solve(roughness=[100.0, 90.0])
     with pytest.raises(InputError, match="'P'|P"):
         NetworkSolver(net).solve(roughness=[-5.0])
+
+
+def test_check_valve_against_the_only_supply_is_named(make):
+    # a dead end fed only through a check valve that points toward the source cannot be supplied
+    net = make([("J1", 0.0, 0.01), ("J2", 0.0, 0.005)], [("R", 50.0)],
+               [("P1", "R", "J1", 100.0, 0.2, 100.0), ("CV", "J2", "J1", 100.0, 0.2, 100.0)],
+               status=[PipeStatus.OPEN, PipeStatus.CHECK_VALVE])
+    with pytest.raises(NetworkError) as info:
+        NetworkSolver(net).solve()
+    assert "CV" in str(info.value) and "J2" in str(info.value)
+
+
+@pytest.mark.parametrize("seed", range(12))
+def test_random_networks_with_valves_satisfy_the_valve_conditions(make_random, seed):
+    # complementarity of a check valve (closed form): forward flow >= 0, and a closed valve has
+    # no forward head across it; mass balance within 1e-6 of total demand at every junction
+    rng = np.random.default_rng(seed)
+    net = make_random(int(rng.integers(10, 80)), 100 + seed, n_sources=int(rng.integers(1, 3)))
+    status = net.status.copy()
+    loop = np.arange(net.n_pipes) >= net.n_junctions - 1  # pipes beyond the spanning tree
+    loop[-net.n_sources:] = False
+    draw = rng.random(net.n_pipes)
+    status[loop & (draw < 0.1)] = PipeStatus.CLOSED
+    status[loop & (draw >= 0.1) & (draw < 0.5)] = PipeStatus.CHECK_VALVE
+    net = net.replace(status=status)
+    res = NetworkSolver(net).solve(Snapshot(demand_factor=float(rng.uniform(0.5, 2.0))))
+    cv = status == PipeStatus.CHECK_VALVE
+    assert np.all(res.flow[cv] >= -1e-9)
+    shut = cv & (res.flow == 0)
+    drop = res.head[net.pipe_from] - res.head[net.pipe_to]
+    assert np.all(drop[shut] <= 1e-5)
+    assert np.all(res.flow[status == PipeStatus.CLOSED] == 0)
+    demand = res.snapshot.demand_factor * net.demand
+    inflow = (np.bincount(net.pipe_to, res.flow, net.n_nodes)
+              - np.bincount(net.pipe_from, res.flow, net.n_nodes))[: net.n_junctions]
+    assert np.abs(inflow - demand).max() <= 1e-6 * demand.sum()
