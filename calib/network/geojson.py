@@ -25,7 +25,7 @@ import numpy as np
 from calib import fileio
 from calib.errors import NetworkError, Problem
 from calib.network import validate
-from calib.network.model import Network, PipeStatus
+from calib.network.model import Network
 from calib.network.tables import NetworkTables, parse_table
 from calib.units import DISPLAY, from_si, unit_factor
 
@@ -258,7 +258,7 @@ def _feature(geometry, props) -> dict:
 def _pipe_features(network: Network, units: str, to_map) -> list[dict]:
     u = DISPLAY[units]
     ids = network.node_ids.astype(str)
-    words = np.array(["open", "closed", "check"], dtype=object)  # PipeStatus codes 0, 1, 2
+    words = np.array(["open", "closed", "check"], dtype=object)  # indexed by PipeStatus code
     rh_unit = "mm" if units == "si" else "in"
     props = _records({
         "id": network.pipe_ids.astype(str).tolist(), "kind": ["pipe"] * network.n_pipes,
