@@ -13,6 +13,7 @@ features into the same raw columns and parses them here.
 
 from __future__ import annotations
 
+import csv
 import math
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -107,12 +108,15 @@ class NetworkTables:
 # --- parsing of cells ----------------------------------------------------------------------------
 
 def _text(cells) -> np.ndarray:
-    """Cells as stripped strings; None and NaN become ''."""
+    """Cells as stripped strings; None and NaN (GeoJSON null, a missing property) become ''."""
     def one(v):
         if v is None or (isinstance(v, float) and math.isnan(v)):
             return ""
         return str(v).strip()
-    return np.array([one(v) for v in cells], dtype=object)
+    try:
+        return np.array([c.strip() for c in cells], dtype=object)  # CSV: all text already
+    except AttributeError:
+        return np.array([one(v) for v in cells], dtype=object)
 
 
 def _numbers(text: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -255,22 +259,50 @@ def _merge_columns(file, column, parts, rows, ids, problems):
 
 # --- the CSV folder -------------------------------------------------------------------------------
 
+def _csv_records(path: Path, problems: list[Problem]):
+    """Header, records and the line each record starts on, as a person counts lines (from 1).
+
+    Blank lines are skipped but counted, so row numbers match the file even after them or after a
+    quoted cell that spans lines. A record with more cells than the header is reported.
+    """
+    header, header_line, records, lines = None, None, [], []
+    with open(path, newline="", encoding="utf-8-sig") as fh:
+        reader = csv.reader(fh, skipinitialspace=True)
+        start = 1
+        for record in reader:
+            line, start = start, reader.line_num + 1
+            if not any(cell.strip() for cell in record):
+                continue
+            if header is None:
+                header, header_line = record, line
+                continue
+            if len(record) > len(header):
+                problems.append(Problem(f"the row has {len(record)} cells, the header "
+                                        f"{len(header)}", file=path.name, row=line,
+                                        id=record[0].strip() or None,
+                                        expected="one cell per column (quote text with commas)"))
+            records.append((record + [""] * len(header))[: len(header)])
+            lines.append(line)
+    return header, header_line, records, lines
+
+
 def read_csv_table(path: Path, table: str, problems: list[Problem]) -> ParsedTable | None:
     """Read one CSV file of ``table``; None when it cannot be read at all (a problem says why)."""
     try:
-        frame = pd.read_csv(path, dtype=str, keep_default_na=False, skip_blank_lines=False,
-                            encoding="utf-8-sig", skipinitialspace=True)
+        header, header_line, records, lines = _csv_records(path, problems)
     except FileNotFoundError:
         return None
-    except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
-        problems.append(Problem(f"cannot be read as CSV: {str(exc).strip()}", file=path.name))
+    except (csv.Error, UnicodeDecodeError) as exc:
+        problems.append(Problem(f"cannot be read as CSV: {exc}", file=path.name,
+                                expected="comma-separated text in UTF-8"))
         return None
-    rows = np.arange(len(frame)) + 2  # header = row 1
-    text = frame.to_numpy(dtype=object)
-    keep = ~np.all((text == "") | pd.isna(text), axis=1) if len(frame) else np.zeros(0, bool)
-    headers = [str(h) for h in frame.columns]
-    cells = [text[keep, j] for j in range(text.shape[1])]
-    return parse_table(path.name, table, headers, cells, rows[keep], problems)
+    if header is None:
+        problems.append(Problem("the file is empty", file=path.name,
+                                expected="a header row and one row per item"))
+        return None
+    cells = np.array(records, dtype=object).reshape(len(records), len(header))
+    return parse_table(path.name, table, header, [cells[:, j] for j in range(len(header))],
+                       lines, problems, header_row=header_line)
 
 
 def read_tables(folder) -> tuple[NetworkTables | None, list[Problem]]:

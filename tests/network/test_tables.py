@@ -190,3 +190,21 @@ def test_pumps_round_trip_through_si_tables(make_folder, tmp_path):
         np.testing.assert_allclose(getattr(back.pumps, name), getattr(net.pumps, name),
                                    rtol=1e-9, err_msg=name)
     assert "head_1 [m]" in (tmp_path / "si" / "pumps.csv").read_text().splitlines()[0]
+
+
+def test_rows_after_a_quoted_cell_spanning_lines_and_a_ragged_row(make_folder):
+    folder = make_folder(pipes='id,from,to,length [ft],diameter [in],roughness,material\n'
+                               'P1,R1,J1,1000,8,100,"cast iron,\nlined 1988"\n'
+                               'P2,J1,J2,500,6,120,PVC,extra\n'
+                               'P3,J1,J2,x,6,120,PVC\n')
+    with pytest.raises(NetworkError) as err:
+        read_network(folder)
+    assert [str(p) for p in err.value.problems] == [
+        "pipes.csv, row 4, id 'P2': the row has 8 cells, the header 7 (expected one cell per "
+        "column (quote text with commas))",
+        "pipes.csv, row 5, id 'P3', field 'length': 'x' is not a number"]
+
+
+def test_empty_file(make_folder):
+    with pytest.raises(NetworkError, match="sources.csv: the file is empty"):
+        read_network(make_folder(sources=""))
