@@ -112,8 +112,13 @@ def run(args: argparse.Namespace) -> int:
     result = solver.solve(Snapshot(demand_factor=factor, label="solve"))
     nodes = node_table(network, result, args.units)
     pipes = pipe_table(network, result, args.units) if args.pipes else None
-    fileio.write_csv(args.out, nodes, float_format="%.8g")
-    if pipes is not None:
-        fileio.write_csv(args.pipes, pipes, float_format="%.8g")
+    for option, path, table in (("--out", args.out, nodes), ("--pipes", args.pipes, pipes)):
+        if table is None:
+            continue
+        try:
+            fileio.write_csv(path, table, float_format="%.8g")
+        except OSError as exc:
+            raise InputError(f"cannot write '{path}': {exc.strerror or exc}", field=option,
+                             expected="a file path in a folder you can write to") from None
     print(summary(network, result, args.units))
     return 0

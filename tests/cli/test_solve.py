@@ -183,3 +183,11 @@ def test_darcy_weisbach_one_pipe_against_colebrook_from_fluids(tmp_path, capsys)
     expected = f * length * v ** 2 / (2 * 9.80665 * d)
     loss = pd.read_csv(pipes_file)["headloss [m]"][0]
     assert loss == pytest.approx(expected, rel=1e-4)
+
+
+def test_unwritable_output_exits_2(tmp_path, capsys):
+    target = tmp_path / "a_folder"
+    target.mkdir()
+    code, _, err = run(capsys, "solve", one_pipe(tmp_path / "net"), "--out", target)
+    assert code == 2 and "field '--out': cannot write" in err
+    assert list(target.iterdir()) == []  # the temporary file was removed
