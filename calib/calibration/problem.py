@@ -93,10 +93,22 @@ class CalibrationProblem:
         self.day_col = {p.index: i for i, p in enumerate(params) if p.kind == "demand"}
         self.offset_col = {self.offsets[p.index]: i for i, p in enumerate(params) if p.kind == "offset"}
 
-        # --- snapshots: (test, kind) pairs that have readings ------------------------------------
-        pairs = sorted({(int(t), str(k)) for t, k in zip(tests.test, tests.kind)})
-        self.pairs = pairs
-        pos = {pair: i for i, pair in enumerate(pairs)}
+        # --- snapshots: (test, kind) pairs that have readings; identical loadings solved once ---
+        # (e.g. the static snapshots of tests at the same tank level), so a key holds everything a
+        # snapshot depends on: source grades given, its own offset columns, its day, its flows
+        all_pairs = sorted({(int(t), str(k)) for t, k in zip(tests.test, tests.kind)})
+        unique: dict = {}
+        pos = {}
+        for t, k in all_pairs:
+            key = (tuple(sorted(tests.source_head[t].items())),
+                   tuple(c for (tt, _s), c in self.offset_col.items() if tt == t),
+                   self.day_col.get(int(tests.day[t])),
+                   tuple(sorted(tests.flows[t].items())) if k == "residual" else ())
+            pos[(t, k)] = unique.setdefault(key, len(unique))
+        first = {}
+        for pair, i in pos.items():
+            first.setdefault(i, pair)
+        self.pairs = [first[i] for i in range(len(unique))]
         self.reading_snapshot = np.array([pos[(int(t), str(k))] for t, k in zip(tests.test, tests.kind)],
                                          dtype=np.int64)
         self.h_obs = tests.hgl
