@@ -8,6 +8,8 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
 from calib.errors import InputError, NetworkError
 from calib.network import PipeStatus
@@ -208,3 +210,33 @@ def test_rows_after_a_quoted_cell_spanning_lines_and_a_ragged_row(make_folder):
 def test_empty_file(make_folder):
     with pytest.raises(NetworkError, match="sources.csv: the file is empty"):
         read_network(make_folder(sources=""))
+
+
+@settings(max_examples=15, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(seed=st.integers(0, 2**32 - 1), units=st.sampled_from(["us", "si"]))
+def test_random_networks_round_trip_through_tables_and_geojson(tmp_path, seed, units):
+    # Round trip property (no outside value): write then read gives the same arrays to 1e-12.
+    from calib.network import Network
+    from calib.network.io import write_network_geojson
+    rng = np.random.default_rng(seed)
+    nj = int(rng.integers(2, 30))
+    chain = np.arange(nj)  # a path through every junction from the source keeps it one network
+    extra = rng.integers(0, nj, 5)  # and five more pipes between two different junctions
+    frm = np.concatenate([[nj], chain[:-1], extra])
+    to = np.concatenate([[0], chain[1:], (extra + rng.integers(1, nj, 5)) % nj])
+    p = len(frm)
+    net = Network(
+        node_ids=[f"N{i}" for i in range(nj + 1)], n_junctions=nj,
+        elevation=rng.uniform(0, 200, nj + 1), demand=rng.uniform(0, 0.01, nj),
+        source_head=rng.uniform(250, 300, 1), pipe_ids=[f"L{k}" for k in range(p)],
+        pipe_from=frm, pipe_to=to, length=rng.uniform(1, 2000, p),
+        diameter=rng.uniform(0.05, 0.6, p), roughness=rng.uniform(40, 150, p),
+        minor_loss=rng.uniform(0, 3, p), roughness_height=rng.uniform(1e-6, 2e-3, p),
+        x=rng.uniform(0, 5000, nj + 1), y=rng.uniform(0, 5000, nj + 1),
+        hydrant=rng.random(nj) < 0.3)
+    folder = tmp_path / f"t{seed}{units}"
+    back = read_network(write_network_tables(net, folder, units=units))
+    assert_same_network(net, back)
+    geo = read_network(write_network_geojson(net, folder / "n.geojson", units=units,
+                                             length_unit="ft" if units == "us" else "m"))
+    assert_same_network(back, geo)
