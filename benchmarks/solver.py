@@ -82,6 +82,15 @@ def run(m: int, repeats: int) -> dict:
     solve = statistics.median(times)
     one = floor_time(solver, result, max(repeats, 5))
     floor = result.iterations * one
+    # the same solve with a factorization at every iteration (no CG reuse): the overhead alone
+    plain_solver = NetworkSolver(net, reuse_factor=False)
+    plain_times = []
+    for _ in range(repeats):
+        t0 = time.perf_counter()
+        plain = plain_solver.solve()
+        plain_times.append(time.perf_counter() - t0)
+    plain_t = statistics.median(plain_times)
+    plain_floor = plain.iterations * one
     rng = np.random.default_rng(2)
     hydrants = rng.choice(net.n_junctions, 20)
     snaps = [Snapshot(demand_factor=0.8 + 0.02 * i,
@@ -91,7 +100,8 @@ def run(m: int, repeats: int) -> dict:
     many = solver.solve_many(snaps)
     t_many = time.perf_counter() - t0
     return dict(pipes=net.n_pipes, junctions=net.n_junctions, setup=setup, solve=solve,
-                iterations=result.iterations, factorizations=result.factorizations, one=one, floor=floor, ratio=solve / floor,
+                iterations=result.iterations, factorizations=result.factorizations, one=one,
+                floor=floor, ratio=solve / floor, plain=plain_t, plain_ratio=plain_t / plain_floor,
                 many=t_many, many_iterations=statistics.mean(r.iterations for r in many),
                 mass=result.max_mass_error)
 
@@ -101,15 +111,19 @@ def main(argv=None) -> int:
     parser.add_argument("--sizes", default="23,71,159", help="grid sides m (junctions m x m)")
     parser.add_argument("--repeats", type=int, default=5)
     args = parser.parse_args(argv)
-    print(f"# {time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime())}, {platform.processor() or platform.machine()}, "
-          f"{os.cpu_count()} cores, Python {platform.python_version()}, load {os.getloadavg()[0]:.2f}")
-    print("| pipes | junctions | set-up s | solve s (median) | iterations | factorizations | one assemble+factor+solve s "
-          "| floor s | ratio | solve_many 20 s | mean iterations (many) | max mass error m3/s |")
-    print("|---|---|---|---|---|---|---|---|---|---|---|---|")
+    stamp = time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime())
+    print(f"# {stamp}, {platform.processor() or platform.machine()}, {os.cpu_count()} cores, "
+          f"Python {platform.python_version()}, load {os.getloadavg()[0]:.2f}")
+    print("| pipes | junctions | set-up s | solve s (median) | iterations | factorizations "
+          "| one assemble+factor+solve s | floor s | ratio | solve s, factor every iteration "
+          "| its ratio | solve_many 20 s "
+          "| mean iterations (many) | max mass error m3/s |")
+    print("|---|---|---|---|---|---|---|---|---|---|---|---|---|---|")
     for m in (int(v) for v in args.sizes.split(",")):
         r = run(m, args.repeats)
         print(f"| {r['pipes']} | {r['junctions']} | {r['setup']:.3f} | {r['solve']:.3f} | "
-              f"{r['iterations']} | {r['factorizations']} | {r['one']:.4f} | {r['floor']:.3f} | {r['ratio']:.2f} | "
+              f"{r['iterations']} | {r['factorizations']} | {r['one']:.4f} | {r['floor']:.3f} | "
+              f"{r['ratio']:.2f} | {r['plain']:.3f} | {r['plain_ratio']:.2f} | "
               f"{r['many']:.2f} | {r['many_iterations']:.1f} | {r['mass']:.1e} |", flush=True)
     return 0
 

@@ -32,6 +32,7 @@ class SchurPattern:
         self.link_from = np.asarray(link_from, dtype=np.int64)
         self.link_to = np.asarray(link_to, dtype=np.int64)
         self.dense = dense
+        self.work_ratio: float | None = None  # set by the first sparse factorization
         f, t = self.link_from, self.link_to
         nj = self.n
         k = np.arange(len(f))
@@ -89,6 +90,12 @@ class SchurPattern:
             return SchurFactor(self, matrix, lambda b: scipy.linalg.cho_solve(factor, b))
         lu = spla.splu(matrix, permc_spec="NATURAL", diag_pivot_thresh=0.0,
                        options=dict(SymmetricMode=True))
+        if self.work_ratio is None:
+            # flops of a factorization (sum of squared column counts of L) over those of one CG
+            # step (two triangular solves and a product with S); fixed, since nothing pivots
+            counts = np.diff(lu.L.tocsc().indptr).astype(float)
+            step = 2.0 * (lu.L.nnz + lu.U.nnz) + 2.0 * matrix.nnz
+            self.work_ratio = float((counts ** 2).sum() / step)
         return SchurFactor(self, matrix, lu.solve)
 
     def pcg(self, matrix: sp.csc_matrix, factor: "SchurFactor", b: np.ndarray, tol: float,
