@@ -91,3 +91,20 @@ def test_wrong_unit_and_missing_files(tmp_path, net):
         read_tests(folder, net)
     with pytest.raises(InputError, match="pressures.csv is missing"):
         read_tests(_write(tmp_path / "u", flows="test_id,node,flow [gpm]\n"), net)
+
+
+def test_field_app_export_layout_reads(tmp_path, net):
+    # the field app writes flow and the pitot it came from side by side (the flow is taken as it is),
+    # an empty boundary.csv when no grade was noted, and extra columns in tests.csv
+    folder = _write(tmp_path / "t",
+                    flows="test_id,node,flow [gpm],pitot [psi],outlet_diameter [in],coefficient,"
+                          "pumper_factor,outlet,read_by\nA,J5,1061.2,40,2.5,0.9,,hose 1,demo\n",
+                    pressures="test_id,node,static [psi],residual [psi],gauge_height [ft]\nA,J4,80,70,2\n",
+                    boundary="test_id,source,head [ft]\n",
+                    tests="test_id,date,time,crew,area,weather,notes,revision,status,"
+                          "rated_flow [gpm],target [psi],class\n"
+                          "A,2026-05-14,09:00,demo crew,north,dry,,1,finished,2500,20,AA\n")
+    ts = read_tests(folder, net)
+    assert ts.flows[0][5] / units.GPM == pytest.approx(1061.2)
+    assert ts.pitot_tests == [] and ts.source_head == [{}]
+    assert ts.n_readings == 2
