@@ -77,9 +77,9 @@ def hazen_williams_law(q, r, q_eps: float = HW_Q_EPS):
     with ``b = (1.852 - 1)/2 = 0.426`` and ``a = 1 - b = 0.574`` so that value and slope match the
     law at ``|Q| = q_eps``. The slope at zero flow is then ``0.574 r q_eps^0.852 > 0``, which keeps
     the gradient matrix of the global gradient method positive definite on dead ends and idle pipes.
-    With the default q_eps = 1e-6 m3/s (0.016 gpm) the blend changes a head loss by less than
-    1e-7 m on any pipe of the size used in water distribution (common practice: a regularization
-    well below the precision of any field reading).
+    The blend departs from the law by at most ``0.076 r q_eps^1.852``; with the default
+    q_eps = 1e-6 m3/s (0.016 gpm) that is 2.2e-7 m on a 1000 m, 4 in main of C 60, far below the
+    precision of any field reading (common practice: regularize below what can be measured).
     """
     q = np.asarray(q, dtype=float)
     r = np.asarray(r, dtype=float)

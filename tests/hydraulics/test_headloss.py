@@ -154,3 +154,13 @@ def test_iapws_viscosity_table_values():
     iapws = pytest.importorskip("iapws")
     for t, nu in ((10, 1.3063e-6), (15, 1.1386e-6), (20, 1.0034e-6)):
         assert iapws.IAPWS95(T=273.15 + t, P=0.101325).nu == pytest.approx(nu, rel=1e-4)
+
+
+def test_blend_departs_from_the_law_by_at_most_the_documented_bound():
+    # closed form: max over 0 <= x <= 1 of |0.574 x + 0.426 x^3 - x^1.852| = 0.0764 (at x = 0.323)
+    r, qe = hl.hazen_williams_resistance(1000.0, 4 * INCH, 60.0), 1e-6
+    q = np.linspace(-qe, qe, 20001)
+    h, _ = hl.hazen_williams_law(q, r, qe)
+    gap = np.abs(h - r * np.abs(q) ** 0.852 * q).max()
+    assert gap <= 0.0765 * r * qe ** 1.852
+    assert gap == pytest.approx(2.2e-7, rel=0.01)
