@@ -194,6 +194,11 @@ def render(result, system: str = "us", curves: bool = True) -> str:
         parts.append(f"<p>Prior: {e(result.prior.source)}.</p>")
     parts.append("<h2>Findings</h2><ul>" + "".join(f"<li>{e(f)}</li>" for f in result.findings)
                  + "</ul>")
+    names = [q.name for q in result.params]
+    if len(names) > 1:
+        corr_rows = [[names[i]] + [("-" if not np.isfinite(v) else f"{v:+.2f}") for v in result.corr[i]]
+                     for i in range(len(names))]
+        parts.append("<h3>Parameter correlation</h3>" + _table([""] + names, corr_rows))
     if result.move_together:
         parts.append("<p>Parameters that move together (|r| &gt; 0.9): " + e(", ".join(
             f"{a} / {b} ({r:+.2f})" for a, b, r in result.move_together)) + ".</p>")
