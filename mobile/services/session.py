@@ -288,13 +288,15 @@ class TestService:
 
     # --- lists -------------------------------------------------------------------------------
     def list_tests(self, when: str = "all", area: str = "", hydrant: str = "") -> list[dict]:
-        """Tests as rows for the home list: ``when`` 'today' or 'all'; filter by area and hydrant."""
+        """Tests as rows for the home list: ``when`` 'today' (and all drafts) or 'all'; filter by area
+        and hydrant."""
         today = date.today().isoformat()
         rows = []
         for t in self.store.tests():
             h = self.store.header(t.test_id)
             hydrants = list(h.get("gauges", [])) + [o["hydrant"] for o in h.get("outlets", [])]
-            if when == "today" and not h.get("started_at", "").startswith(today):
+            # "today" also keeps every unfinished draft, whatever its day: it must not get lost.
+            if when == "today" and t.status != "draft" and not h.get("started_at", "").startswith(today):
                 continue
             if area and area.lower() not in (t.area or "").lower():
                 continue

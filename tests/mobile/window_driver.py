@@ -152,7 +152,10 @@ def script_enter(app):
 
 def script_find(app):
     home = app.root.get_screen("home")
-    yield
+    yield from settle()
+    tap(home.ids.all)  # the test may have been logged on another day
+    yield from wait_for(lambda: home.when == "all")
+    yield from settle()
     report["home_rows"] = [r.text for r in rows(home.ids.list)]
     target = [r for r in rows(home.ids.list) if r.key == sys.argv[4]]
     tap(target[0])
