@@ -48,6 +48,10 @@ _DIMENSION = {kind: ureg(unit).dimensionality for kind, unit in SI_UNIT.items()}
 _HEADER = re.compile(r"^\s*(?P<name>[^\[\]]*?)\s*(\[(?P<unit>[^\[\]]*)\])?\s*$")
 
 
+def _article(word: str) -> str:
+    return "an" if word[:1] in "aeiou" else "a"
+
+
 def parse_header(header: str) -> tuple[str, str | None]:
     """Split a column header ``"elevation [ft]"`` into ``("elevation", "ft")``; no brackets gives None."""
     m = _HEADER.match(str(header))
@@ -69,7 +73,7 @@ def unit_factor(unit: str, kind: str) -> float:
             TypeError, ValueError, AssertionError) as exc:
         raise ValueError(f"unknown unit '{unit}'") from exc
     if q.dimensionality != _DIMENSION[kind]:
-        raise ValueError(f"unit '{unit}' is not a {kind} unit (expected something like "
+        raise ValueError(f"unit '{unit}' is not {_article(kind)} {kind} unit (expected something like "
                          f"{DISPLAY['us'][kind]} or {DISPLAY['si'][kind]})")
     return float(q.to(SI_UNIT[kind]).magnitude)
 
@@ -82,7 +86,7 @@ def to_si(value, kind: str, default_unit: str | None = None) -> float:
     """
     if isinstance(value, pint.Quantity):
         if value.dimensionality != _DIMENSION[kind]:
-            raise ValueError(f"'{value:~}' is not a {kind} (expected a unit such as "
+            raise ValueError(f"'{value:~}' is not {_article(kind)} {kind} (expected a unit such as "
                              f"{DISPLAY['us'][kind]} or {DISPLAY['si'][kind]})")
         return float(value.to(SI_UNIT[kind]).magnitude)
     if isinstance(value, str):

@@ -91,7 +91,7 @@ def test_roughness_height_without_unit_suggests_mm(make_folder):
 
 @pytest.mark.parametrize("header, text", [
     ("elevation [ftt]", "unknown unit 'ftt'"),
-    ("elevation [gpm]", "unit 'gpm' is not a elevation unit"),
+    ("elevation [gpm]", "unit 'gpm' is not an elevation unit"),
 ])
 def test_unknown_or_wrong_units_are_reported(make_folder, header, text):
     folder = make_folder(junctions=f"id,{header},demand [gpm]\nJ1,100,50\nJ2,110,20\n")
