@@ -36,6 +36,7 @@ HEADLOSS_MODELS = ("hazen-williams", "darcy-weisbach")
 
 class NetworkSolver:
     """Solve snapshots of one network; the sparsity pattern and ordering are built once here.
+    A solver keeps state between solves (last factorization, trace): use one per thread.
 
     Parameters (all SI):
     - ``headloss``: ``"hazen-williams"`` (default; ``roughness`` = C) or ``"darcy-weisbach"``
@@ -74,6 +75,7 @@ class NetworkSolver:
         self.viscosity = float(viscosity)
         self.reuse_factor = reuse_factor and not dense
         self._reach_cache = None
+        self._factor = None
         self.reuse_max_changed, self.cg_max_iterations = reuse_max_changed, cg_max_iterations
         self.nj, self.np_, self.nu = net.n_junctions, net.n_pipes, len(net.pumps)
         self.link_from = np.concatenate([net.pipe_from, np.asarray(net.pumps.from_node, np.int64)])
@@ -227,7 +229,8 @@ class NetworkSolver:
         changed = False
         dq = np.zeros(len(q))
         dH = np.zeros(nj)
-        self._factor = None
+        if secant:  # cold start; a warm start may precondition with the last solve's factor
+            self._factor = None
         self.factorizations = 0
         for it in range(self.max_iterations + 1):
             h, grad = self._laws(q, coef)

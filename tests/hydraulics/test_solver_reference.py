@@ -194,3 +194,37 @@ def test_pump_between_reservoirs_against_brentq(make):
     q_ref = brentq(excess, 1e-6, 0.2, xtol=1e-15)
     assert res.pump_flow[0] == pytest.approx(q_ref, rel=1e-8)
     assert res.flow[0] == pytest.approx(q_ref, rel=1e-8)
+
+
+@pytest.mark.parametrize("n,seed", [(12, 3), (20, 15), (25, 4)])  # seeds with turbulent flow
+def test_darcy_weisbach_looped_network_against_nodal_root(make_random, n, seed):
+    # independent method: nodal heads by scipy.optimize.root, pipe flows from the explicit inverse
+    # of Colebrook for a known head loss, V = -2 sqrt(2 g D S) log10(e/3.7D + 2.51 nu/(D sqrt(2 g D S)))
+    # (exact rearrangement of Colebrook 1939; valid in turbulent flow, asserted below)
+    from calib.hydraulics.headloss import NU_WATER_60F, reynolds_number
+    from calib.units import G
+    net = make_random(n, seed, n_sources=2)
+    net = net.replace(demand=net.demand * 6, roughness_height=np.full(net.n_pipes, 2.6e-4))
+    res = NetworkSolver(net, headloss="darcy-weisbach").solve()
+    assert np.all(reynolds_number(res.flow, net.diameter) > 4000)  # Colebrook's range
+    nj, f, t = net.n_junctions, net.pipe_from, net.pipe_to
+    d, length, e = net.diameter, net.length, net.roughness_height
+
+    def flows(hj):
+        h = np.concatenate([hj, net.source_head])
+        dh = h[f] - h[t]
+        s = np.maximum(np.abs(dh), 1e-12) / length
+        root_term = np.sqrt(2 * G * d * s)
+        v = -2 * root_term * np.log10(e / (3.7 * d) + 2.51 * NU_WATER_60F / (d * root_term))
+        return np.sign(dh) * v * np.pi * d ** 2 / 4
+
+    def residual(hj):
+        q = flows(hj)
+        inflow = np.bincount(t, q, net.n_nodes) - np.bincount(f, q, net.n_nodes)
+        return (inflow[:nj] - net.demand) * 1e3
+
+    # start a few metres off our answer in a random direction: root must find its own way
+    start = res.head[:nj] + np.random.default_rng(0).uniform(-2, 2, nj)
+    sol = root(residual, start, method="hybr", options={"xtol": 1e-13})
+    assert sol.success, sol.message
+    np.testing.assert_allclose(res.head[:nj], sol.x, atol=HEAD_TOL, rtol=0)
