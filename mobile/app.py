@@ -56,7 +56,9 @@ def load_kv() -> None:
     _KV_LOADED = True
 
 
-class FieldApp(App):
+class HydrantFieldApp(App):
+    """Kivy names the data folder after the class: ``~/.config/HydrantField`` on Linux."""
+
     title = "Hydrant flow tests"
     test_id = StringProperty("")
 
@@ -208,3 +210,6 @@ class FieldApp(App):
             Clock.schedule_once(lambda dt: self._snapshot(todo[1:]), 0.1)
 
         Clock.schedule_once(shoot, 0.6)
+
+
+FieldApp = HydrantFieldApp
