@@ -101,6 +101,8 @@ def _plots(result, system: str, curves: bool = True) -> dict[str, str]:
 
     if curves and t.n_tests:
         from calib.calibration.predict import predict_test
+        from calib.hydraulics import NetworkSolver
+        solver = NetworkSolver(net, headloss="hazen-williams")  # one set-up for every curve point
         n_show = min(t.n_tests, 12)
         cols = 4
         rows = int(np.ceil(n_show / cols))
@@ -121,7 +123,7 @@ def _plots(result, system: str, curves: bool = True) -> dict[str, str]:
             p = []
             for s in scales:
                 pr = predict_test(net, {n: q * s for n, q in flows.items()}, [str(net.node_ids[gauge])],
-                                  roughness=rough, source_head=heads)[0]
+                                  roughness=rough, source_head=heads, solver=solver)[0]
                 p.append(pr.residual)
             gh = units.head_to_pressure(t.gauge_height[sel[0]])
             ax.plot(units.from_si(total * scales, "flow", fu), conv(np.array(p) - gh), color="tab:blue")
