@@ -105,25 +105,32 @@ class SchurPattern:
         Used when S changed little since ``factor`` was computed (a few links changed much, the
         rest little): each step costs one triangular solve instead of a factorization. Stops when
         the largest residual is <= ``tol`` (the residual of this system is the junction mass
-        imbalance after the Newton step, in m3/s); returns None if that takes more than
-        ``max_iterations`` steps. Source: Hestenes and Stiefel (1952), J. Res. NBS 49(6), the
+        imbalance after the Newton step, in m3/s); returns None if that takes, or after three steps
+        is on course to take, more than ``max_iterations`` steps. Source: Hestenes and Stiefel (1952), J. Res. NBS 49(6), the
         preconditioned form as in Saad, Iterative Methods for Sparse Linear Systems (2003), alg. 9.1.
         """
         perm, inv = self.perm, self.inv
         r = np.asarray(b, dtype=float)[perm]
         x = np.zeros_like(r)
-        if np.abs(r).max(initial=0.0) <= tol:
+        r0 = np.abs(r).max(initial=0.0)
+        if r0 <= tol:
             return x[inv]
         z = factor.solve_permuted(r)
         p = z.copy()
         rz = r @ z
-        for _ in range(max_iterations):
+        for k in range(1, max_iterations + 1):
             sp_ = matrix @ p
             alpha = rz / (p @ sp_)
             x += alpha * p
             r -= alpha * sp_
-            if np.abs(r).max() <= tol:
+            rk = np.abs(r).max()
+            if rk <= tol:
                 return x[inv]
+            if k >= 3:
+                # give up early when the rate so far would need more than the allowed steps
+                rate = (rk / r0) ** (1.0 / k)
+                if rate >= 1.0 or k + np.log(tol / rk) / np.log(rate) > max_iterations:
+                    return None
             z = factor.solve_permuted(r)
             rz_new = r @ z
             p = z + (rz_new / rz) * p
