@@ -73,7 +73,7 @@ class FitResult:
     first: Estimate | None  # the fit with every reading that passed the face checks, when a refit was made
     corr: np.ndarray
     move_together: list  # (name_i, name_j, r)
-    informed: np.ndarray  # per group: share of its precision from the tests (0-1)
+    informed: np.ndarray  # per group: share of its precision from the tests (0-1); nan without a prior
     status: list  # per group: "informed" | "weakly informed" | "undetermined"
     simulated: np.ndarray  # per reading: simulated gauge pressure [Pa]
     z: np.ndarray  # per reading: standardized residual
@@ -258,24 +258,38 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
     z_used, cook_used = _diagnostics(est, prob)
     gross = np.zeros(n, dtype=bool)
     z_with = np.full(n, np.nan)  # standardized residual in the fit that still held the reading
-    # leave out the worst reading beyond the threshold and refit, one at a time, so that a gross
-    # error's neighbours (dragged in the first fit) are not left out with it
+    # leave out one reading beyond the threshold and refit, one at a time, so that a gross error's
+    # neighbours (dragged in the first fit) are not left out with it. Which one: of the (at most three)
+    # largest standardized residuals, the one whose leave-one-out refit fits the rest best - a
+    # high-leverage good reading can look as bad as the gross error that pulls the fit towards it.
     max_out = max(1, n // 10)
     while refit and gross.sum() < max_out:
         idx = np.flatnonzero(est.used)
-        worst = int(np.argmax(np.abs(z_used)))
-        if abs(z_used[worst]) <= threshold or est.used.sum() - 1 <= prob.n_params:
+        order = np.argsort(-np.abs(z_used))
+        cand = [int(k) for k in order[:3] if abs(z_used[k]) > threshold]
+        if not cand or est.used.sum() - 1 <= prob.n_params:
             break
         if first is None:
             first = est
-        i = int(idx[worst])
-        gross[i] = True
-        z_with[i] = -z_used[worst]
         count["stage"] = "refit without flagged readings"
-        used1 = est.used.copy()
-        used1[i] = False
-        prob = make(used1, x0=est.x)
-        est = _estimate(prob, est.x, loss, f_scale, max_nfev, used1)
+        best = None
+        for k in cand:
+            used1 = est.used.copy()
+            used1[idx[k]] = False
+            pk = make(used1, x0=est.x)
+            ek = _estimate(pk, est.x, loss, f_scale, max_nfev, used1)
+            if best is None or ek.chi2 < best[2].chi2:
+                best = (k, pk, ek)
+        k, pk, new_est = best
+        if est.chi2 - new_est.chi2 < threshold ** 2:
+            # leaving it out does not remove a gross misfit (a genuine outlier takes about z^2 of
+            # S with it): keep it, flagged by its standardized residual only
+            break
+        prob = pk
+        i = int(idx[k])
+        gross[i] = True
+        z_with[i] = -z_used[k]
+        est = new_est
         z_used, cook_used = _diagnostics(est, prob)
 
     # simulated values for every reading (left-out ones too) at the final parameters
@@ -343,8 +357,9 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
         status = ["informed" if s > 0.5 else "weakly informed" if s > 0.1 else "undetermined"
                   for s in informed]
     else:
+        # no prior to compare with: judge by the interval's half-width alone (share left undefined)
         half = est.t * sd_c
-        informed = np.where(np.isfinite(half), 1.0 / (1.0 + (half / 10.0) ** 2), 0.0)
+        informed = np.full(len(sd_c), np.nan)
         status = ["undetermined" if not np.isfinite(h) or h > 50 else
                   "weakly informed" if h > 15 else "informed" for h in half]
 
@@ -376,9 +391,12 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
                      else "has an infinite or very wide interval")
             findings.append(f"Group {name}: no test determines it; its C {where}.")
         elif status[g] == "weakly informed":
-            findings.append(f"Group {name}: the tests inform it weakly ({informed[g]:.0%} of its "
-                            "precision comes from them"
-                            + ("; its C leans on the prior)." if gp is not None else ")."))
+            if gp is not None:
+                findings.append(f"Group {name}: the tests inform it weakly ({informed[g]:.0%} of its "
+                                "precision comes from them; its C leans on the prior).")
+            else:
+                findings.append(f"Group {name}: the tests inform it weakly (95 % interval +/- "
+                                f"{est.t * sd_c[g]:.0f}).")
         if est.at_bound[col]:
             findings.append(f"Group {name}: C {est.x[col]:.1f} is at a bound of "
                             f"{c_bounds[0]:g}-{c_bounds[1]:g}; its interval is not reliable. Check the "

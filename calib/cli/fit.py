@@ -105,13 +105,14 @@ class ProgressBar:
 
 def summary(result, system: str = "us") -> str:
     """The table printed at the end: groups, C, interval, pipes, informed; then the flagged readings."""
-    lines = [f"{'group':<24s} {'C':>6s} {'95% interval':>15s} {'pipes':>6s}  informed"]
+    w = max(5, max(len(n) for n in result.grouping.names))
+    lines = [f"{'group':<{w}s} {'C':>6s} {'95% interval':>15s} {'pipes':>6s}  informed"]
     for g, name in enumerate(result.grouping.names):
         lo, hi = result.c_low[g], result.c_high[g]
         interval = f"{lo:6.1f}-{hi:6.1f}" if math.isfinite(lo) and math.isfinite(hi) else "undetermined"
-        lines.append(f"{name[:24]:<24s} {result.c[g]:6.1f} {interval:>15s} "
-                     f"{int(result.grouping.n_pipes()[g]):6d}  {result.status[g]}"
-                     f" ({result.informed[g]:.0%})")
+        share = f" ({result.informed[g]:.0%} from the tests)" if result.prior is not None else ""
+        lines.append(f"{name:<{w}s} {result.c[g]:6.1f} {interval:>15s} "
+                     f"{int(result.grouping.n_pipes()[g]):6d}  {result.status[g]}{share}")
     pu = units.display_unit("pressure", system)
     rmse = units.from_si(result.rmse, "pressure", pu)
     lines.append(f"RMSE of pressures {rmse:.2f} {pu} over {int(result.estimate.used.sum())} readings; "
