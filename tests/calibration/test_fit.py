@@ -156,3 +156,21 @@ def test_source_grade_offset_is_recovered_from_static_readings(small):
     assert len(cols) == 4
     for c in cols:
         assert res.estimate.low[c] <= 3.0 <= res.estimate.high[c]
+
+
+def test_face_checks_flag_and_leave_out_impossible_readings(small):
+    # a residual above its own static, and a static grade above the only source's grade (no pump):
+    # both impossible on their face (common practice), flagged and left out before any fit
+    net, grp, plan, solver = small
+    tests = synthetic_tests(net, TRUTH[grp.index], plan, seed=23, solver=solver)
+    res_i = int(np.flatnonzero(tests.kind == "residual")[0])
+    st_i = int(np.flatnonzero((tests.kind == "static") & (tests.test == 3))[0])
+    stat_of_res = int(np.flatnonzero((tests.kind == "static") & (tests.test == tests.test[res_i])
+                                     & (tests.node == tests.node[res_i]))[0])
+    tests.pressure[res_i] = tests.pressure[stat_of_res] + 2 * units.PSI
+    tests.pressure[st_i] += 15 * units.PSI
+    res = fit(net, tests, grouping=grp, prior="none", solver=solver)
+    assert res.flag[res_i].startswith("residual") and "above static" in res.flag[res_i]
+    assert res.flag[st_i].startswith("static grade") and "above the highest source grade" in res.flag[st_i]
+    assert not res.estimate.used[res_i] and not res.estimate.used[st_i]
+    assert np.all((res.c_low <= TRUTH) & (TRUTH <= res.c_high))

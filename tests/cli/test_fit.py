@@ -39,7 +39,9 @@ def test_demo_fit_recovers_the_demo_truth_and_flags_the_planted_reading(demo_run
     # check, readings solved with these C and 1 psi of noise
     code, out, _, _ = demo_run
     truth = json.loads((TESTS / "truth.json").read_text())
-    groups = pd.read_csv(out / "groups.csv").set_index("group")
+    groups = pd.read_csv(out / "groups.csv")
+    assert list(groups.columns[:5]) == ["group", "c_factor", "c_low", "c_high", "n_pipes"]
+    groups = groups.set_index("group")
     for name, c in truth["c_factor"].items():
         row = groups.loc[name]
         assert row["c_low"] <= c <= row["c_high"], (name, c, row["c_low"], row["c_high"])
