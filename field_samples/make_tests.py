@@ -109,7 +109,9 @@ def main() -> None:
             pred = predict_test(net, flows, [str(net.node_ids[g]) for g in near], roughness=true_c,
                                 source_head=heads)
             # the two nearby hydrants that see the largest drop become the gauges
-            best = np.argsort([-(r.static - r.residual) for r in pred])[:2]
+            # (drops rounded to 0.01 psi, ties to the nearer: stable against solver round-off)
+            best = np.argsort([-round((r.static - r.residual) / units.PSI, 2) for r in pred],
+                              kind="stable")[:2]
             gauges = [near[i] for i in sorted(best)]
             pred = [pred[i] for i in sorted(best)]
             gh = GAUGE_HEIGHT_FT * units.FT * units.GAMMA_WATER
