@@ -17,6 +17,7 @@ class SetupScreen(FieldScreen):
     sizes = ListProperty(OUTLET_SIZES["us"])
     diameter_unit = StringProperty("in")
     length_unit = StringProperty("ft")
+    sources = ListProperty([])
 
     def refresh(self):
         if not self.tid:
@@ -26,6 +27,7 @@ class SetupScreen(FieldScreen):
         self.sizes = OUTLET_SIZES[self.service.system]
         self.diameter_unit = self.service.unit_of("diameter")
         self.length_unit = self.service.unit_of("gauge_height")
+        self.sources = self.service.sources()
 
     def pick(self, hydrant):
         self.picked = hydrant
@@ -49,3 +51,6 @@ class SetupScreen(FieldScreen):
 
     def set_height(self, text):
         self.show(self.service.set_gauge_height(self.tid, text))
+
+    def set_grade(self, source, text):
+        self.show(self.service.set_source_grade(self.tid, source, text))

@@ -78,6 +78,7 @@ class CheckJob:
     observed: dict  # gauge id -> (static, residual) at the node [Pa]
     system: str
     tol: float
+    source_head: dict = field(default_factory=dict)  # source id -> grade noted at the test [m]
 
 
 def prepare(service, tid: str, tol: float = TOLERANCE) -> CheckJob | CheckResult:
@@ -103,7 +104,8 @@ def prepare(service, tid: str, tol: float = TOLERANCE) -> CheckJob | CheckResult
     lift = GAMMA_WATER * (header.get("gauge_height") or {}).get("si", 0.0)
     observed = {g: (readings[f"static@{g}"].si_value + lift, readings[f"residual@{g}"].si_value + lift)
                 for g in gauges}
-    return CheckJob(area.network, flows, gauges, observed, service.system, tol)
+    grades = {b["source"]: b["si"] for b in header.get("boundary", [])}
+    return CheckJob(area.network, flows, gauges, observed, service.system, tol, grades)
 
 
 def run_job(job: CheckJob) -> CheckResult:
@@ -113,7 +115,8 @@ def run_job(job: CheckJob) -> CheckResult:
     except ImportError:
         return CheckResult(False, "The model check is not available in this build")
     try:
-        predicted = predict_test(job.network, flows=job.flows, gauges=job.gauges)
+        predicted = predict_test(job.network, flows=job.flows, gauges=job.gauges,
+                                 source_head=job.source_head or None)
     except (CalibError, KeyError, ValueError) as exc:
         return CheckResult(False, f"The model could not simulate this test: {exc}")
     out = []

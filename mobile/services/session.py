@@ -187,6 +187,27 @@ class TestService:
             "gauge_height", {"si": si, "unit": unit, "text": str(text)}),
             f"Gauge height {values.fmt(si, 'length', self.system)}", si)
 
+    def sources(self) -> list[str]:
+        """Ids of the area's fixed-grade sources (reservoirs, tanks); empty without a network."""
+        net = self.area.network
+        return [] if net is None else [str(s) for s in net.source_ids]
+
+    def set_source_grade(self, tid: str, source: str, text: str) -> Outcome:
+        """Record a source's grade at the time of the test (e.g. the tank level from the operator)."""
+        if source not in self.sources():
+            return Outcome(False, f"'{source}' is not a source of the area"
+                                  + (f" (expected one of {', '.join(self.sources())})" if self.sources()
+                                     else ": load the area's network first"))
+        try:
+            si, unit = values.parse_value(text, "source_grade", self.system)
+        except InputError as exc:
+            return Outcome(False, _first_message(exc))
+
+        def change(h):
+            kept = [b for b in h.get("boundary", []) if b["source"] != source]
+            h["boundary"] = kept + [{"source": source, "si": si, "unit": unit, "text": str(text)}]
+        return self._edit(tid, change, f"Grade of {source}: {values.fmt(si, 'length', self.system)}", si)
+
     # --- readings ----------------------------------------------------------------------------
     def slots(self, tid: str) -> list[tuple[str, str, str]]:
         """The readings a test asks for: (slot, field, label), in the order a crew reads them."""

@@ -58,6 +58,8 @@ FIELDS = {
     "diameter": FieldSpec("diameter", "diameter", 1.0 * IN, 8.0 * IN, "outlet diameter"),
     "gauge_height": FieldSpec("gauge_height", "length", -20 * FT, 30 * FT, "gauge height"),
     "target": FieldSpec("target", "pressure", 5 * P, 100 * P, "target residual"),
+    # A source's hydraulic grade (tank water level as an elevation), as the calibration reader takes it.
+    "source_grade": FieldSpec("source_grade", "length", -500.0, 3000.0, "source grade"),
 }
 
 

@@ -15,7 +15,7 @@ EMPTY_RESULTS = {"flow": "-", "rated": "-", "rated_label": "Flow at the target r
                  "klass_colour": "", "static": "-", "residual": "-", "gauge": "", "findings": "",
                  "missing": [], "complete": False, "class_note": ""}
 EMPTY_SETUP = {"test_id": "", "started": "", "crew": "", "weather": "", "notes": "", "gauges": [],
-               "outlets": [], "gauge_height": "", "area": ""}
+               "outlets": [], "gauge_height": "", "area": "", "boundary": ""}
 
 
 def results_view(service, tid: str, revision: int | None = None) -> dict:
@@ -67,7 +67,9 @@ def setup_view(service, tid: str) -> dict:
             "crew": h.get("crew", ""), "weather": h.get("weather", ""), "notes": h.get("notes", ""),
             "gauges": list(h["gauges"]), "outlets": outlets,
             "gauge_height": values.fmt(gh["si"], "length", sys_) if gh else values.fmt(0.0, "length", sys_),
-            "area": h.get("area", "")}
+            "area": h.get("area", ""),
+            "boundary": "   ".join(f"{b['source']} {values.fmt(b['si'], 'length', sys_)}"
+                                   for b in h.get("boundary", [])) or "none noted"}
 
 
 def checklist_rows(service, tid: str) -> list[dict]:

@@ -83,3 +83,18 @@ def test_without_a_network_the_check_says_so(store):
     tid = service.new_test(crew="X")
     result = check.check_test(service, tid)
     assert not result.ok and "No network" in result.message
+
+
+def test_noted_source_grade_moves_the_prediction_by_the_same_head(service, area):
+    """One fixed-grade source and fixed demands: raising its grade by dh raises every head by dh
+    (closed form: flows do not change), so every predicted pressure rises by gamma * dh."""
+    tid = _readings_from_model(service, area)
+    before = check.check_test(service, tid).gauges[0]
+    source = service.sources()[0]
+    grade = area.network.source_head[0] / FT + 20.0
+    assert service.set_source_grade(tid, source, f"{grade:.6f}").ok
+    after = check.check_test(service, tid).gauges[0]
+    rise = GAMMA_WATER * 20.0 * FT
+    assert after.predicted_static - before.predicted_static == pytest.approx(rise, rel=1e-6)
+    assert after.predicted_residual - before.predicted_residual == pytest.approx(rise, rel=1e-6)
+    assert after.suspect and "gauge height" in after.advice[0]  # 8.7 psi below on both readings

@@ -191,3 +191,17 @@ def test_display_formatting_of_units():
     assert values.fmt(72 * PSI, "pressure") == "72.0 psi"
     assert values.fmt(72 * PSI, "pressure", "si") == "496 kPa"  # 72 psi = 496.42 kPa (NIST SP 811)
     assert values.fmt(None, "flow") == "-"
+
+
+def test_source_grade_goes_to_boundary_csv_and_the_reader(service, area, tmp_path):
+    tid = _whole_test(service)
+    source = service.sources()[0]
+    assert not service.set_source_grade(tid, "NOT-A-SOURCE", "250").ok
+    assert not service.set_source_grade(tid, source, "abc").ok
+    assert service.set_source_grade(tid, source, "265.5").ok  # ft
+    service.finish(tid)
+    export.export_tests(service, tmp_path / "out")
+    ts = read_tests(tmp_path / "out", area.network)
+    (node, head), = ts.source_head[0].items()
+    assert area.network.node_ids[node] == source
+    assert head == pytest.approx(265.5 * 0.3048, rel=1e-6)  # 1 ft = 0.3048 m exactly (NIST SP 811)
