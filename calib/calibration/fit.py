@@ -409,6 +409,12 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
         findings.append(f"{int(gross.sum())} reading(s) beyond the threshold were left out one at a "
                         f"time and the fit repeated; C moved by up to {moved.max():.1f} between the fit "
                         "with every reading and the result (both are in groups.csv).")
+    on_flowing = sorted({(int(t), int(nd)) for t, nd, k in zip(tests.test, tests.node, tests.kind)
+                         if k == "residual" and int(nd) in tests.flows[int(t)]})
+    for t, nd in on_flowing:
+        findings.append(f"Test {tests.test_ids[t]}: the gauge at {network.node_ids[nd]} is on a flowing "
+                        "hydrant; its residual includes the loss in the hydrant lateral, which the "
+                        "model does not hold (common practice: gauge a neighbouring hydrant).")
     for i, reason in face.items():
         findings.append(f"Reading {tests.test_ids[tests.test[i]]} / {network.node_ids[tests.node[i]]} "
                         f"({tests.kind[i]}) fails a face check: {reason}; left out.")
