@@ -24,7 +24,7 @@ from scipy.sparse.csgraph import connected_components
 
 from calib.errors import ConvergenceError, InputError, NetworkError, Problem
 from calib.hydraulics import headloss as hl
-from calib.hydraulics import sensitivity
+from calib.hydraulics import checks, sensitivity
 from calib.hydraulics.assembly import SchurPattern
 from calib.hydraulics.result import SolveResult
 from calib.hydraulics.snapshot import Snapshot, resolve
@@ -93,38 +93,20 @@ class NetworkSolver:
         self.pump_n = np.asarray(pumps.curve_n, dtype=float)
         self._graph_rows = np.concatenate([self.link_from, self.link_to])
         self._graph_cols = np.concatenate([self.link_to, self.link_from])
+        self._check_geometry()
         if headloss == "darcy-weisbach":
             self._check_roughness_height(net.roughness_height)
 
-    # --- set-up ------------------------------------------------------------------------------
+    # --- set-up (front-door checks in ``calib.hydraulics.checks``) ---------------------------
+    def _check_geometry(self):
+        checks.check_geometry(self.network, self.link_from, self.link_to)
+
     def _check_roughness_height(self, e):
-        bad = ~(np.isfinite(e) & (e >= 0))
-        if bad.any():
-            ids = [str(i) for i in self.network.pipe_ids[bad]]
-            shown = ", ".join(ids[:20]) + (f" and {len(ids) - 20} more" if len(ids) > 20 else "")
-            raise InputError(Problem(
-                f"Darcy-Weisbach needs the absolute roughness of every pipe; missing or invalid "
-                f"for {len(ids)} pipe(s): {shown}", field="roughness_height",
-                expected="a height in m >= 0, e.g. 0.00026 for cast iron, 1.5e-6 for PVC"))
+        checks.check_roughness_height(self.network, e)
 
     def _params(self, roughness):
         """Per-pipe coefficient of the head-loss law: HW resistance r, or DW roughness height."""
-        net = self.network
-        if roughness is None:
-            roughness = net.roughness if self.headloss == "hazen-williams" else net.roughness_height
-        roughness = np.asarray(roughness, dtype=float)
-        if roughness.shape != (self.np_,):
-            raise InputError(f"roughness has shape {roughness.shape}, expected ({self.np_},)",
-                             field="roughness", expected="one value per pipe")
-        if self.headloss == "hazen-williams":
-            bad = ~(np.isfinite(roughness) & (roughness > 0))
-            if bad.any():
-                ids = ", ".join(str(i) for i in net.pipe_ids[bad][:20])
-                raise InputError(f"Hazen-Williams C not a positive number for pipe(s) {ids}",
-                                 field="roughness", expected="C between 1 and 200")
-            return roughness, hl.hazen_williams_resistance(net.length, net.diameter, roughness)
-        self._check_roughness_height(roughness)
-        return roughness, roughness
+        return checks.roughness_parameters(self.network, self.headloss, roughness)
 
     # --- the link laws -----------------------------------------------------------------------
     def _laws(self, q, coef):

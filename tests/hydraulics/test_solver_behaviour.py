@@ -317,3 +317,13 @@ def test_random_networks_with_valves_satisfy_the_valve_conditions(make_random, s
     inflow = (np.bincount(net.pipe_to, res.flow, net.n_nodes)
               - np.bincount(net.pipe_from, res.flow, net.n_nodes))[: net.n_junctions]
     assert np.abs(inflow - demand).max() <= 1e-6 * demand.sum()
+
+
+def test_unusable_geometry_is_refused_before_iterating(make):
+    net = make([("J", 0.0, 0.01)], [("R", 50.0)],
+               [("P1", "R", "J", 0.0, 0.2, 100.0), ("P2", "R", "J", 100.0, np.nan, 100.0),
+                ("P3", "R", "J", 100.0, 0.2, 100.0)])
+    with pytest.raises(InputError) as info:
+        NetworkSolver(net)
+    text = str(info.value)
+    assert "2 problems" in text and "P1" in text and "P2" in text and "P3" not in text
