@@ -5,16 +5,11 @@ Method (published names kept):
   weights 1/sigma per reading, an optional robust loss (``soft_l1``, ``huber``); C bounded (40-160 by
   default). Weighted least squares over several loadings after Lansey and Basnet (1991), J. Water
   Resour. Plann. Manage. 117(1).
-- Covariance ``Cov = s^2 (J^T W J)^-1`` (Bard 1974, *Nonlinear Parameter Estimation*) from the final
-  analytic Jacobian through an SVD pseudo-inverse that cuts singular values below
-  ``eps * max(m, n) * s_max`` (as ``scipy.optimize.curve_fit`` does); a parameter with a part in the cut
-  space is *undetermined* (infinite interval), never given a narrow one. ``s^2 = 1`` (the stated sigma)
-  unless a chi-square test of the weighted sum of squares S on n - p degrees of freedom rejects it at
-  the 5 % level on the high side; then ``s^2 = S / (n - p)``. 95 % intervals ``theta +/- t(0.975, n-p)
-  sqrt(Cov_ii)``.
+- Intervals, the variance factor and undetermined parameters: ``estimate.py``.
 - A gross error must not drag the others: readings flagged by the face checks are left out from the
-  start; readings whose standardized residual exceeds the threshold after a first fit are left out of a
-  second fit; both fits are reported and the second is the result.
+  start; then one reading at a time whose standardized residual exceeds the threshold (of the three
+  largest, the one whose refit fits the rest best, when that removes a gross misfit) is left out and the
+  fit repeated; both fits are reported and the last is the result.
 """
 
 from __future__ import annotations
@@ -23,41 +18,18 @@ import datetime as _dt
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import optimize, stats
+from scipy import optimize
 
 from calib import units
 from calib.calibration import criteria as _criteria
 from calib.calibration import flags as _flags
 from calib.calibration.groups import Grouping, make_groups
 from calib.calibration.priors import GroupPrior, group_prior
+from calib.calibration.estimate import Estimate, estimate
 from calib.calibration.problem import CalibrationProblem
 from calib.errors import CalibrationError, InputError
 
 LOSSES = ("linear", "soft_l1", "huber", "cauchy")
-
-
-@dataclass
-class Estimate:
-    """One least-squares solution with its covariance."""
-
-    x: np.ndarray
-    sd: np.ndarray  # inf where undetermined
-    low: np.ndarray
-    high: np.ndarray
-    cov: np.ndarray
-    undetermined: np.ndarray  # bool
-    at_bound: np.ndarray  # bool
-    s2: float  # variance factor used (1.0 = stated sigma)
-    scaled: bool
-    chi2: float  # weighted sum of squares S
-    dof: int
-    chi2_p: float
-    t: float
-    nfev: int
-    message: str
-    jac: np.ndarray  # weighted Jacobian at x (readings then prior rows)
-    residual: np.ndarray  # weighted residuals at x
-    used: np.ndarray  # bool over all readings
 
 
 @dataclass
@@ -119,58 +91,6 @@ class FitResult:
     def residual(self) -> np.ndarray:
         """Observed minus simulated gauge pressure per reading [Pa]."""
         return self.tests.pressure - self.simulated
-
-
-def covariance(J: np.ndarray, rcond: float | None = None):
-    """Pseudo-inverse of ``J^T J`` by SVD, and which parameters the cut singular values leave undetermined.
-
-    Returns ``(cov, undetermined)``; variances of undetermined parameters are set to inf.
-    """
-    J = np.asarray(J, float)
-    p = J.shape[1]
-    if J.shape[0] == 0 or not np.any(J):
-        return np.full((p, p), np.inf), np.ones(p, dtype=bool)
-    _, s, vt = np.linalg.svd(J, full_matrices=False)
-    cut = (np.finfo(float).eps * max(J.shape) if rcond is None else rcond) * s[0]
-    keep = s > cut
-    vk = vt[keep]
-    cov = (vk.T / s[keep] ** 2) @ vk
-    # theta_i has a finite variance only when e_i lies in the row space kept: |V_k^T e_i|^2 = 1
-    undetermined = 1.0 - np.sum(vk ** 2, axis=0) > 1e-6
-    cov[undetermined, :] = np.nan
-    cov[:, undetermined] = np.nan
-    cov[undetermined, undetermined] = np.inf
-    return cov, undetermined
-
-
-def _estimate(problem: CalibrationProblem, x0, loss, f_scale, max_nfev, used) -> Estimate:
-    sol = optimize.least_squares(problem.residuals, x0, jac=problem.jacobian,
-                                 bounds=(problem.lower, problem.upper), method="trf", loss=loss,
-                                 f_scale=f_scale, x_scale="jac", max_nfev=max_nfev,
-                                 xtol=1e-8, ftol=1e-8, gtol=1e-8)
-    x = sol.x
-    r = problem.residuals(x)
-    J = problem.jacobian(x)
-    cov1, undetermined = covariance(J)
-    n_rows, p = J.shape
-    # prior rows are observations too (of the parameters), so they count in n
-    dof = int(n_rows - p)
-    S = float(r @ r)
-    if dof > 0:
-        chi2_p = float(stats.chi2.sf(S, dof))
-        scaled = chi2_p < 0.05
-        s2 = S / dof if scaled else 1.0
-        t = float(stats.t.ppf(0.975, dof))
-    else:
-        chi2_p, scaled, s2, t = float("nan"), False, 1.0, float(stats.norm.ppf(0.975))
-    cov = cov1 * s2
-    sd = np.sqrt(np.where(np.isfinite(np.diag(cov)), np.diag(cov), np.inf))
-    sd[undetermined] = np.inf
-    tol = 1e-6 * np.maximum(1.0, np.abs(problem.upper - problem.lower))
-    at_bound = (x - problem.lower < tol) | (problem.upper - x < tol)
-    return Estimate(x=x, sd=sd, low=x - t * sd, high=x + t * sd, cov=cov, undetermined=undetermined,
-                    at_bound=at_bound, s2=s2, scaled=scaled, chi2=S, dof=dof, chi2_p=chi2_p, t=t,
-                    nfev=int(sol.nfev), message=str(sol.message), jac=J, residual=r, used=used)
 
 
 def _resolve_prior(prior, network, grouping, tests, year):
@@ -253,7 +173,7 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
 
     count["stage"] = "fit"
     prob = make(used0)
-    est = _estimate(prob, prob.x0, loss, f_scale, max_nfev, used0)
+    est = estimate(prob, prob.x0, loss, f_scale, max_nfev, used0)
     first = None
     z_used, cook_used = _diagnostics(est, prob)
     gross = np.zeros(n, dtype=bool)
@@ -277,7 +197,7 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
             used1 = est.used.copy()
             used1[idx[k]] = False
             pk = make(used1, x0=est.x)
-            ek = _estimate(pk, est.x, loss, f_scale, max_nfev, used1)
+            ek = estimate(pk, est.x, loss, f_scale, max_nfev, used1)
             if best is None or ek.chi2 < best[2].chi2:
                 best = (k, pk, ek)
         k, pk, new_est = best

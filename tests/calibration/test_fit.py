@@ -5,7 +5,7 @@ import pytest
 
 from calib import units
 from calib.calibration import fit, read_tests
-from calib.calibration.fit import covariance
+from calib.calibration.estimate import covariance
 from calib.calibration.groups import make_groups
 from calib.calibration.priors import GroupPrior
 from calib.calibration.synthetic import (grid_network, plan_tests, synthetic_tests,
