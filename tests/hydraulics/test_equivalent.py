@@ -59,3 +59,36 @@ def test_bad_resistances_are_refused(bad):
         series_resistance(bad)
     with pytest.raises(ValueError):
         parallel_resistance(bad)
+
+
+# --- property-based: any chain or bundle of pipes (hypothesis) ---------------------------------
+from hypothesis import HealthCheck, given, settings  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+
+_pipe = st.tuples(st.floats(10.0, 3000.0), st.sampled_from([0.1, 0.15, 0.2, 0.3, 0.6]),
+                  st.floats(40.0, 150.0))
+
+
+@settings(max_examples=40, deadline=None,  # `make` is a pure builder: safe to share
+          suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(segments=st.lists(_pipe, min_size=1, max_size=6), drop=st.floats(0.5, 60.0))
+def test_any_series_chain_matches_its_equivalent_pipe(make, segments, drop):
+    # equivalent-pipe method (series): Q = (dH / sum K_i)^(1/1.852) for any chain
+    n = len(segments)
+    junctions = [(f"J{i}", 0.0, 0.0) for i in range(1, n)]
+    nodes = ["A"] + [j[0] for j in junctions] + ["B"]
+    pipes = [(f"P{i}", nodes[i], nodes[i + 1], *seg) for i, seg in enumerate(segments)]
+    res = NetworkSolver(make(junctions, [("A", 100.0), ("B", 100.0 - drop)], pipes)).solve()
+    k_eq = series_resistance([hazen_williams_resistance(*seg) for seg in segments])
+    np.testing.assert_allclose(res.flow, (drop / k_eq) ** (1 / 1.852), rtol=1e-8)
+
+
+@settings(max_examples=40, deadline=None,  # `make` is a pure builder: safe to share
+          suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(branches=st.lists(_pipe, min_size=1, max_size=6), drop=st.floats(0.5, 60.0))
+def test_any_parallel_bundle_matches_its_equivalent_pipe(make, branches, drop):
+    # equivalent-pipe method (parallel): total Q = (dH / K_eq)^(1/1.852)
+    pipes = [(f"P{i}", "A", "B", *b) for i, b in enumerate(branches)]
+    res = NetworkSolver(make([], [("A", 100.0), ("B", 100.0 - drop)], pipes)).solve()
+    k_eq = parallel_resistance([hazen_williams_resistance(*b) for b in branches])
+    assert res.flow.sum() == pytest.approx((drop / k_eq) ** (1 / 1.852), rel=1e-10)
