@@ -226,8 +226,8 @@ class NetworkSolver:
             if (it > 0 and not changed and dq_max <= self.flow_tol * q_ref
                     and dh_max <= self.head_tol and e1 <= self.energy_tol and e2 <= mass_tol):
                 self._demand = demand
-                self._check_held(q, active, dynamic)
                 self._check_frozen(q, H, active, dynamic, flips)
+                self._check_held(q, active, dynamic)
                 return self._result(resolved, rough, coef, q, H, h, grad, active, isolated,
                                     it, e1, e2)
             if it == self.max_iterations:

@@ -327,3 +327,13 @@ def test_unusable_geometry_is_refused_before_iterating(make):
         NetworkSolver(net)
     text = str(info.value)
     assert "2 problems" in text and "P1" in text and "P2" in text and "P3" not in text
+
+
+def test_a_frozen_status_that_contradicts_the_solution_is_an_error(make):
+    # guard against cycling: with no flips allowed the valve stays open against the flow; the
+    # solver must say so instead of returning reverse flow through a check valve
+    pipes = [("CV", "B", "A", 800.0, 0.25, 110.0)]
+    net = make([], [("A", 70.0), ("B", 52.0)], pipes, status=[PipeStatus.CHECK_VALVE])
+    with pytest.raises(ConvergenceError, match="CV") as info:
+        NetworkSolver(net, max_status_changes=0).solve()
+    assert info.value.worst_links == ["CV"]
