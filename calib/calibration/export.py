@@ -58,7 +58,7 @@ def other_parameters_frame(result) -> pd.DataFrame:
     """Demand factors and source grade offsets, when fitted (empty frame otherwise)."""
     est = result.estimate
     rows = [{"parameter": p.name, "value": round(float(est.x[i]), 4), "low": round(float(est.low[i]), 4),
-             "high": round(float(est.high[i]), 4), "unit": "-" if p.kind == "demand" else "m"}
+             "high": round(float(est.high[i]), 4), "unit": "[-]" if p.kind == "demand" else "[m]"}
             for i, p in enumerate(result.params) if p.kind != "c"]
     return pd.DataFrame(rows, columns=["parameter", "value", "low", "high", "unit"])
 
