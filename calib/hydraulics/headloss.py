@@ -205,8 +205,9 @@ def darcy_friction_factor(re, relative_roughness):
         dh01, dh11 = (-6 * t**2 + 6 * t) / span, (3 * t**2 - 2 * t)
         f_tr = h00 * f0 + h10 * span * d0 + h01 * ft + h11 * span * dft
         df_tr = dh00 * f0 + dh10 * d0 + dh01 * ft + dh11 * dft
-        # dependence on roughness in the transition comes through the Colebrook end point only
-        # (its value and its slope; the slope's own eps-dependence is neglected, a second-order term)
+        # roughness acts in the transition through the Colebrook end value only; the change of the
+        # end slope with roughness is left out (approximate dh/de there; the transition is a
+        # smoothing device, and roughness barely matters at Re 2000-4000)
         dfe_tr = h01 * dfe
         f[turb] = np.where(full, ft, f_tr)
         df_dre[turb] = np.where(full, dft, df_tr)

@@ -81,6 +81,9 @@ class NetworkSolver:
         self.link_from = np.concatenate([net.pipe_from, np.asarray(net.pumps.from_node, np.int64)])
         self.link_to = np.concatenate([net.pipe_to, np.asarray(net.pumps.to_node, np.int64)])
         self.link_ids = np.concatenate([net.pipe_ids, np.asarray(net.pumps.ids, dtype=object)])
+        self._check_geometry()
+        if headloss == "darcy-weisbach":
+            self._check_roughness_height(net.roughness_height)
         self.pattern = SchurPattern(self.nj, self.link_from, self.link_to, net.n_nodes, dense=dense)
         self.area = np.pi * net.diameter ** 2 / 4.0
         self.minor = hl.minor_loss_coefficient(net.minor_loss, net.diameter)
@@ -93,9 +96,6 @@ class NetworkSolver:
         self.pump_n = np.asarray(pumps.curve_n, dtype=float)
         self._graph_rows = np.concatenate([self.link_from, self.link_to])
         self._graph_cols = np.concatenate([self.link_to, self.link_from])
-        self._check_geometry()
-        if headloss == "darcy-weisbach":
-            self._check_roughness_height(net.roughness_height)
 
     # --- set-up (front-door checks in ``calib.hydraulics.checks``) ---------------------------
     def _check_geometry(self):
@@ -126,8 +126,10 @@ class NetworkSolver:
         return h, g
 
     def _pump_law(self, q):
-        """Pump as a link with head loss ``-gain``; gain ``s^2 h0 - r s^(2-n) q^n`` (affinity laws),
-        continued linearly (value and slope) below q_eps so the slope stays positive."""
+        """Pump as a link with head loss ``-gain`` [m]; gain ``s^2 h0 - r s^(2-n) q^n`` for flow q
+        [m3/s] at relative speed s: the curve ``h0 - r q^n`` moved by the affinity laws
+        (q ~ s, h ~ s^2; e.g. Karassik et al., Pump Handbook, from memory). Continued linearly
+        (value and slope) below q_eps so the slope stays positive."""
         s = np.where(self.speed > 0, self.speed, 1.0)
         n, r = self.pump_n, self.pump_r
         coef = r * s ** (2.0 - n)
