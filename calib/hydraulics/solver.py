@@ -227,9 +227,8 @@ class NetworkSolver:
             self.trace.append((dq_max / q_ref, dh_max, e1, e2))
             if (it > 0 and not changed and dq_max <= self.flow_tol * q_ref
                     and dh_max <= self.head_tol and e1 <= self.energy_tol and e2 <= mass_tol):
-                self._demand = demand
                 self._check_frozen(q, H, active, dynamic, flips)
-                self._check_held(q, active, dynamic)
+                self._check_held(q, active, dynamic, demand)
                 return self._result(resolved, rough, coef, q, H, h, grad, active, isolated,
                                     it, e1, e2)
             if it == self.max_iterations:
@@ -320,14 +319,14 @@ class NetworkSolver:
             flips[can_close | can_open] += 1
         return changed, new, q, isolated
 
-    def _check_held(self, q, active, dynamic):
+    def _check_held(self, q, active, dynamic, demand):
         """At the solution no open check valve or running pump may carry reverse flow: one that
         does was held open because closing it cuts off junctions with demand."""
         bad = dynamic & active & (q < -self.q_eps)
         if bad.any():
             links = [str(i) for i in self.link_ids[bad][:20]]
             new = active & ~bad
-            cut = self._reachable(new) & (np.abs(self._demand) > 0)
+            cut = self._reachable(new) & (np.abs(demand) > 0)
             nodes = [str(i) for i in self.network.node_ids[: self.nj][cut][:20]]
             raise NetworkError(Problem(
                 f"check valve(s) or pump(s) {', '.join(links)} would close against the flow and cut "
