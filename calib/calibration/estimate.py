@@ -87,7 +87,8 @@ def estimate(problem, x0, loss, f_scale, max_nfev, used) -> Estimate:
     sd = np.sqrt(np.where(np.isfinite(np.diag(cov)), np.diag(cov), np.inf))
     sd[undetermined] = np.inf
     tol = 1e-6 * np.maximum(1.0, np.abs(problem.upper - problem.lower))
-    at_bound = (x - problem.lower < tol) | (problem.upper - x < tol)
+    at_bound = ((np.asarray(sol.active_mask) != 0) | (x - problem.lower < tol)
+                | (problem.upper - x < tol))
     return Estimate(x=x, sd=sd, low=x - t * sd, high=x + t * sd, cov=cov, undetermined=undetermined,
                     at_bound=at_bound, s2=s2, scaled=scaled, chi2=S, dof=dof, chi2_p=chi2_p, t=t,
                     nfev=int(sol.nfev), message=str(sol.message), jac=J, residual=r, used=used)
