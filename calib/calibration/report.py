@@ -185,7 +185,7 @@ def render(result, system: str = "us", curves: bool = True) -> str:
         rows.append([r["group"], _fmt(r["c_factor"]), f"{_fmt(r['c_low'])} - {_fmt(r['c_high'])}",
                      int(r["n_pipes"]), _fmt(r["model_c"]),
                      "-" if result.prior is None else f"{r['prior_c']:.0f} +/- {r['prior_spread']:.0f}",
-                     r["status"] + (f" ({r['informed']:.0%})" if result.prior is not None else ""),
+                     r["status"] + (f" ({result.informed[i]:.0%})" if result.prior is not None else ""),
                      _fmt(r["c_all_readings"]) if "c_all_readings" in gf else "-"])
     parts.append(_table(["group", "C", "95 % interval", "pipes", "model C before", "prior (1 sd)",
                          "informed by the tests", "C with every reading"], rows))
