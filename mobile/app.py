@@ -172,6 +172,8 @@ class HydrantFieldApp(App):
                                          f"{len(self.store.history(tid))}.png"
         if path.exists():
             return str(path)
+        for old in path.parent.glob(f"{tid}-r*.png"):  # earlier states of this test
+            old.unlink(missing_ok=True)
         return str(path) if curve.render_curve(self.service.results(tid), path,
                                                self.service.system) else ""
 

@@ -10,9 +10,12 @@ class HomeScreen(FieldScreen):
     rows = ListProperty([])
     when = StringProperty("today")
     area_text = StringProperty("")
+    areas = ListProperty([views.ALL_AREAS])
 
     def refresh(self):
-        self.rows = views.test_rows(self.service, self.when, self.ids.search.text)
+        self.areas = [views.ALL_AREAS] + self.service.areas()
+        self.rows = views.test_rows(self.service, self.when, self.ids.search.text,
+                                    self.ids.area.text)
         self.area_text = self.app.area_summary()
 
     def set_when(self, when):

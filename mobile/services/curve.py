@@ -51,9 +51,13 @@ def render_curve(results, path, system: str = "us", width_px: int = 820, height_
     ax.plot(flowtest.n185(q), p, color="black", lw=4, solid_capstyle="round")
     ax.plot([0, flowtest.n185(qf), flowtest.n185(qr)], [ps, pr, pt], "o", ms=14, color="#0046ad", mec="black", mew=2)
     ax.axhline(pt, color="#b00020", lw=2.5, ls="--")
-    ax.annotate(f"test {qf:,.0f} {uq}\nat {pr:.1f} {up}", (flowtest.n185(qf), pr), textcoords="offset points",
+    test_text = (f"test {values.fmt(results.flow, 'flow', system)}\n"
+                 f"at {values.fmt(results.residual, 'pressure', system)}")
+    rated_text = (f"{values.fmt(results.rated_flow, 'flow', system)} at "
+                  f"{values.fmt(results.target, 'pressure', system)}")
+    ax.annotate(test_text, (flowtest.n185(qf), pr), textcoords="offset points",
                 xytext=(14, 10), fontsize=21, fontweight="bold")
-    ax.annotate(f"{qr:,.0f} {uq} at {pt:.0f} {up}", (flowtest.n185(qr), pt), textcoords="offset points",
+    ax.annotate(rated_text, (flowtest.n185(qr), pt), textcoords="offset points",
                 xytext=(-10, 14), ha="right", fontsize=21, fontweight="bold", color="#b00020")
     ax.set_xticks(flowtest.n185(ticks))
     ax.set_xticklabels([f"{t:,.0f}" if t > 0 else "" for t in ticks], fontsize=18)

@@ -124,11 +124,12 @@ def log_demo_tests(service, area: Area) -> list[str]:
             service.tick(tid, key, True)
         service.set_gauges(tid, [gauge])
         for h in flowing:
-            service.add_outlet(tid, h, diameter_text="2.5", shape="smooth")
-        service.enter(tid, f"static@{gauge}", static)
-        service.enter(tid, f"residual@{gauge}", residual)
+            service.add_outlet(tid, h, diameter_text="2.5 in", shape="smooth")
+        # Typed with their units, so the demo is the same whichever units the settings show.
+        service.enter(tid, f"static@{gauge}", f"{static} psi")
+        service.enter(tid, f"residual@{gauge}", f"{residual} psi")
         for outlet, pitot in zip(service.outlets(tid), pitots):
-            service.enter(tid, f"pitot@{outlet['uid']}", pitot)
+            service.enter(tid, f"pitot@{outlet['uid']}", f"{pitot} psi")
         service.finish(tid)
         made.append(tid)
     return made

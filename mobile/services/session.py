@@ -308,6 +308,10 @@ class TestService:
         return Outcome(True, f"Correcting {tid}: revision {rev}", value=rev)
 
     # --- lists -------------------------------------------------------------------------------
+    def areas(self) -> list[str]:
+        """Areas that tests were logged in, sorted (for the list's area filter)."""
+        return sorted({t.area for t in self.store.tests() if t.area})
+
     def list_tests(self, when: str = "all", area: str = "", hydrant: str = "") -> list[dict]:
         """Tests as rows for the home list: ``when`` 'today' (and all drafts) or 'all'; filter by area
         and hydrant."""

@@ -78,10 +78,14 @@ def checklist_rows(service, tid: str) -> list[dict]:
              "detail": i.detail, "ticked": bool(ticked.get(i.key))} for i in checklist.ITEMS]
 
 
-def test_rows(service, when: str = "all", hydrant: str = "") -> list[dict]:
+ALL_AREAS = "all areas"
+
+
+def test_rows(service, when: str = "all", hydrant: str = "", area: str = ALL_AREAS) -> list[dict]:
     """Rows of the home list, one line each, newest first."""
     out = []
-    for t in service.list_tests(when=when, hydrant=hydrant):
+    area = "" if area == ALL_AREAS else area
+    for t in service.list_tests(when=when, hydrant=hydrant, area=area):
         state = "DRAFT" if t["status"] == "draft" else "done"
         rev = f" rev {t['revision']}" if t["revision"] > 1 else ""
         line = (f"{t['test_id']}   {t['started_at'][11:16]}   {', '.join(t['hydrants'][:3])}")

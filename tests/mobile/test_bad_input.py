@@ -80,6 +80,12 @@ def test_setup_numbers_never_store_junk(ready, text):
     target = service.target
     if not service.set_target(text).ok:
         assert service.target == target
+    boundary = service.header(tid).get("boundary", [])
+    out = service.set_source_grade(tid, service.sources()[0], text)
+    if out.ok:
+        assert math.isfinite(service.header(tid)["boundary"][-1]["si"])
+    else:
+        assert service.header(tid).get("boundary", []) == boundary
 
 
 @FUZZ

@@ -205,3 +205,11 @@ def test_source_grade_goes_to_boundary_csv_and_the_reader(service, area, tmp_pat
     (node, head), = ts.source_head[0].items()
     assert area.network.node_ids[node] == source
     assert head == pytest.approx(265.5 * 0.3048, rel=1e-6)  # 1 ft = 0.3048 m exactly (NIST SP 811)
+
+
+def test_list_by_area(service, area):
+    tid = _whole_test(service)
+    other = service.new_test(crew="Y", area="Northfield")
+    assert service.areas() == ["Northfield", "Tallowmere"]
+    assert [r["test_id"] for r in service.list_tests(area="Northfield")] == [other]
+    assert [r["test_id"] for r in service.list_tests(area="Tallowmere")] == [tid]
