@@ -5,7 +5,8 @@
 For each grid of m x m junctions (about 2 m^2 pipes): random C, diameters, lengths, elevations and
 demands, two fixed-grade sources on opposite corners feeding a lattice of larger mains. Prints the
 median solve time, iterations, the floor measured in the same run (iterations x one sparse assemble +
-factorize + solve of the converged matrix) and the ratio of the two, then the time of solve_many on
+factorize + solve of the converged matrix, best of three, timed right after each solve so both see
+the same load) and the median of the per-repeat ratios, then the time of solve_many on
 20 snapshots (demand factors and a flowing hydrant). The data are invented; no real network.
 """
 
@@ -54,43 +55,42 @@ def square_grid(m: int, seed: int = 0) -> Network:
         name=f"grid-{m}")
 
 
-def floor_time(solver: NetworkSolver, result, repeats: int) -> float:
-    """Median time of one assemble + factorize + solve of the converged system [s]."""
+def floor_time(solver: NetworkSolver, result) -> float:
+    """Time of one assemble + factorize + solve of the converged system [s] (best of three)."""
     pat = solver.pattern
     w = np.where(result._active, 1.0 / result._grad, 0.0)
     rhs = np.random.default_rng(1).standard_normal(solver.nj)
     extra = result._isolated_mask.astype(float)
     times = []
-    for _ in range(repeats):
+    for _ in range(3):
         t0 = time.perf_counter()
         S = pat.assemble(w, extra)
         pat.factorize(S)(rhs)
         times.append(time.perf_counter() - t0)
-    return statistics.median(times)
+    return min(times)
+
+
+def timed_solves(solver: NetworkSolver, repeats: int):
+    """Solve and floor measured in turn, so both see the same load: (solve times, floors, result)."""
+    solves, floors, result = [], [], None
+    for _ in range(repeats):
+        t0 = time.perf_counter()
+        result = solver.solve()
+        solves.append(time.perf_counter() - t0)
+        floors.append(result.iterations * floor_time(solver, result))
+    return solves, floors, result
 
 
 def run(m: int, repeats: int) -> dict:
     net = square_grid(m)
+    # small grids solve in milliseconds: more repeats so the medians stand out of the noise
+    repeats = max(repeats, 50_000 // net.n_pipes)
     t0 = time.perf_counter()
     solver = NetworkSolver(net)
     setup = time.perf_counter() - t0
-    times, result = [], None
-    for _ in range(repeats):
-        t0 = time.perf_counter()
-        result = solver.solve()
-        times.append(time.perf_counter() - t0)
-    solve = statistics.median(times)
-    one = floor_time(solver, result, max(repeats, 5))
-    floor = result.iterations * one
+    solves, floors, result = timed_solves(solver, repeats)
     # the same solve with a factorization at every iteration (no CG reuse): the overhead alone
-    plain_solver = NetworkSolver(net, reuse_factor=False)
-    plain_times = []
-    for _ in range(repeats):
-        t0 = time.perf_counter()
-        plain = plain_solver.solve()
-        plain_times.append(time.perf_counter() - t0)
-    plain_t = statistics.median(plain_times)
-    plain_floor = plain.iterations * one
+    plain_solves, plain_floors, _ = timed_solves(NetworkSolver(net, reuse_factor=False), repeats)
     rng = np.random.default_rng(2)
     hydrants = rng.choice(net.n_junctions, 20)
     snaps = [Snapshot(demand_factor=0.8 + 0.02 * i,
@@ -99,9 +99,12 @@ def run(m: int, repeats: int) -> dict:
     t0 = time.perf_counter()
     many = solver.solve_many(snaps)
     t_many = time.perf_counter() - t0
-    return dict(pipes=net.n_pipes, junctions=net.n_junctions, setup=setup, solve=solve,
-                iterations=result.iterations, factorizations=result.factorizations, one=one,
-                floor=floor, ratio=solve / floor, plain=plain_t, plain_ratio=plain_t / plain_floor,
+    median = statistics.median
+    return dict(pipes=net.n_pipes, junctions=net.n_junctions, setup=setup, solve=median(solves),
+                iterations=result.iterations, factorizations=result.factorizations,
+                one=median(floors) / result.iterations, floor=median(floors),
+                ratio=median(np.divide(solves, floors)), plain=median(plain_solves),
+                plain_ratio=median(np.divide(plain_solves, plain_floors)),
                 many=t_many, many_iterations=statistics.mean(r.iterations for r in many),
                 mass=result.max_mass_error)
 
