@@ -222,3 +222,16 @@ def test_one_c_from_a_pipe_in_series_agrees_with_scipy_curve_fit():
     assert res.c[0] == pytest.approx(popt[0], rel=1e-4)
     assert not res.estimate.scaled  # this seed: the stated sigma holds, so both use it
     assert res.c_sd[0] == pytest.approx(np.sqrt(pcov[0, 0]), rel=1e-3)
+
+
+def test_gauge_height_recorded_15_ft_wrong_flags_both_readings_of_that_gauge(small):
+    # a gauge whose height was noted 15 ft off (6.5 psi of head on both its readings)
+    net, grp, plan, solver = small
+    tests = synthetic_tests(net, TRUTH[grp.index], plan, seed=29, solver=solver)
+    t, node = 2, tests.node[np.flatnonzero(tests.test == 2)[0]]
+    both = np.flatnonzero((tests.test == t) & (tests.node == node))
+    tests.gauge_height[both] = 15 * units.FT  # the readings were taken at the node, as generated
+    res = fit(net, tests, grouping=grp, prior="none", solver=solver)
+    assert all(res.flag[i] for i in both)
+    assert any(res.flag[i].startswith(("standardized", "static grade")) for i in both)
+    assert np.all((res.c_low <= TRUTH) & (TRUTH <= res.c_high))
