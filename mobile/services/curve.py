@@ -29,6 +29,19 @@ def _nice_ticks(top: float, n: int = 6) -> np.ndarray:
     return np.arange(0.0, top + 0.5 * step, step)
 
 
+def _tick_labels(ticks: np.ndarray, min_gap: float = 0.12) -> list[str]:
+    """Flow labels, leaving out those the N^1.85 scale crowds together near zero flow."""
+    x = np.asarray(flowtest.n185(ticks), dtype=float)
+    span, last, out = x[-1], None, []
+    for t, xi in zip(ticks, x):
+        if xi >= min_gap * span and (last is None or xi - last >= min_gap * span):
+            out.append(f"{t:,.0f}")
+            last = xi
+        else:
+            out.append("")
+    return out
+
+
 def render_curve(results, path, system: str = "us", width_px: int = 820, height_px: int = 640) -> bool:
     """Draw ``results`` (``mobile.services.compute.Results``) to the PNG ``path``; False if no curve."""
     if results.curve is None or results.rated_flow is None:
@@ -60,7 +73,7 @@ def render_curve(results, path, system: str = "us", width_px: int = 820, height_
     ax.annotate(rated_text, (flowtest.n185(qr), pt), textcoords="offset points",
                 xytext=(-10, 14), ha="right", fontsize=21, fontweight="bold", color="#b00020")
     ax.set_xticks(flowtest.n185(ticks))
-    ax.set_xticklabels([f"{t:,.0f}" if t > 0 else "" for t in ticks], fontsize=18)
+    ax.set_xticklabels(_tick_labels(ticks), fontsize=18)
     ax.set_xlim(0, flowtest.n185(ticks[-1]))
     ax.set_ylim(0, ps * 1.12)
     ax.tick_params(axis="y", labelsize=18, width=2, length=6)

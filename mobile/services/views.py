@@ -107,5 +107,7 @@ def history_text(service, tid: str) -> str:
                 continue
             name = r.slot.split("@")[0]
             shown = values.fmt(r.si_value, values.FIELDS[name].kind, sys_)
-            lines.append(f"    {r.slot}: {shown}  (typed '{r.entered_text}' {r.unit})")
+            typed = r.entered_text if any(c.isalpha() for c in r.entered_text) else \
+                f"{r.entered_text} {r.unit}"
+            lines.append(f"    {r.slot}: {shown}  (typed '{typed}')")
     return "\n".join(lines)

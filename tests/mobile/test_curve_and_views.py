@@ -56,4 +56,4 @@ def test_history_lists_every_reading_as_typed(service):
     service.enter(tid, f"residual@{service.area.hydrants[0]}", "57.5")
     text = views.history_text(service, tid)
     assert "Revision 2" in text and "gauge re-read" in text
-    assert "typed '58'" in text and "typed '57.5'" in text
+    assert "typed '58 psi'" in text and "typed '57.5 psi'" in text

@@ -213,3 +213,19 @@ def test_list_by_area(service, area):
     assert service.areas() == ["Northfield", "Tallowmere"]
     assert [r["test_id"] for r in service.list_tests(area="Northfield")] == [other]
     assert [r["test_id"] for r in service.list_tests(area="Tallowmere")] == [tid]
+
+
+def test_calib_fit_reads_the_demo_export_as_it_is(store, tmp_path, capsys):
+    """The issue's promise: ``python -m calib fit NETWORK EXPORT`` runs on the app's export."""
+    from calib.cli import main
+    from mobile.services.demo import TALLOWMERE, demo_area, log_demo_tests
+    from mobile.services.session import TestService
+
+    area = demo_area()
+    service = TestService(store, area)
+    made = log_demo_tests(service, area)
+    assert len(made) == 3
+    export.export_tests(service, tmp_path / "tests")
+    code = main(["fit", str(TALLOWMERE), str(tmp_path / "tests"), "--out", str(tmp_path / "fit")])
+    assert code == 0, capsys.readouterr().err
+    assert (tmp_path / "fit" / "readings.csv").exists()
