@@ -43,6 +43,8 @@ def test_enter_a_whole_test_by_keypad_then_find_it_after_a_restart(tmp_path):
     assert entered["flow_label"] == "787 gpm"
     assert entered["rated_label"] == "1,599 gpm"
     assert entered["unticked"] == []
+    assert entered["small_targets"] == []  # every tappable widget at least 48 dp (the rule)
+    assert entered["targets_checked"] > 50
     assert [m.split(" ")[0] for m in entered["messages"]] == ["Saved"] * 3, entered["messages"]
     assert "finished" in entered["finish_message"], entered["finish_message"]
     tid = entered["test_id"]

@@ -92,7 +92,31 @@ def type_on(keypad, text):
         yield
 
 
+def touch_sizes(app):
+    """Smallest side [dp] of every visible tappable widget on every screen (a 48 dp target rule)."""
+    from kivy.metrics import dp
+    from kivy.uix.behaviors import ButtonBehavior
+    from kivy.uix.textinput import TextInput
+
+    from mobile.screens import SCREENS
+
+    small, checked = [], 0
+    for name in SCREENS:
+        app.go(name)
+        yield from settle()
+        for w in app.root.get_screen(name).walk():
+            if isinstance(w, (ButtonBehavior, TextInput)) and w.opacity > 0 and w.width > 0:
+                side = min(w.width, w.height) / dp(1)
+                checked += 1
+                if side < 48:
+                    small.append(f"{name}: {type(w).__name__} {getattr(w, 'text', '')[:20]!r} {side:.0f} dp")
+    report["small_targets"], report["targets_checked"] = small, checked
+    app.go("home")
+    yield from settle()
+
+
 def script_enter(app):
+    yield from touch_sizes(app)
     home = app.root.get_screen("home")
     tap(home.ids.new_test)
     yield from wait_for(lambda: app.root.current == "checklist")
