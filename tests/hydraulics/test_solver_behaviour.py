@@ -337,3 +337,22 @@ def test_a_frozen_status_that_contradicts_the_solution_is_an_error(make):
     with pytest.raises(ConvergenceError, match="CV") as info:
         NetworkSolver(net, max_status_changes=0).solve()
     assert info.value.worst_links == ["CV"]
+
+
+def test_sensitivities_with_a_pump_and_a_closed_check_valve(make):
+    # central differences (common practice) through a running pump and a shut check valve
+    junctions = [("J1", 0.0, 0.01), ("J2", 5.0, 0.02), ("J3", 2.0, 0.015)]
+    pipes = [("P1", "J1", "J2", 400.0, 0.2, 110.0), ("P2", "J2", "J3", 300.0, 0.15, 100.0),
+             ("P3", "J1", "J3", 500.0, 0.15, 90.0), ("P4", "HIGH", "J3", 200.0, 0.2, 120.0),
+             ("CV", "HIGH", "J2", 300.0, 0.15, 100.0)]
+    status = [PipeStatus.OPEN] * 4 + [PipeStatus.CHECK_VALVE]
+    net = make(junctions, [("LOW", 10.0), ("HIGH", 45.0)], pipes, status=status,
+               pumps=[("PU", "LOW", "J1", 50.0, 3000.0, 2.0, 1.0)])
+    solver = NetworkSolver(net)
+    res = solver.solve()
+    assert "CV" in res.closed_links and res.pump_flow[0] > 0  # the case under test
+    b2 = -net.demand[:, None]
+    dH, dQ = solver.sensitivities(res, np.zeros((net.n_pipes + 1, 1)), b2)
+    fd_h, fd_q = _fd(solver, lambda x: Snapshot(demand_factor=x), lambda x: None, 1.0, 1e-4)
+    np.testing.assert_allclose(dH[:, 0], fd_h, rtol=1e-5, atol=1e-8)
+    np.testing.assert_allclose(dQ[:, 0], fd_q, rtol=1e-5, atol=1e-10)
