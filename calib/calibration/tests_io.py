@@ -17,6 +17,7 @@ This module does not solve anything; ``problem.py`` builds the least-squares pro
 
 from __future__ import annotations
 
+import csv
 import math
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -110,7 +111,7 @@ class _Table:
 
     def __init__(self, path: Path, problems: list[Problem], required: tuple[str, ...]):
         self.path, self.name, self.problems = path, path.name, problems
-        self.frame = pd.read_csv(path, dtype=str, keep_default_na=False, skipinitialspace=True)
+        self.frame = self._read(path, problems)
         self.columns: dict[str, str] = {}  # name -> raw header
         self.factor: dict[str, float] = {}
         for header in self.frame.columns:
@@ -133,6 +134,33 @@ class _Table:
             problems.append(Problem(f"missing column(s) {', '.join(missing)}", file=self.name,
                                     expected="columns " + ", ".join(required)))
         self.ok = not missing
+
+    @staticmethod
+    def _read(path: Path, problems: list[Problem]) -> pd.DataFrame:
+        """The table as text cells; a row with more cells than the header is a problem (pandas
+        would silently take the extra leading cells as an index and shift every column)."""
+        try:
+            with open(path, newline="", encoding="utf-8-sig") as fh:
+                rows = [r for r in csv.reader(fh) if any(c.strip() for c in r)]
+        except (UnicodeDecodeError, csv.Error, OSError) as exc:
+            problems.append(Problem(f"cannot be read as CSV ({exc})", file=path.name,
+                                    expected="a comma-separated UTF-8 table with a header row"))
+            return pd.DataFrame()
+        if not rows:
+            problems.append(Problem("the file is empty", file=path.name,
+                                    expected="a comma-separated table with a header row"))
+            return pd.DataFrame()
+        header = [h.strip() for h in rows[0]]
+        body = []
+        for i, r in enumerate(rows[1:]):
+            cells = [c.strip() for c in r]
+            if len(cells) > len(header) and any(cells[len(header):]):
+                problems.append(Problem(f"{len(cells)} cells but the header has {len(header)}",
+                                        file=path.name, row=i + 2,
+                                        expected="one cell per column (quote text holding commas)"))
+                continue
+            body.append((cells + [""] * len(header))[: len(header)])
+        return pd.DataFrame(body, columns=header, dtype=object)
 
     def __len__(self) -> int:
         return len(self.frame)

@@ -108,3 +108,13 @@ def test_field_app_export_layout_reads(tmp_path, net):
     assert ts.flows[0][5] / units.GPM == pytest.approx(1061.2)
     assert ts.pitot_tests == [] and ts.source_head == [{}]
     assert ts.n_readings == 2
+
+
+def test_empty_or_broken_files_are_input_errors(tmp_path, net):
+    folder = _write(tmp_path / "t", flows="", pressures="test_id,node,static [psi]\nA,J4,80,70,1,2\n")
+    with pytest.raises(InputError) as err:
+        read_tests(folder, net)
+    text = str(err.value)
+    assert "flows.csv: the file is empty" in text
+    # a row with more cells than the header must not shift the columns (pandas would make an index)
+    assert "pressures.csv, row 2: 6 cells but the header has 3" in text
