@@ -50,7 +50,6 @@ def sensitivities(solver, result: SolveResult, dF1_dp, dF2_dp):
     return dH, dQ
 
 
-
 def dheadloss_droughness(solver, result: SolveResult) -> np.ndarray:
     """Derivative of each pipe's head loss with respect to its own roughness parameter.
 
