@@ -151,6 +151,11 @@ class _Table:
                                     expected="a comma-separated table with a header row"))
             return pd.DataFrame()
         header = [h.strip() for h in rows[0]]
+        for k, h in enumerate(header):
+            if h in header[:k]:
+                problems.append(Problem(f"column '{h}' appears twice", file=path.name, field=h,
+                                        expected="each column once"))
+        header = [h if h not in header[:k] else f"{h}#{k}" for k, h in enumerate(header)]
         body = []
         for i, r in enumerate(rows[1:]):
             cells = [c.strip() for c in r]
@@ -341,6 +346,7 @@ def read_tests(folder, network, sigma: float = units.PSI) -> TestSet:
                                 expected="'static [psi]' and 'residual [psi]'"))
         pr.ok = False
     if pr.ok:
+        seen_gauges: dict[tuple[int, int], int] = {}
         for i in range(len(pr)):
             tid = pr.text(i, "test_id")
             t_idx = test_index(tid, pr, i)
@@ -356,6 +362,13 @@ def read_tests(folder, network, sigma: float = units.PSI) -> TestSet:
                 continue
             if t_idx is None or n_idx is None:
                 continue
+            if (t_idx, n_idx) in seen_gauges:
+                problems.append(Problem(f"node '{network.node_ids[n_idx]}' already has a row for this "
+                                        f"test (row {seen_gauges[(t_idx, n_idx)]})", file=pr.name,
+                                        row=i + 2, id=tid, field="node",
+                                        expected="one row per gauge and test"))
+                continue
+            seen_gauges[(t_idx, n_idx)] = i + 2
             for kind, value in values.items():
                 if math.isnan(value):
                     continue

@@ -118,3 +118,11 @@ def test_empty_or_broken_files_are_input_errors(tmp_path, net):
     assert "flows.csv: the file is empty" in text
     # a row with more cells than the header must not shift the columns (pandas would make an index)
     assert "pressures.csv, row 2: 6 cells but the header has 3" in text
+
+
+def test_a_gauge_twice_in_one_test_is_a_problem(tmp_path, net):
+    folder = _write(tmp_path / "t", flows="test_id,node,flow [gpm]\nA,J5,1000\n",
+                    pressures="test_id,node,static [psi],residual [psi]\nA,J4,80,70\nA,J4,81,71\n")
+    with pytest.raises(InputError, match=r"pressures.csv, row 3, id 'A', field 'node': node 'J4' "
+                                         r"already has a row for this test \(row 2\)"):
+        read_tests(folder, net)
