@@ -329,6 +329,12 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
         findings.append(f"{int(gross.sum())} reading(s) beyond the threshold were left out one at a "
                         f"time and the fit repeated; C moved by up to {moved.max():.1f} between the fit "
                         "with every reading and the result (both are in groups.csv).")
+    for (t, kind), res in zip(full.pairs, results):
+        neg = list(getattr(res, "negative_pressure", []) or [])
+        if neg:
+            findings.append(f"Test {tests.test_ids[t]} ({kind}): the calibrated model gives negative "
+                            f"pressure at {', '.join(neg[:5])}{' ...' if len(neg) > 5 else ''}; it "
+                            "cannot carry the test's flows as modelled (check diameters and valves).")
     on_flowing = sorted({(int(t), int(nd)) for t, nd, k in zip(tests.test, tests.node, tests.kind)
                          if k == "residual" and int(nd) in tests.flows[int(t)]})
     for t, nd in on_flowing:

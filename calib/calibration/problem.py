@@ -23,7 +23,7 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.sparse as sp
 
-from calib.errors import CalibrationError
+from calib.errors import CalibrationError, ConvergenceError
 
 
 @dataclass
@@ -193,7 +193,13 @@ class CalibrationProblem:
         previous = self._cache
         for i, snap in enumerate(snaps):
             warm = previous[i] if previous is not None else (results[-1] if results else None)
-            res = self.solver.solve(snap, roughness=roughness, warm_start=warm)
+            try:
+                res = self.solver.solve(snap, roughness=roughness, warm_start=warm)
+            except ConvergenceError as exc:
+                values = ", ".join(f"{p.name} = {v:.4g}" for p, v in zip(self.params, x))
+                raise CalibrationError(
+                    f"the solver did not converge for snapshot '{snap.label}' at {values}: {exc}. "
+                    "Check the network (closed valves, isolated areas) or narrow --c-bounds.") from exc
             results.append(res)
             self.n_solves += 1
             if self.progress is not None:
