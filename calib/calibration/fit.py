@@ -189,8 +189,6 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
         cand = [int(k) for k in order[:3] if abs(z_used[k]) > threshold]
         if not cand or est.used.sum() - 1 <= prob.n_params:
             break
-        if first is None:
-            first = est
         count["stage"] = "refit without flagged readings"
         best = None
         for k in cand:
@@ -205,6 +203,8 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
             # leaving it out does not remove a gross misfit (a genuine outlier takes about z^2 of
             # S with it): keep it, flagged by its standardized residual only
             break
+        if first is None:
+            first = est  # the fit with every reading that passed the face checks
         prob = pk
         i = int(idx[k])
         gross[i] = True
