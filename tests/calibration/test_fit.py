@@ -45,6 +45,7 @@ def test_truth_is_recovered_within_intervals(small):
     assert np.all((res.c_low <= TRUTH) & (TRUTH <= res.c_high)), (res.c, res.c_low, res.c_high)
     assert np.all(np.isfinite(res.c_sd)) and np.all(res.c_high - res.c_low < 60)
     assert not [f for f in res.flag if f.startswith("standardized")]
+    assert res.first is None  # nothing was left out, so there is no second fit to report
     assert res.rmse / units.PSI < 1.5  # gauge noise is 1 psi
 
 
