@@ -17,8 +17,12 @@ class CheckScreen(FieldScreen):
     rows = ListProperty([])
     summary = StringProperty("Tap RUN CHECK to simulate this test on the area's network.")
 
+    _shown_for = ""
+
     def refresh(self):
-        pass
+        if self.tid != self._shown_for and not self.running:  # another test: clear the old answer
+            self._shown_for, self.rows, self.bad = self.tid, [], False
+            self.summary = "Tap RUN CHECK to simulate this test on the area's network."
 
     def run(self):
         if self.running:
