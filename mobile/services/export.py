@@ -38,6 +38,7 @@ def test_record(service, tid: str) -> dict:
     """Everything recorded for one test, as a JSON-ready dict (SI values with the entered text)."""
     t = service.store.test(tid)
     res = service.results(tid)
+    ticked = service.header(tid)["checklist"]
     revisions = []
     for rev in service.store.revisions(tid):
         revisions.append({**rev, "header": service.header(tid, rev["revision"]),
@@ -50,11 +51,12 @@ def test_record(service, tid: str) -> dict:
         "current_revision": t.current_revision,
         "revisions": revisions,
         "history": [asdict(r) for r in service.store.history(tid)],
-        "checklist": {i.key: {"title": i.title, "ticked": bool(service.header(tid)["checklist"].get(i.key))}
+        "checklist": {i.key: {"title": i.title, "ticked": bool(ticked.get(i.key))}
                       for i in checklist.ITEMS},
         "results_si": {"flow": res.flow, "outlet_flows": res.outlet_flows, "rated_flow": res.rated_flow,
                        "target": res.target, "class": res.class_label, "gauge": res.gauge,
-                       "findings": [{"severity": s, "code": c, "message": m} for s, c, m in res.findings],
+                       "findings": [{"severity": s, "code": c, "message": m}
+                                    for s, c, m in res.findings],
                        "missing": res.missing},
         "cautions": list(flowtest.CAUTIONS) + [checklist.LOCAL_RULES],
     }
@@ -88,9 +90,10 @@ def export_tests(service, folder, include_drafts: bool = False) -> dict:
             s, r = readings.get(f"static@{g}"), readings.get(f"residual@{g}")
             if s is None and r is None:
                 continue
-            pressures.append({"test_id": t.test_id, "node": g,
-                              f"static [{up}]": None if s is None else values.convert(s.si_value, "pressure", system),
-                              f"residual [{up}]": None if r is None else values.convert(r.si_value, "pressure", system),
+            shown = {k: None if x is None else values.convert(x.si_value, "pressure", system)
+                     for k, x in (("static", s), ("residual", r))}
+            pressures.append({"test_id": t.test_id, "node": g, f"static [{up}]": shown["static"],
+                              f"residual [{up}]": shown["residual"],
                               f"gauge_height [{ul}]": values.convert(gh, "length", system)})
         for b in h.get("boundary", []):
             boundary.append({"test_id": t.test_id, "source": b["source"],
@@ -109,7 +112,8 @@ def export_tests(service, folder, include_drafts: bool = False) -> dict:
     columns = {
         "flows.csv": ["test_id", "node", f"flow [{uq}]", f"pitot [{up}]", f"outlet_diameter [{ud}]",
                       "coefficient", "pumper_factor", "outlet", "read_by"],
-        "pressures.csv": ["test_id", "node", f"static [{up}]", f"residual [{up}]", f"gauge_height [{ul}]"],
+        "pressures.csv": ["test_id", "node", f"static [{up}]", f"residual [{up}]",
+                          f"gauge_height [{ul}]"],
         "boundary.csv": ["test_id", "source", f"head [{ul}]"],
         "tests.csv": ["test_id", "date", "time", "crew", "area", "weather", "notes", "revision",
                       "status", f"rated_flow [{uq}]", f"target [{up}]", "class"],
