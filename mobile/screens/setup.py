@@ -35,11 +35,15 @@ class SetupScreen(FieldScreen):
     def save_text(self, name, text):
         self.show(self.service.set_field(self.tid, name, text))
 
+    def chosen(self) -> str:
+        """The hydrant tapped in the list, or else the id typed in the search field."""
+        return self.picked or self.ids.hsearch.text
+
     def add_gauge(self):
-        self.show(self.service.add_gauge(self.tid, self.picked))
+        self.show(self.service.add_gauge(self.tid, self.chosen()))
 
     def add_outlet(self):
-        self.show(self.service.add_outlet(self.tid, self.picked, self.ids.diameter.text,
+        self.show(self.service.add_outlet(self.tid, self.chosen(), self.ids.diameter.text,
                                           self.ids.shape.text, self.ids.kind.text,
                                           self.ids.pumper.state == "down"))
 
