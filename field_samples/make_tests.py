@@ -5,14 +5,33 @@
 writes ``field_samples/tallowmere/tests/{tests,flows,pressures,boundary}.csv`` and ``truth.json``.
 Deterministic (one seeded generator). Everything is invented: the town, the crews, the readings.
 
+How the tests are planned - as a modeler plans a calibration day, not at random:
+
+- each pipe group gets its tests (``PLAN``; two or three for each cast-iron decade, whose C is the
+  least known); the flowing hydrants stand on mains of that group;
+- one to three neighbouring hydrants flow, two 2.5 in outlets each, with the total sized (1,000 -
+  2,500 gpm) so that the gauges drop about 10 - 25 psi: less than 10 psi lets gauge error swamp the
+  signal (Walski 2000, JAWWA, "Model calibration data: the good, the bad and the useless"), and
+  NFPA 291 (2010 ed., 4.3.6) asks for a drop of at least 25 % of the static;
+- every pitot reading stays within 10 - 30 psi (NFPA 291 advises against low readings; high ones are
+  hard to read steadily), and below the flowing hydrant's own residual pressure;
+- every junction of the town keeps at least 20 psi during the test (NFPA 291: no residual below
+  20 psi), with a margin for the difference between the model and the street;
+- of the nearby hydrants, the two whose drop depends most on the tested group's C (a finite-difference
+  sensitivity with the "true" C, shared with the other groups as little as possible) carry the gauges.
+
 How the readings are made: the demo network (``field_samples/tallowmere/network``, by
-``make_network.py``) is given "true" C-factors per group that differ from the office model's guesses
-(aged unlined cast iron much lower); ten tests are laid out with one or two flowing hydrants and two
-gauge hydrants nearby; each is solved with the true C for the static (normal demand) and residual
-(plus the test's flows) snapshots at the tank level of that hour; readings get 1 psi of gauge noise
-and are rounded as a gauge is read (0.5 psi). Flows are given in pitot form (2.5 in outlets,
-c 0.90, pitot rounded to 0.5 psi and the flow taken from the rounded pitot) for some tests and as
-flow-meter readings for the others. One reading is planted wrong by +8 psi for the flags to find.
+``make_network.py``; not changed here) is given "true" C-factors per group that differ from the office
+model's guesses (aged unlined cast iron much lower); each test is solved with the true C for the
+static (normal demand) and residual (plus the test's flows) snapshots at the tank level of that hour;
+readings get 1 psi of gauge noise and are rounded as a gauge is read (0.5 psi). Flows are given in
+pitot form (2.5 in outlets, c 0.90, pitot rounded to 0.5 psi and the flow taken from the rounded
+pitot) for some tests and as flow-meter readings for the others. One reading is planted wrong by
++8 psi for the flags to find.
+
+Flowing hydrants in a real town: open and close them slowly (water hammer), mind traffic, the path
+of the water and discoloured water, and tell the fire service while protection is reduced. The
+authority having jurisdiction and the water utility's own procedures govern.
 """
 
 from __future__ import annotations
@@ -28,8 +47,8 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent))
 
 from calib import fileio, units  # noqa: E402
-from calib.calibration.predict import predict_test  # noqa: E402
 from calib.flowtest.pitot import pitot_discharge  # noqa: E402
+from calib.hydraulics import NetworkSolver, Snapshot  # noqa: E402
 from calib.network.io import read_network  # noqa: E402
 
 SEED = 2026_0514
@@ -37,25 +56,157 @@ NETWORK = HERE / "tallowmere" / "network"
 OUT = HERE / "tallowmere" / "tests"
 #: The demo truth: C per group (the office model guesses CI 100, DI 130, PVC 150).
 TRUE_C = {"CI-1930s": 58.0, "CI-1950s": 72.0, "CI-1960s": 84.0, "DI": 126.0, "PVC": 145.0}
-N_TESTS = 10
+#: The day's plan: the group each test is aimed at, in the order the crews work.
+PLAN = ("CI-1930s", "CI-1950s", "CI-1960s", "DI", "PVC", "CI-1930s", "CI-1960s", "CI-1950s",
+        "PVC", "CI-1960s", "DI", "CI-1930s")
 SIGMA_PSI = 1.0
 GAUGE_HEIGHT_FT = 2.0  # outlet cap above the node elevation
 OUTLET_IN, OUTLET_C = 2.5, 0.90
-PLANTED = ("T07", "residual", 8.0)  # test, kind, error [psi] on its first gauge
+OUTLETS_PER_HYDRANT = 2
+PITOT_PSI = (10.5, 29.0)  # kept inside NFPA 291's 10 - 30 psi after rounding
+TOTAL_GPM = (1000.0, 2500.0)
+DROP_PSI = (10.5, 24.5)  # each gauge's modelled drop, inside 10 - 25 psi with room for noise
+TARGET_DROP_PSI = 21.0  # what the flow is sized for at the gauge that drops most
+MIN_RESIDUAL_PSI = 25.0  # at every junction: NFPA 291's 20 psi plus a 5 psi margin
+NEAR_FT = 2000.0  # gauge hydrants within this map distance of the first flowing hydrant
+MATE_FT = 900.0  # a second or third flowing hydrant within this distance of the first
+PLANTED = ("T05", "residual", 8.0)  # test, kind, error [psi] on its first gauge
 CREWS = ("Ines Oakhurst, Tobias Wren", "Marta Feldgrave, Juno Pell")
+PSI_HEAD = units.PSI / units.GAMMA_WATER  # [m] of water per psi
 
 
-def _neighbours(net, node, count, exclude):
-    """The ``count`` hydrants nearest to ``node`` (map distance), not in ``exclude``."""
-    hyd = np.flatnonzero(net.hydrant)
-    d = np.hypot(net.x[hyd] - net.x[node], net.y[hyd] - net.y[node])
-    order = [int(h) for h in hyd[np.argsort(d)] if int(h) not in exclude and h != node]
-    return order[:count]
+def _near(net, node, pool, radius_ft):
+    """Hydrants of ``pool`` within ``radius_ft`` of ``node`` (map distance), nearest first."""
+    pool = np.asarray(sorted(pool), dtype=int)
+    d = np.hypot(net.x[pool] - net.x[node], net.y[pool] - net.y[node])
+    keep = (d <= radius_ft * units.FT) & (pool != node)
+    return [int(h) for h in pool[keep][np.argsort(d[keep], kind="stable")]]
 
 
-def _group_of_node(net, node):
-    pipes = np.flatnonzero((net.pipe_from == node) | (net.pipe_to == node))
-    return str(net.group[pipes[0]]) if len(pipes) else ""
+def _group_share(net, group):
+    """Per junction: the share of its connected pipe length in ``group`` (0 - 1)."""
+    n = net.n_junctions
+    length = np.zeros(n)
+    inside = np.zeros(n)
+    in_g = net.group == group
+    for end in (net.pipe_from, net.pipe_to):
+        j = end < n
+        np.add.at(length, end[j], net.length[j])
+        np.add.at(inside, end[j], net.length[j] * in_g[j])
+    return np.divide(inside, length, out=np.zeros(n), where=length > 0)
+
+
+class _Planner:
+    """Solves candidate tests with the demo truth and scores them (plain SI inside)."""
+
+    def __init__(self, net, true_c):
+        self.net, self.true_c = net, true_c
+        self.solver = NetworkSolver(net, headloss="hazen-williams")
+        self.groups = list(TRUE_C)
+        # C of each group lowered 5 % in turn: the finite-difference sensitivities of the drops
+        self.perturbed = []
+        for g in self.groups:
+            c = true_c.copy()
+            c[net.group == g] *= 0.95
+            self.perturbed.append(c)
+
+    def statics(self, heads):
+        base = self.solver.solve(Snapshot(source_head=heads), roughness=self.true_c)
+        pert = [self.solver.solve(Snapshot(source_head=heads), roughness=c) for c in self.perturbed]
+        return base.pressure, np.array([r.pressure for r in pert])
+
+    def residual(self, heads, flows, roughness=None):
+        snap = Snapshot(source_head=heads, extra_demand=flows)
+        return self.solver.solve(snap, roughness=self.true_c if roughness is None else roughness)
+
+    def sensitivity(self, heads, flows, static_pert, static_base, residual_base):
+        """(groups x junctions): change of the drop [psi] when each group's C falls by 5 %."""
+        out = []
+        for c, sp in zip(self.perturbed, static_pert):
+            r = self.residual(heads, flows, c).pressure
+            out.append(((sp - r) - (static_base - residual_base)) / units.PSI)
+        return np.array(out)[:, : self.net.n_junctions]
+
+
+def _outlet_flows(total_gpm, n_hydrants):
+    """Pitot per outlet [psi] (rounded as read, 0.5 psi) for ``total_gpm`` over the hydrants' outlets,
+    or None when it falls outside ``PITOT_PSI``. NFPA 291: Q = 29.83 c d^2 sqrt(p) [gpm, in, psi]."""
+    n_out = n_hydrants * OUTLETS_PER_HYDRANT
+    p = (total_gpm / n_out / (29.83 * OUTLET_C * OUTLET_IN ** 2)) ** 2
+    p = round(p * 2) / 2
+    return p if PITOT_PSI[0] <= p <= PITOT_PSI[1] else None
+
+
+def _size(planner, net, heads, flowing, s_base, pool):
+    """The largest pitot [psi] (and residual solve) that keeps the plan's limits for ``flowing``.
+
+    Tries pitot readings from the highest allowed down (0.5 psi steps, as read) and returns the first
+    whose total flow is at most ``TOTAL_GPM[1]``, whose gauges in ``pool`` drop at most
+    ``DROP_PSI[1]``, whose town keeps ``MIN_RESIDUAL_PSI`` and whose flowing hydrants keep 5 psi more
+    than the pitot; None when even the lowest fails or gives less than ``TOTAL_GPM[0]``.
+    """
+    n = net.n_junctions
+    k = len(flowing)
+    per_psi = 29.83 * OUTLET_C * OUTLET_IN ** 2 * OUTLETS_PER_HYDRANT * k  # gpm / sqrt(psi)
+    top = min(PITOT_PSI[1], (TOTAL_GPM[1] / per_psi) ** 2)
+    p = np.floor(top * 2) / 2
+    while p >= PITOT_PSI[0]:
+        if per_psi * np.sqrt(p) < TOTAL_GPM[0]:
+            return None
+        q_out = float(pitot_discharge(p * units.PSI, OUTLET_IN * units.INCH, OUTLET_C))
+        flows = {str(net.node_ids[h]): OUTLETS_PER_HYDRANT * q_out for h in flowing}
+        r = planner.residual(heads, flows)
+        p_res = r.pressure[:n] / units.PSI
+        drop = (s_base - r.pressure)[pool] / units.PSI
+        if (drop.max() <= DROP_PSI[1] and p_res.min() >= MIN_RESIDUAL_PSI
+                and p_res[flowing].min() >= p + 5.0):
+            return p, flows, r
+        # the drop grows about as Q^1.852 = p^0.926 (Hazen-Williams): jump close to the limit
+        p = min(p - 0.5, np.floor(2 * p * min(1.0, DROP_PSI[1] / max(drop.max(), 1e-9))) / 2)
+    return None
+
+
+def _design(planner, net, group, heads, used, rng):
+    """The best test aimed at ``group``: (flowing nodes, pitot [psi], gauges, score), or None.
+
+    A test with more gauges that drop at least ``DROP_PSI[0]`` beats one with fewer; among equals
+    the higher sum of ``sensitivity x purity`` of the gauges wins (how much the drop moves with the
+    group's C, and how little of that movement the other groups share).
+    """
+    n = net.n_junctions
+    share = _group_share(net, group)
+    hyd = [int(h) for h in np.flatnonzero(net.hydrant) if int(h) not in used]
+    cand = [h for h in hyd if share[h] >= 0.5]
+    rng.shuffle(cand)
+    s_base, s_pert = planner.statics(heads)
+    g_index = planner.groups.index(group)
+    best, best_key = None, None
+    for first in cand:
+        mates = _near(net, first, hyd, MATE_FT)
+        for k in (1, 2, 3):
+            if len(mates) < k - 1:
+                break
+            flowing = [first] + mates[: k - 1]
+            pool = _near(net, first, [h for h in hyd if h not in flowing], NEAR_FT)
+            if len(pool) < 2:
+                continue
+            sized = _size(planner, net, heads, flowing, s_base, pool)
+            if sized is None:
+                continue
+            pitot, flows, r = sized
+            drop = (s_base - r.pressure)[:n] / units.PSI
+            sens = planner.sensitivity(heads, flows, s_pert, s_base, r.pressure)[:, pool]
+            own = sens[g_index]
+            purity = own / np.maximum(np.abs(sens).sum(axis=0), 1e-12)
+            score = own * np.clip(purity, 0.0, None)
+            strong = drop[pool] >= DROP_PSI[0]
+            # gauges that drop 10 psi or more first, then the most telling
+            top = np.lexsort((-np.round(score, 4), ~strong))[:2]
+            gauges = [pool[i] for i in sorted(top)]
+            key = (int(strong[top].sum()), round(float(score[top].sum()), 4))
+            if best_key is None or key > best_key:
+                best, best_key = (flowing, pitot, gauges, key[1]), key
+    return best
 
 
 def main() -> None:
@@ -64,72 +215,43 @@ def main() -> None:
     true_c = net.roughness.copy()
     for g, c in TRUE_C.items():
         true_c[net.group == g] = c
-    # one test per group first, then the rest at random; hydrants far enough from the plant main
-    hyd = np.flatnonzero(net.hydrant)
-    by_group: dict[str, list[int]] = {}
-    for h in hyd:
-        by_group.setdefault(_group_of_node(net, h), []).append(int(h))
-    order = list(TRUE_C) + list(rng.choice(list(TRUE_C), size=N_TESTS - len(TRUE_C)))
+    planner = _Planner(net, true_c)
+    gh = GAUGE_HEIGHT_FT * units.FT * units.GAMMA_WATER  # [Pa] the gauge sits above the node
     used: set[int] = set()
-    tests, flows_rows, pressure_rows, boundary_rows = [], [], [], []
+    tests, flows_rows, pressure_rows, boundary_rows, plan_rows = [], [], [], [], []
     truth_flows = {}
     planted_node = None
-    t = 0
-    for group in order:
-        for _ in range(80):  # draw until a test with a useful drop and safe residual is found
-            cand = [h for h in by_group.get(group, []) if h not in used]
-            if not cand:
-                break
-            flow_nodes = [int(rng.choice(cand))]
-            two = t == 2  # the third test (in the weakly loaded CI-1960s area) flows two hydrants
-            if two:
-                flow_nodes += _neighbours(net, flow_nodes[0], 1, used | set(flow_nodes))
-            near = _neighbours(net, flow_nodes[0], 5, used | set(flow_nodes))
-            total_gpm = rng.uniform(1000.0, 1500.0) if not two else 2 * rng.uniform(1100.0, 1400.0)
-            tank_ft = float(rng.uniform(988.0, 997.0))
-            heads = {"PLANT": 1004.0 * units.FT, "HILLTANK": tank_ft * units.FT}
-            pitot_form = t % 2 == 0
-            outlets = []  # (node, pitot psi or nan, flow m3/s)
-            for node in flow_nodes:
-                q_node = total_gpm / len(flow_nodes)
-                n_out = 1 if q_node <= 880.0 else 2  # keep pitot readings within about 10-30 psi
-                for _k in range(n_out):
-                    q_out = q_node / n_out
-                    if pitot_form:
-                        p_psi = (q_out / (29.83 * OUTLET_C * OUTLET_IN ** 2)) ** 2
-                        p_psi = round(p_psi * 2) / 2
-                        q = float(pitot_discharge(p_psi * units.PSI, OUTLET_IN * units.INCH, OUTLET_C))
-                        outlets.append((node, p_psi, q))
-                    else:
-                        q_gpm = round(q_out / 10) * 10
-                        outlets.append((node, np.nan, q_gpm * units.GPM))
-            flows = {}
-            for node, _p, q in outlets:
-                flows[str(net.node_ids[node])] = flows.get(str(net.node_ids[node]), 0.0) + q
-            pred = predict_test(net, flows, [str(net.node_ids[g]) for g in near], roughness=true_c,
-                                source_head=heads)
-            # the two nearby hydrants that see the largest drop become the gauges
-            # (drops rounded to 0.01 psi, ties to the nearer: stable against solver round-off)
-            best = np.argsort([-round((r.static - r.residual) / units.PSI, 2) for r in pred],
-                              kind="stable")[:2]
-            gauges = [near[i] for i in sorted(best)]
-            pred = [pred[i] for i in sorted(best)]
-            gh = GAUGE_HEIGHT_FT * units.FT * units.GAMMA_WATER
-            res_psi = [(r.residual - gh) / units.PSI for r in pred]
-            drop_psi = [(r.static - r.residual) / units.PSI for r in pred]
-            if min(res_psi) >= 25.0 and max(drop_psi) >= 3.0:
-                break
-        else:
-            raise SystemExit(f"no usable test found in group {group}")
-        t += 1
+    for t, group in enumerate(PLAN, start=1):
         tid = f"T{t:02d}"
-        used |= set(flow_nodes) | set(gauges)
+        tank_ft = float(rng.uniform(988.0, 997.0))
+        heads = {"PLANT": 1004.0 * units.FT, "HILLTANK": tank_ft * units.FT}
+        design = _design(planner, net, group, heads, used, rng)
+        if design is None:
+            raise SystemExit(f"{tid}: no test on the {group} mains meets the plan's limits")
+        flowing, pitot, gauges, _score = design
+        used |= set(flowing) | set(gauges)
+        q_out = float(pitot_discharge(pitot * units.PSI, OUTLET_IN * units.INCH, OUTLET_C))
+        pitot_form = t % 2 == 1
+        outlets = []  # (node, pitot psi or nan, flow m3/s)
+        for node in flowing:
+            for _k in range(OUTLETS_PER_HYDRANT):
+                if pitot_form:
+                    outlets.append((node, pitot, q_out))
+                else:  # a flow meter read to 10 gpm
+                    outlets.append((node, np.nan, round(q_out / units.GPM / 10) * 10 * units.GPM))
+        flows = {}
+        for node, _p, q in outlets:
+            flows[str(net.node_ids[node])] = flows.get(str(net.node_ids[node]), 0.0) + q
+        static = planner.solver.solve(Snapshot(source_head=heads), roughness=true_c).pressure
+        residual = planner.residual(heads, flows).pressure
         truth_flows[tid] = {k: v / units.GPM for k, v in flows.items()}
-        start = f"2026-05-14T{8 + (t - 1) // 2:02d}:{30 * ((t - 1) % 2):02d}"
+        start = f"2026-05-14T{8 + (t - 1) * 40 // 60:02d}:{(t - 1) * 40 % 60:02d}"
+        total_gpm = sum(flows.values()) / units.GPM
+        how = (f"{len(flowing)} hydrant(s), {len(outlets)} x {OUTLET_IN:g} in outlets"
+               + (" read by pitot" if pitot_form else " through flow meters"))
         tests.append({"test_id": tid, "date": start, "crew": CREWS[(t - 1) % 2],
-                      "notes": ("two hydrants flowing" if len(flow_nodes) > 1 else
-                                "pitot on 2.5 in outlet(s)" if pitot_form else "flow meter on hose")
-                      + "; dechlorinating diffuser used"})
+                      "notes": f"aimed at the {group} mains; {how}, about {total_gpm:.0f} gpm; "
+                               "dechlorinating diffusers used"})
         for node, p_psi, q in outlets:
             row = {"test_id": tid, "node": str(net.node_ids[node])}
             if pitot_form:
@@ -139,9 +261,9 @@ def main() -> None:
                 row.update({"flow [gpm]": round(q / units.GPM, 1), "pitot [psi]": "",
                             "outlet_diameter [in]": "", "coefficient": ""})
             flows_rows.append(row)
-        for k, (g, r) in enumerate(zip(gauges, pred)):
+        for k, g in enumerate(gauges):
             readings = {}
-            for kind, p in (("static", r.static), ("residual", r.residual)):
+            for kind, p in (("static", static[g]), ("residual", residual[g])):
                 value = (p - gh) / units.PSI + rng.normal(0.0, SIGMA_PSI)
                 if (tid, kind) == PLANTED[:2] and k == 0:
                     value += PLANTED[2]
@@ -151,6 +273,11 @@ def main() -> None:
                                   "static [psi]": readings["static"],
                                   "residual [psi]": readings["residual"],
                                   "gauge_height [ft]": GAUGE_HEIGHT_FT})
+            plan_rows.append(f"{tid} {group:<9s} flow {total_gpm:6.0f} gpm at "
+                             f"{','.join(str(net.node_ids[h]) for h in flowing):<14s} gauge "
+                             f"{net.node_ids[g]}: drop {(static[g] - residual[g]) / units.PSI:5.1f} psi, "
+                             f"residual {(residual[g] - gh) / units.PSI:5.1f} psi; town minimum "
+                             f"{residual[:net.n_junctions].min() / units.PSI:5.1f} psi")
         boundary_rows += [{"test_id": tid, "source": "PLANT", "head [ft]": 1004.0},
                           {"test_id": tid, "source": "HILLTANK", "head [ft]": round(tank_ft, 1)}]
 
@@ -164,6 +291,7 @@ def main() -> None:
                                                  "node": planted_node, "error_psi": PLANTED[2]},
              "flows_gpm": truth_flows}
     fileio.write_text(OUT / "truth.json", json.dumps(truth, indent=1) + "\n")
+    print("\n".join(plan_rows))
     print(f"wrote {len(tests)} tests, {len(pressure_rows)} gauges to {OUT}")
 
 

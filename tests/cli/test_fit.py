@@ -29,7 +29,7 @@ def test_demo_fit_writes_every_output(demo_run):
     assert code == 0, err
     for name in ("groups.csv", "roughness.csv", "readings.csv", "report.html", "pipes.geojson"):
         assert (out / name).is_file(), name
-    assert "solves" in err and "[" in err  # the progress bar
+    assert "solves" in err  # the progress, one line per phase off a terminal
     assert text.splitlines()[0].split()[:3] == ["group", "C", "95%"]
     assert "licensed engineer" in text
 
@@ -47,6 +47,9 @@ def test_demo_fit_recovers_the_demo_truth_and_flags_the_planted_reading(demo_run
         assert row["c_low"] <= c <= row["c_high"], (name, c, row["c_low"], row["c_high"])
     # the aged unlined cast iron comes back far below the office model's guess of 100
     assert groups.loc["CI-1930s", "c_high"] < 100
+    # the day was planned so that the tests, not the prior, carry every group (each cast-iron decade
+    # included): more than half of each group's precision from the readings
+    assert (groups["status"] == "informed").all() and (groups["informed"] > 0.5).all(), groups["status"]
     readings = pd.read_csv(out / "readings.csv", keep_default_na=False)
     p = truth["planted"]
     bad = readings[(readings.test_id == p["test_id"]) & (readings.node == p["node"])
@@ -97,3 +100,33 @@ def test_bad_tests_folder_exits_2_naming_file_and_row(tmp_path, capsys):
     assert "flows.csv, row 2, id 'X1', field 'node': node 'NOPE' is not in the network" in err
     assert "pressures.csv, row 2, id 'X1', field 'residual [psi]'" in err
     assert not (tmp_path / "o").exists()  # nothing written on bad input
+
+
+def test_demo_day_keeps_the_field_limits_of_a_flow_test():
+    # each gauge of the demo day read as one NFPA 291 flow test (calib.flowtest.evaluate): no
+    # residual below 20 psi (NFPA 291), no pitot outside about 10-30 psi (NFPA 291, from memory), no
+    # inverted or negative reading; the town's strong grid keeps many cast-iron drops under the
+    # 10 psi that Walski (2000, JAWWA) asks for, so that warning is only bounded, not excluded
+    from calib.flowtest import FlowTest, Outlet, evaluate
+    flows = pd.read_csv(TESTS / "flows.csv")
+    gauges = pd.read_csv(TESTS / "pressures.csv")
+    codes, strong = [], 0
+    for tid, rows in gauges.groupby("test_id"):
+        outlets = []
+        for _, o in flows[flows.test_id == tid].iterrows():
+            if pd.notna(o["pitot [psi]"]):
+                outlets.append(Outlet(diameter=f"{o['outlet_diameter [in]']} in",
+                                      coefficient=float(o["coefficient"]), pitot=f"{o['pitot [psi]']} psi"))
+            else:
+                outlets.append(Outlet(flow=f"{o['flow [gpm]']} gpm"))
+        total = sum(o.discharge for o in outlets) / 6.30901964e-5  # [gpm]; 1 gpm = 6.309e-5 m3/s
+        assert 1000 <= total <= 2500, (tid, total)
+        for _, g in rows.iterrows():
+            result = evaluate(FlowTest(static=f"{g['static [psi]']} psi",
+                                       residual=f"{g['residual [psi]']} psi", outlets=outlets))
+            codes += [f.code for f in result.findings]
+            assert all(f.severity != "error" for f in result.findings), (tid, result.findings)
+            strong += g["static [psi]"] - g["residual [psi]"] >= 10
+    assert not {"pitot-low", "pitot-high", "residual-below-20psi"} & set(codes), codes
+    assert strong >= len(gauges) // 3, strong
+    assert 10 <= gauges.test_id.nunique() <= 14
