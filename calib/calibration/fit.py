@@ -127,7 +127,8 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
     ``threshold``: |standardized residual| above which a reading is flagged and left out of the refit.
     ``influence``: leave-one-out refits of the most influential remaining readings (Cook's D > 4/n, at
     most two) to say how far each moves the C-factors.
-    ``progress(n_solves, stage)`` is called after every solver call.
+    ``progress(n_solves, stage)`` is called after every solver call; ``stage`` names the phase, with
+    a detail after a colon where the phase repeats (``"leave-one-out: T04 J316"``).
     """
     if loss not in LOSSES:
         raise InputError(f"unknown loss '{loss}'", field="--loss", expected=", ".join(LOSSES))
@@ -242,7 +243,7 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
         cand = [i for i in used_idx[np.argsort(-cook[used_idx])][:2] if cook[i] > 4.0 / n_used]
         sd_c = est.sd[prob.c_cols]
         for i in cand:
-            count["stage"] = (f"leave-one-out {tests.test_ids[tests.test[i]]} "
+            count["stage"] = (f"leave-one-out: {tests.test_ids[tests.test[i]]} "
                               f"{network.node_ids[tests.node[i]]}")
             mask = est.used.copy()
             mask[i] = False

@@ -2,7 +2,7 @@
 
 Thin: read the network (``calib.network.io``) and the tests folder (``calib.calibration.read_tests``),
 fit (``calib.calibration.fit``), write the exports and the report into OUT, print a summary table.
-A progress bar on stderr is updated after every solver call. Bad input exits 2 with every problem
+Progress on stderr after every solver call: a bar on a terminal, one line per phase elsewhere. Bad input exits 2 with every problem
 listed; a fit that cannot be carried out exits 1.
 """
 
@@ -78,28 +78,75 @@ def _sigma(text: str) -> float:
 
 
 class ProgressBar:
-    """A plain text bar on stderr, redrawn after every solver call."""
+    """Progress on stderr: a bar redrawn in place on a terminal, one line per phase elsewhere.
 
-    def __init__(self, stream=None, width: int = 28, expected: int = 400):
+    ``__call__(n, stage)`` is the fit's progress callback (``n`` solver calls so far; ``stage`` the
+    phase, with a detail after a colon, e.g. ``"leave-one-out: T04 J316"``). On a terminal the bar is
+    redrawn at most ten times a second with carriage returns. Off a terminal (CI, a log file, a pipe)
+    carriage returns would pile up into one long line, so each phase is written once, when it ends:
+    ``fit: 96 solves, 0.2 s``. ``tty`` overrides the stream's own ``isatty()``.
+    """
+
+    def __init__(self, stream=None, width: int = 28, expected: int = 400, tty: bool | None = None):
         self.stream = stream or sys.stderr
         self.width, self.expected = width, max(expected, 1)
         self.start = time.perf_counter()
+        if tty is None:
+            isatty = getattr(self.stream, "isatty", None)
+            tty = bool(isatty()) if callable(isatty) else False
+        self.tty = tty
+        self._stage, self._last = None, 0.0
+        # off a terminal: the phase in progress, its first solve count, start time and details
+        self._phase, self._phase_n0, self._phase_t0, self._details, self._n = None, 0, 0.0, [], 0
 
     def __call__(self, n: int, stage: str) -> None:
+        if self.tty:
+            self._draw(n, stage)
+        else:
+            self._log(n, stage)
+
+    def _draw(self, n: int, stage: str) -> None:
         now = time.perf_counter()
         # redraw at most ten times a second (or on a new stage) so that the bar costs nothing
-        if stage == getattr(self, "_stage", None) and now - getattr(self, "_last", 0.0) < 0.1:
+        if stage == self._stage and now - self._last < 0.1:
             return
         self._stage, self._last = stage, now
         self.expected = max(self.expected, int(n * 1.15))
         done = int(self.width * min(n / self.expected, 1.0))
         bar = "#" * done + "." * (self.width - done)
-        self.stream.write(f"\r[{bar}] {n:5d} solves  {time.perf_counter() - self.start:5.1f} s  "
-                          f"{stage[:40]:<40s}")
+        self.stream.write(f"\r[{bar}] {n:5d} solves  {now - self.start:5.1f} s  {stage[:40]:<40s}")
         self.stream.flush()
 
+    def _log(self, n: int, stage: str) -> None:
+        phase, _, detail = str(stage).partition(":")
+        phase, detail = phase.strip(), detail.strip()
+        if phase != self._phase:
+            self._end_phase()
+            # the solve that announced the new phase belongs to it
+            self._phase, self._phase_n0, self._phase_t0 = phase, self._n, time.perf_counter()
+            self._details = []
+        if detail and detail not in self._details:
+            self._details.append(detail)
+        self._n = n
+
+    def _end_phase(self) -> None:
+        if self._phase is None:
+            return
+        what = self._phase
+        if len(self._details) > 1:
+            what += f" ({len(self._details)} readings: {', '.join(self._details)})"
+        elif self._details:
+            what += f" {self._details[0]}"
+        self.stream.write(f"{what}: {self._n - self._phase_n0} solves, "
+                          f"{time.perf_counter() - self._phase_t0:.1f} s\n")
+        self.stream.flush()
+        self._phase = None
+
     def close(self) -> None:
-        self.stream.write("\n")
+        if self.tty:
+            self.stream.write("\n")
+        else:
+            self._end_phase()
         self.stream.flush()
 
 

@@ -6,6 +6,7 @@ from pathlib import Path
 import pandas as pd
 import pytest
 
+from calib.cli import fit as cli_fit
 from calib.cli import main
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -130,3 +131,47 @@ def test_demo_day_keeps_the_field_limits_of_a_flow_test():
     assert not {"pitot-low", "pitot-high", "residual-below-20psi"} & set(codes), codes
     assert strong >= len(gauges) // 3, strong
     assert 10 <= gauges.test_id.nunique() <= 14
+
+
+def test_progress_off_a_terminal_is_one_line_per_phase(tmp_path, capsys):
+    # capsys gives a stream that is not a terminal: no carriage-return redraws, one line per phase
+    import re
+    code = main(["fit", str(NETWORK), str(TESTS), "--out", str(tmp_path), "--no-report"])
+    err = capsys.readouterr().err
+    assert code == 0
+    assert "\r" not in err
+    lines = err.splitlines()
+    assert lines and all(re.fullmatch(r".+: \d+ solves, \d+\.\d s", line) for line in lines), lines
+    phases = [line.split(":")[0].split(" (")[0] for line in lines]
+    assert phases[0] == "fit" and len(phases) == len(set(phases)), phases  # each phase once
+
+
+def test_progress_counts_the_solves_of_each_phase():
+    # counting checked by hand: 5 solves in "fit", 3 in "refit", 2 + 2 for two leave-one-out readings
+    import io
+    stream = io.StringIO()
+    bar = cli_fit.ProgressBar(stream, tty=False)
+    stages = ["fit"] * 5 + ["refit"] * 3 + ["leave-one-out: T01 J1"] * 2 + ["leave-one-out: T02 J2"] * 2
+    for n, stage in enumerate(stages, start=1):
+        bar(n, stage)
+    bar.close()
+    lines = stream.getvalue().splitlines()
+    assert [line.rsplit(",", 1)[0] for line in lines] == [
+        "fit: 5 solves", "refit: 3 solves", "leave-one-out (2 readings: T01 J1, T02 J2): 4 solves"]
+
+
+def test_progress_on_a_terminal_keeps_the_redrawn_bar():
+    import io
+
+    class Terminal(io.StringIO):
+        def isatty(self):
+            return True
+
+    stream = Terminal()
+    bar = cli_fit.ProgressBar(stream, expected=10)
+    for n in range(1, 6):
+        bar(n, "fit" if n < 4 else "refit")
+    bar.close()
+    text = stream.getvalue()
+    assert bar.tty and text.count("\r[") >= 2 and "#" in text and text.endswith("\n")
+    assert "solves" in text and "\n" not in text[:-1]  # redrawn in place, one line
