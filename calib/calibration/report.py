@@ -1,9 +1,11 @@
 """``report.html``: one self-contained page describing a calibration fit, with its plots embedded as PNG.
 
-Sections: what was fitted and how; the groups with C, interval and prior; findings in words; the
-calibration accuracy criteria; flagged readings; plots (observed vs simulated, residuals by test,
-C by group against the prior, hydrant curves); the method and its sources; the cautions. matplotlib
-runs with the Agg backend (no display). The page is written atomically through ``calib.fileio``.
+Sections, in the order a modeler reads them: the cautions; the result at a glance; the groups (table,
+and C with its interval against the prior, the model's C before and the C bounds); the flagged
+readings; the findings in words; the fit statistics and the calibration accuracy criteria; how well
+the readings fit (observed vs simulated, residuals by test); hydrant curves; parameter correlation;
+the tests; the method and its sources. matplotlib runs with the Agg backend (no display). The page is
+written atomically through ``calib.fileio``.
 """
 
 from __future__ import annotations
@@ -34,7 +36,7 @@ CAUTIONS = [
 
 def _png(fig) -> str:
     buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=90, bbox_inches="tight")
+    fig.savefig(buf, format="png", dpi=100, bbox_inches="tight")
     import matplotlib.pyplot as plt
     plt.close(fig)
     return base64.b64encode(buf.getvalue()).decode("ascii")
@@ -52,51 +54,80 @@ def _plots(result, system: str, curves: bool = True) -> dict[str, str]:
     flagged = np.array([bool(f) for f in result.flag])
     out = {}
 
-    fig, ax = plt.subplots(figsize=(5.2, 4.6))
+    fig, ax = plt.subplots(figsize=(5.6, 5.2))
     for kind, marker in (("static", "s"), ("residual", "o")):
         sel = (t.kind == kind) & ~flagged
-        ax.scatter(sim[sel], obs[sel], marker=marker, s=26, label=kind, alpha=0.8)
+        ax.scatter(sim[sel], obs[sel], marker=marker, s=28, label=f"{kind} reading", alpha=0.8)
     if flagged.any():
-        ax.scatter(sim[flagged], obs[flagged], marker="x", s=60, color="black", label="flagged")
+        ax.scatter(sim[flagged], obs[flagged], marker="x", s=70, color="black", label="flagged")
     lo, hi = float(min(obs.min(), sim.min())), float(max(obs.max(), sim.max()))
-    ax.plot([lo, hi], [lo, hi], color="grey", lw=1)
-    ax.set_xlabel(f"simulated [{pu}]")
-    ax.set_ylabel(f"observed [{pu}]")
+    pad = 0.04 * (hi - lo + 1e-9)
+    lo, hi = lo - pad, hi + pad
+    band = units.from_si(2.0 * units.PSI, "pressure", pu)  # AWWA ECAC (1999) +/-2 psi, as in the criteria
+    ax.plot([lo, hi], [lo, hi], color="grey", lw=1, label="observed = simulated")
+    ax.fill_between([lo, hi], [lo - band, hi - band], [lo + band, hi + band], color="grey",
+                    alpha=0.15, lw=0, label=f"+/-{band:.3g} {pu}")
+    ax.set_xlim(lo, hi)
+    ax.set_ylim(lo, hi)
+    ax.set_aspect("equal")
+    ax.set_xlabel(f"simulated pressure, calibrated model [{pu}]")
+    ax.set_ylabel(f"observed pressure at the gauge [{pu}]")
     ax.set_title("Observed against simulated, every reading")
-    ax.legend(fontsize=8)
+    ax.legend(fontsize=8, loc="upper left")
     out["observed vs simulated"] = _png(fig)
 
-    fig, ax = plt.subplots(figsize=(7.0, 3.6))
+    fig, ax = plt.subplots(figsize=(7.4, 4.0))
     xs = t.test + np.where(t.kind == "static", -0.12, 0.12)
     ax.axhline(0, color="grey", lw=1)
     thr = result.options.get("threshold", 3.0)
     for sgn in (-1, 1):
-        ax.axhline(sgn * thr, color="grey", lw=0.8, ls="--")
-    ax.scatter(xs[~flagged], result.z[~flagged], s=24, c=np.where(t.kind[~flagged] == "static",
-                                                                   "tab:blue", "tab:orange"))
+        ax.axhline(sgn * thr, color="grey", lw=0.8, ls="--",
+                   label=f"flag threshold +/-{thr:g}" if sgn > 0 else None)
+    for kind, colour in (("static", "tab:blue"), ("residual", "tab:orange")):
+        sel = (t.kind == kind) & ~flagged
+        ax.scatter(xs[sel], result.z[sel], s=26, color=colour, label=f"{kind} reading")
     if flagged.any():
-        ax.scatter(xs[flagged], result.z[flagged], marker="x", s=60, color="black")
-    ax.set_xticks(range(t.n_tests), t.test_ids, rotation=60, fontsize=8)
-    ax.set_ylabel("standardized residual [-]")
-    ax.set_title("Residuals by test (blue static, orange residual, x flagged)")
+        ax.scatter(xs[flagged], result.z[flagged], marker="x", s=70, color="black", label="flagged")
+    many = t.n_tests > 14
+    ax.set_xticks(range(t.n_tests), t.test_ids, rotation=60 if many else 0, fontsize=8)
+    ax.set_xlabel("test")
+    ax.set_ylabel("(observed - simulated) / sigma [-]")
+    ax.set_title("Standardized residuals by test")
+    ax.legend(fontsize=7, ncol=4, loc="upper center", bbox_to_anchor=(0.5, -0.16), frameon=False)
     out["residuals by test"] = _png(fig)
 
-    fig, ax = plt.subplots(figsize=(7.0, 3.8))
+    fig, ax = plt.subplots(figsize=(8.6, 4.4))
     g = np.arange(result.grouping.n_groups)
-    lo_c = np.where(np.isfinite(result.c_low), result.c_low, 0.0)
-    hi_c = np.where(np.isfinite(result.c_high), result.c_high, 200.0)
-    ax.errorbar(g, result.c, yerr=[result.c - lo_c, hi_c - result.c], fmt="o", capsize=4,
-                label="fitted C, 95 % interval")
-    if result.prior is not None:
-        ax.errorbar(g + 0.2, result.prior.c, yerr=1.96 * result.prior.spread, fmt="s", mfc="none",
-                    capsize=3, color="grey", label="prior, 95 % of its spread")
+    c_lo, c_hi = result.options.get("c_bounds", (40.0, 160.0))
+    lo_c = np.where(np.isfinite(result.c_low), result.c_low, c_lo)
+    hi_c = np.where(np.isfinite(result.c_high), result.c_high, c_hi)
     from calib.calibration.export import _model_c
-    ax.scatter(g - 0.2, _model_c(result), marker="_", s=200, color="tab:red", label="model C before")
-    ax.set_xticks(g, result.grouping.names, rotation=30, ha="right", fontsize=8)
+    model_c = _model_c(result)
+    top = max(c_hi, float(np.nanmax(hi_c)), float(np.nanmax(model_c)))
+    bottom = min(c_lo, float(np.nanmin(lo_c)), float(np.nanmin(model_c)))
+    if result.prior is not None:
+        top = max(top, float(np.nanmax(result.prior.c + 1.96 * result.prior.spread)))
+        bottom = min(bottom, float(np.nanmin(result.prior.c - 1.96 * result.prior.spread)))
+    ylo, yhi = bottom - 10.0, top + 10.0
+    # outside the C bounds: shaded, so an interval that reaches a bound is seen as cut by it
+    ax.axhspan(ylo, c_lo, color="grey", alpha=0.15, lw=0, label=f"outside C bounds {c_lo:g}-{c_hi:g}")
+    ax.axhspan(c_hi, yhi, color="grey", alpha=0.15, lw=0)
+    ax.errorbar(g, result.c, yerr=[result.c - lo_c, hi_c - result.c], fmt="o", capsize=5, ms=7,
+                color="tab:blue", label="fitted C, 95 % interval")
+    for gi in g:
+        ax.annotate(f"{result.c[gi]:.0f}", (gi, result.c[gi]), xytext=(7, 0),
+                    textcoords="offset points", va="center", fontsize=8, color="tab:blue")
+    if result.prior is not None:
+        ax.errorbar(g + 0.25, result.prior.c, yerr=1.96 * result.prior.spread, fmt="s", mfc="none",
+                    capsize=3, color="grey", label="prior, +/-1.96 sd")
+    ax.scatter(g - 0.25, model_c, marker="_", s=300, lw=2, color="tab:red", label="model C before")
+    ax.set_xticks(g, result.grouping.names, fontsize=9)
+    ax.set_xlim(-0.6, len(g) - 0.4)
     ax.set_ylabel("Hazen-Williams C [-]")
-    ax.set_ylim(0, 200)
-    ax.legend(fontsize=8)
-    ax.set_title("C by group against the prior")
+    ax.set_ylim(ylo, yhi)
+    ax.grid(axis="y", color="#ddd", lw=0.6)
+    ax.legend(fontsize=8, ncol=4, loc="upper center", bbox_to_anchor=(0.5, -0.08), frameon=False)
+    ax.set_title("C by group: fitted, prior, model before, and the C bounds")
     out["C by group"] = _png(fig)
 
     if curves and t.n_tests:
@@ -106,7 +137,7 @@ def _plots(result, system: str, curves: bool = True) -> dict[str, str]:
         n_show = min(t.n_tests, 12)
         cols = 4
         rows = int(np.ceil(n_show / cols))
-        fig, axes = plt.subplots(rows, cols, figsize=(10, 2.4 * rows), squeeze=False)
+        fig, axes = plt.subplots(rows, cols, figsize=(11, 2.9 * rows), squeeze=False)
         rough = result.roughness()
         fu = units.display_unit("flow", system)
         for k in range(n_show):
@@ -132,13 +163,16 @@ def _plots(result, system: str, curves: bool = True) -> dict[str, str]:
                 ax.scatter([units.from_si(q_obs, "flow", fu)], [conv(t.pressure[i])],
                            color="black" if result.flag[i] else "tab:orange",
                            marker="x" if result.flag[i] else "o", zorder=3)
-            ax.set_title(f"{t.test_ids[k]} at {net.node_ids[gauge]}", fontsize=8)
+            ax.axvline(units.from_si(total, "flow", fu), color="#bbb", lw=0.8, ls=":")
+            ax.set_title(f"{t.test_ids[k]}: gauge {net.node_ids[gauge]}, "
+                         f"{units.from_si(total, 'flow', fu):.0f} {fu} flowed", fontsize=8)
             ax.tick_params(labelsize=7)
-            ax.set_xlabel(f"flow [{fu}]", fontsize=7)
-            ax.set_ylabel(f"[{pu}]", fontsize=7)
+            ax.set_xlabel(f"total test flow [{fu}]", fontsize=7)
+            ax.set_ylabel(f"pressure at gauge [{pu}]", fontsize=7)
         for k in range(n_show, rows * cols):
             axes[k // cols][k % cols].set_axis_off()
-        fig.suptitle("Hydrant curves: calibrated model (line) and readings (dots) at the first gauge")
+        fig.suptitle("Hydrant curves at each test's first gauge: calibrated model (line), static and "
+                     "residual readings (dots; x flagged), flow tested (dotted)", fontsize=10)
         fig.tight_layout()
         out["hydrant curves"] = _png(fig)
     return out
@@ -155,59 +189,121 @@ def _fmt(v, digits=1) -> str:
     return f"{v:.{digits}f}" if np.isfinite(v) else "undetermined"
 
 
+def _glance(result, pu: str) -> str:
+    """One paragraph: how many groups the tests inform, the flagged readings, the fit's RMSE."""
+    t, est = result.tests, result.estimate
+    status = list(result.status)
+    counts = {k: status.count(k) for k in ("informed", "weakly informed", "undetermined")}
+    words = ", ".join(f"{n} {k}" for k, n in counts.items() if n)
+    n_flag = sum(1 for f in result.flag if f)
+    n_out = int((~est.used).sum())
+    rmse = units.from_si(result.rmse, "pressure", pu)
+    at_bound = [name for g, name in enumerate(result.grouping.names)
+                if est.at_bound[result._c_cols[g]]]
+    text = (f"{t.n_tests} tests, {t.n_readings} readings; {result.grouping.n_groups} pipe groups: "
+            f"{words}. {n_flag} reading(s) flagged"
+            + (f", {n_out} left out of the final fit" if n_out else "")
+            + f". RMSE of pressures {rmse:.2f} {pu}.")
+    if at_bound:
+        text += f" At a C bound (interval not reliable): {', '.join(at_bound)}."
+    return text
+
+
+def _info_rows(info):
+    """The tests table, with ISO dates shown as a person writes them (2026-05-14 08:00)."""
+    rows = info.astype(object).where(info.notna(), "").values.tolist()
+    cols = list(info.columns)
+    if "date" in cols:
+        j = cols.index("date")
+        for r in rows:
+            r[j] = str(r[j]).replace("T", "\u00a0", 1)  # a no-break space keeps date and hour together
+    return cols, rows
+
+
 def render(result, system: str = "us", curves: bool = True) -> str:
     """The report as one HTML string."""
     from calib.calibration.export import groups_frame, other_parameters_frame
     t, net, est = result.tests, result.network, result.estimate
     pu = units.display_unit("pressure", system)
     e = html.escape
+    c_bounds = result.options.get("c_bounds")
+    bounds = (f"{c_bounds[0]:g} - {c_bounds[1]:g}" if c_bounds is not None else "-")
+    group_by = result.options.get("group_by")
+    plots = _plots(result, system, curves)
+
+    def img(key, alt):
+        return (f"<figure><img alt='{e(alt)}' src='data:image/png;base64,{plots[key]}'></figure>"
+                if key in plots else "")
+
     parts = [
         "<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'>",
         f"<title>C-factor calibration - {e(str(net.name))}</title><style>"
-        "body{font-family:sans-serif;max-width:1000px;margin:1em auto;padding:0 1em;color:#222}"
+        "body{font-family:sans-serif;max-width:1100px;margin:1em auto;padding:0 1em;color:#222;"
+        "line-height:1.4}"
         "table{border-collapse:collapse;margin:.5em 0;font-size:90%}"
-        "td,th{border:1px solid #bbb;padding:2px 6px;text-align:left}"
+        "td,th{border:1px solid #bbb;padding:3px 7px;text-align:left;vertical-align:top}"
+        "th{background:#f2f2f2}td.n{text-align:right;font-variant-numeric:tabular-nums}"
         ".caution{border-left:4px solid #c60;background:#fff4e8;padding:.4em 1em}"
-        "img{max-width:100%}</style></head><body>",
+        ".glance{border-left:4px solid #36c;background:#eef3fb;padding:.5em 1em}"
+        "figure{margin:.5em 0}img{max-width:100%}.note{color:#555;font-size:90%}</style></head><body>",
         f"<h1>C-factor calibration: {e(str(net.name))}</h1>",
         f"<p>Generated {e(_dt.datetime.now().strftime('%Y-%m-%d %H:%M'))} from "
-        f"{t.n_tests} tests and {t.n_readings} readings ({int(est.used.sum())} used) in "
-        f"<code>{e(str(t.folder))}</code>. Groups: {e(str(result.options.get('group_by')))}; "
-        f"prior: {e(str(result.options.get('prior')))}; C bounds "
-        f"{e(str(result.options.get('c_bounds')))}; loss: {e(str(result.options.get('loss')))}.</p>",
+        f"<code>{e(str(t.folder))}</code>. Pipe groups from "
+        f"{e('the group column of pipes.csv' if group_by in (None, '', 'group column') else str(group_by))}; "
+        f"prior: {e(str(result.options.get('prior')))}; C bounds {e(bounds)}; "
+        f"least-squares loss: {e(str(result.options.get('loss')))}; pressures in {e(pu)} (gauge).</p>",
         "<div class='caution'><b>Cautions.</b><ul>" + "".join(f"<li>{e(c)}</li>" for c in CAUTIONS)
         + "</ul></div>",
+        f"<h2>At a glance</h2><p class='glance'>{e(_glance(result, pu))}</p>",
         "<h2>Groups</h2>",
     ]
     gf = groups_frame(result)
     rows = []
     for i, r in gf.iterrows():
+        status = r["status"] + (f" ({result.informed[i]:.0%})" if result.prior is not None else "")
+        if bool(r["at_bound"]):
+            status += ", at a C bound"
         rows.append([r["group"], _fmt(r["c_factor"]), f"{_fmt(r['c_low'])} - {_fmt(r['c_high'])}",
-                     int(r["n_pipes"]), _fmt(r["model_c"]),
                      "-" if result.prior is None else f"{r['prior_c']:.0f} +/- {r['prior_spread']:.0f}",
-                     r["status"] + (f" ({result.informed[i]:.0%})" if result.prior is not None else ""),
+                     _fmt(r["model_c"]), int(r["n_pipes"]), status,
                      _fmt(r["c_all_readings"]) if "c_all_readings" in gf else "-"])
-    parts.append(_table(["group", "C", "95 % interval", "pipes", "model C before", "prior (1 sd)",
-                         "informed by the tests", "C with every reading"], rows))
+    parts.append(_table(["group", "fitted C", "95 % interval", "prior C +/- 1 sd", "model C before",
+                         "pipes", "informed by the tests (share of precision)",
+                         "C with every reading kept"], rows))
+    parts.append("<p class='note'>C is the Hazen-Williams coefficient [-]. The share says how much of "
+                 "a group's precision comes from the readings rather than the prior: above 50 % "
+                 "informed, 10 - 50 % weakly informed, below undetermined. \"C with every reading "
+                 "kept\" is the fit before flagged readings were left out; it shows how much they "
+                 "pull.</p>")
     other = other_parameters_frame(result)
     if len(other):
         parts.append(_table(list(other.columns), other.values.tolist()))
+    parts.append(img("C by group", "C by group against the prior and the C bounds"))
     if result.prior is not None:
-        parts.append(f"<p>Prior: {e(result.prior.source)}.</p>")
+        parts.append(f"<p class='note'>Prior: {e(result.prior.source)}.</p>")
+    flagged = [i for i, f in enumerate(result.flag) if f]
+    parts.append("<h2>Flagged readings</h2>")
+    if flagged:
+        parts.append(_table(["test", "node", "kind", f"observed [{pu}]", f"simulated [{pu}]",
+                             "left out", "standardized residual, final fit [-]", "reason"],
+                            [[t.test_ids[t.test[i]], net.node_ids[t.node[i]], t.kind[i],
+                              f"{units.from_si(t.pressure[i], 'pressure', pu):.1f}",
+                              f"{units.from_si(result.simulated[i], 'pressure', pu):.1f}",
+                              "no" if est.used[i] else "yes",
+                              f"{result.z[i]:+.1f}", result.flag[i]] for i in flagged]))
+        parts.append("<p class='note'>Simulated and standardized values are from the final fit; a "
+                     "reading left out is measured against the fit made without it, so its value "
+                     "can differ from the one quoted in the reason (measured against the fit with "
+                     "it). Check a flagged reading in the field notes (gauge, gauge height, a valve) "
+                     "before discarding it.</p>")
+    else:
+        parts.append("<p>None.</p>")
     parts.append("<h2>Findings</h2><ul>" + "".join(f"<li>{e(f)}</li>" for f in result.findings)
                  + "</ul>")
-    names = [q.name for q in result.params]
-    if len(names) > 1:
-        corr_rows = [[names[i]] + [("-" if not np.isfinite(v) else f"{v:+.2f}") for v in result.corr[i]]
-                     for i in range(len(names))]
-        parts.append("<h3>Parameter correlation</h3>" + _table([""] + names, corr_rows))
-    if result.move_together:
-        parts.append("<p>Parameters that move together (|r| &gt; 0.9): " + e(", ".join(
-            f"{a} / {b} ({r:+.2f})" for a, b, r in result.move_together)) + ".</p>")
     rmse = units.from_si(result.rmse, "pressure", pu)
     parts.append(f"<h2>Fit statistics</h2><p>RMSE of pressures {rmse:.2f} {pu} over "
-                 f"{int(est.used.sum())} readings; weighted sum of squares {est.chi2:.1f} on "
-                 f"{est.dof} degrees of freedom; intervals "
+                 f"{int(est.used.sum())} readings used (of {t.n_readings}); weighted sum of squares "
+                 f"{est.chi2:.1f} on {est.dof} degrees of freedom; intervals "
                  + (f"scaled by s<sup>2</sup> = {est.s2:.2f} (chi-square test rejects the stated sigma)"
                     if est.scaled else "from the stated gauge sigma (chi-square test does not reject it)")
                  + f"; t quantile {est.t:.3f}. Largest head loss across the system in a static "
@@ -216,23 +312,27 @@ def render(result, system: str = "us", curves: bool = True) -> str:
     parts.append(_table(["criterion", "source", "required", "achieved", "met"],
                         [[c.label, c.source, f"{c.required:.0%}", f"{c.achieved:.0%}",
                           "yes" if c.passed else "no"] for c in result.criteria]))
-    flagged = [i for i, f in enumerate(result.flag) if f]
-    parts.append("<h2>Flagged readings</h2>")
-    if flagged:
-        parts.append(_table(["test", "node", "kind", f"observed [{pu}]", f"simulated [{pu}]",
-                             "standardized", "reason"],
-                            [[t.test_ids[t.test[i]], net.node_ids[t.node[i]], t.kind[i],
-                              f"{units.from_si(t.pressure[i], 'pressure', pu):.1f}",
-                              f"{units.from_si(result.simulated[i], 'pressure', pu):.1f}",
-                              f"{result.z[i]:+.1f}", result.flag[i]] for i in flagged]))
-    else:
-        parts.append("<p>None.</p>")
-    parts.append("<h2>Plots</h2>")
-    for title, png in _plots(result, system, curves).items():
-        parts.append(f"<h3>{e(title.capitalize())}</h3><img alt='{e(title)}' "
-                     f"src='data:image/png;base64,{png}'>")
+    parts.append("<h2>How well the readings fit</h2>")
+    parts.append(img("observed vs simulated", "observed against simulated pressure, every reading"))
+    parts.append(img("residuals by test", "standardized residuals by test"))
+    if "hydrant curves" in plots:
+        parts.append("<h2>Hydrant curves</h2>" + img("hydrant curves", "hydrant curves per test"))
+        parts.append("<p class='note'>The curve is the calibrated model's pressure at the gauge as the "
+                     "test's flows are scaled from 0 to 1.6 times what was flowed; beyond the dotted "
+                     "line it is an extrapolation, not a measurement.</p>")
+    names = [q.name for q in result.params]
+    if len(names) > 1:
+        corr_rows = [[names[i]] + [("-" if not np.isfinite(v) else f"{v:+.2f}") for v in result.corr[i]]
+                     for i in range(len(names))]
+        parts.append("<h2>Parameter correlation</h2>" + _table([""] + names, corr_rows))
+        parts.append("<p class='note'>Near +1 or -1: the tests cannot tell the two apart; a test "
+                     "that loads one group and not the other separates them.</p>")
+    if result.move_together:
+        parts.append("<p>Parameters that move together (|r| &gt; 0.9): " + e(", ".join(
+            f"{a} / {b} ({r:+.2f})" for a, b, r in result.move_together)) + ".</p>")
     if not t.info.empty:
-        parts.append("<h2>Tests</h2>" + _table(list(t.info.columns), t.info.values.tolist()))
+        cols, rows = _info_rows(t.info)
+        parts.append("<h2>Tests</h2>" + _table(cols, rows))
     parts.append(
         "<h2>Method</h2><p>Each test gives a static snapshot (normal demand) and a residual snapshot "
         "(normal demand plus the test's flows); both kinds of reading are fitted (static readings "
@@ -247,6 +347,8 @@ def render(result, system: str = "us", curves: bool = True) -> str:
         "threshold are left out one at a time and the fit repeated. Accuracy criteria: WRc (1989) "
         "Network Analysis - A Code of Practice, and the AWWA ECAC (1999) calibration guidelines, "
         "both quoted from memory.</p>")
+    parts.append("<div class='caution'><b>Before using these C-factors.</b> "
+                 + e(CAUTIONS[0]) + "</div>")
     parts.append("</body></html>")
     return "\n".join(parts)
 

@@ -70,6 +70,15 @@ def test_report_is_self_contained_with_cautions(demo_run):
     assert "src='http" not in page and 'src="http' not in page
     assert "licensed engineer" in page and "open and close them slowly" in page
     assert "WRc (1989)" in page and "AWWA ECAC (1999)" in page
+    # read in a modeler's order (common practice): cautions, the result, the groups with their plot,
+    # the flagged readings, then the statistics, the fit plots, curves, and the method last
+    order = ["Cautions.", "<h2>At a glance", "<h2>Groups", "alt='C by group", "<h2>Flagged readings",
+             "<h2>Findings", "<h2>Fit statistics", "<h2>How well the readings fit",
+             "<h2>Hydrant curves", "<h2>Parameter correlation", "<h2>Tests", "<h2>Method"]
+    where = [page.find(mark) for mark in order]
+    assert -1 not in where and where == sorted(where), dict(zip(order, where))
+    assert "5 pipe groups: 5 informed" in page and "C bounds 40 - 160" in page
+    assert "<th>left out</th>" in page and "prior C +/- 1 sd" in page
 
 
 def test_si_output_units(tmp_path):
