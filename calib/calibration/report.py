@@ -115,8 +115,8 @@ def _plots(result, system: str, curves: bool = True) -> dict[str, str]:
     ax.errorbar(g, result.c, yerr=[result.c - lo_c, hi_c - result.c], fmt="o", capsize=5, ms=7,
                 color="tab:blue", label="fitted C, 95 % interval")
     for gi in g:
-        ax.annotate(f"{result.c[gi]:.0f}", (gi, result.c[gi]), xytext=(7, 0),
-                    textcoords="offset points", va="center", fontsize=8, color="tab:blue")
+        ax.annotate(f"{result.c[gi]:.0f}", (gi, hi_c[gi]), xytext=(0, 4),  # above its interval
+                    textcoords="offset points", ha="center", va="bottom", fontsize=8, color="tab:blue")
     if result.prior is not None:
         ax.errorbar(g + 0.25, result.prior.c, yerr=1.96 * result.prior.spread, fmt="s", mfc="none",
                     capsize=3, color="grey", label="prior, +/-1.96 sd")
@@ -216,7 +216,8 @@ def _info_rows(info):
     if "date" in cols:
         j = cols.index("date")
         for r in rows:
-            r[j] = str(r[j]).replace("T", "\u00a0", 1)  # a no-break space keeps date and hour together
+            # no-break space and hyphens: a date and its hour stay on one line
+            r[j] = str(r[j]).replace("T", "\u00a0", 1).replace("-", "\u2011")
     return cols, rows
 
 
