@@ -34,6 +34,24 @@ CAUTIONS = [
 ]
 
 
+def _n185_forward(q):
+    return np.power(np.clip(q, 0.0, None), 1.85)
+
+
+def _n185_inverse(x):
+    return np.power(np.clip(x, 0.0, None), 1.0 / 1.85)
+
+
+def _flow_ticks(q_max: float, most: int = 4) -> np.ndarray:
+    """Round flow ticks up to ``q_max``, without 0 (the N^1.85 axis crowds the low ones together)."""
+    step = 10.0 ** np.floor(np.log10(max(q_max, 1e-12) / most))
+    for m in (1.0, 2.0, 5.0, 10.0):
+        if q_max / (m * step) <= most:
+            step *= m
+            break
+    return np.arange(step, q_max * (1 + 1e-9), step)
+
+
 def _png(fig) -> str:
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=100, bbox_inches="tight")
@@ -166,8 +184,12 @@ def _plots(result, system: str, curves: bool = True) -> dict[str, str]:
             ax.axvline(units.from_si(total, "flow", fu), color="#bbb", lw=0.8, ls=":")
             ax.set_title(f"{t.test_ids[k]}: gauge {net.node_ids[gauge]}, "
                          f"{units.from_si(total, 'flow', fu):.0f} {fu} flowed", fontsize=8)
+            # The trade's N^1.85 axis (NFPA 291): a supply curve is close to a straight line on it.
+            ax.set_xscale("function", functions=(_n185_forward, _n185_inverse))
+            ax.set_xlim(left=0.0)
+            ax.set_xticks(_flow_ticks(units.from_si(total * scales[-1], "flow", fu)))
             ax.tick_params(labelsize=7)
-            ax.set_xlabel(f"total test flow [{fu}]", fontsize=7)
+            ax.set_xlabel(f"total test flow [{fu}], N^1.85 scale", fontsize=7)
             ax.set_ylabel(f"pressure at gauge [{pu}]", fontsize=7)
         for k in range(n_show, rows * cols):
             axes[k // cols][k % cols].set_axis_off()
