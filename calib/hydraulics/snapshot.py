@@ -58,46 +58,46 @@ def resolve(snapshot: Snapshot | None, network) -> ResolvedSnapshot:
                                 field="demand_factor", expected="a number such as 1.0"))
         factor = 1.0
     nj = network.n_junctions
-    index = network.node_index
     demand = network.demand * factor
     extra = np.zeros(nj)
-    for node, value in snapshot.extra_demand.items():
-        i = index.get(str(node))
-        if i is None or i >= nj:
-            what = "is a fixed-grade source, not a junction" if i is not None else \
-                "is not in the network"
-            problems.append(Problem(f"node '{node}' {what}", id=str(node), field="extra_demand",
-                                    expected="the id of a junction"))
-            continue
-        try:
-            v = float(value)
-            if not math.isfinite(v):
-                raise ValueError
-        except (TypeError, ValueError):
-            problems.append(Problem(f"extra demand {value!r} is not a finite number [m3/s]",
-                                    id=str(node), field="extra_demand",
-                                    expected="a flow in m3/s, e.g. 0.063 for 1000 gpm"))
-            continue
+    for i, v in _named_values(snapshot.extra_demand, network, problems, sources=False):
         extra[i] += v
     heads = network.source_head.copy()
-    for node, value in snapshot.source_head.items():
-        i = index.get(str(node))
-        if i is None or i < nj:
-            what = "is a junction, not a fixed-grade source" if i is not None else \
-                "is not in the network"
-            problems.append(Problem(f"node '{node}' {what}", id=str(node), field="source_head",
-                                    expected="the id of a reservoir or tank"))
-            continue
-        try:
-            v = float(value)
-            if not math.isfinite(v):
-                raise ValueError
-        except (TypeError, ValueError):
-            problems.append(Problem(f"source head {value!r} is not a finite number [m]",
-                                    id=str(node), field="source_head",
-                                    expected="a hydraulic grade in m"))
-            continue
+    for i, v in _named_values(snapshot.source_head, network, problems, sources=True):
         heads[i - nj] = v
     if problems:
         raise InputError(problems)
     return ResolvedSnapshot(demand=demand + extra, source_head=heads, snapshot=snapshot)
+
+
+# What each named mapping of a snapshot holds: (field, wrong kind of node, expected node, value, hint).
+_FIELDS = {
+    False: ("extra_demand", "is a fixed-grade source, not a junction", "the id of a junction",
+            "extra demand {!r} is not a finite number [m3/s]", "a flow in m3/s, e.g. 0.063 for 1000 gpm"),
+    True: ("source_head", "is a junction, not a fixed-grade source", "the id of a reservoir or tank",
+           "source head {!r} is not a finite number [m]", "a hydraulic grade in m"),
+}
+
+
+def _named_values(mapping: dict, network, problems: list[Problem], sources: bool):
+    """Yield (node number, float) for each entry of ``mapping`` that names the right kind of node
+    (a source when ``sources``, else a junction) and holds a finite number; append a Problem for the
+    others."""
+    name, wrong_kind, expected_node, bad_value, expected_value = _FIELDS[sources]
+    index, nj = network.node_index, network.n_junctions
+    for node, value in mapping.items():
+        i = index.get(str(node))
+        if i is None or (i >= nj) != sources:
+            what = wrong_kind if i is not None else "is not in the network"
+            problems.append(Problem(f"node '{node}' {what}", id=str(node), field=name,
+                                    expected=expected_node))
+            continue
+        try:
+            v = float(value)
+            if not math.isfinite(v):
+                raise ValueError
+        except (TypeError, ValueError):
+            problems.append(Problem(bad_value.format(value), id=str(node), field=name,
+                                    expected=expected_value))
+            continue
+        yield i, v
