@@ -3,7 +3,7 @@
 Every problem is collected (file, row, id, field, what is wrong, what is plausible) and raised at once
 as one ``NetworkError``: duplicate ids (also across junctions and sources, and across pipes and pumps),
 link ends that name no node, links from a node to itself, non-positive length or diameter, C outside
-1-200, negative minor loss or roughness height, bad pump curves, a source with no pipe, and parts of
+1-200, negative minor loss, a roughness height outside 0-10 mm, bad pump curves, a source with no pipe, and parts of
 the network that no fixed-grade source feeds (``scipy.sparse.csgraph.connected_components`` over open
 pipes and running pumps).
 
@@ -23,6 +23,10 @@ from calib.network.tables import NetworkTables, ParsedTable
 
 #: Plausible Hazen-Williams C: new smooth pipe is about 150, badly tuberculated mains go below 40.
 C_RANGE = (1.0, 200.0)
+#: Plausible Darcy-Weisbach absolute roughness [m]: drawn tubing about 0.0015 mm, new cast iron
+#: 0.26 mm, riveted steel up to 9 mm (Moody 1944, "Friction factors for pipe flow", Trans. ASME 66,
+#: roughness chart; from memory). Above 10 mm a value in the wrong unit is the likely cause.
+ROUGHNESS_HEIGHT_MAX = 0.010
 #: How many junction ids to name for a part of the network with no source.
 NAMED_IDS = 5
 
@@ -85,6 +89,12 @@ def _check_pipe_values(pipes: ParsedTable, problems: list[Problem]) -> None:
         for i in np.flatnonzero(np.isfinite(values) & (values < 0)):
             problems.append(_problem(pipes, i, f"{name.replace('_', ' ')} must not be negative",
                                      field=name, expected="zero or more"))
+    e = pipes.get("roughness_height")
+    for i in np.flatnonzero(np.isfinite(e) & (e > ROUGHNESS_HEIGHT_MAX)):
+        problems.append(_problem(pipes, i, f"roughness height {e[i] * 1e3:g} mm is out of range",
+                                 field="roughness_height", expected=f"0 to "
+                                 f"{ROUGHNESS_HEIGHT_MAX * 1e3:g} mm; new cast iron about 0.26 mm, "
+                                 "riveted steel up to 9 mm"))
 
 
 def _pump_curves(pumps: ParsedTable, problems: list[Problem]) -> np.ndarray:

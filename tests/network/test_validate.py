@@ -1,11 +1,12 @@
 """Validation: every kind of problem gives a message with file, row (header = row 1), id and field,
 and all of them are reported at once in one NetworkError (the behaviour the issue asks for)."""
 
+import numpy as np
 import pytest
 
 from calib.errors import InputError, NetworkError
 from calib.network.io import read_network
-from calib.network.validate import C_RANGE
+from calib.network.validate import C_RANGE, ROUGHNESS_HEIGHT_MAX
 
 # The same invented three-node network as conftest.py's default folder.
 JUNCTIONS = "id,elevation [ft],demand [gpm],hydrant\nJ1,100,50,yes\nJ2,110,20,no\n"
@@ -130,6 +131,32 @@ def test_negative_minor_loss(make_folder):
                                                        "P2,J1,J2,500,6,120,0\n"))
     assert got == ["pipes.csv, row 2, id 'P1', field 'minor_loss': minor loss must not be "
                    "negative (expected zero or more)"]
+
+
+@pytest.mark.parametrize("mm, bad", [(0, False), (0.26, False), (10, False), (10.5, True),
+                                     (250, True)])
+def test_roughness_height_range(make_folder, mm, bad):
+    # 0-10 mm: Moody's roughness chart (Moody 1944, Trans. ASME 66) runs from drawn tubing
+    # (0.0015 mm) to riveted steel (up to 9 mm), from memory; 0.26 mm is its new cast iron.
+    folder = make_folder(pipes=HEAD.strip() + ",roughness_height [mm]\n"
+                         f"P1,R1,J1,1000,8,100,{mm}\nP2,J1,J2,500,6,120,0.26\n")
+    if not bad:
+        assert read_network(folder).roughness_height[0] == pytest.approx(mm * 1e-3, rel=1e-12)
+        return
+    assert ROUGHNESS_HEIGHT_MAX == pytest.approx(0.010)
+    assert problems_of(folder) == [
+        f"pipes.csv, row 2, id 'P1', field 'roughness_height': roughness height {mm:g} mm is out "
+        "of range (expected 0 to 10 mm; new cast iron about 0.26 mm, riveted steel up to 9 mm)"]
+
+
+def test_roughness_height_range_in_geojson(tmp_path, make_folder):
+    # The same rule reaches a GeoJSON network: both readers share validate.assemble.
+    from calib.network.io import write_network_geojson
+    net = read_network(make_folder())
+    path = write_network_geojson(net.replace(roughness_height=np.array([0.25, 2.6e-4])),
+                         tmp_path / "net.geojson")
+    with pytest.raises(NetworkError, match=r"roughness height 250 mm is out of range"):
+        read_network(path)
 
 
 def test_every_problem_at_once(make_folder):
