@@ -13,7 +13,8 @@ from calib.errors import InputError, Problem
 from calib.hydraulics import headloss as hl
 
 
-def _shown(ids) -> str:
+def shown_ids(ids) -> str:
+    """Up to 20 ids for a message, then how many more."""
     ids = [str(i) for i in ids]
     return ", ".join(ids[:20]) + (f" and {len(ids) - 20} more" if len(ids) > 20 else "")
 
@@ -25,7 +26,7 @@ def check_geometry(net, link_from, link_to) -> None:
 
     def bad_pipes(mask, field, what, expected):
         if mask.any():
-            problems.append(Problem(f"{what} for pipe(s) {_shown(net.pipe_ids[mask])}",
+            problems.append(Problem(f"{what} for pipe(s) {shown_ids(net.pipe_ids[mask])}",
                                     field=field, expected=expected))
 
     bad_pipes(~(np.isfinite(net.length) & (net.length > 0)), "length",
@@ -46,7 +47,7 @@ def check_geometry(net, link_from, link_to) -> None:
               & np.isfinite(s) & (s >= 0))
         if not ok.all():
             problems.append(Problem(f"pump curve or speed not usable for pump(s) "
-                                    f"{_shown(np.asarray(p.ids)[~ok])}", field="pumps",
+                                    f"{shown_ids(np.asarray(p.ids)[~ok])}", field="pumps",
                                     expected="shutoff head > 0, r >= 0, n > 0, speed >= 0"))
     if problems:
         raise InputError(problems)
@@ -58,7 +59,7 @@ def check_roughness_height(net, e) -> None:
     if bad.any():
         raise InputError(Problem(
             f"Darcy-Weisbach needs the absolute roughness of every pipe; missing or invalid "
-            f"for {int(bad.sum())} pipe(s): {_shown(net.pipe_ids[bad])}", field="roughness_height",
+            f"for {int(bad.sum())} pipe(s): {shown_ids(net.pipe_ids[bad])}", field="roughness_height",
             expected="a height in m >= 0, e.g. 0.00026 for cast iron, 1.5e-6 for PVC"))
 
 
@@ -75,7 +76,7 @@ def roughness_parameters(net, headloss: str, roughness=None):
         bad = ~(np.isfinite(roughness) & (roughness > 0))
         if bad.any():
             raise InputError(f"Hazen-Williams C not a positive number for pipe(s) "
-                             f"{_shown(net.pipe_ids[bad])}", field="roughness",
+                             f"{shown_ids(net.pipe_ids[bad])}", field="roughness",
                              expected="C between 1 and 200")
         return roughness, hl.hazen_williams_resistance(net.length, net.diameter, roughness)
     check_roughness_height(net, roughness)

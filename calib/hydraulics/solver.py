@@ -81,9 +81,9 @@ class NetworkSolver:
         self.link_from = np.concatenate([net.pipe_from, np.asarray(net.pumps.from_node, np.int64)])
         self.link_to = np.concatenate([net.pipe_to, np.asarray(net.pumps.to_node, np.int64)])
         self.link_ids = np.concatenate([net.pipe_ids, np.asarray(net.pumps.ids, dtype=object)])
-        self._check_geometry()
+        checks.check_geometry(net, self.link_from, self.link_to)
         if headloss == "darcy-weisbach":
-            self._check_roughness_height(net.roughness_height)
+            checks.check_roughness_height(net, net.roughness_height)
         self.pattern = SchurPattern(self.nj, self.link_from, self.link_to, net.n_nodes, dense=dense)
         self.area = np.pi * net.diameter ** 2 / 4.0
         self.minor = hl.minor_loss_coefficient(net.minor_loss, net.diameter)
@@ -96,17 +96,6 @@ class NetworkSolver:
         self.pump_n = np.asarray(pumps.curve_n, dtype=float)
         self._graph_rows = np.concatenate([self.link_from, self.link_to])
         self._graph_cols = np.concatenate([self.link_to, self.link_from])
-
-    # --- set-up (front-door checks in ``calib.hydraulics.checks``) ---------------------------
-    def _check_geometry(self):
-        checks.check_geometry(self.network, self.link_from, self.link_to)
-
-    def _check_roughness_height(self, e):
-        checks.check_roughness_height(self.network, e)
-
-    def _params(self, roughness):
-        """Per-pipe coefficient of the head-loss law: HW resistance r, or DW roughness height."""
-        return checks.roughness_parameters(self.network, self.headloss, roughness)
 
     # --- the link laws -----------------------------------------------------------------------
     def _laws(self, q, coef):
@@ -174,7 +163,8 @@ class NetworkSolver:
         """Solve one snapshot; ``roughness`` overrides the network's C (or DW height) per pipe;
         ``warm_start`` is a previous ``SolveResult`` (flows and statuses start from it)."""
         resolved = resolve(snapshot, self.network)
-        rough, coef = self._params(roughness)
+        # per-pipe coefficient of the law: HW resistance r, or DW roughness height
+        rough, coef = checks.roughness_parameters(self.network, self.headloss, roughness)
         if warm_start is not None:
             q = warm_start.link_flow.astype(float).copy()
             active = warm_start._active.copy()
@@ -350,8 +340,7 @@ class NetworkSolver:
     def _check_isolated(self, isolated, demand):
         bad = isolated & (np.abs(demand) > 0)
         if bad.any():
-            ids = [str(i) for i in self.network.node_ids[: self.nj][bad]]
-            shown = ", ".join(ids[:20]) + (f" and {len(ids) - 20} more" if len(ids) > 20 else "")
+            shown = checks.shown_ids(self.network.node_ids[: self.nj][bad])
             raise NetworkError(Problem(
                 f"junction(s) {shown} have a demand but are cut off from every fixed-grade source "
                 f"by closed pipes, closed check valves or idle pumps", field="status",
