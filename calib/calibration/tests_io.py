@@ -278,6 +278,7 @@ def read_tests(folder, network, sigma: float = units.PSI) -> TestSet:
     # tests.csv first: it fixes the order of tests and their dates
     info = pd.DataFrame()
     order: list[str] = []
+    position: dict[str, int] = {}  # test id -> index in order
     if (folder / "tests.csv").is_file():
         t = _Table(folder / "tests.csv", problems, ("test_id",))
         if t.ok:
@@ -287,24 +288,26 @@ def read_tests(folder, network, sigma: float = units.PSI) -> TestSet:
                 if tid == "":
                     problems.append(Problem("test_id is missing", file="tests.csv", row=i + 2,
                                             field="test_id"))
-                elif tid in order:
+                elif tid in position:
                     problems.append(Problem(f"test '{tid}' appears twice", file="tests.csv",
                                             row=i + 2, id=tid, field="test_id"))
                 else:
+                    position[tid] = len(order)
                     order.append(tid)
 
     def test_index(tid: str, table: _Table, i: int) -> int | None:
         if tid == "":
             problems.append(Problem("test_id is missing", file=table.name, row=i + 2, field="test_id"))
             return None
-        if tid not in order:
+        if tid not in position:
             if not info.empty:
                 problems.append(Problem(f"test '{tid}' is not in tests.csv", file=table.name,
                                         row=i + 2, id=tid, field="test_id",
                                         expected="a test_id listed in tests.csv"))
                 return None
+            position[tid] = len(order)
             order.append(tid)
-        return order.index(tid)
+        return position[tid]
 
     # flows.csv
     flows: dict[int, dict[int, float]] = {}
@@ -398,19 +401,15 @@ def read_tests(folder, network, sigma: float = units.PSI) -> TestSet:
         raise InputError(problems)
 
     n_tests = len(order)
-    notes = []
     residual_tests = {t for t, k in zip(cols["test"], cols["kind"]) if k == "residual"}
-    for t in sorted(residual_tests):
-        if not flows.get(t):
-            notes.append(f"test {order[t]}: residual readings but no flows in flows.csv")
-    for t in range(n_tests):
-        if t not in {*cols["test"]}:
-            notes.append(f"test {order[t]}: no gauge readings in pressures.csv; it informs nothing")
-    if any(not flows.get(t) for t in residual_tests):
-        bad = [order[t] for t in sorted(residual_tests) if not flows.get(t)]
+    bad = [order[t] for t in sorted(residual_tests) if not flows.get(t)]
+    if bad:
         raise InputError([Problem("residual readings given but the test has no flowing hydrant",
                                   file="flows.csv", id=t, field="test_id",
                                   expected="one row per flowing outlet of the test") for t in bad])
+    read = set(cols["test"])
+    notes = [f"test {order[t]}: no gauge readings in pressures.csv; it informs nothing"
+             for t in range(n_tests) if t not in read]
 
     # days for the optional demand factor: the date column of tests.csv, else one day
     dates = ["" for _ in range(n_tests)]
