@@ -17,7 +17,7 @@ from dataclasses import dataclass, field
 from calib.errors import CalibError
 from calib.units import GAMMA_WATER, PSI
 
-from mobile.services import values
+from mobile.services import background, values
 
 TOLERANCE = 5.0 * PSI  # [Pa] see the module docstring
 
@@ -148,14 +148,6 @@ def run_in_background(service, tid: str, on_done, tol: float = TOLERANCE) -> thr
     if isinstance(job, CheckResult):
         on_done(job)
         return None
-
-    def work():
-        try:
-            result = run_job(job)
-        except Exception as exc:  # noqa: BLE001 - a worker must always report back
-            result = CheckResult(False, f"The model check failed: {exc}")
-        on_done(result)
-
-    thread = threading.Thread(target=work, name=f"model-check-{tid}", daemon=True)
-    thread.start()
-    return thread
+    return background.start(lambda: run_job(job), on_done,
+                            lambda exc: CheckResult(False, f"The model check failed: {exc}"),
+                            name=f"model-check-{tid}")
