@@ -3,23 +3,21 @@
 On this scale (flow raised to the power 1.85 along x, pressure along y) a hydrant's supply curve
 P = Ps - (Ps - Pr) (Q / Qf)^1.85 is a straight line, which is how the trade reads and extrapolates it
 (NFPA 291; the N^1.85 graph paper). The points come from ``calib.flowtest`` (``HydrantCurve``); this
-module only draws, with matplotlib's Agg backend (no display needed), large type and thick lines
-for reading in sunlight.
+module only draws, with matplotlib's Agg renderer (no display needed), large type and thick lines
+for reading in sunlight. A bare ``Figure`` (no pyplot and its global state) so that the drawing can
+run in a worker thread.
 """
 
 from __future__ import annotations
 
 import io
 
-import matplotlib
+import numpy as np
+from matplotlib.figure import Figure
 
-matplotlib.use("Agg")
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
+from calib import fileio, flowtest
 
-from calib import fileio, flowtest  # noqa: E402
-
-from mobile.services import values  # noqa: E402
+from mobile.services import values
 
 
 def _nice_ticks(top: float, n: int = 6) -> np.ndarray:
@@ -57,7 +55,8 @@ def render_curve(results, path, system: str = "us", width_px: int = 820, height_
     uq, up = values.field_unit("flow", system), values.field_unit("pressure", system)
 
     dpi = 100
-    fig, ax = plt.subplots(figsize=(width_px / dpi, height_px / dpi), dpi=dpi)
+    fig = Figure(figsize=(width_px / dpi, height_px / dpi), dpi=dpi)
+    ax = fig.subplots()
     fig.patch.set_facecolor("white")
     top = max(qr, qf) * 1.15
     ticks = _nice_ticks(top)
@@ -86,6 +85,5 @@ def render_curve(results, path, system: str = "us", width_px: int = 820, height_
     fig.tight_layout()
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=dpi, facecolor="white")
-    plt.close(fig)
     fileio.write_bytes(path, buf.getvalue())
     return True
