@@ -9,11 +9,23 @@ from __future__ import annotations
 
 import numpy as np
 
+from calib.errors import InputError
 from calib.hydraulics.headloss import (HW_COEFFICIENT, HW_DIAMETER_EXPONENT, HW_FLOW_EXPONENT,
                                        hazen_williams_resistance)
 
 __all__ = ["hazen_williams_resistance", "series_resistance", "parallel_resistance",
            "equivalent_diameter"]
+
+
+def _resistances(k, who: str) -> np.ndarray:
+    """``k`` as a float array, or an ``InputError`` naming the first value that is not usable."""
+    k = np.asarray(k, dtype=float).ravel()
+    bad = np.flatnonzero(~(np.isfinite(k) & (k > 0)))
+    if k.size == 0 or bad.size:
+        what = "no resistance given" if k.size == 0 else f"resistance {k[bad[0]]:g} at index {bad[0]}"
+        raise InputError(f"{who}: {what}", field="k",
+                         expected="one or more positive finite resistances [m/(m3/s)^1.852]")
+    return k
 
 
 def series_resistance(k) -> float:
@@ -22,9 +34,7 @@ def series_resistance(k) -> float:
     K_i [m/(m3/s)^1.852]. Source: the equivalent-pipe method, e.g. Walski et al., Advanced Water
     Distribution Modeling and Management (2003), skeletonization chapter (from memory).
     """
-    k = np.asarray(k, dtype=float)
-    if k.size == 0 or np.any(~np.isfinite(k)) or np.any(k <= 0):
-        raise ValueError("series_resistance needs one or more positive finite resistances")
+    k = _resistances(k, "series_resistance")
     return float(k.sum())
 
 
@@ -34,9 +44,7 @@ def parallel_resistance(k, exponent: float = HW_FLOW_EXPONENT) -> float:
     The same head loss h across each: ``Q_i = (h/K_i)^(1/n)`` and ``sum Q_i = (h/K_eq)^(1/n)``.
     K_i [m/(m3/s)^n]. Source: the equivalent-pipe method, as for ``series_resistance``.
     """
-    k = np.asarray(k, dtype=float)
-    if k.size == 0 or np.any(~np.isfinite(k)) or np.any(k <= 0):
-        raise ValueError("parallel_resistance needs one or more positive finite resistances")
+    k = _resistances(k, "parallel_resistance")
     return float(np.sum(k ** (-1.0 / exponent)) ** (-exponent))
 
 
@@ -50,5 +58,6 @@ def equivalent_diameter(k, length, c) -> float:
     """
     k, length, c = float(k), float(length), float(c)
     if not (k > 0 and length > 0 and c > 0):
-        raise ValueError(f"equivalent_diameter needs K, length and C > 0, got {k}, {length}, {c}")
+        raise InputError(f"equivalent_diameter needs K, length and C > 0, got {k:g}, {length:g}, "
+                         f"{c:g}", field="k, length, c", expected="all three positive")
     return (HW_COEFFICIENT * length / (c ** HW_FLOW_EXPONENT * k)) ** (1.0 / HW_DIAMETER_EXPONENT)

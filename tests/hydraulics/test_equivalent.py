@@ -3,6 +3,7 @@
 import numpy as np
 import pytest
 
+from calib.errors import InputError
 from calib.hydraulics import (NetworkSolver, equivalent_diameter, hazen_williams_resistance,
                               parallel_resistance, series_resistance)
 from calib.units import FT, INCH
@@ -55,10 +56,12 @@ def test_equivalent_diameter_round_trip():
 
 @pytest.mark.parametrize("bad", [[], [1.0, -2.0], [np.nan]])
 def test_bad_resistances_are_refused(bad):
-    with pytest.raises(ValueError):
+    # an InputError (a ValueError) that names the function, the field and the plausible range
+    with pytest.raises(InputError, match=r"series_resistance: .*field 'k'|field 'k': series_"):
         series_resistance(bad)
-    with pytest.raises(ValueError):
+    with pytest.raises(InputError, match=r"positive finite resistances"):
         parallel_resistance(bad)
+    assert issubclass(InputError, ValueError)
 
 
 # --- property-based: any chain or bundle of pipes (hypothesis) ---------------------------------
