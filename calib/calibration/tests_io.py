@@ -167,13 +167,19 @@ class _Table:
             body.append((cells + [""] * len(header))[: len(header)])
         return pd.DataFrame(body, columns=header, dtype=object)
 
+    def require_any(self, names: tuple[str, ...], message: str, expected: str) -> None:
+        """A problem, and the table set aside, when none of the columns ``names`` is present."""
+        if self.ok and not any(n in self.columns for n in names):
+            self.problems.append(Problem(message, file=self.name, expected=expected))
+            self.ok = False
+
     def __len__(self) -> int:
         return len(self.frame)
 
     def text(self, i: int, name: str) -> str:
         if name not in self.columns:
             return ""
-        return str(self.frame.iloc[i][self.columns[name]]).strip()
+        return str(self.frame.at[i, self.columns[name]]).strip()  # .at: no row Series per cell
 
     def number(self, i: int, name: str, row_id: str | None, required: bool = False) -> float:
         """The SI value in row i, column ``name``; nan when blank (a problem if ``required``)."""
@@ -313,10 +319,8 @@ def read_tests(folder, network, sigma: float = units.PSI) -> TestSet:
     flows: dict[int, dict[int, float]] = {}
     pitot_tests: set[str] = set()
     f = _Table(folder / "flows.csv", problems, ("test_id", "node"))
-    if f.ok and "flow" not in f.columns and "pitot" not in f.columns:
-        problems.append(Problem("neither a flow nor a pitot column", file="flows.csv",
-                                expected="'flow [gpm]', or 'pitot [psi]' with 'outlet_diameter [in]'"))
-        f.ok = False
+    f.require_any(("flow", "pitot"), "neither a flow nor a pitot column",
+                  "'flow [gpm]', or 'pitot [psi]' with 'outlet_diameter [in]'")
     if f.ok:
         for i in range(len(f)):
             tid = f.text(i, "test_id")
@@ -344,10 +348,8 @@ def read_tests(folder, network, sigma: float = units.PSI) -> TestSet:
     # pressures.csv
     cols = {k: [] for k in ("test", "node", "kind", "pressure", "gauge_height", "sigma", "row")}
     pr = _Table(folder / "pressures.csv", problems, ("test_id", "node"))
-    if pr.ok and "static" not in pr.columns and "residual" not in pr.columns:
-        problems.append(Problem("neither a static nor a residual column", file="pressures.csv",
-                                expected="'static [psi]' and 'residual [psi]'"))
-        pr.ok = False
+    pr.require_any(("static", "residual"), "neither a static nor a residual column",
+                   "'static [psi]' and 'residual [psi]'")
     if pr.ok:
         seen_gauges: dict[tuple[int, int], int] = {}
         for i in range(len(pr)):
