@@ -24,7 +24,7 @@ import numpy as np
 
 from calib import fileio
 from calib.errors import NetworkError, Problem
-from calib.network import validate
+from calib.network import pump_curve, validate
 from calib.network.model import Network
 from calib.network.tables import NetworkTables, parse_table
 from calib.units import DISPLAY, from_si, unit_factor
@@ -276,18 +276,16 @@ def _pipe_features(network: Network, units: str, to_map) -> list[dict]:
 
 
 def _pump_features(network: Network, units: str, to_map) -> list[dict]:
-    """Pumps as three points of their curve at full speed (q = 0, q_max / 2, 0.9 q_max)."""
+    """Pumps as three points of their curve (``pump_curve.curve_points``)."""
     u, pumps = DISPLAY[units], network.pumps
     if len(pumps) == 0:
         return []
     ids = network.node_ids.astype(str)
-    h0, r, n = pumps.shutoff_head, pumps.curve_r, pumps.curve_n
-    q_max = (h0 / r) ** (1.0 / n)
     columns = {"id": pumps.ids.astype(str).tolist(), "kind": ["pump"] * len(pumps),
                "from": ids[pumps.from_node].tolist(), "to": ids[pumps.to_node].tolist()}
-    for i, share in enumerate((0.0, 0.5, 0.9), start=1):
-        q = share * q_max
-        columns[f"head_{i} [{u['head']}]"] = _column(from_si(h0 - r * q ** n, "head", u["head"]))
+    points = pump_curve.curve_points(pumps.shutoff_head, pumps.curve_r, pumps.curve_n)
+    for i, (q, h) in enumerate(points, start=1):
+        columns[f"head_{i} [{u['head']}]"] = _column(from_si(h, "head", u["head"]))
         columns[f"flow_{i} [{u['flow']}]"] = _column(from_si(q, "flow", u["flow"]))
     columns["speed"] = _column(pumps.speed)
     lines = _lines(network, pumps.from_node, pumps.to_node, to_map)

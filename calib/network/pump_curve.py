@@ -72,3 +72,18 @@ def design_point_curve(design_head: float, design_flow: float,
     q_max = MAX_FLOW_RATIO * design_flow
     n = math.log(h0 / (h0 - design_head)) / math.log(MAX_FLOW_RATIO)
     return float(h0), float(h0 / q_max ** n), float(n)
+
+
+#: Shares of q_max (the flow at zero head) where a writer samples a curve as its three points.
+WRITE_SHARES = (0.0, 0.5, 0.9)
+
+
+def curve_points(h0, r, n) -> list[tuple[np.ndarray, np.ndarray]]:
+    """Three points ``(q, h)`` of each curve ``h = h0 - r q**n`` at full speed, for the writers.
+
+    h0 [m], r [m/(m3/s)**n], n [-] per pump (arrays); q at ``WRITE_SHARES`` of
+    ``q_max = (h0 / r)**(1/n)`` [m3/s]. ``three_point_curve`` fits them back exactly.
+    """
+    h0, r, n = (np.asarray(v, dtype=float) for v in (h0, r, n))
+    q_max = (h0 / r) ** (1.0 / n)
+    return [(share * q_max, h0 - r * (share * q_max) ** n) for share in WRITE_SHARES]

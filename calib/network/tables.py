@@ -23,6 +23,7 @@ import pandas as pd
 
 from calib import fileio
 from calib.errors import Problem
+from calib.network import pump_curve
 from calib.network.model import Network, PipeStatus
 from calib.units import DISPLAY, from_si, parse_header, unit_factor
 
@@ -375,14 +376,12 @@ def network_frames(network: Network, units: str = "us") -> dict[str, pd.DataFram
 
 
 def _pump_frame(network: Network, units: str) -> pd.DataFrame:
-    """Pumps as three points of their curve (q = 0, q_max / 2, q_max at full speed)."""
+    """Pumps as three points of their curve (``pump_curve.curve_points``)."""
     u = DISPLAY[units]
     pumps, ids = network.pumps, network.node_ids.astype(str)
-    q_max = (pumps.shutoff_head / pumps.curve_r) ** (1.0 / pumps.curve_n)
     frame = {"id": pumps.ids.astype(str), "from": ids[pumps.from_node], "to": ids[pumps.to_node]}
-    for i, share in enumerate((0.0, 0.5, 0.9), start=1):
-        q = share * q_max
-        h = pumps.shutoff_head - pumps.curve_r * q ** pumps.curve_n
+    points = pump_curve.curve_points(pumps.shutoff_head, pumps.curve_r, pumps.curve_n)
+    for i, (q, h) in enumerate(points, start=1):
         frame[f"head_{i} [{u['head']}]"] = from_si(h, "head", u["head"])
         frame[f"flow_{i} [{u['flow']}]"] = from_si(q, "flow", u["flow"])
     frame["speed"] = pumps.speed
