@@ -2,9 +2,9 @@
 
 Thin: read and check the network (``calib.network.io``), solve one snapshot
 (``calib.hydraulics.NetworkSolver``), write the node table and optionally the pipe table (atomic,
-through ``calib.fileio``), print a one-line summary. A bad network exits 2 with every problem listed;
-a solve that does not converge exits 1 naming the worst nodes and pipes. Nothing is written unless
-the solve succeeded.
+through ``calib.fileio``), print a one-line summary and the caution. A bad network exits 2 with
+every problem listed; a solve that does not converge exits 1 naming the worst nodes and pipes.
+Nothing is written unless the solve succeeded.
 """
 
 from __future__ import annotations
@@ -85,7 +85,7 @@ def summary(network, result, units: str) -> str:
     nj = network.n_junctions
     pressure = result.pressure[:nj]
     live = np.ones(nj, dtype=bool)
-    isolated = list(getattr(result, "isolated", []) or [])
+    isolated = result.isolated
     if isolated:
         live[network.nodes(isolated)] = False
     low = int(np.flatnonzero(live)[np.argmin(pressure[live])]) if live.any() else 0
@@ -121,4 +121,5 @@ def run(args: argparse.Namespace) -> int:
             raise InputError(f"cannot write '{path}': {exc.strerror or exc}", field=option,
                              expected="a file path in a folder you can write to") from None
     print(summary(network, result, args.units))
+    print(CAUTION)  # as ``fit`` does: the figures may be read as a basis for fire-flow decisions
     return 0

@@ -15,6 +15,7 @@ import pytest
 
 import calib.hydraulics
 from calib.cli import main
+from calib.cli import solve as solve_cli
 
 DEMO = Path(__file__).resolve().parents[2] / "field_samples" / "tallowmere"
 FT_PER_PSI = 2.308965  # NIST SP 811 (60 degF water), as calib.units documents
@@ -66,6 +67,8 @@ def test_one_pipe_against_closed_form_hazen_williams(tmp_path, capsys):
     assert out.startswith("solved net: 1 junctions, 1 pipes, ") and "iterations" in out
     # (100 - 23.83) ft / 2.309 ft/psi = 33.0 psi, printed to 0.1 psi
     assert "lowest pressure 33.0 psi at J1" in out and "negative pressures: none" in out
+    # the caution follows the figures (common practice: model results defer to the AHJ and an engineer)
+    assert out.splitlines()[-1] == solve_cli.CAUTION and "licensed engineer" in solve_cli.CAUTION
 
 
 def test_si_headers(tmp_path, capsys):
