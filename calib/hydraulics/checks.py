@@ -11,6 +11,7 @@ import numpy as np
 
 from calib.errors import InputError, Problem
 from calib.hydraulics import headloss as hl
+from calib.network.validate import C_RANGE
 
 
 def shown_ids(ids) -> str:
@@ -77,7 +78,7 @@ def roughness_parameters(net, headloss: str, roughness=None):
         if bad.any():
             raise InputError(f"Hazen-Williams C not a positive number for pipe(s) "
                              f"{shown_ids(net.pipe_ids[bad])}", field="roughness",
-                             expected="C between 1 and 200")
+                             expected=f"C between {C_RANGE[0]:g} and {C_RANGE[1]:g}")
         return roughness, hl.hazen_williams_resistance(net.length, net.diameter, roughness)
     check_roughness_height(net, roughness)
     return roughness, roughness
