@@ -41,17 +41,8 @@ def groups_frame(result) -> pd.DataFrame:
     })
     if result.first is not None:
         frame["c_all_readings"] = np.round(result.first.x[cols], 2)
-    frame["model_c"] = np.round(_model_c(result), 1)
+    frame["model_c"] = np.round(g.length_weighted(result.network, result.network.roughness), 1)
     return frame
-
-
-def _model_c(result) -> np.ndarray:
-    net, g = result.network, result.grouping
-    sel = g.index >= 0
-    w = net.length[sel]
-    tot = np.bincount(g.index[sel], weights=w, minlength=g.n_groups)
-    num = np.bincount(g.index[sel], weights=w * net.roughness[sel], minlength=g.n_groups)
-    return num / np.where(tot > 0, tot, 1.0)
 
 
 def other_parameters_frame(result) -> pd.DataFrame:

@@ -82,10 +82,7 @@ class FitResult:
 
     def roughness(self) -> np.ndarray:
         """Per-pipe calibrated C (pipes in no group keep the model's)."""
-        c = self.network.roughness.copy()
-        sel = self.grouping.index >= 0
-        c[sel] = self.c[self.grouping.index[sel]]
-        return c
+        return self.grouping.per_pipe(self.c, self.network.roughness)
 
     @property
     def residual(self) -> np.ndarray:

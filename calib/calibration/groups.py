@@ -41,6 +41,21 @@ class Grouping:
         sel = self.index >= 0
         return np.bincount(self.index[sel], weights=network.length[sel], minlength=self.n_groups)
 
+    def length_weighted(self, network, per_pipe) -> np.ndarray:
+        """Length-weighted mean of a per-pipe quantity over each group's pipes (0 for a group of no length)."""
+        sel = self.index >= 0
+        total = self.lengths(network)
+        num = np.bincount(self.index[sel], weights=network.length[sel] * np.asarray(per_pipe, float)[sel],
+                          minlength=self.n_groups)
+        return num / np.where(total > 0, total, 1.0)
+
+    def per_pipe(self, per_group, fallback) -> np.ndarray:
+        """Per-pipe values from one value per group; pipes in no group keep ``fallback`` (per pipe)."""
+        out = np.array(fallback, dtype=float, copy=True)
+        sel = self.index >= 0
+        out[sel] = np.asarray(per_group, float)[self.index[sel]]
+        return out
+
 
 def _band_labels(edges_in: tuple[float, ...]) -> list[str]:
     labels = [f"<= {edges_in[0]:g} in"]

@@ -113,11 +113,5 @@ class GroupPrior:
 def group_prior(network, grouping, year: float) -> GroupPrior:
     """Length-weighted prior C and spread of each group from its pipes' material and age at ``year``."""
     c, spread = pipe_prior(network.material, network.installed, network.diameter, year)
-    sel = grouping.index >= 0
-    w = network.length[sel]
-    idx = grouping.index[sel]
-    total = np.bincount(idx, weights=w, minlength=grouping.n_groups)
-    total = np.where(total > 0, total, 1.0)
-    gc = np.bincount(idx, weights=w * c[sel], minlength=grouping.n_groups) / total
-    gs = np.bincount(idx, weights=w * spread[sel], minlength=grouping.n_groups) / total
-    return GroupPrior(c=gc, spread=gs, source=SOURCE)
+    return GroupPrior(c=grouping.length_weighted(network, c),
+                      spread=grouping.length_weighted(network, spread), source=SOURCE)

@@ -63,7 +63,7 @@ class CalibrationProblem:
 
         # --- parameters ---------------------------------------------------------------------
         params: list[Parameter] = []
-        base_c = self._group_start(network, grouping)
+        base_c = grouping.length_weighted(network, network.roughness)  # the start without a prior
         if prior is not None:
             base_c = np.asarray(prior.c, float)
         for g, name in enumerate(grouping.names):
@@ -129,16 +129,6 @@ class CalibrationProblem:
         self._cache_key = None
         self._cache = None
 
-    @staticmethod
-    def _group_start(network, grouping) -> np.ndarray:
-        """Length-weighted model C of each group: the start when there is no prior."""
-        sel = grouping.index >= 0
-        w = network.length[sel]
-        tot = np.bincount(grouping.index[sel], weights=w, minlength=grouping.n_groups)
-        num = np.bincount(grouping.index[sel], weights=w * network.roughness[sel],
-                          minlength=grouping.n_groups)
-        return num / np.where(tot > 0, tot, 1.0)
-
     # --- sizes ----------------------------------------------------------------------------------
     @property
     def n_params(self) -> int:
@@ -155,9 +145,7 @@ class CalibrationProblem:
     # --- model ------------------------------------------------------------------------------------
     def roughness(self, x) -> np.ndarray:
         """Per-pipe C for parameter vector ``x`` (pipes in no group keep the model's C)."""
-        c = self.network.roughness.copy()
-        c[self.grouped] = np.asarray(x)[self.c_cols][self.grouping.index[self.grouped]]
-        return c
+        return self.grouping.per_pipe(np.asarray(x)[self.c_cols], self.network.roughness)
 
     def snapshots(self, x):
         """The ``Snapshot`` of every (test, kind) pair at parameters ``x``."""

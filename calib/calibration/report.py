@@ -119,8 +119,7 @@ def _plots(result, system: str, curves: bool = True) -> dict[str, str]:
     c_lo, c_hi = result.options.get("c_bounds", (40.0, 160.0))
     lo_c = np.where(np.isfinite(result.c_low), result.c_low, c_lo)
     hi_c = np.where(np.isfinite(result.c_high), result.c_high, c_hi)
-    from calib.calibration.export import _model_c
-    model_c = _model_c(result)
+    model_c = result.grouping.length_weighted(result.network, result.network.roughness)
     top = max(c_hi, float(np.nanmax(hi_c)), float(np.nanmax(model_c)))
     bottom = min(c_lo, float(np.nanmin(lo_c)), float(np.nanmin(model_c)))
     if result.prior is not None:
