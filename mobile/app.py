@@ -12,9 +12,10 @@ import tempfile
 from pathlib import Path
 
 from kivy.app import App
-from kivy.clock import Clock
+from kivy.clock import Clock, mainthread
 from kivy.core.window import Window
 from kivy.lang import Builder
+from kivy.logger import Logger
 from kivy.properties import StringProperty
 from kivy.uix.popup import Popup
 from kivy.uix.screenmanager import NoTransition, ScreenManager
@@ -30,7 +31,7 @@ from mobile.screens.readings import ReadingsScreen
 from mobile.screens.results import ResultsScreen
 from mobile.screens.settings import SettingsScreen
 from mobile.screens.setup import SetupScreen
-from mobile.services import curve, demo, export
+from mobile.services import background, curve, demo, export
 from mobile.services.area import Area
 from mobile.services.session import Outcome, TestService, _first_message
 from mobile.store import Store
@@ -153,9 +154,17 @@ class HydrantFieldApp(App):
         browser.bind(on_choose=lambda _, path: (popup.dismiss(), self.load_area(path)))
         popup.open()
 
-    def load_area(self, path) -> Outcome:
+    def load_area(self, path):
+        """Read the network in a worker (a large one takes a while); the home screen shows the outcome."""
+        self.root.get_screen("home").show(Outcome(True, f"Loading {Path(path).name} ..."))
+        return background.start(lambda: Area.load(path), lambda got: self._area_loaded(path, got),
+                                lambda exc: exc, name="load-area")
+
+    @mainthread
+    def _area_loaded(self, path, area) -> None:
         try:
-            area = Area.load(path)
+            if isinstance(area, Exception):
+                raise area
             self.store.set_setting("area_path", str(path))
         except (CalibError, OSError) as exc:
             outcome = Outcome(False, "Could not load the area: " + _first_message(exc))
@@ -163,19 +172,29 @@ class HydrantFieldApp(App):
             self.service.area = area
             outcome = Outcome(True, f"Loaded {area.name}: {len(area.hydrants)} hydrants")
         self.root.get_screen("home").show(outcome)
-        return outcome
 
-    def curve_png(self, tid: str) -> str:
-        """Path of the test's curve image (drawn by the service), '' while it cannot be drawn."""
+    def curve_png(self, tid: str, on_done) -> None:
+        """Call ``on_done(tid, path)`` with the test's curve image ('' while it cannot be drawn).
+
+        A cached image is handed back at once; a new one is drawn in a worker (``on_done`` is then
+        called there: the screen makes it safe for the UI). The store is read here, never off thread.
+        """
         t = self.store.test(tid)
         path = self.data_dir / "cache" / f"{tid}-r{t.current_revision}-{self.service.system}-" \
                                          f"{len(self.store.history(tid))}.png"
         if path.exists():
-            return str(path)
+            on_done(tid, str(path))
+            return
         for old in path.parent.glob(f"{tid}-r*.png"):  # earlier states of this test
-            old.unlink(missing_ok=True)
-        return str(path) if curve.render_curve(self.service.results(tid), path,
-                                               self.service.system) else ""
+            if old != path:  # (a worker may be writing this one right now)
+                old.unlink(missing_ok=True)
+        results, system = self.service.results(tid), self.service.system
+
+        def failed(exc):
+            Logger.warning(f"FieldApp: the curve of {tid} could not be drawn: {exc}")
+            return ""
+        background.start(lambda: str(path) if curve.render_curve(results, path, system) else "",
+                         lambda made: on_done(tid, made), failed, name=f"curve-{tid}")
 
     def default_export_folder(self) -> str:
         return str(self.data_dir / "export")
@@ -200,7 +219,7 @@ class HydrantFieldApp(App):
             screen.run()
 
         def shoot(dt):
-            if name == "check" and screen.running:
+            if screen.busy:
                 Clock.schedule_once(shoot, 0.3)
                 return
             self.snapshot_dir.mkdir(parents=True, exist_ok=True)

@@ -21,6 +21,11 @@ class FieldScreen(Screen):
     def tid(self) -> str:
         return self.app.test_id
 
+    @property
+    def busy(self) -> bool:
+        """True while a worker is still computing what the screen shows (override)."""
+        return False
+
     def on_pre_enter(self, *args):
         self.message = ""
         self.refresh()

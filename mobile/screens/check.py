@@ -19,6 +19,10 @@ class CheckScreen(FieldScreen):
 
     _shown_for = ""
 
+    @property
+    def busy(self) -> bool:
+        return self.running
+
     def refresh(self):
         if self.tid != self._shown_for and not self.running:  # another test: clear the old answer
             self._shown_for, self.rows, self.bad = self.tid, [], False

@@ -1,6 +1,7 @@
 """Results: the big figures, the hydrant curve (N^1.85 scale), findings, cautions, finish, correct."""
 
-from kivy.properties import DictProperty, StringProperty
+from kivy.clock import mainthread
+from kivy.properties import BooleanProperty, DictProperty, StringProperty
 
 from mobile.screens.base import FieldScreen
 from mobile.services import checklist, views
@@ -12,14 +13,29 @@ class ResultsScreen(FieldScreen):
     history = StringProperty("")
     status = StringProperty("")
     caution = StringProperty(checklist.DESIGN_CAUTION)
+    drawing = BooleanProperty(False)  # the curve is being drawn in a worker
+
+    _curve_for = ""
+
+    @property
+    def busy(self) -> bool:
+        return self.drawing
 
     def refresh(self):
         if not self.tid:
             return
         self.result = views.results_view(self.service, self.tid)
-        self.curve = self.app.curve_png(self.tid)
+        if self._curve_for != self.tid:  # another test: do not show the old one's curve meanwhile
+            self.curve, self._curve_for = "", self.tid
+        self.drawing = True
+        self.app.curve_png(self.tid, self.show_curve)
         self.status = self.app.test_status(self.tid)
         self.history = views.history_text(self.service, self.tid)
+
+    @mainthread
+    def show_curve(self, tid, path):
+        if tid == self.tid:
+            self.curve, self.drawing = path, False
 
     def finish(self):
         self.show(self.service.finish(self.tid))
