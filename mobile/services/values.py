@@ -31,8 +31,6 @@ FIELD_UNIT = {
     "us": {"pressure": "psi", "flow": "gpm", "diameter": "in", "length": "ft"},
     "si": {"pressure": "kPa", "flow": "L/s", "diameter": "mm", "length": "m"},
 }
-_KIND_FOR_UNITS = {"pressure": "pressure", "flow": "flow", "diameter": "diameter",
-                   "length": "length"}
 
 _NUMBER = re.compile(r"^\s*(?P<num>[+-]?(\d{1,9}([.,]\d{0,9})?|[.,]\d{1,9}))\s*(?P<unit>[A-Za-z0-9/]{0,8})\s*$")
 
@@ -70,7 +68,7 @@ def field_unit(kind: str, system: str) -> str:
 
 
 def _to_si(magnitude: float, unit: str, kind: str) -> float:
-    return magnitude * units.unit_factor(unit, "length" if kind == "length" else kind)
+    return magnitude * units.unit_factor(unit, kind)
 
 
 def parse_value(text, field: str, system: str = "us") -> tuple[float, str]:
