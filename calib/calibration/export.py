@@ -24,8 +24,6 @@ from calib import fileio, units
 def groups_frame(result) -> pd.DataFrame:
     """The groups table (C, interval, pipes, prior, informed share, status, first-fit C)."""
     g = result.grouping
-    cols = result._c_cols
-    est = result.estimate
     frame = pd.DataFrame({
         "group": g.names,
         "c_factor": np.round(result.c, 2),
@@ -37,10 +35,10 @@ def groups_frame(result) -> pd.DataFrame:
         "prior_spread": np.round(result.prior.spread, 1) if result.prior is not None else np.nan,
         "informed": np.round(result.informed, 3),
         "status": result.status,
-        "at_bound": est.at_bound[cols],
+        "at_bound": result.c_at_bound,
     })
     if result.first is not None:
-        frame["c_all_readings"] = np.round(result.first.x[cols], 2)
+        frame["c_all_readings"] = np.round(result.first.x[result.c_cols], 2)
     frame["model_c"] = np.round(g.length_weighted(result.network, result.network.roughness), 1)
     return frame
 

@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import datetime as _dt
 from dataclasses import dataclass, field
+from functools import cached_property
 
 import numpy as np
 from scipy import optimize
@@ -62,23 +63,29 @@ class FitResult:
     @property
     def c(self) -> np.ndarray:
         """Fitted C per group."""
-        return self.estimate.x[self._c_cols]
+        return self.estimate.x[self.c_cols]
 
-    @property
-    def _c_cols(self):
+    @cached_property
+    def c_cols(self) -> np.ndarray:
+        """Columns of the group C-factors among the parameters (built once; ``params`` is fixed)."""
         return np.array([i for i, p in enumerate(self.params) if p.kind == "c"], dtype=np.int64)
 
     @property
+    def c_at_bound(self) -> np.ndarray:
+        """Per group: True where the fitted C sits at a bound."""
+        return self.estimate.at_bound[self.c_cols]
+
+    @property
     def c_low(self) -> np.ndarray:
-        return self.estimate.low[self._c_cols]
+        return self.estimate.low[self.c_cols]
 
     @property
     def c_high(self) -> np.ndarray:
-        return self.estimate.high[self._c_cols]
+        return self.estimate.high[self.c_cols]
 
     @property
     def c_sd(self) -> np.ndarray:
-        return self.estimate.sd[self._c_cols]
+        return self.estimate.sd[self.c_cols]
 
     def roughness(self) -> np.ndarray:
         """Per-pipe calibrated C (pipes in no group keep the model's)."""

@@ -219,8 +219,7 @@ def _glance(result, pu: str) -> str:
     n_flag = sum(1 for f in result.flag if f)
     n_out = int((~est.used).sum())
     rmse = units.from_si(result.rmse, "pressure", pu)
-    at_bound = [name for g, name in enumerate(result.grouping.names)
-                if est.at_bound[result._c_cols[g]]]
+    at_bound = [name for name, b in zip(result.grouping.names, result.c_at_bound) if b]
     text = (f"{t.n_tests} tests, {t.n_readings} readings; {result.grouping.n_groups} pipe groups: "
             f"{words}. {n_flag} reading(s) flagged"
             + (f", {n_out} left out of the final fit" if n_out else "")

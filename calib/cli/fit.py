@@ -158,7 +158,7 @@ def summary(result, system: str = "us") -> str:
         lo, hi = result.c_low[g], result.c_high[g]
         interval = f"{lo:6.1f}-{hi:6.1f}" if math.isfinite(lo) and math.isfinite(hi) else "undetermined"
         share = f" ({result.informed[g]:.0%} from the tests)" if result.prior is not None else ""
-        if result.estimate.at_bound[result._c_cols[g]]:
+        if result.c_at_bound[g]:
             share += ", at a bound"
         lines.append(f"{name:<{w}s} {result.c[g]:6.1f} {interval:>15s} "
                      f"{int(result.grouping.n_pipes()[g]):6d}  {result.status[g]}{share}")
