@@ -314,13 +314,12 @@ class NetworkSolver:
         does was held open because closing it cuts off junctions with demand."""
         bad = dynamic & active & (q < -self.q_eps)
         if bad.any():
-            links = [str(i) for i in self.link_ids[bad][:20]]
-            new = active & ~bad
-            cut = self._reachable(new) & (np.abs(demand) > 0)
-            nodes = [str(i) for i in self.network.node_ids[: self.nj][cut][:20]]
+            cut = self._reachable(active & ~bad) & (np.abs(demand) > 0)
+            links = checks.shown_ids(self.link_ids[bad])
+            nodes = checks.shown_ids(self.network.node_ids[: self.nj][cut])
             raise NetworkError(Problem(
-                f"check valve(s) or pump(s) {', '.join(links)} would close against the flow and cut "
-                f"junction(s) {', '.join(nodes)} with demand off every fixed-grade source",
+                f"check valve(s) or pump(s) {links} would close against the flow and cut "
+                f"junction(s) {nodes} with demand off every fixed-grade source",
                 field="status", expected="check valves pointing from the source side, or an "
                 "other open path to those junctions"))
 
