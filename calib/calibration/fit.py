@@ -291,13 +291,13 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
     # statistics and criteria over the readings used
     resid_pa = tests.pressure - simulated
     rmse = float(np.sqrt(np.mean(resid_pa[est.used] ** 2)))
-    max_hl = 0.0
+    # largest head loss across the system: highest source grade minus lowest junction grade
     nj = network.n_junctions
-    for (t, kind), res in zip(full.pairs, results):
-        if kind == "static":
-            head = np.asarray(res.head, float)
-            max_hl = max(max_hl, float(np.max(head[nj:]) - np.min(head[:nj]))) if nj and \
-                network.n_sources else max_hl
+    max_hl = 0.0
+    if nj and network.n_sources:
+        static_heads = [np.asarray(res.head, float) for (_t, kind), res in zip(full.pairs, results)
+                        if kind == "static"]
+        max_hl = max([0.0] + [float(h[nj:].max() - h[:nj].min()) for h in static_heads])
     head_err = units.pressure_to_head(resid_pa[est.used])
     crit = _criteria.wrc_1989(head_err, max_hl) + _criteria.awwa_ecac_1999(resid_pa[est.used])
 
