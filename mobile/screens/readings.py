@@ -15,11 +15,9 @@ class ReadingsScreen(FieldScreen):
     def refresh(self):
         if not self.tid:
             return
-        slots = [s for s, _, _ in self.service.slots(self.tid)]
-        if self.slot not in slots:
-            self.slot = next((s for s in slots if not self.service.reading_text(self.tid, s)),
-                             slots[0] if slots else "")
-        self.rows = views.reading_rows(self.service, self.tid, self.slot)
+        rows = views.reading_rows(self.service, self.tid, self.slot)
+        self.slot = views.pick_slot(rows, self.slot)
+        self.rows = [dict(r, selected=r["slot"] == self.slot) for r in rows]
         row = next((r for r in self.rows if r["slot"] == self.slot), None)
         self.prompt = row["label"] if row else "Set up gauge and flow hydrants first"
         self.ids.keypad.unit = row["unit"] if row else ""

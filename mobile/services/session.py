@@ -272,13 +272,15 @@ class TestService:
     def readings(self, tid: str, revision: int | None = None) -> dict:
         return self.store.readings(tid, revision)
 
+    def reading_texts(self, tid: str) -> dict[str, str]:
+        """The readings in force, slot -> display text (one read of the store for all of them)."""
+        system = self.system
+        return {slot: values.fmt(r.si_value, values.FIELDS[slot.split("@")[0]].kind, system)
+                for slot, r in self.store.readings(tid).items()}
+
     def reading_text(self, tid: str, slot: str) -> str:
         """The reading in force for ``slot``, in display units, or '' when none."""
-        r = self.store.readings(tid).get(slot)
-        if r is None:
-            return ""
-        name = slot.split("@")[0]
-        return values.fmt(r.si_value, values.FIELDS[name].kind, self.system)
+        return self.reading_texts(tid).get(slot, "")
 
     # --- results, finishing, corrections ----------------------------------------------------
     def results(self, tid: str, revision: int | None = None) -> Results:
@@ -315,7 +317,7 @@ class TestService:
     def list_tests(self, when: str = "all", area: str = "", hydrant: str = "") -> list[dict]:
         """Tests as rows for the home list: ``when`` 'today' (and all drafts) or 'all'; filter by area
         and hydrant."""
-        today = date.today().isoformat()
+        today, system = date.today().isoformat(), self.system
         rows = []
         for t in self.store.tests():
             h = self.store.header(t.test_id)
@@ -327,10 +329,10 @@ class TestService:
                 continue
             if hydrant and not any(hydrant.strip().lower() in x.lower() for x in hydrants):
                 continue
-            res = compute(h, self.store.readings(t.test_id), self.system)
+            res = compute(h, self.store.readings(t.test_id), system)
             rows.append({"test_id": t.test_id, "status": t.status, "revision": t.current_revision,
                          "area": t.area, "started_at": h.get("started_at", ""),
                          "hydrants": hydrants, "crew": h.get("crew", ""),
-                         "rated": values.fmt(res.rated_flow, "flow", self.system),
+                         "rated": values.fmt(res.rated_flow, "flow", system),
                          "class": res.class_label})
         return rows

@@ -43,12 +43,21 @@ def results_view(service, tid: str, revision: int | None = None) -> dict:
 
 def reading_rows(service, tid: str, selected: str = "") -> list[dict]:
     """Rows of the readings list: slot, label and the value in force ('-' while empty)."""
-    rows = []
+    rows, texts = [], service.reading_texts(tid)
     for slot, name, label in service.slots(tid):
-        text = service.reading_text(tid, slot) or "-"
+        text = texts.get(slot, "-")
         rows.append({"slot": slot, "field": name, "label": label, "value": text,
                      "unit": service.unit_of(name), "selected": slot == selected})
     return rows
+
+
+def pick_slot(rows: list[dict], current: str) -> str:
+    """The reading to show on the keypad: ``current`` while it is one of ``rows``, else the first
+    still empty, else the first."""
+    slots = [r["slot"] for r in rows]
+    if current in slots:
+        return current
+    return next((r["slot"] for r in rows if r["value"] == "-"), slots[0] if slots else "")
 
 
 def setup_view(service, tid: str) -> dict:
