@@ -57,3 +57,19 @@ def test_history_lists_every_reading_as_typed(service):
     text = views.history_text(service, tid)
     assert "Revision 2" in text and "gauge re-read" in text
     assert "typed '58 psi'" in text and "typed '57.5 psi'" in text
+
+
+def test_keypad_goes_to_the_first_empty_reading_and_stays_on_a_chosen_one(service):
+    """Common practice: readings are taken in order (static, residual, pitot); the app offers the
+    next one still to enter, but keeps a reading the crew picked."""
+    h = service.area.hydrants
+    tid = service.new_test(crew="X")
+    service.set_gauges(tid, [h[0]])
+    service.add_outlet(tid, h[1], "2.5")
+    service.enter(tid, f"static@{h[0]}", "72")
+    rows = views.reading_rows(service, tid)
+    assert [r["value"] for r in rows] == ["72.0 psi", "-", "-"]
+    assert views.pick_slot(rows, "") == f"residual@{h[0]}"
+    assert views.pick_slot(rows, "pitot@o1") == "pitot@o1"
+    assert views.pick_slot(rows, "pitot@o9") == f"residual@{h[0]}"  # a removed outlet
+    assert views.pick_slot([], "pitot@o1") == ""
