@@ -34,10 +34,13 @@ def _u(kind: str, system: str) -> str:
     return values.field_unit(kind, system)
 
 
-def test_record(service, tid: str) -> dict:
-    """Everything recorded for one test, as a JSON-ready dict (SI values with the entered text)."""
+def test_record(service, tid: str, res=None) -> dict:
+    """Everything recorded for one test, as a JSON-ready dict (SI values with the entered text).
+
+    ``res``: the test's ``Results`` when the caller has computed them already.
+    """
     t = service.store.test(tid)
-    res = service.results(tid)
+    res = service.results(tid) if res is None else res
     ticked = service.header(tid)["checklist"]
     revisions = []
     for rev in service.store.revisions(tid):
@@ -107,7 +110,7 @@ def export_tests(service, folder, include_drafts: bool = False) -> dict:
                       f"target [{up}]": values.convert(res.target, "pressure", system),
                       "class": res.class_label})
         path = folder / f"{t.test_id}.json"
-        fileio.write_text(path, json.dumps(test_record(service, t.test_id), indent=1, default=str))
+        fileio.write_text(path, json.dumps(test_record(service, t.test_id, res), indent=1, default=str))
         written.append(path.name)
     columns = {
         "flows.csv": ["test_id", "node", f"flow [{uq}]", f"pitot [{up}]", f"outlet_diameter [{ud}]",
