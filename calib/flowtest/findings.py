@@ -157,14 +157,23 @@ def check_residual_minimum(residual: float, system: str = "us") -> list[Finding]
 
 
 def check_static_change(static: float, static_end: float | None, system: str = "us") -> list[Finding]:
-    """Static that moved more than ``STATIC_CHANGE`` between the start and the end (common practice)."""
-    if static_end is None or abs(static_end - static) <= STATIC_CHANGE * (1 + _SLACK):
+    """A static at the end below zero, or one that moved more than ``STATIC_CHANGE`` since the start
+    (common practice)."""
+    if static_end is None:
         return []
-    return [Finding("static-changed", "warning",
-                    f"The static was {fmt_pressure(static, system)} at the start and "
-                    f"{fmt_pressure(static_end, system)} at the end. A change above "
-                    f"{fmt_pressure(STATIC_CHANGE, system)} means gauge drift or a system that changed "
-                    "(pump, tank, valve); note it and repeat the test if you can.", "common practice")]
+    out = []
+    if static_end < 0:
+        out.append(Finding("negative-static-end", "error",
+                           f"The static at the end ({fmt_pressure(static_end, system)}) is below zero. "
+                           "Check the gauge and re-read."))
+    if abs(static_end - static) > STATIC_CHANGE * (1 + _SLACK):
+        out.append(Finding("static-changed", "warning",
+                           f"The static was {fmt_pressure(static, system)} at the start and "
+                           f"{fmt_pressure(static_end, system)} at the end. A change above "
+                           f"{fmt_pressure(STATIC_CHANGE, system)} means gauge drift or a system that "
+                           "changed (pump, tank, valve); note it and repeat the test if you can.",
+                           "common practice"))
+    return out
 
 
 def check_gauge_position(residual_on_flowing: bool) -> list[Finding]:
@@ -196,11 +205,6 @@ def check_test(static: float, residual: float, pitots=(), test_flow: float | Non
     out += check_flow(static, residual, test_flow)
     if test_flow is not None and rated is not None:
         out += check_extrapolation(test_flow, rated, system)
-    if static_end is not None:
-        if static_end < 0:
-            out.append(Finding("negative-static-end", "error",
-                               f"The static at the end ({fmt_pressure(static_end, system)}) is below zero. "
-                               "Check the gauge and re-read."))
-        out += check_static_change(static, static_end, system)
+    out += check_static_change(static, static_end, system)
     out += check_gauge_position(residual_on_flowing)
     return out

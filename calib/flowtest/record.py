@@ -12,7 +12,7 @@ from dataclasses import dataclass, field
 
 from calib.flowtest._edge import fail, si
 from calib.flowtest.classes import HydrantClass, hydrant_class
-from calib.flowtest.findings import Finding, check_test, fmt_pressure
+from calib.flowtest.findings import SEVERITIES, Finding, check_test, fmt_pressure
 from calib.flowtest.pitot import outlet_coefficient, pitot_discharge, pumper_factor
 from calib.flowtest.rating import DEFAULT_TARGET, HydrantCurve, hydraulic_grade, rated_flow
 from calib.units import DISPLAY, from_si
@@ -138,8 +138,7 @@ class FlowTestResult:
     @property
     def worst(self) -> str | None:
         """Highest severity among the findings, or None when there are none."""
-        order = {"info": 0, "warning": 1, "error": 2}
-        return max((f.severity for f in self.findings), key=order.get, default=None)
+        return max((f.severity for f in self.findings), key=SEVERITIES.index, default=None)
 
     def to_dict(self, system: str = "us") -> dict:
         """Plain dict with numbers in the ``us`` or ``si`` display units (for JSON and the app)."""
