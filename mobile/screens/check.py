@@ -9,7 +9,7 @@ from kivy.clock import mainthread
 from kivy.properties import BooleanProperty, ListProperty, StringProperty
 
 from mobile.screens.base import FieldScreen
-from mobile.services import check, values
+from mobile.services import check, views
 
 
 class CheckScreen(FieldScreen):
@@ -50,11 +50,4 @@ class CheckScreen(FieldScreen):
         self.ids.progress.value = 100 if result.ok else 0
         self.running = False
         self.summary, self.bad = result.message, not result.ok or any(g.suspect for g in result.gauges)
-        self.rows = [self.row(g) for g in result.gauges]
-
-    def row(self, g):
-        f = lambda v: values.fmt(v, "pressure", self.service.system)  # noqa: E731
-        lines = [f"{g.node}:  static {f(g.observed_static)} observed / {f(g.predicted_static)} model;"
-                 f"  residual {f(g.observed_residual)} / {f(g.predicted_residual)}"]
-        lines += [f"   -> {a}" for a in g.advice] or ["   -> agrees with the model"]
-        return "\n".join(lines)
+        self.rows = views.check_rows(result, self.service.system)

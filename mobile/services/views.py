@@ -60,6 +60,18 @@ def pick_slot(rows: list[dict], current: str) -> str:
     return next((r["slot"] for r in rows if r["value"] == "-"), slots[0] if slots else "")
 
 
+def check_rows(result, system: str) -> list[str]:
+    """One block of text per gauge of a model check (``mobile.services.check.CheckResult``)."""
+    f = lambda v: values.fmt(v, "pressure", system)  # noqa: E731
+    rows = []
+    for g in result.gauges:
+        lines = [f"{g.node}:  static {f(g.observed_static)} observed / {f(g.predicted_static)} model;"
+                 f"  residual {f(g.observed_residual)} / {f(g.predicted_residual)}"]
+        lines += [f"   -> {a}" for a in g.advice] or ["   -> agrees with the model"]
+        rows.append("\n".join(lines))
+    return rows
+
+
 def setup_view(service, tid: str) -> dict:
     h = service.header(tid)
     sys_ = service.system
