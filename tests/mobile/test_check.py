@@ -98,3 +98,16 @@ def test_noted_source_grade_moves_the_prediction_by_the_same_head(service, area)
     assert after.predicted_static - before.predicted_static == pytest.approx(rise, rel=1e-6)
     assert after.predicted_residual - before.predicted_residual == pytest.approx(rise, rel=1e-6)
     assert after.suspect and "gauge height" in after.advice[0]  # 8.7 psi below on both readings
+
+
+def test_check_rows_show_each_gauge_with_its_advice(service, area):
+    """The screen's text carries the node, both pressures and the advice (common practice)."""
+    from mobile.services import views
+
+    tid = _readings_from_model(service, area, offset=10.0)
+    result = check.check_test(service, tid)
+    rows = views.check_rows(result, "us")
+    g = result.gauges[0]
+    assert len(rows) == 1 and rows[0].startswith(f"{g.node}:")
+    assert f"{g.predicted_static / PSI:.1f} psi model" in rows[0]
+    assert all(a in rows[0] for a in g.advice) and g.advice
