@@ -88,7 +88,11 @@ def parse_rule(rule: str | None) -> list[tuple[str, tuple[float, ...] | None]]:
             raise InputError(f"unknown grouping key '{key}'", field="--group-by",
                              expected="a comma list of " + ", ".join(RULE_KEYS))
         if key == "diameter":
-            parts.append((key, (float(first),) if first else ()))
+            try:
+                parts.append((key, (float(first),) if first else ()))
+            except ValueError:
+                raise InputError(f"band edge '{first}' is not a number", field="--group-by",
+                                 expected="diameter band edges in inches, e.g. diameter=8,12") from None
         else:
             parts.append((key, None))
     out = []

@@ -11,6 +11,7 @@ from __future__ import annotations
 import math
 import sys
 import time
+from pathlib import Path
 
 from calib import units
 from calib.errors import InputError
@@ -187,6 +188,11 @@ def run(args) -> int:
     if not (math.isfinite(args.threshold) and args.threshold > 0):
         raise InputError(f"{args.threshold} is not a positive threshold", field="--threshold",
                          expected="about 3 standardized units")
+    out = Path(args.out)
+    if out.exists() and not out.is_dir():
+        # checked before the fit, not after minutes of solving
+        raise InputError(f"'{out}' is a file, not a folder", field="--out",
+                         expected="a folder for the outputs (created when missing)")
     network = read_network(args.network)
     tests = read_tests(args.tests, network, sigma=sigma)
     bar = None if args.quiet else ProgressBar(expected=12 * 2 * tests.n_tests)

@@ -92,11 +92,21 @@ def test_si_output_units(tmp_path):
     (["--c-bounds", "160,40"], "--c-bounds"),
     (["--sigma", "3 gpm"], "--sigma"),
     (["--group-by", "colour"], "unknown grouping key 'colour'"),
+    (["--group-by", "diameter=abc"], "band edge 'abc' is not a number"),
 ])
 def test_bad_options_exit_2_with_a_clear_message(tmp_path, capsys, argv, message):
     code = main(["fit", str(NETWORK), str(TESTS), "--out", str(tmp_path), "--quiet"] + argv)
     assert code == 2
     assert message in capsys.readouterr().err
+
+
+def test_out_that_is_a_file_exits_2_before_the_fit_and_keeps_the_file(tmp_path, capsys):
+    target = tmp_path / "results.csv"
+    target.write_text("kept\n")
+    code = main(["fit", str(NETWORK), str(TESTS), "--out", str(target), "--quiet"])
+    assert code == 2
+    assert "field '--out'" in capsys.readouterr().err
+    assert target.read_text() == "kept\n"  # nothing already saved is lost
 
 
 def test_bad_tests_folder_exits_2_naming_file_and_row(tmp_path, capsys):
