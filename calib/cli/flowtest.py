@@ -96,7 +96,8 @@ def build_test(args) -> FlowTest:
     for option, value in (("--static", static), ("--residual", residual), ("--target", target),
                           ("--static-end", static_end)):
         if value is not None and (not math.isfinite(value) or value < 0):
-            _bad(option, f"a gauge pressure cannot be below zero ({fmt_pressure(value, u)})")
+            _bad(option, "a gauge pressure must be a finite number" if not math.isfinite(value)
+                 else f"a gauge pressure cannot be below zero ({fmt_pressure(value, u)})")
     if residual >= static:
         _bad("--residual", f"the residual ({fmt_pressure(residual, u)}) must be below the static "
              f"({fmt_pressure(static, u)}); re-read both gauges")
@@ -116,9 +117,10 @@ def build_test(args) -> FlowTest:
         pitot = _value(args.pitot[i], "pressure", "--pitot", u)
         diameter = _value(args.outlet[i], "diameter", "--outlet", u)
         if not math.isfinite(pitot) or pitot < 0:
-            _bad("--pitot", f"pitot reading {args.pitot[i]} is below zero")
+            _bad("--pitot", f"pitot reading {args.pitot[i]} "
+                 + ("is not a finite number" if not math.isfinite(pitot) else "is below zero"))
         if not math.isfinite(diameter) or diameter <= 0:
-            _bad("--outlet", f"outlet diameter {args.outlet[i]} must be more than zero")
+            _bad("--outlet", f"outlet diameter {args.outlet[i]} must be a finite number more than zero")
         coefficient = None
         if coefficients[i] is not None:
             try:
@@ -132,7 +134,7 @@ def build_test(args) -> FlowTest:
     for text in args.flow:
         flow = _value(text, "flow", "--flow", u)
         if not math.isfinite(flow) or flow <= 0:
-            _bad("--flow", f"a measured flow must be more than zero, not {text}")
+            _bad("--flow", f"a measured flow must be a finite number more than zero, not {text}")
         outlets.append(Outlet(flow=flow))
     elevation = None if args.elevation is None else _value(args.elevation, "elevation", "--elevation", u)
     gauge_height = _value(args.gauge_height, "length", "--gauge-height", u)

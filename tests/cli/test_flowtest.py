@@ -88,6 +88,7 @@ def test_static_end_finding(capsys):
     (["--pitot", "22psi"], "--outlet", "in pairs"),
     (["--pitot", "22psi", "--outlet", "2.5in", "--pitot", "20psi"], "--outlet", "in pairs"),
     (["--pitot=-2psi", "--outlet", "2.5in"], "--pitot", "below zero"),
+    (["--pitot", "nan psi", "--outlet", "2.5in"], "--pitot", "not a finite number"),
     (["--pitot", "22psi", "--outlet", "2.5in", "--coefficient", "1.4"], "--coefficient", "out of range"),
     (["--pitot", "22psi", "--outlet", "2.5in", "--coefficient", "x"], "--coefficient", "not a number"),
     (["--pitot", "22psi", "--outlet", "2.5in", "--pitot", "20psi", "--outlet", "2.5in",
