@@ -27,6 +27,7 @@ import pandas as pd
 
 from calib import units
 from calib.errors import InputError, Problem
+from calib.flowtest.pitot import OUTLET_COEFFICIENTS, pitot_discharge
 
 #: Unit assumed for a column whose header has no bracket (the trade's US units).
 DEFAULT_UNIT = {"flow": "gpm", "pitot": "psi", "outlet_diameter": "in", "static": "psi",
@@ -38,7 +39,7 @@ RANGE = {
     "flow": (0.0, 10000 * units.GPM, "more than 0 and at most 10000 gpm"),
     "pitot": (0.0, 200 * units.PSI, "more than 0 and at most 200 psi (NFPA 291 asks for about 10-30)"),
     "outlet_diameter": (0.5 * units.INCH, 8 * units.INCH, "0.5 to 8 in (hose 2.5 in, pumper 4-4.5 in)"),
-    "coefficient": (0.5, 1.0, "0.5 to 1.0 (NFPA 291: 0.90 smooth, 0.80 square, 0.70 projecting)"),
+    "coefficient": (0.5, 1.0, "0.5 to 1.0, or smooth (0.90), square (0.80), projecting (0.70) (NFPA 291)"),
     "static": (0.0, 300 * units.PSI, "0 to 300 psi"),
     "residual": (0.0, 300 * units.PSI, "0 to 300 psi"),
     "gauge_height": (-20 * units.FT, 30 * units.FT, "-20 to 30 ft above the node elevation"),
@@ -210,34 +211,14 @@ class _Table:
         return value
 
 
-def _pitot_discharge(pitot: float, diameter: float, coefficient: float) -> float:
-    """NFPA 291 pitot discharge through the flow-test functions (SI in, m3/s out)."""
-    from calib.flowtest import pitot_discharge
-    return float(pitot_discharge(pitot, diameter, coefficient))
-
-
 def _coefficient(table: _Table, i: int, row_id: str) -> float:
-    raw = table.text(i, "coefficient")
+    """Outlet coefficient of row i: a number, an outlet shape (NFPA 291 outlet figure), 0.90 if blank."""
+    raw = table.text(i, "coefficient").lower()
     if raw == "":
         return DEFAULT_COEFFICIENT
-    try:
-        value = float(raw)
-    except ValueError:
-        try:
-            from calib.flowtest import outlet_coefficient
-            return float(outlet_coefficient(raw.lower()))
-        except Exception:
-            table.problems.append(Problem(f"'{raw}' is neither a number nor an outlet shape",
-                                          file=table.name, row=i + 2, id=row_id, field="coefficient",
-                                          expected=RANGE["coefficient"][2]
-                                          + " or smooth / square / projecting"))
-            return math.nan
-    low, high, text = RANGE["coefficient"]
-    if not low <= value <= high:
-        table.problems.append(Problem(f"{raw} is outside the plausible range", file=table.name,
-                                      row=i + 2, id=row_id, field="coefficient", expected=text))
-        return math.nan
-    return value
+    if raw in OUTLET_COEFFICIENTS:
+        return OUTLET_COEFFICIENTS[raw]
+    return table.number(i, "coefficient", row_id)  # range and message as for every other number
 
 
 def _node(network, table: _Table, i: int, row_id: str, problems, junction_only=True) -> int | None:
@@ -338,7 +319,7 @@ def read_tests(folder, network, sigma: float = units.PSI) -> TestSet:
                 c = _coefficient(f, i, tid)
                 if math.isnan(p) or math.isnan(d) or math.isnan(c):
                     continue
-                q = _pitot_discharge(p, d, c)
+                q = float(pitot_discharge(p, d, c))
                 pitot_tests.add(tid)
             if t_idx is None or n_idx is None or math.isnan(q):
                 continue

@@ -126,3 +126,22 @@ def test_a_gauge_twice_in_one_test_is_a_problem(tmp_path, net):
     with pytest.raises(InputError, match=r"pressures.csv, row 3, id 'A', field 'node': node 'J4' "
                                          r"already has a row for this test \(row 2\)"):
         read_tests(folder, net)
+
+
+def test_outlet_coefficient_cells_shape_number_or_problem(tmp_path, net):
+    # NFPA 291 outlet figure: smooth 0.90, square 0.80, projecting 0.70 (check-values.md);
+    # Q = 29.83 c d^2 sqrt(p): c 0.80, 2.5 in, 28 psi -> 789.23 gpm (check-values.md worked arithmetic)
+    folder = _write(tmp_path / "t",
+                    flows="test_id,node,pitot [psi],outlet_diameter [in],coefficient\nA,J5,28,2.5,Square\n",
+                    pressures="test_id,node,static [psi],residual [psi]\nA,J4,80,70\n")
+    assert read_tests(folder, net).flows[0][5] / units.GPM == pytest.approx(789.23, abs=0.01)
+    bad = _write(tmp_path / "u",
+                 flows="test_id,node,pitot [psi],outlet_diameter [in],coefficient\n"
+                       "A,J5,28,2.5,oval\nA,J6,28,2.5,1.3\n",
+                 pressures="test_id,node,static [psi],residual [psi]\nA,J4,80,70\n")
+    with pytest.raises(InputError) as err:
+        read_tests(bad, net)
+    text = str(err.value)
+    assert "flows.csv, row 2, id 'A', field 'coefficient': 'oval' is not a number" in text
+    assert "flows.csv, row 3, id 'A', field 'coefficient': 1.3 is outside the plausible range" in text
+    assert "smooth (0.90)" in text
