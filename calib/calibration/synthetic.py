@@ -7,10 +7,14 @@ its intervals; that is the synthetic-truth check of the calibration.
 
 from __future__ import annotations
 
-import numpy as np
+from pathlib import Path
 
-from calib import units
+import numpy as np
+import pandas as pd
+
+from calib import fileio, units
 from calib.calibration.tests_io import TestSet
+from calib.flowtest.pitot import PITOT_CONSTANT_SI
 from calib.network.model import Network
 
 MATERIALS = ("cast iron", "ductile iron", "pvc", "asbestos cement", "steel")
@@ -100,12 +104,12 @@ def synthetic_tests(network: Network, roughness: np.ndarray, plan, sigma: float 
     solver = solver or NetworkSolver(network, headloss="hazen-williams")
     ids = network.node_ids
     cols = {k: [] for k in ("test", "node", "kind", "pressure")}
+    # the static loading is the same for every test here (normal demand, one fixed source): solve it once
+    at_rest = solver.solve(Snapshot(), roughness=roughness) if static else None
     for t, (flows, gauges) in enumerate(plan):
-        snaps = [("residual", Snapshot(extra_demand={str(ids[n]): q for n, q in flows.items()}))]
-        if static:
-            snaps.insert(0, ("static", Snapshot()))
-        for kind, snap in snaps:
-            res = solver.solve(snap, roughness=roughness)
+        loaded = solver.solve(Snapshot(extra_demand={str(ids[n]): q for n, q in flows.items()}),
+                              roughness=roughness)
+        for kind, res in ((("static", at_rest),) if static else ()) + (("residual", loaded),):
             for g in gauges:
                 cols["test"].append(t)
                 cols["node"].append(g)
@@ -116,7 +120,6 @@ def synthetic_tests(network: Network, roughness: np.ndarray, plan, sigma: float 
         p = np.round(p / round_to) * round_to
     node = np.asarray(cols["node"], dtype=np.int64)
     n_tests = len(plan)
-    import pandas as pd
     return TestSet(folder="<synthetic>", test_ids=[f"T{t + 1}" for t in range(n_tests)],
                    flows=[dict(f) for f, _ in plan], source_head=[{} for _ in range(n_tests)],
                    day=np.zeros(n_tests, dtype=np.int64), days=[""], info=pd.DataFrame(),
@@ -134,11 +137,6 @@ def write_tests_folder(tests: TestSet, network: Network, folder, system: str = "
     Tests named in ``pitot_tests`` get their flows in pitot form (one 2.5 in outlet, c 0.90, the pitot
     pressure computed back from the flow with NFPA 291's Q = 29.83 c d^2 sqrt(p)).
     """
-    from pathlib import Path
-
-    import pandas as pd
-
-    from calib import fileio
     folder = Path(folder)
     fu, pu = units.display_unit("flow", system), units.display_unit("pressure", system)
     lu, du = units.display_unit("length", system), units.display_unit("diameter", system)
@@ -148,8 +146,8 @@ def write_tests_folder(tests: TestSet, network: Network, folder, system: str = "
             row = {"test_id": tid, "node": str(network.node_ids[n]), f"flow [{fu}]": "",
                    f"pitot [{pu}]": "", f"outlet_diameter [{du}]": "", "coefficient": ""}
             if tid in pitot_tests:
-                p_psi = (q / units.GPM / (29.83 * 0.9 * 2.5 ** 2)) ** 2
-                row[f"pitot [{pu}]"] = repr(float(units.from_si(p_psi * units.PSI, "pressure", pu)))
+                p_pa = (q / (PITOT_CONSTANT_SI * 0.9 * (2.5 * units.INCH) ** 2)) ** 2  # Q = K c d^2 sqrt(p)
+                row[f"pitot [{pu}]"] = repr(float(units.from_si(p_pa, "pressure", pu)))
                 row[f"outlet_diameter [{du}]"] = repr(float(units.from_si(2.5 * units.INCH,
                                                                           "diameter", du)))
                 row["coefficient"] = "0.9"
