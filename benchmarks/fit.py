@@ -56,14 +56,14 @@ def jacobian_cost(nx: int, ny: int, n_tests: int, groups_list=(5, 10, 20)) -> li
 def whole_fit(nx: int, ny: int, n_tests: int = 20, n_groups: int = 5) -> dict:
     net = grid_network(nx, ny, n_groups=n_groups, seed=5)
     grp = make_groups(net)
-    truth = np.array([65.0, 85.0, 105.0, 125.0, 140.0])[:n_groups][grp.index]
+    tc = np.array([65.0, 85.0, 105.0, 125.0, 140.0])[:n_groups]  # the true C per group
+    truth = tc[grp.index]
     solver = NetworkSolver(net)
     plan = plan_tests(net, n_tests, seed=6, flow_gpm=(1000.0, 1500.0))
     tests = synthetic_tests(net, truth, plan, seed=7, solver=solver)
     t0 = time.perf_counter()
     res = fit(net, tests, grouping=grp, prior="none", solver=NetworkSolver(net))
     elapsed = time.perf_counter() - t0
-    tc = np.array([65.0, 85.0, 105.0, 125.0, 140.0])[:n_groups]
     covered = int(np.sum((res.c_low <= tc) & (tc <= res.c_high)))
     return dict(pipes=net.n_pipes, junctions=net.n_junctions, tests=n_tests, groups=n_groups,
                 readings=tests.n_readings, seconds=elapsed, solves=res.n_solves,
