@@ -119,7 +119,8 @@ class _Table:
             name, unit = units.parse_header(header)
             name = name.replace(" ", "_")
             if name in self.columns:
-                problems.append(Problem(f"column '{name}' appears twice", file=self.name, field=header))
+                problems.append(Problem(f"column '{name}' appears twice", file=self.name, field=header,
+                                        expected="each column once, in one unit"))
                 continue
             self.columns[name] = header
             if name in KIND:
