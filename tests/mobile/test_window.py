@@ -45,6 +45,7 @@ def test_enter_a_whole_test_by_keypad_then_find_it_after_a_restart(tmp_path):
     assert entered["unticked"] == []
     assert entered["small_targets"] == []  # every tappable widget at least 48 dp (the rule)
     assert entered["targets_checked"] > 50
+    assert entered["curve_drawn"]  # drawn in a worker, handed back to the results screen
     assert [m.split(" ")[0] for m in entered["messages"]] == ["Saved"] * 3, entered["messages"]
     assert "finished" in entered["finish_message"], entered["finish_message"]
     tid = entered["test_id"]
@@ -54,6 +55,10 @@ def test_enter_a_whole_test_by_keypad_then_find_it_after_a_restart(tmp_path):
     assert found["screen"] == "results"
     assert found["rated_label"] == "1,599 gpm"
     assert found["status"] == "finished"
+    # LOAD AREA reads the network in a worker: a message at once, the outcome when it is read.
+    assert found["load_message_at_once"].startswith("Loading"), found["load_message_at_once"]
+    assert found["load_message"].startswith("Loaded Tallowmere"), found["load_message"]
+    assert "network loaded" in found["area_summary"]
 
 
 def test_snapshot_mode_writes_a_png_of_every_main_screen(tmp_path):

@@ -4,7 +4,7 @@
 the checklist, pick a gauge and a flow hydrant, enter static 72, residual 58 and pitot 22 on the
 keypad by key presses, read the discharge and rated-flow labels, finish the test.
 ``python window_driver.py find DATA_DIR OUT.json``: start the app on the same data folder, read the
-home list and open the test there.
+home list and open the test there; then load the demo network as LOAD AREA does.
 
 Taps are real touch events sent through the window (kivy.tests.common.UnitTestTouch), so a button
 that is hidden, covered or too small to hit would fail the run.
@@ -168,6 +168,8 @@ def script_enter(app):
     yield from wait_for(lambda: app.root.current == "results")
     yield from settle()
     results = app.root.get_screen("results")
+    yield from wait_for(lambda: not results.drawing, frames=100)  # the curve comes from a worker
+    report["curve_drawn"] = bool(results.curve) and os.path.exists(results.curve)
     tap(results.ids.finish)
     yield from wait_for(lambda: results.message)
     report["finish_message"] = results.message
@@ -188,6 +190,13 @@ def script_find(app):
     results = app.root.get_screen("results")
     report["rated_label"] = results.ids.rated.text
     report["status"] = app.test_status(app.test_id)
+    # LOAD AREA's load runs in a worker; the home screen says so, then shows the outcome.
+    from mobile.services import demo
+    app.load_area(demo.TALLOWMERE)
+    report["load_message_at_once"] = home.message
+    yield from wait_for(lambda: not home.message.startswith("Loading"), frames=100)
+    report["load_message"] = home.message
+    report["area_summary"] = app.area_summary()
 
 
 class DrivenApp(FieldApp):
