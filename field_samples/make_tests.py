@@ -60,7 +60,7 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent))
 
 from calib import fileio, units  # noqa: E402
-from calib.flowtest.pitot import pitot_discharge  # noqa: E402
+from calib.flowtest.pitot import PITOT_CONSTANT_US, pitot_discharge  # noqa: E402
 from calib.hydraulics import NetworkSolver, Snapshot  # noqa: E402
 from calib.network.io import read_network  # noqa: E402
 
@@ -153,7 +153,7 @@ def _size(planner, net, heads, flowing, s_base, pool):
     """
     n = net.n_junctions
     k = len(flowing)
-    per_psi = 29.83 * OUTLET_C * OUTLET_IN ** 2 * OUTLETS_PER_HYDRANT * k  # gpm / sqrt(psi)
+    per_psi = PITOT_CONSTANT_US * OUTLET_C * OUTLET_IN ** 2 * OUTLETS_PER_HYDRANT * k  # gpm / sqrt(psi)
     top = min(PITOT_PSI[1], (TOTAL_GPM[1] / per_psi) ** 2)
     p = np.floor(top * 2) / 2
     while p >= PITOT_PSI[0]:
