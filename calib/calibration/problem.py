@@ -92,6 +92,9 @@ class CalibrationProblem:
         self.upper = np.array([p.upper for p in params])
         self.day_col = {p.index: i for i, p in enumerate(params) if p.kind == "demand"}
         self.offset_col = {self.offsets[p.index]: i for i, p in enumerate(params) if p.kind == "offset"}
+        self._test_offsets: dict[int, list[tuple[int, int]]] = {}  # test -> [(source node, column)]
+        for (t, s), col in self.offset_col.items():
+            self._test_offsets.setdefault(t, []).append((s, col))
 
         # --- snapshots: (test, kind) pairs that have readings; identical loadings solved once ---
         # (e.g. the static snapshots of tests at the same tank level), so a key holds everything a
@@ -101,7 +104,7 @@ class CalibrationProblem:
         pos = {}
         for t, k in all_pairs:
             key = (tuple(sorted(tests.source_head[t].items())),
-                   tuple(c for (tt, _s), c in self.offset_col.items() if tt == t),
+                   tuple(c for _s, c in self._test_offsets.get(t, ())),
                    self.day_col.get(int(tests.day[t])),
                    tuple(sorted(tests.flows[t].items())) if k == "residual" else ())
             pos[(t, k)] = unique.setdefault(key, len(unique))
@@ -154,10 +157,8 @@ class CalibrationProblem:
         out = []
         for t, kind in self.pairs:
             heads = {str(net.node_ids[s]): float(h) for s, h in tests.source_head[t].items()}
-            for (tt, s), col in self.offset_col.items():
-                if tt == t:
-                    nj = net.n_junctions
-                    heads[str(net.node_ids[s])] = float(net.source_head[s - nj] + x[col])
+            for s, col in self._test_offsets.get(t, ()):
+                heads[str(net.node_ids[s])] = float(net.source_head[s - net.n_junctions] + x[col])
             col = self.day_col.get(int(tests.day[t]))
             factor = float(x[col]) if col is not None else 1.0
             extra = {}
@@ -225,12 +226,11 @@ class CalibrationProblem:
             f1_rows = [self.grouped]
             f1_cols = [self.c_cols[grp]]
             f1_vals = [dhdc[self.grouped]]
-            for (tt, s), col in self.offset_col.items():
-                if tt == t:
-                    links, vals = self._source_incidence[(tt, s)]
-                    f1_rows.append(links)
-                    f1_cols.append(np.full(len(links), col))
-                    f1_vals.append(vals)
+            for s, col in self._test_offsets.get(t, ()):
+                links, vals = self._source_incidence[(t, s)]
+                f1_rows.append(links)
+                f1_cols.append(np.full(len(links), col))
+                f1_vals.append(vals)
             dF1 = sp.csc_matrix((np.concatenate(f1_vals), (np.concatenate(f1_rows),
                                                            np.concatenate(f1_cols))),
                                 shape=(self.n_links, p))
