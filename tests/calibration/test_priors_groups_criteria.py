@@ -70,3 +70,21 @@ def test_awwa_ecac_1999_shares():
     assert planning.passed and planning.achieved == 1.0
     assert design.achieved == pytest.approx(0.9) and design.passed
     assert not criteria.awwa_ecac_1999(err * 2.5)[1].passed  # 2.5 psi: none within 2
+
+
+def test_length_weighted_group_mean_and_spread_back_to_pipes():
+    # closed form: sum(L_k v_k) / sum(L_k) over each group's pipes; pipes in no group keep their own
+    net = grid_network(5, 4, n_groups=2, seed=0)
+    g = make_groups(net)
+    v = np.arange(net.n_pipes, dtype=float)
+    for k, name in enumerate(g.names):
+        sel = g.index == k
+        assert g.length_weighted(net, v)[k] == pytest.approx(
+            np.sum(net.length[sel] * v[sel]) / np.sum(net.length[sel]), rel=1e-12), name
+    idx = g.index.copy()
+    idx[0] = -1
+    from calib.calibration.groups import Grouping
+    partial = Grouping(names=g.names, index=idx, rule="test")
+    back = partial.per_pipe([70.0, 130.0], fallback=v)
+    assert back[0] == v[0]  # in no group: unchanged
+    np.testing.assert_array_equal(back[1:], np.array([70.0, 130.0])[idx[1:]])
