@@ -12,11 +12,13 @@ class ReadingsScreen(FieldScreen):
     prompt = StringProperty("")
     result = DictProperty(views.EMPTY_RESULTS)
 
+    _advance = False  # after a saved reading: the next refresh moves to the first empty one
+
     def refresh(self):
         if not self.tid:
             return
         rows = views.reading_rows(self.service, self.tid, self.slot)
-        self.slot = views.pick_slot(rows, self.slot)
+        self.slot, self._advance = views.pick_slot(rows, self.slot, self._advance), False
         self.rows = [dict(r, selected=r["slot"] == self.slot) for r in rows]
         row = next((r for r in self.rows if r["slot"] == self.slot), None)
         self.prompt = row["label"] if row else "Set up gauge and flow hydrants first"
@@ -29,6 +31,7 @@ class ReadingsScreen(FieldScreen):
         self.refresh()
 
     def enter(self, text):
-        if self.show(self.service.enter(self.tid, self.slot, text)):
-            self.ids.keypad.text = ""
-            self.select(next((r["slot"] for r in self.rows if r["value"] == "-"), self.slot))
+        outcome = self.service.enter(self.tid, self.slot, text)
+        if outcome.ok:  # go on to the next empty reading (in the one refresh that show makes)
+            self.ids.keypad.text, self._advance = "", True
+        self.show(outcome)

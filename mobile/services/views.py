@@ -51,13 +51,16 @@ def reading_rows(service, tid: str, selected: str = "") -> list[dict]:
     return rows
 
 
-def pick_slot(rows: list[dict], current: str) -> str:
+def pick_slot(rows: list[dict], current: str, advance: bool = False) -> str:
     """The reading to show on the keypad: ``current`` while it is one of ``rows``, else the first
-    still empty, else the first."""
+    still empty, else the first. ``advance`` (a reading was just saved): the first empty one first."""
     slots = [r["slot"] for r in rows]
+    empty = next((r["slot"] for r in rows if r["value"] == "-"), None)
+    if advance and empty:
+        return empty
     if current in slots:
         return current
-    return next((r["slot"] for r in rows if r["value"] == "-"), slots[0] if slots else "")
+    return empty or (slots[0] if slots else "")
 
 
 def check_rows(result, system: str) -> list[str]:

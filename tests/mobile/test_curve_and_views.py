@@ -73,3 +73,8 @@ def test_keypad_goes_to_the_first_empty_reading_and_stays_on_a_chosen_one(servic
     assert views.pick_slot(rows, "pitot@o1") == "pitot@o1"
     assert views.pick_slot(rows, "pitot@o9") == f"residual@{h[0]}"  # a removed outlet
     assert views.pick_slot([], "pitot@o1") == ""
+    assert views.pick_slot(rows, "static@" + h[0], advance=True) == f"residual@{h[0]}"
+    service.enter(tid, f"residual@{h[0]}", "58")
+    service.enter(tid, "pitot@o1", "22")
+    full = views.reading_rows(service, tid)
+    assert views.pick_slot(full, "pitot@o1", advance=True) == "pitot@o1"  # all entered: stay
