@@ -48,7 +48,9 @@ def main(argv=None) -> int:
         return 1
     if args.snapshot:
         print("\n".join(app.snapshots))
-        return 0 if len(app.snapshots) == 8 else 1
+        from mobile.screens import SCREENS
+
+        return 0 if len(app.snapshots) == len(SCREENS) else 1
     return 0
 
 
