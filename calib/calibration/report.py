@@ -148,8 +148,7 @@ def _plots(result, system: str, curves: bool = True) -> dict[str, str]:
     out["C by group"] = _png(fig)
 
     if curves and t.n_tests:
-        from calib.calibration.predict import predict_test
-        from calib.hydraulics import NetworkSolver
+        from calib.hydraulics import NetworkSolver, Snapshot
         solver = NetworkSolver(net, headloss="hazen-williams")  # one set-up for every curve point
         n_show = min(t.n_tests, 12)
         cols = 4
@@ -168,11 +167,10 @@ def _plots(result, system: str, curves: bool = True) -> dict[str, str]:
             heads = {str(net.node_ids[s]): h for s, h in t.source_head[k].items()}
             total = sum(flows.values())
             scales = np.linspace(0.0, 1.6, 7)
-            p = []
-            for s in scales:
-                pr = predict_test(net, {n: q * s for n, q in flows.items()}, [str(net.node_ids[gauge])],
-                                  roughness=rough, source_head=heads, solver=solver)[0]
-                p.append(pr.residual)
+            # the loaded snapshots only (predict_test would solve the unchanged static beside each)
+            loads = [Snapshot(extra_demand={n: q * s for n, q in flows.items()}, source_head=heads)
+                     for s in scales]
+            p = [r.pressure[gauge] for r in solver.solve_many(loads, roughness=rough)]
             gh = units.head_to_pressure(t.gauge_height[sel[0]])
             ax.plot(units.from_si(total * scales, "flow", fu), conv(np.array(p) - gh), color="tab:blue")
             for i in sel[t.node[sel] == gauge]:
