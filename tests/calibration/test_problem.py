@@ -43,7 +43,6 @@ def test_scaling_every_c_scales_head_losses_by_k_to_minus_1_852(case):
     # check-values.md, exact property [C]: one fixed-grade source, fixed demands: C -> k C leaves flows
     # unchanged and multiplies every head loss by k^-1.852 (k = 1.1: 0.8381867)
     net, grp, tests = case
-    prob = CalibrationProblem(net, tests, grp, prior=None)
     x = np.array([100.0, 100.0, 100.0])
     grp_net = net.replace(roughness=np.full(net.n_pipes, 100.0))
     prob = CalibrationProblem(grp_net, tests, grp, prior=None)
