@@ -179,16 +179,14 @@ class HydrantFieldApp(App):
         A cached image is handed back at once; a new one is drawn in a worker (``on_done`` is then
         called there: the screen makes it safe for the UI). The store is read here, never off thread.
         """
-        t = self.store.test(tid)
-        path = self.data_dir / "cache" / f"{tid}-r{t.current_revision}-{self.service.system}-" \
-                                         f"{len(self.store.history(tid))}.png"
+        results, system = self.service.results(tid), self.service.system
+        path = curve.cache_path(results, self.data_dir / "cache", tid, system)
         if path.exists():
             on_done(tid, str(path))
             return
-        for old in path.parent.glob(f"{tid}-r*.png"):  # earlier states of this test
+        for old in path.parent.glob(f"{tid}-*.png"):  # earlier states of this test
             if old != path:  # (a worker may be writing this one right now)
                 old.unlink(missing_ok=True)
-        results, system = self.service.results(tid), self.service.system
 
         def failed(exc):
             Logger.warning(f"FieldApp: the curve of {tid} could not be drawn: {exc}")

@@ -10,7 +10,9 @@ run in a worker thread.
 
 from __future__ import annotations
 
+import hashlib
 import io
+from pathlib import Path
 
 import numpy as np
 from matplotlib.figure import Figure
@@ -38,6 +40,15 @@ def _tick_labels(ticks: np.ndarray, min_gap: float = 0.12) -> list[str]:
         else:
             out.append("")
     return out
+
+
+def cache_path(results, folder, tid: str, system: str = "us") -> Path:
+    """Where the curve image of test ``tid`` is kept: named after what it draws (the readings and
+    results it shows and the units), so any change of those - a new reading, another rating gauge,
+    a correction, other units - gives a new name, and an unchanged test reuses its image."""
+    drawn = (results.flow, results.static, results.residual, results.rated_flow, results.target, system)
+    key = hashlib.sha1(repr(drawn).encode()).hexdigest()[:12]
+    return Path(folder) / f"{tid}-{key}.png"
 
 
 def render_curve(results, path, system: str = "us", width_px: int = 820, height_px: int = 640) -> bool:
