@@ -4,6 +4,7 @@ import numpy as np
 import pytest
 
 from calib import flowtest
+from calib.units import PSI
 
 from mobile.services import curve, views
 
@@ -78,3 +79,20 @@ def test_keypad_goes_to_the_first_empty_reading_and_stays_on_a_chosen_one(servic
     service.enter(tid, "pitot@o1", "22")
     full = views.reading_rows(service, tid)
     assert views.pick_slot(full, "pitot@o1", advance=True) == "pitot@o1"  # all entered: stay
+
+
+def test_the_curve_image_is_renamed_when_what_it_draws_changes(service, tmp_path):
+    """Common practice for caches: the name follows the content. Same test, same name; another
+    rating gauge (the first one removed), another reading or other units, another name."""
+    h = service.area.hydrants
+    tid = _test(service)  # gauge h[0]: 72 / 58 psi
+    first = curve.cache_path(service.results(tid), tmp_path, tid)
+    assert curve.cache_path(service.results(tid), tmp_path, tid) == first
+    assert curve.cache_path(service.results(tid), tmp_path, tid, "si") != first
+    service.add_gauge(tid, h[2])
+    service.enter(tid, f"static@{h[2]}", "70")
+    service.enter(tid, f"residual@{h[2]}", "50")
+    assert curve.cache_path(service.results(tid), tmp_path, tid) == first  # h[0] still rates
+    service.remove_gauge(tid, h[0])  # no new reading: the history length stays, the curve changes
+    assert service.results(tid).static == pytest.approx(70 * PSI, rel=1e-9)  # now h[2] rates
+    assert curve.cache_path(service.results(tid), tmp_path, tid) != first
