@@ -69,6 +69,7 @@ class HydrantFieldApp(App):
         self.snapshot_dir = Path(snapshot_dir) if snapshot_dir else None
         self._data_dir_arg = data_dir
         self.snapshots: list[str] = []
+        self.area_problem = ""  # why the area used last did not load at start, if it did not
 
     # --- set-up ------------------------------------------------------------------------------
     def resolve_data_dir(self) -> Path:
@@ -105,8 +106,9 @@ class HydrantFieldApp(App):
         if path:
             try:
                 return Area.load(path)
-            except (CalibError, OSError):
-                pass
+            except (CalibError, OSError) as exc:  # moved or edited since: say so on the home screen
+                self.area_problem = f"The area used last ({path}) could not be read: " + \
+                    _first_message(exc)
         return Area("No area loaded")
 
     def _on_key(self, window, key, *args):
@@ -141,7 +143,8 @@ class HydrantFieldApp(App):
     def area_summary(self) -> str:
         a = self.service.area
         if a.network is None and not a.hydrants:
-            return "No area loaded: tap LOAD AREA to pick the office network (folder or .geojson)."
+            return (self.area_problem + "\n" if self.area_problem else "") + \
+                "No area loaded: tap LOAD AREA to pick the office network (folder or .geojson)."
         return f"Area {a.name}: {len(a.hydrants)} hydrants" + \
             (", network loaded (model check available)" if a.network is not None else "")
 
@@ -169,7 +172,7 @@ class HydrantFieldApp(App):
         except (CalibError, OSError) as exc:
             outcome = Outcome(False, "Could not load the area: " + _first_message(exc))
         else:
-            self.service.area = area
+            self.service.area, self.area_problem = area, ""
             outcome = Outcome(True, f"Loaded {area.name}: {len(area.hydrants)} hydrants")
         self.root.get_screen("home").show(outcome)
 
