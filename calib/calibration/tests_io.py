@@ -44,7 +44,7 @@ RANGE = {
     "residual": (0.0, 300 * units.PSI, "0 to 300 psi"),
     "gauge_height": (-20 * units.FT, 30 * units.FT, "-20 to 30 ft above the node elevation"),
     "sigma": (0.0, 20 * units.PSI, "more than 0 and at most 20 psi"),
-    "head": (-500.0, 3000.0, "a hydraulic grade between -500 and 3000 m"),
+    "head": (-500.0, 3000.0, "a hydraulic grade between -1640 and 9842 ft (-500 and 3000 m)"),
 }
 DEFAULT_COEFFICIENT = 0.90  # NFPA 291 outlet figure: smooth, well-rounded outlet
 
