@@ -74,7 +74,10 @@ def pitot_discharge(pitot, diameter, coefficient=0.90):
     """
     p = np.asarray(si(pitot, "pressure", "pitot"), dtype=float)
     d = np.asarray(si(diameter, "diameter", "outlet diameter"), dtype=float)
-    c = np.asarray(coefficient, dtype=float)
+    try:
+        c = np.asarray(coefficient, dtype=float)
+    except (TypeError, ValueError):
+        fail("coefficient", f"outlet coefficient {coefficient!r} is not a number", "0.5 - 1.0, usually 0.70 - 0.90")
     if np.any(~np.isfinite(p)) or np.any(p < 0):
         fail("pitot", "a pitot reading must be zero or more", "0 - 100 psi (0 - 700 kPa)")
     if np.any(~np.isfinite(d)) or np.any(d <= 0):

@@ -54,7 +54,11 @@ class Outlet:
                      "1.5 - 6 in, usually 2.5 in (hose) or 4 - 4.5 in (pumper)")
             if self.coefficient is None:
                 self.coefficient = outlet_coefficient(self.shape)
-            self.coefficient = float(self.coefficient)
+            try:
+                self.coefficient = float(self.coefficient)
+            except (TypeError, ValueError):
+                fail("coefficient", f"outlet coefficient {self.coefficient!r} is not a number",
+                     "0.5 - 1.0, usually 0.70 - 0.90 (NFPA 291 outlet figure)")
 
     @property
     def factor(self) -> float:

@@ -98,6 +98,7 @@ def test_two_outlets_sum_flows_never_average_pitots():
     (("18 psi", "18 psi", 0.9), "outlet diameter"),
     (("18 psi", "2.5 in", 1.2), "coefficient"),
     (("18 psi", "2.5 in", 0.0), "coefficient"),
+    (("18 psi", "2.5 in", "abc"), "coefficient"),
 ])
 def test_bad_inputs_raise_flowtesterror_naming_the_argument(args, field):
     with pytest.raises(FlowTestError, match=f"field '{field}'.*expected"):

@@ -85,6 +85,7 @@ def test_to_dict_in_us_and_si_units():
     (lambda: FlowTest("72 psi", "58 psi", []), "outlets"),
     (lambda: FlowTest("72 ft", "58 psi", [Outlet(flow="500 gpm")]), "static"),
     (lambda: Outlet("2.5 in", pitot="20 psi", shape="oval"), "outlet shape"),
+    (lambda: Outlet("2.5 in", pitot="20 psi", coefficient="x"), "coefficient"),
 ])
 def test_unreadable_input_raises(make, field):
     with pytest.raises(FlowTestError, match=f"field '{field}'"):
