@@ -93,6 +93,10 @@ def quick_c(flow, length, diameter, upstream_grade, downstream_grade, *,
                              ("diameter", d, "an inside diameter such as 4 - 24 in")):
         if not math.isfinite(value) or value <= 0:
             fail(name, f"{name} must be more than zero", rng)
+    try:
+        flow_error = float(flow_error)
+    except (TypeError, ValueError):
+        fail("flow error", f"flow error {flow_error!r} is not a number", "a fraction such as 0.05")
     if e_up < 0 or e_dn < 0 or not 0 <= flow_error < 1:
         fail("gauge error", "accuracies must be zero or more (flow error below 1)", "e.g. 1 psi, 0.05")
     h = h_up - h_dn

@@ -103,6 +103,7 @@ def test_drop_not_larger_than_gauge_error_is_unbounded_above():
     (dict(length=-5.0), "length"),
     (dict(diameter="8 psi"), "diameter"),
     (dict(downstream_grade=120.0), "downstream grade"),  # grade rises 20 m along the flow
+    (dict(flow_error="lots"), "flow error"),
 ])
 def test_bad_input_raises(kwargs, field):
     args = dict(flow=1000 * GPM, length=600.0, diameter=0.2, upstream_grade=100.0, downstream_grade=95.0)
