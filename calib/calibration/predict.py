@@ -69,6 +69,8 @@ def predict_test(network, flows: dict, gauges, roughness=None, source_head=None,
             continue
         if key is not None:
             extra[key] = extra.get(key, 0.0) + q
+    if isinstance(gauges, (str, int, np.integer)):
+        gauges = [gauges]  # one gauge given bare: not its characters one by one
     keys = [_node_id(network, g, "gauges", problems) for g in gauges]
     if problems:
         raise InputError(problems)

@@ -27,6 +27,8 @@ def test_predicted_drop_is_the_hazen_williams_loss_of_the_pipe():
     # 8 in, C 130, 1000 gpm, 1000 ft: 18.266 ft US form / 18.254 ft SI form
     (r130,) = predict_test(net, {0: 1000 * units.GPM}, [0], roughness=np.array([130.0]))
     assert units.pressure_to_head(r130.drop) / units.FT == pytest.approx(18.26, rel=2e-3)
+    (bare,) = predict_test(net, {"J1": 1000 * units.GPM}, "J1")  # one gauge given without a list
+    assert bare.drop == pytest.approx(r.drop, rel=1e-12)
 
 
 def test_predict_names_bad_ids():
