@@ -167,7 +167,8 @@ def format_text(result, system: str) -> str:
     lines.append(f"  rated flow at {fmt_pressure(t.target, system)} residual: {q(result.rated_flow)}")
     cls = result.hydrant_class
     if t.target != DEFAULT_TARGET:
-        lines.append(f"  flow at 20 psi residual (the class is by it): {q(result.rated_flow_20psi)}")
+        lines.append(f"  flow at {fmt_pressure(DEFAULT_TARGET, system)} residual (the class is by it): "
+                     f"{q(result.rated_flow_20psi)}")
     lines.append(f"  class: {cls.describe(system)}")
     lines.append(f"    {cls.note}")
     if result.residual_grade is not None:
