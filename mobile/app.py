@@ -204,7 +204,8 @@ class HydrantFieldApp(App):
         try:
             done = export.export_tests(self.service, folder, include_drafts)
         except (CalibError, OSError) as exc:
-            return Outcome(False, f"Export failed, nothing half-written: {exc}")
+            return Outcome(False, f"Export failed: {exc}. Each file is either the old or the new one, "
+                                  "never half-written; export again to bring them all up to date.")
         return Outcome(True, f"Exported {done['tests']} tests to {done['folder']}")
 
     # --- snapshot mode -----------------------------------------------------------------------
