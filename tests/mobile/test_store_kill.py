@@ -38,7 +38,11 @@ def _parse(lines) -> list[tuple[int, float]]:
     return out
 
 
-def _forked_writer(folder: Path, start: int, delay: float) -> list[tuple[int, float]]:
+def _forked_writer(folder: Path, start: int, delay: float,
+                   after_first: bool) -> list[tuple[int, float]]:
+    """Fork a writer and SIGKILL it ``delay`` s after it starts or, with ``after_first``, after its
+    first reported commit (so that a busy machine, slow to open the file, still sees kills land
+    among commits)."""
     read_fd, write_fd = os.pipe()
     pid = os.fork()
     if pid == 0:  # child: write until killed; never return into pytest
@@ -59,6 +63,10 @@ def _forked_writer(folder: Path, start: int, delay: float) -> list[tuple[int, fl
             os._exit(1)
     os.close(write_fd)
     chunks = []
+    if after_first and select.select([read_fd], [], [], 10.0)[0]:
+        data = os.read(read_fd, 65536)
+        if data:
+            chunks.append(data)
     end = time.monotonic() + delay
     while (left := end - time.monotonic()) > 0:  # keep the pipe drained while waiting
         if select.select([read_fd], [], [], left)[0]:
@@ -105,7 +113,8 @@ def test_kill_at_random_moments_loses_no_committed_reading(tmp_path):
         if trial < FRESH_TRIALS:  # kills from interpreter start-up to a few commits in
             got = _fresh_writer(folder, trial * 1_000_000, rng.uniform(0.0, 0.8))
         else:
-            got = _forked_writer(folder, trial * 1_000_000, rng.uniform(0.0, 0.03))
+            got = _forked_writer(folder, trial * 1_000_000, rng.uniform(0.0, 0.03),
+                                 after_first=trial % 4 != 0)
         landed += bool(got)
         reported.update(got)
         _check(folder, reported, trial)
