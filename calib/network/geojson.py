@@ -1,7 +1,8 @@
 """A network as one GeoJSON FeatureCollection (RFC 7946): reading it, and writing one (e.g. calibrated C).
 
 Point features are nodes (property ``kind``: ``junction``, or ``source`` / ``reservoir`` / ``tank``),
-LineString features are pipes (``kind`` ``pipe``, the default) or pumps (``kind`` ``pump``). Other
+LineString features are pipes (``kind`` ``pipe``, the default), pumps (``kind`` ``pump``) or control
+valves (``kind`` ``valve``, the columns of ``valves.csv``). Other
 properties carry the same names as the CSV columns, units in brackets (``"elevation [ft]"``).
 
 Coordinates: by RFC 7946 they are WGS84 longitude, latitude [degrees]. A file in a projected map grid
@@ -26,7 +27,7 @@ from calib import fileio
 from calib.errors import NetworkError, Problem
 from calib.network import pump_curve, validate
 from calib.network.model import Network
-from calib.network.tables import NetworkTables, parse_table
+from calib.network.tables import NetworkTables, parse_table, valve_frame
 from calib.units import DISPLAY, from_si, unit_factor
 
 #: Mean Earth radius R1 of the IUGG [m] (Moritz, "Geodetic Reference System 1980", Bulletin
@@ -34,7 +35,7 @@ from calib.units import DISPLAY, from_si, unit_factor
 EARTH_RADIUS = 6371008.8
 NODE_KINDS = {"junction": "junction", "source": "reservoir", "reservoir": "reservoir",
               "tank": "tank"}
-LINK_KINDS = ("pipe", "pump")
+LINK_KINDS = ("pipe", "pump", "valve")
 
 
 def haversine_length(lon, lat, radius: float = EARTH_RADIUS) -> float:
@@ -117,14 +118,14 @@ def read_geojson(path) -> Network:
             problems.append(Problem(f"length_unit: {exc}", file=file, field="length_unit",
                                     expected="ft or m"))
             scale = 1.0
-    tables = {name: _Collector() for name in ("junctions", "sources", "pipes", "pumps")}
-    geometry = {"pipes": [], "pumps": []}
+    tables = {name: _Collector() for name in ("junctions", "sources", "pipes", "pumps", "valves")}
+    geometry = {"pipes": [], "pumps": [], "valves": []}
     for row, feature in enumerate(data["features"], start=1):
         _read_feature(file, row, feature, scale, tables, geometry, problems)
     parsed = {name: c.parse(file, name, problems) for name, c in tables.items()
-              if name != "pumps" or c.rows}
+              if name not in ("pumps", "valves") or c.rows}
     network_tables = NetworkTables(parsed["junctions"], parsed["sources"], parsed["pipes"],
-                                   parsed.get("pumps"))
+                                   parsed.get("pumps"), parsed.get("valves"))
     name = path.stem if path.stem != "network" else (path.parent.name or "network")
     return validate.assemble(network_tables, problems, name=name,
                              pipe_geometry=geometry["pipes"])
@@ -145,7 +146,7 @@ def _read_feature(file, row, feature, scale, tables, geometry, problems) -> None
     if kind not in NODE_KINDS and kind not in LINK_KINDS:
         problems.append(Problem(f"kind '{kind}' is not known" if kind else "the feature has no kind",
                                 file=file, row=row, id=ident, field="kind",
-                                expected="junction, source (reservoir or tank), pipe or pump"))
+                                expected="junction, source (reservoir or tank), pipe, pump or valve"))
         return
     want = "Point" if kind in NODE_KINDS else "LineString"
     try:
@@ -161,7 +162,7 @@ def _read_feature(file, row, feature, scale, tables, geometry, problems) -> None
         props["x"], props["y"] = (None, None) if vertices is None else vertices[0] * factor
         tables["junctions" if kind == "junction" else "sources"].add(row, props)
         return
-    table = "pipes" if kind == "pipe" else "pumps"
+    table = {"pipe": "pipes", "pump": "pumps", "valve": "valves"}[kind]
     line = None if vertices is None else [tuple(map(float, v)) for v in vertices * factor]
     if kind == "pipe" and not _length_header(props):
         if vertices is None:
@@ -244,6 +245,7 @@ def network_features(network: Network, units: str = "us", length_unit: str | Non
     features = [_feature(g, p) for g, p in zip(points, junctions + sources)]
     features += _pipe_features(network, units, to_map)
     features += _pump_features(network, units, to_map)
+    features += _valve_features(network, units, to_map)
     collection = {"type": "FeatureCollection", "name": network.name}
     if length_unit is not None:
         collection["length_unit"] = length_unit
@@ -289,6 +291,18 @@ def _pump_features(network: Network, units: str, to_map) -> list[dict]:
         columns[f"flow_{i} [{u['flow']}]"] = _column(from_si(q, "flow", u["flow"]))
     columns["speed"] = _column(pumps.speed)
     lines = _lines(network, pumps.from_node, pumps.to_node, to_map)
+    return [_feature(g, p) for g, p in zip(lines, _records(columns))]
+
+
+def _valve_features(network: Network, units: str, to_map) -> list[dict]:
+    """Valves with the columns of ``valves.csv`` (``tables.valve_frame``), straight lines."""
+    if len(network.valves) == 0:
+        return []
+    frame = valve_frame(network, units)
+    columns = {"id": frame["id"].tolist(), "kind": ["valve"] * len(frame)}
+    columns.update({name: _column(frame[name]) if frame[name].dtype.kind == "f"
+                    else frame[name].tolist() for name in frame.columns if name != "id"})
+    lines = _lines(network, network.valves.from_node, network.valves.to_node, to_map)
     return [_feature(g, p) for g, p in zip(lines, _records(columns))]
 
 

@@ -49,6 +49,73 @@ class Pumps:
         return len(self.ids)
 
 
+class ValveType(IntEnum):
+    """What a control valve does (``valves.csv`` column ``type``)."""
+
+    #: Holds the pressure at its downstream node (``to``) at its setting; no reverse flow.
+    REDUCING = 0
+    #: Holds the pressure at its upstream node (``from``) at its setting; no reverse flow.
+    SUSTAINING = 1
+    #: Passes at most its setting flow ``from -> to``; no reverse flow.
+    FLOW_LIMITING = 2
+    #: A partly closed valve: head loss ``K V^2 / 2g`` with its setting K, flow both ways.
+    THROTTLE = 3
+
+
+class ValveMode(IntEnum):
+    """The status a valve is given (``valves.csv`` column ``status``)."""
+
+    #: The valve acts on its setting; the solver finds its state (active, open or closed).
+    ACTIVE = 0
+    #: Held fully open: a loss ``minor_loss V^2 / 2g`` either way.
+    OPEN = 1
+    #: Held closed: no flow.
+    CLOSED = 2
+
+
+VALVE_TYPE_WORDS = {"pressure-reducing": ValveType.REDUCING,
+                    "pressure-sustaining": ValveType.SUSTAINING,
+                    "flow-limiting": ValveType.FLOW_LIMITING, "throttle": ValveType.THROTTLE}
+VALVE_MODE_WORDS = {"": ValveMode.ACTIVE, "active": ValveMode.ACTIVE, "open": ValveMode.OPEN,
+                    "closed": ValveMode.CLOSED}
+
+
+@dataclass
+class Valves:
+    """Control valves as links ``from -> to``, all arrays of one length (plain SI).
+
+    ``setting`` holds per type: a gauge pressure [Pa] (reducing: at ``to``; sustaining: at
+    ``from``), a flow [m3/s] (flow-limiting) or a loss coefficient K [-] (throttle).
+    ``minor_loss`` is K of the fully open valve [-].
+    """
+
+    ids: np.ndarray = field(default_factory=lambda: _empty(object))
+    from_node: np.ndarray = field(default_factory=lambda: _empty(np.int64))
+    to_node: np.ndarray = field(default_factory=lambda: _empty(np.int64))
+    diameter: np.ndarray = field(default_factory=lambda: _empty(float))  # [m]
+    kind: np.ndarray = field(default_factory=lambda: _empty(np.int8))  # ValveType codes
+    setting: np.ndarray = field(default_factory=lambda: _empty(float))
+    mode: np.ndarray = field(default_factory=lambda: _empty(np.int8))  # ValveMode codes
+    minor_loss: np.ndarray = field(default_factory=lambda: _empty(float))  # [-]
+
+    def __post_init__(self):
+        self.ids = np.asarray(self.ids, dtype=object)
+        self.from_node = np.asarray(self.from_node, dtype=np.int64)
+        self.to_node = np.asarray(self.to_node, dtype=np.int64)
+        self.kind = np.asarray(self.kind, dtype=np.int8)
+        self.mode = np.asarray(self.mode, dtype=np.int8)
+        for name in ("diameter", "setting", "minor_loss"):
+            setattr(self, name, np.asarray(getattr(self, name), dtype=float))
+        n = len(self.ids)
+        for name in ("from_node", "to_node", "diameter", "kind", "setting", "mode", "minor_loss"):
+            if len(getattr(self, name)) != n:
+                raise ValueError(f"Valves.{name} has {len(getattr(self, name))} entries, "
+                                 f"expected {n}")
+
+    def __len__(self) -> int:
+        return len(self.ids)
+
+
 @dataclass
 class Network:
     """A water distribution network in SI units. Arrays are indexed by node or pipe number."""
@@ -76,6 +143,9 @@ class Network:
     y: np.ndarray = None
     zone: np.ndarray = None  # (n_nodes,) pressure zone or area name, "" when none
     pumps: Pumps = field(default_factory=Pumps)
+    valves: Valves = field(default_factory=Valves)
+    #: Problems worth a look that do not stop a solve (e.g. a reducing valve set above its supply).
+    warnings: list = field(default_factory=list)
     pipe_geometry: list | None = None  # per pipe a list of (x, y) vertices, when read from GeoJSON
     name: str = "network"
 

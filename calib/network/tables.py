@@ -1,6 +1,7 @@
 """The network's CSV tables: their columns, and the parsing of a table's cells into SI arrays.
 
-A network folder holds ``junctions.csv``, ``sources.csv``, ``pipes.csv`` and optionally ``pumps.csv``.
+A network folder holds ``junctions.csv``, ``sources.csv``, ``pipes.csv`` and optionally ``pumps.csv``
+and ``valves.csv``.
 Each column's unit is written in brackets in its header (``elevation [ft]``, ``diameter [mm]``) and
 parsed by pint, so any unit pint knows is accepted. Parsing never stops at the first bad cell: every
 problem is appended to a list, with the file, the row as a person counts it (header = row 1), the id
@@ -24,11 +25,12 @@ import pandas as pd
 from calib import fileio
 from calib.errors import Problem
 from calib.network import pump_curve
-from calib.network.model import Network, PipeStatus
+from calib.network.model import (VALVE_TYPE_WORDS, Network, PipeStatus, ValveMode,
+                                 ValveType)
 from calib.units import DISPLAY, from_si, parse_header, unit_factor
 
 #: Physical kinds that need a unit in the header (see ``calib.units.SI_UNIT``).
-UNIT_KINDS = ("elevation", "head", "flow", "length", "diameter")
+UNIT_KINDS = ("elevation", "head", "flow", "length", "diameter", "pressure")
 
 
 @dataclass(frozen=True)
@@ -63,10 +65,16 @@ SCHEMA: dict[str, tuple[Column, ...]] = {
                 for i in (1, 2, 3) for q in ("head", "flow")),
               Column("shutoff_head", "head"), Column("design_head", "head"),
               Column("design_flow", "flow"), Column("speed", "number")),
+    # control valves (see ``calib.network.model.Valves``); the setting column depends on the type
+    "valves": (Column("id", "id", True), Column("from", "node", True), Column("to", "node", True),
+               Column("diameter", "diameter", True), Column("type", "text", True),
+               Column("pressure", "pressure"), Column("flow", "flow"),
+               Column("loss_coefficient", "number"), Column("status", "text"),
+               Column("minor_loss", "number")),
 }
 FILES = {"junctions": "junctions.csv", "sources": "sources.csv", "pipes": "pipes.csv",
-         "pumps": "pumps.csv"}
-OPTIONAL_TABLES = ("pumps",)
+         "pumps": "pumps.csv", "valves": "valves.csv"}
+OPTIONAL_TABLES = ("pumps", "valves")
 
 _TRUE = {"yes", "y", "true", "t", "1"}
 _FALSE = {"no", "n", "false", "f", "0", ""}
@@ -104,6 +112,7 @@ class NetworkTables:
     sources: ParsedTable
     pipes: ParsedTable
     pumps: ParsedTable | None = None
+    valves: ParsedTable | None = None
 
 
 # --- parsing of cells ----------------------------------------------------------------------------
@@ -322,7 +331,7 @@ def read_tables(folder) -> tuple[NetworkTables | None, list[Problem]]:
     if any(parsed.get(t) is None for t in FILES if t not in OPTIONAL_TABLES):
         return None, problems
     return NetworkTables(parsed["junctions"], parsed["sources"], parsed["pipes"],
-                         parsed.get("pumps")), problems
+                         parsed.get("pumps"), parsed.get("valves")), problems
 
 
 # --- writing a network as CSV tables -------------------------------------------------------------
@@ -372,7 +381,30 @@ def network_frames(network: Network, units: str = "us") -> dict[str, pd.DataFram
     frames = {"junctions": junctions, "sources": sources, "pipes": pipes}
     if len(network.pumps):
         frames["pumps"] = _pump_frame(network, units)
+    if len(network.valves):
+        frames["valves"] = valve_frame(network, units)
     return frames
+
+
+def valve_frame(network: Network, units: str) -> pd.DataFrame:
+    """Valves with their setting in the column of their type (the others left empty)."""
+    u = DISPLAY[units]
+    v, ids = network.valves, network.node_ids.astype(str)
+    kind_word = {int(code): word for word, code in VALVE_TYPE_WORDS.items()}
+    mode_word = {int(ValveMode.ACTIVE): "active", int(ValveMode.OPEN): "open",
+                 int(ValveMode.CLOSED): "closed"}
+    pressure = np.isin(v.kind, (ValveType.REDUCING, ValveType.SUSTAINING))
+    return pd.DataFrame({
+        "id": v.ids.astype(str), "from": ids[v.from_node], "to": ids[v.to_node],
+        f"diameter [{u['diameter']}]": from_si(v.diameter, "diameter", u["diameter"]),
+        "type": [kind_word[int(k)] for k in v.kind],
+        f"pressure [{u['pressure']}]": np.where(pressure, from_si(v.setting, "pressure",
+                                                                  u["pressure"]), np.nan),
+        f"flow [{u['flow']}]": np.where(v.kind == ValveType.FLOW_LIMITING,
+                                        from_si(v.setting, "flow", u["flow"]), np.nan),
+        "loss_coefficient": np.where(v.kind == ValveType.THROTTLE, v.setting, np.nan),
+        "status": [mode_word[int(m)] for m in v.mode], "minor_loss": v.minor_loss,
+    })
 
 
 def _pump_frame(network: Network, units: str) -> pd.DataFrame:

@@ -18,7 +18,9 @@ from scipy.sparse.csgraph import connected_components
 
 from calib.errors import NetworkError, Problem
 from calib.network import pump_curve
-from calib.network.model import Network, PipeStatus, Pumps
+from calib.network.model import (VALVE_MODE_WORDS, VALVE_TYPE_WORDS, Network, PipeStatus,
+                                 Pumps, ValveMode, Valves, ValveType)
+from calib.units import GAMMA_WATER, PSI
 from calib.network.tables import NetworkTables, ParsedTable
 
 #: Plausible Hazen-Williams C: new smooth pipe is about 150, badly tuberculated mains go below 40.
@@ -27,6 +29,14 @@ C_RANGE = (1.0, 200.0)
 #: 0.26 mm, riveted steel up to 9 mm (Moody 1944, "Friction factors for pipe flow", Trans. ASME 66,
 #: roughness chart; from memory). Above 10 mm a value in the wrong unit is the likely cause.
 ROUGHNESS_HEIGHT_MAX = 0.010
+#: Plausible valve settings: a pressure valve's setting [Pa gauge] up to 300 psi (ductile iron
+#: pressure classes stop at 350 psi; common practice), a throttle's K up to 1e6 (a nearly shut
+#: gate valve reaches K of several thousand; beyond 1e6 a closed status says it better).
+VALVE_PRESSURE_MAX = 300 * PSI
+THROTTLE_K_MAX = 1e6
+#: Which column holds the setting of each type.
+VALVE_SETTING = {ValveType.REDUCING: "pressure", ValveType.SUSTAINING: "pressure",
+                 ValveType.FLOW_LIMITING: "flow", ValveType.THROTTLE: "loss_coefficient"}
 #: How many junction ids to name for a part of the network with no source.
 NAMED_IDS = 5
 
@@ -124,6 +134,108 @@ def _pump_curves(pumps: ParsedTable, problems: list[Problem]) -> np.ndarray:
     return curves
 
 
+def _valve_parts(valves: ParsedTable, index: dict[str, int], n_junctions: int,
+                 problems: list[Problem]):
+    """Ends, type codes, settings (SI), modes and open K of the valves, with a problem per bad cell."""
+    v_from, v_to = _link_ends(valves, index, problems)
+    n = len(valves)
+    kind = np.zeros(n, dtype=np.int8)
+    mode = np.zeros(n, dtype=np.int8)
+    setting = np.full(n, np.nan)
+    types = valves.get("type", "")
+    statuses = valves.get("status", "")
+    words = " or ".join(VALVE_TYPE_WORDS)
+    diameter = valves.get("diameter")
+    minor = valves.get("minor_loss")
+    for i in range(n):
+        word = " ".join(str(types[i]).lower().split())
+        if word not in VALVE_TYPE_WORDS:
+            if word:
+                problems.append(_problem(valves, i, f"'{types[i]}' is not a valve type",
+                                         field="type", expected=words))
+            continue
+        kind[i] = code = VALVE_TYPE_WORDS[word]
+        mode_word = str(statuses[i]).strip().lower()
+        if mode_word in VALVE_MODE_WORDS:
+            mode[i] = VALVE_MODE_WORDS[mode_word]
+        else:
+            problems.append(_problem(valves, i, f"'{statuses[i]}' is not a valve status",
+                                     field="status", expected="active (the default), open or "
+                                     "closed"))
+        column = VALVE_SETTING[code]
+        value = valves.get(column)[i]
+        setting[i] = value
+        held = mode[i] != ValveMode.ACTIVE
+        if not np.isfinite(value):
+            if not held:  # a valve held open or closed needs no setting
+                unit = {"pressure": " [psi]", "flow": " [gpm]"}.get(column, "")
+                problems.append(_problem(valves, i, f"a {word} valve needs its setting in column "
+                                         f"'{column}{unit}'", field=column,
+                                         expected=f"a number in '{column}'"))
+            continue
+        if code in (ValveType.REDUCING, ValveType.SUSTAINING) and not 0 <= value <= \
+                VALVE_PRESSURE_MAX:
+            problems.append(_problem(valves, i, f"pressure setting {value / PSI:.4g} psi is out "
+                                     "of range", field="pressure", expected="0 to "
+                                     f"{VALVE_PRESSURE_MAX / PSI:g} psi gauge"))
+        elif code == ValveType.FLOW_LIMITING and value <= 0:
+            problems.append(_problem(valves, i, "the flow setting must be positive", field="flow",
+                                     expected="the most the valve passes, e.g. 500 gpm"))
+        elif code == ValveType.THROTTLE and not 0 <= value <= THROTTLE_K_MAX:
+            problems.append(_problem(valves, i, f"loss coefficient {value:g} is out of range",
+                                     field="loss_coefficient", expected=f"K from 0 to "
+                                     f"{THROTTLE_K_MAX:g}; a closed valve: status closed"))
+        controlled = {ValveType.REDUCING: ("to", v_to), ValveType.SUSTAINING: ("from", v_from)}
+        if code in controlled and not held:
+            end, nodes = controlled[code]
+            if nodes[i] >= n_junctions:
+                problems.append(_problem(valves, i, f"a {word} valve holds the pressure at its "
+                                         f"'{end}' node, which is a fixed-grade source here",
+                                         field=end, expected="a junction"))
+    for i in np.flatnonzero(np.isfinite(diameter) & (diameter <= 0)):
+        problems.append(_problem(valves, i, "the diameter must be positive", field="diameter",
+                                 expected="the valve's inside diameter, e.g. 8 in"))
+    for i in np.flatnonzero(np.isfinite(minor) & (minor < 0)):
+        problems.append(_problem(valves, i, "minor loss must not be negative", field="minor_loss",
+                                 expected="K of the fully open valve, zero or more"))
+    return v_from, v_to, kind, setting, mode
+
+
+def valve_warnings(network: Network, file: str = "valves.csv", rows=None) -> list[Problem]:
+    """Reducing valves set above the static grade upstream of them: they pass flow fully open.
+
+    The static grade upstream is the highest fixed grade that reaches the valve's ``from`` node
+    through open pipes, running pumps and valves not closed (the valve itself left out); a valve
+    whose upstream part has no source of its own is compared with the highest grade in the
+    network.
+    """
+    v = network.valves
+    reducing = (v.kind == ValveType.REDUCING) & (v.mode == ValveMode.ACTIVE)
+    if not reducing.any():
+        return []
+    nj, n = network.n_junctions, network.n_nodes
+    out = []
+    for k in np.flatnonzero(reducing):
+        frm = np.concatenate([network.pipe_from, network.pumps.from_node, v.from_node])
+        to = np.concatenate([network.pipe_to, network.pumps.to_node, v.to_node])
+        use = np.concatenate([network.status != PipeStatus.CLOSED, network.pumps.speed > 0,
+                              v.mode != ValveMode.CLOSED])
+        use[network.n_pipes + len(network.pumps) + k] = False
+        graph = sp.coo_matrix((np.ones(use.sum()), (frm[use], to[use])), shape=(n, n))
+        _, label = connected_components(graph, directed=False)
+        heads = network.source_head[label[nj:] == label[v.from_node[k]]]
+        static = heads.max() if heads.size else network.source_head.max()
+        grade = network.elevation[v.to_node[k]] + v.setting[k] / GAMMA_WATER
+        if grade > static:
+            out.append(Problem(
+                f"warning: reducing valve setting {v.setting[k] / PSI:.1f} psi (grade "
+                f"{grade / 0.3048:.1f} ft) is above the static grade upstream "
+                f"({static / 0.3048:.1f} ft); the valve passes flow fully open", file=file,
+                row=None if rows is None else int(rows[k]), id=str(v.ids[k]), field="pressure",
+                expected="a setting below the upstream static grade, if the valve is to reduce"))
+    return out
+
+
 def _check_connectivity(tables: NetworkTables, n_junctions: int, n_nodes: int, links,
                         repeated: np.ndarray, problems: list[Problem]) -> None:
     """Each connected part (over open pipes and running pumps) needs a source; each source a link.
@@ -168,7 +280,9 @@ def assemble(tables: NetworkTables, problems: list[Problem], name: str = "networ
     j, s, p = tables.junctions, tables.sources, tables.pipes
     pumps = tables.pumps
     _check_ids([j, s], "node", problems)
-    _check_ids([p] + ([pumps] if pumps is not None else []), "pipe or pump", problems)
+    valves = tables.valves
+    _check_ids([p] + [t for t in (pumps, valves) if t is not None],
+               "pipe or pump" if valves is None else "pipe, pump or valve", problems)
     if len(j) == 0:
         problems.append(Problem("the network has no junctions", file=j.file))
     if len(s) == 0:
@@ -194,12 +308,26 @@ def assemble(tables: NetworkTables, problems: list[Problem], name: str = "networ
         pump_parts = (u_from, u_to, curves, speed)
         frm, to = np.concatenate([frm, u_from]), np.concatenate([to, u_to])
         active = np.concatenate([active, speed > 0])
+    valve_parts = None
+    if valves is not None and len(valves):
+        valve_parts = _valve_parts(valves, index, len(j), problems)
+        v_from, v_to, _, _, v_mode = valve_parts
+        frm, to = np.concatenate([frm, v_from]), np.concatenate([to, v_to])
+        active = np.concatenate([active, v_mode != ValveMode.CLOSED])
     if len(j) and len(s):
         _check_connectivity(tables, len(j), len(node_ids), (frm, to, active), repeated,
                             problems)
     if problems:
         raise NetworkError(problems)
-    return _build(tables, node_ids, p_from, p_to, status, pump_parts, name, pipe_geometry)
+    network = _build(tables, node_ids, p_from, p_to, status, pump_parts, name, pipe_geometry)
+    if valve_parts is not None:
+        v_from, v_to, kind, setting, mode = valve_parts
+        minor = valves.get("minor_loss")
+        network.valves = Valves(ids=valves.get("id", "").astype(object), from_node=v_from,
+                                to_node=v_to, diameter=valves.get("diameter"), kind=kind,
+                                setting=setting, mode=mode, minor_loss=_or(minor, 0.0))
+        network.warnings = valve_warnings(network, valves.file, valves.rows)
+    return network
 
 
 def _or(values: np.ndarray, default: float) -> np.ndarray:

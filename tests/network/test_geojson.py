@@ -150,7 +150,7 @@ def test_geojson_problems_name_the_feature(tmp_path):
     assert ("bad.geojson, row 4, id 'P1', field 'to': node 'J9' is not in the nodes "
             "(expected the id of a junction or a source)") in got
     assert ("bad.geojson, row 5, id 'X1', field 'kind': the feature has no kind (expected "
-            "junction, source (reservoir or tank), pipe or pump)") in got
+            "junction, source (reservoir or tank), pipe, pump or valve)") in got
     assert ("bad.geojson, row 6, id 'P3', field 'geometry': a LineString needs at least two "
             "positions (expected a LineString geometry)") in got
 
