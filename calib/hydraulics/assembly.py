@@ -57,8 +57,8 @@ class SchurPattern:
         self.indptr = np.searchsorted(col_of, np.arange(nj + 1)).astype(np.int32)
         self.nnz = len(uniq)
         self._contrib_pos = pos[:n_contrib]
-        self.diag_pos = np.empty(nj, dtype=np.int64)
-        self.diag_pos[self.perm] = pos[n_contrib:]  # diag_pos[old junction] -> data position
+        # diag_pos[old junction] -> data position (the diagonal entries were added in old order)
+        self.diag_pos = pos[n_contrib:].astype(np.int64)
 
     def _ordering(self, rows, cols) -> np.ndarray:
         """Fill-reducing ordering of the pattern, computed once: SuperLU's minimum degree on A^T+A."""

@@ -38,10 +38,19 @@ class SolveResult:
     _grad: np.ndarray = field(default=None, repr=False)
     _active: np.ndarray = field(default=None, repr=False)
     _isolated_mask: np.ndarray = field(default=None, repr=False)
+    #: control valves (``network.valves`` order): flow [m3/s], head loss ``H_from - H_to`` [m],
+    #: state "active" | "open" | "closed"; notes name valves whose state was frozen
+    valve_flow: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    valve_headloss: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    valve_state: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=object))
+    valve_notes: list = field(default_factory=list)
+    #: per junction: the source(s), else the active valve(s), that feed its pressure zone
+    zone: np.ndarray = None
+    _valve_state: np.ndarray = field(default=None, repr=False)
 
     @property
     def link_flow(self) -> np.ndarray:
-        """Flows of all links, pipes then pumps [m3/s]."""
-        return np.concatenate([self.flow, self.pump_flow])
+        """Flows of all links, pipes then pumps then valves [m3/s]."""
+        return np.concatenate([self.flow, self.pump_flow, self.valve_flow])
 
 

@@ -12,6 +12,7 @@ import scipy.sparse as sp
 
 from calib.errors import InputError
 from calib.hydraulics import headloss as hl
+from calib.hydraulics import valves
 from calib.hydraulics.result import SolveResult
 
 
@@ -38,6 +39,11 @@ def sensitivities(solver, result: SolveResult, dF1_dp, dF2_dp):
     if b1.shape[1] != b2.shape[1]:
         raise InputError(f"dF1_dp has {b1.shape[1]} columns but dF2_dp {b2.shape[1]}",
                          field="dF1_dp", expected="the same number p of parameters")
+    state = getattr(result, "_valve_state", None)
+    if getattr(solver, "nv", 0) and state is not None and \
+            ((state == valves.ACTIVE) & solver.valves.auto).any():
+        dH, dQ = valves.sensitivity_solve(solver, result, w, b1, b2, pat, iso)
+        return (dH[:, 0], dQ[:, 0]) if vector else (dH, dQ)
     wb1 = w[:, None] * b1
     rhs = b2 - pat.inflow_matrix(wb1)
     rhs[iso] = 0.0

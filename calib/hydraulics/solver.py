@@ -11,6 +11,8 @@ eliminates the flow correction and solves, per iteration, the symmetric positive
 Source: Todini, E. and Pilati, S. (1988), "A gradient algorithm for the analysis of pipe networks",
 in Coulbeck and Orr (eds), Computer Applications in Water Supply, vol. 1, 1-20.
 
+Control valves (reducing, sustaining, flow-limiting, throttle) are links after the pumps, their
+states and equations kept in ``calib.hydraulics.valves`` (small hooks here, marked "valves").
 Closed pipes, closed check valves and idle pumps leave the equations (their flow is exactly 0);
 junctions that this cuts off from every source are reported in ``SolveResult.isolated``.
 Not here: the head-loss laws (``headloss``), the sparse algebra (``assembly``), file reading.
@@ -28,6 +30,8 @@ from calib.hydraulics import checks, sensitivity
 from calib.hydraulics.assembly import SchurPattern
 from calib.hydraulics.result import SolveResult
 from calib.hydraulics.snapshot import Snapshot, resolve
+from calib.hydraulics.valves import CLOSED as VALVE_CLOSED
+from calib.hydraulics.valves import STATE_CHECK_FLOW, ValveLinks, annotate
 from calib.network.model import PipeStatus
 from calib.units import FT, GAMMA_WATER
 
@@ -78,9 +82,14 @@ class NetworkSolver:
         self._factor = None
         self.reuse_max_changed, self.cg_max_iterations = reuse_max_changed, cg_max_iterations
         self.nj, self.np_, self.nu = net.n_junctions, net.n_pipes, len(net.pumps)
-        self.link_from = np.concatenate([net.pipe_from, np.asarray(net.pumps.from_node, np.int64)])
-        self.link_to = np.concatenate([net.pipe_to, np.asarray(net.pumps.to_node, np.int64)])
-        self.link_ids = np.concatenate([net.pipe_ids, np.asarray(net.pumps.ids, dtype=object)])
+        self.nv = len(net.valves)  # valves: links after the pumps
+        self.link_from = np.concatenate([net.pipe_from, np.asarray(net.pumps.from_node, np.int64),
+                                         net.valves.from_node])
+        self.link_to = np.concatenate([net.pipe_to, np.asarray(net.pumps.to_node, np.int64),
+                                       net.valves.to_node])
+        self.link_ids = np.concatenate([net.pipe_ids, np.asarray(net.pumps.ids, dtype=object),
+                                        net.valves.ids])
+        self.valves = ValveLinks(net, self.np_ + self.nu, self.q_eps, self.max_status_changes)
         checks.check_geometry(net, self.link_from, self.link_to)
         if headloss == "darcy-weisbach":
             checks.check_roughness_height(net, net.roughness_height)
@@ -110,8 +119,11 @@ class NetworkSolver:
         h = h + self.minor * aq * qp
         g = g + 2.0 * self.minor * aq
         if self.nu:
-            hu, gu = self._pump_law(q[self.np_:])
+            hu, gu = self._pump_law(q[self.np_:self.np_ + self.nu])
             h, g = np.concatenate([h, hu]), np.concatenate([g, gu])
+        if self.nv:  # valves
+            hv, gv = self.valves.law(q[self.np_ + self.nu:])
+            h, g = np.concatenate([h, hv]), np.concatenate([g, gv])
         return h, g
 
     def _pump_law(self, q):
@@ -130,12 +142,14 @@ class NetworkSolver:
         return -gain, slope
 
     def _initial_flow(self):
-        q = np.concatenate([FT * self.area, np.zeros(self.nu)])  # 1 ft/s from -> to
+        q = np.concatenate([FT * self.area, np.zeros(self.nu),  # 1 ft/s from -> to
+                            self.valves.initial_flow()])
         if self.nu:
             s = np.where(self.speed > 0, self.speed, 1.0)
             with np.errstate(divide="ignore", invalid="ignore"):
                 q_half = s * (self.pump_h0 / (2.0 * self.pump_r)) ** (1.0 / self.pump_n)
-            q[self.np_:] = np.where(np.isfinite(q_half) & (q_half > 0), q_half, 1e-3)
+            q[self.np_:self.np_ + self.nu] = np.where(np.isfinite(q_half) & (q_half > 0),
+                                                      q_half, 1e-3)
         return q
 
     def _reachable(self, active):
@@ -147,6 +161,12 @@ class NetworkSolver:
         isolated = self._components(active)
         self._reach_cache = (key, isolated.copy())
         return isolated
+
+    def _isolated(self, active, vstate):
+        """Junctions cut off from every source; with valves also those that only an active
+        sustaining or flow-limiting valve joins to one (see ``valves.ValveLinks.cut_off``)."""
+        isolated = self._reachable(active)
+        return isolated | self.valves.cut_off(active, vstate) if self.nv else isolated
 
     def _components(self, active):
         net = self.network
@@ -170,8 +190,12 @@ class NetworkSolver:
             active = warm_start._active.copy()
         else:
             q = self._initial_flow()
-            active = np.ones(self.np_ + self.nu, dtype=bool)
-        fixed_closed = np.concatenate([self.pipe_closed, self.speed <= 0])
+            active = np.ones(self.np_ + self.nu + self.nv, dtype=bool)
+        fixed_closed = np.concatenate([self.pipe_closed, self.speed <= 0, self.valves.fixed_closed])
+        # valves: their states start from the warm start's, else from their initial states
+        given = getattr(warm_start, "_valve_state", None)
+        self._vstate = given.copy() if given is not None else self.valves.initial_state()
+        active[self.np_ + self.nu:] = self._vstate != VALVE_CLOSED
         active &= ~fixed_closed
         q[~active] = 0.0
         return self._iterate(resolved, rough, coef, q, active, fixed_closed,
@@ -194,9 +218,11 @@ class NetworkSolver:
         H[:nj] = resolved.source_head.max() if net.n_sources else 0.0
         total_demand = float(np.abs(demand).sum())
         mass_tol = max(self.mass_tol * total_demand, self.mass_tol_abs)
-        dynamic = np.concatenate([self.is_cv, np.ones(self.nu, dtype=bool)]) & ~fixed_closed
+        dynamic = np.concatenate([self.is_cv, np.ones(self.nu, dtype=bool),
+                                  np.zeros(self.nv, dtype=bool)]) & ~fixed_closed
         flips = np.zeros(len(q), dtype=np.int64)
-        isolated = self._reachable(active)
+        vstate, vflips, vheld = self._vstate, np.zeros(self.nv, np.int64), np.zeros(self.nv, bool)
+        isolated = self._isolated(active, vstate)
         self._check_isolated(isolated, demand)
         dq_max = dh_max = np.inf
         self.trace = []  # per iteration: (flow change / q_ref, head change, energy, mass error)
@@ -209,6 +235,8 @@ class NetworkSolver:
         for it in range(self.max_iterations + 1):
             h, grad = self._laws(q, coef)
             F1 = np.where(active, h - (H[f] - H[t]), 0.0)
+            if self.nv:  # valves: active ones hold a grade or a flow
+                F1 = self.valves.energy(F1, H, vstate)
             F2 = pat.inflow(q)[:nj] - demand
             F2[isolated] = 0.0
             e1 = float(np.abs(F1).max(initial=0.0))
@@ -219,8 +247,12 @@ class NetworkSolver:
                     and dh_max <= self.head_tol and e1 <= self.energy_tol and e2 <= mass_tol):
                 self._check_frozen(q, H, active, dynamic, flips)
                 self._check_held(q, active, dynamic, demand)
-                return self._result(resolved, rough, coef, q, H, h, grad, active, isolated,
-                                    it, e1, e2)
+                notes = (self.valves.check(q, H, vstate, vflips, vheld, demand, it)
+                         if self.nv else [])
+                result = self._result(resolved, rough, coef, q, H, h, grad, active, isolated,
+                                      it, e1, e2)
+                return annotate(self.valves, result, q, result.head, vstate, notes, active,
+                                isolated)
             if it == self.max_iterations:
                 break
             if it == 0 and secant:
@@ -232,12 +264,19 @@ class NetworkSolver:
                 grad = grad.copy()
                 grad[: self.np_][sec] = h[: self.np_][sec] / qp[sec]
             w = np.where(active, 1.0 / grad, 0.0)
-            S = pat.assemble(w, isolated.astype(float))
+            extra = isolated.astype(float)
+            if self.nv:  # valves: stiff one-sided links at the nodes active valves hold
+                w, extra, rhs_v, w_s = self.valves.schur_terms(w, F1, vstate, extra)
+            S = pat.assemble(w, extra)
             rhs = F2 - pat.inflow(w * F1)[:nj]
+            if self.nv:
+                rhs += rhs_v
             rhs[isolated] = 0.0
             dH = self._linear_solve(S, rhs, w, isolated, mass_tol) if nj else np.zeros(0)
             dHn = np.concatenate([dH, np.zeros(net.n_sources)])
             dq = -w * (F1 - (dHn[f] - dHn[t]))
+            if self.nv:
+                dq = self.valves.flow_step(dq, dHn, F1, q, vstate, w_s)
             if not (np.all(np.isfinite(dH)) and np.all(np.isfinite(dq))):
                 self._fail("the linear system broke down (non-finite step)", it + 1, F2, dH, dq,
                            e2)
@@ -250,7 +289,17 @@ class NetworkSolver:
                 changed, active, q, iso = self._update_status(q, H, active, dynamic, flips,
                                                               demand)
                 if iso is not None:
-                    isolated = iso
+                    isolated = iso | self.valves.cut_off(active, vstate) if self.nv else iso
+                    self._check_isolated(isolated, demand)
+            if self.nv and (dq_max <= STATE_CHECK_FLOW * q_ref or it >= 4):
+                vchanged, vstate, q, held = self.valves.update(q, H, vstate, vflips, demand)
+                vheld |= held
+                if vchanged:
+                    changed = True
+                    active = active.copy()
+                    active[self.np_ + self.nu:] = (vstate != VALVE_CLOSED) & \
+                        ~fixed_closed[self.np_ + self.nu:]
+                    isolated = self._isolated(active, vstate)
                     self._check_isolated(isolated, demand)
         self._fail(f"no convergence in {self.max_iterations} iterations", self.max_iterations,
                    F2, dH, dq, e2)
@@ -366,8 +415,8 @@ class NetworkSolver:
         pressure = GAMMA_WATER * (H - net.elevation)
         flow = q[:np_].copy()
         flow[~active[:np_]] = 0.0
-        pump_flow = q[np_:].copy()
-        pump_flow[~active[np_:]] = 0.0
+        pump_flow = q[np_:np_ + self.nu].copy()
+        pump_flow[~active[np_:np_ + self.nu]] = 0.0
         headloss = np.where(active[:np_], h[:np_], 0.0)
         neg = np.flatnonzero((pressure[:nj] < 0) & ~isolated)
         return SolveResult(
