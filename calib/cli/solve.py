@@ -1,7 +1,8 @@
 """``python -m calib solve NETWORK --out NODES.csv``: one steady state of a network, written to CSV.
 
 Thin: read and check the network (``calib.network.io``), solve one snapshot
-(``calib.hydraulics.NetworkSolver``), write the node table and optionally the pipe table (atomic,
+(``calib.hydraulics.NetworkSolver``), write the node table (with each junction's pressure zone
+when the network has valves) and optionally the pipe and valve tables (atomic,
 through ``calib.fileio``), print a one-line summary and the caution. A bad network exits 2 with
 every problem listed; a solve that does not converge exits 1 naming the worst nodes and pipes.
 Nothing is written unless the solve succeeded.
@@ -34,6 +35,9 @@ def register(subparsers) -> None:
                         ".geojson file")
     p.add_argument("--out", required=True, metavar="FILE.csv", help="node table to write")
     p.add_argument("--pipes", metavar="PIPES.csv", help="also write pipe flows, velocities, losses")
+    p.add_argument("--valves", metavar="VALVES.csv",
+                   help="also write each control valve's state, flow and head loss (the node "
+                        "table then has each junction's pressure zone)")
     p.add_argument("--units", choices=("us", "si"), default="us",
                    help="units of the output columns (default us: ft, psi, gpm)")
     p.add_argument("--demand-factor", type=str, default="1", metavar="F",
@@ -55,12 +59,40 @@ def _demand_factor(text: str) -> float:
     return value
 
 
-def node_table(network, result, units: str) -> pd.DataFrame:
+def node_table(network, result, units: str, zones: bool = False) -> pd.DataFrame:
+    """Heads and pressures of all nodes; with ``zones`` the pressure zone of each junction (the
+    source or active valve that feeds it; a source is its own zone)."""
     u = DISPLAY[units]
-    return pd.DataFrame({
+    table = pd.DataFrame({
         "node": network.node_ids.astype(str),
         f"head [{u['head']}]": from_si(result.head, "head", u["head"]),
         f"pressure [{u['pressure']}]": from_si(result.pressure, "pressure", u["pressure"]),
+    })
+    if zones:
+        table["zone"] = np.concatenate([result.zone, network.source_ids]).astype(str)
+    return table
+
+
+def valve_table(network, result, units: str) -> pd.DataFrame:
+    """One row per control valve: type, state, flow, head loss ``from - to``, the pressures at
+    both ends and the setting in the unit of its type."""
+    from calib.network.tables import valve_frame
+
+    u = DISPLAY[units]
+    v = network.valves
+    frame = valve_frame(network, units)
+    return pd.DataFrame({
+        "valve": frame["id"], "type": frame["type"], "status given": frame["status"],
+        "state": result.valve_state.astype(str),
+        f"flow [{u['flow']}]": from_si(result.valve_flow, "flow", u["flow"]),
+        f"headloss [{u['headloss']}]": from_si(result.valve_headloss, "headloss", u["headloss"]),
+        f"pressure from [{u['pressure']}]": from_si(result.pressure[v.from_node], "pressure",
+                                                    u["pressure"]),
+        f"pressure to [{u['pressure']}]": from_si(result.pressure[v.to_node], "pressure",
+                                                  u["pressure"]),
+        f"setting pressure [{u['pressure']}]": frame[f"pressure [{u['pressure']}]"],
+        f"setting flow [{u['flow']}]": frame[f"flow [{u['flow']}]"],
+        "setting loss_coefficient": frame["loss_coefficient"],
     })
 
 
@@ -99,7 +131,13 @@ def summary(network, result, units: str) -> str:
                f"{', ...' if len(negative) > 5 else ''})" if negative else "none"))
     if isolated:
         text += f", cut off by closed links: {len(isolated)} junction(s)"
-    return text
+    if len(network.valves):
+        states = list(result.valve_state)
+        zones = sorted({z for z in result.zone if z})
+        text += (f", valves: {states.count('active')} active, {states.count('open')} open, "
+                 f"{states.count('closed')} closed; {len(zones)} zone(s): {', '.join(zones[:8])}"
+                 + (", ..." if len(zones) > 8 else ""))
+    return "\n".join([text, *[str(w) for w in network.warnings], *result.valve_notes])
 
 
 def run(args: argparse.Namespace) -> int:
@@ -110,9 +148,12 @@ def run(args: argparse.Namespace) -> int:
     network = read_network(args.network)
     solver = NetworkSolver(network, headloss=args.headloss)
     result = solver.solve(Snapshot(demand_factor=factor, label="solve"))
-    nodes = node_table(network, result, args.units)
+    valves = getattr(args, "valves", None)
+    nodes = node_table(network, result, args.units, zones=bool(valves or len(network.valves)))
     pipes = pipe_table(network, result, args.units) if args.pipes else None
-    for option, path, table in (("--out", args.out, nodes), ("--pipes", args.pipes, pipes)):
+    vtable = valve_table(network, result, args.units) if valves else None
+    for option, path, table in (("--out", args.out, nodes), ("--pipes", args.pipes, pipes),
+                                ("--valves", valves, vtable)):
         if table is None:
             continue
         try:
