@@ -31,7 +31,7 @@ from calib.hydraulics.assembly import SchurPattern
 from calib.hydraulics.result import SolveResult
 from calib.hydraulics.snapshot import Snapshot, resolve
 from calib.hydraulics.valves import CLOSED as VALVE_CLOSED
-from calib.hydraulics.valves import STATE_CHECK_FLOW, ValveLinks, annotate
+from calib.hydraulics.valves import STATE_CHECK_FLOW, STATE_HEAD_TOL, ValveLinks, annotate
 from calib.network.model import PipeStatus
 from calib.units import FT, GAMMA_WATER
 
@@ -196,6 +196,7 @@ class NetworkSolver:
         given = getattr(warm_start, "_valve_state", None)
         self._vstate = given.copy() if given is not None else self.valves.initial_state()
         active[self.np_ + self.nu:] = self._vstate != VALVE_CLOSED
+        self.valves.start()
         active &= ~fixed_closed
         q[~active] = 0.0
         return self._iterate(resolved, rough, coef, q, active, fixed_closed,
@@ -291,8 +292,9 @@ class NetworkSolver:
                 if iso is not None:
                     isolated = iso | self.valves.cut_off(active, vstate) if self.nv else iso
                     self._check_isolated(isolated, demand)
-            if self.nv and (dq_max <= STATE_CHECK_FLOW * q_ref or it >= 4):
-                vchanged, vstate, q, held = self.valves.update(q, H, vstate, vflips, demand)
+            if self.nv and dq_max <= STATE_CHECK_FLOW * q_ref:  # valves: states near a solution
+                vchanged, vstate, q, held = self.valves.update(q, H, vstate, vflips, demand,
+                                                               settled=dh_max <= STATE_HEAD_TOL)
                 vheld |= held
                 if vchanged:
                     changed = True

@@ -78,8 +78,10 @@ R_LINEAR = 1e-4
 STIFFNESS = 1e3
 #: Head tolerance of the state rules [m] (3e-4 ft): a valve within it of its setting keeps its state.
 STATE_HEAD_TOL = 1e-4
-#: Flow change (relative to the reference flow) below which states are checked; also from the
-#: fifth iteration on. Earlier steps are too far from the solution to judge a state.
+#: States are checked only once the last step changed flows by at most this share of the
+#: reference flow; a valve that changed state before changes again only once the last step also
+#: changed heads by at most ``STATE_HEAD_TOL`` (judged on rough heads, a valve whose loss is
+#: small flips back and forth) - except to close against a reverse flow, always allowed.
 STATE_CHECK_FLOW = 0.05
 
 
@@ -107,6 +109,7 @@ class ValveLinks:
         self.q_set = np.where(self.kind == FCV, v.setting, np.nan)
         #: valves whose state the solver finds (the others keep the one of their mode)
         self.auto = (self.mode == ACTIVE) & (self.kind != TCV)
+        self.pressure_valve = np.isin(self.kind, (PRV, PSV))
         self.fixed_closed = self.mode == CLOSED
         nj = network.n_junctions
         self.nj = nj
@@ -125,6 +128,7 @@ class ValveLinks:
                            if n else np.zeros(0, dtype=np.int64)).astype(np.int64)
         self._cut_cache = None
         self._zone_cache = None
+        self.start()
 
     def _all_links(self, net):
         f = np.concatenate([net.pipe_from, np.asarray(net.pumps.from_node, np.int64), self.frm])
@@ -132,6 +136,10 @@ class ValveLinks:
         return f, t
 
     # --- states --------------------------------------------------------------------------------
+    def start(self) -> None:
+        """Forget the stiffness of the last solve (called at the start of each solve)."""
+        self._w_s = np.full(self.n, np.nan)
+
     def initial_state(self) -> np.ndarray:
         """Reducing valves start active (they usually are), sustaining and flow-limiting open;
         valves held by their mode keep it; throttles are active."""
@@ -181,8 +189,12 @@ class ValveLinks:
             return w, extra, rhs, np.zeros(self.n)
         w[s] = np.where(act, 0.0, w[s])
         near = np.bincount(self._near_owner, weights=w[self._near_link], minlength=self.n)
-        w_s = STIFFNESS * np.maximum(near, 1e-12)
-        press = act & np.isin(self.kind, (PRV, PSV))
+        # the stiffness of each valve is kept from its first use in a solve: a fixed diagonal
+        # lets the solver precondition later steps with an older factorization
+        fresh = ~np.isfinite(self._w_s)
+        self._w_s[fresh] = STIFFNESS * np.maximum(near[fresh], 1e-12)
+        w_s = self._w_s
+        press = act & self.pressure_valve
         sign = np.where(self.kind == PSV, 1.0, -1.0)  # rhs = F2 - A21 (w F1) at the controlled end
         node = self.ctrl[press]
         extra += np.bincount(node, weights=w_s[press], minlength=len(extra))[: len(extra)]
@@ -237,13 +249,17 @@ class ValveLinks:
         new[c & (hf > ht + tol)] = OPEN
         return new
 
-    def update(self, q, H, state, flips, demand):
+    def update(self, q, H, state, flips, demand, settled=True):
         """Change the states the rules ask for (not frozen ones, not those that would cut off
-        junctions with demand). Returns (changed, state, q, held mask)."""
+        junctions with demand, and a valve that changed before only on ``settled`` heads).
+        Returns (changed, state, q, held mask)."""
         s = self.slots()
         qv = q[s]
         frozen = flips >= self.max_status_changes
         new = self._wanted(qv, H, state)
+        if not settled:  # a valve that changed before waits for settled heads, unless it closes
+            # against a reverse flow (an active valve holding a grade against it runs away)
+            frozen = frozen | ((flips > 0) & ~((new == CLOSED) & (qv < -self.q_eps)))
         new[frozen] = state[frozen]
         change = new != state
         held = np.zeros(self.n, dtype=bool)
@@ -389,8 +405,10 @@ def sensitivity_solve(solver, result, w, b1, b2, pat, iso):
     """Sensitivities with active valves: the solver's system (stiff one-sided links, lagged far
     side) iterated to its fixed point, one factorization for all columns.
 
-    Returns (dH, dQ) as ``sensitivity.sensitivities``; exact when no loop joins the two sides of
-    an active valve (the block-triangular case: two passes), else to 1e-12 relative in a few."""
+    The valve rows are exact at the fixed point (``dH = -dF1/dp`` at the controlled node, as
+    ``H_node = H_set`` asks), by the same proximal term as in the solver. Returns (dH, dQ) as
+    ``sensitivity.sensitivities``; converged to 1e-13 relative in the flows of active valves
+    (a few passes of triangular solves, at most 100)."""
     valves: ValveLinks = solver.valves
     state = result._valve_state
     s = valves.slots()
@@ -415,26 +433,29 @@ def sensitivity_solve(solver, result, w, b1, b2, pat, iso):
                        @ b1[s])
     nj = solver.nj
     dq_v = np.zeros((valves.n, b1.shape[1]))
+    press = act & valves.pressure_valve
+    ctrl_sign = np.where(valves.kind == PSV, -1.0, 1.0)  # A21 entry at the controlled end
     far = np.where(valves.kind == PSV, valves.to, valves.frm)  # the lagged end
-    far_sign = np.where(valves.kind == PSV, 1.0, -1.0)  # A21 entry at that end
-    lag = act & (far < nj)
-    for _ in range(50):
+    far_sign = -ctrl_sign  # A21 entry at that end
+    lag = press & (far < nj)
+    for _ in range(100):
         rhs = base.copy()
-        if lag.any():
-            # mass at the far end includes A21 dq_v: move it to the right-hand side
-            np.add.at(rhs, far[lag], far_sign[lag, None] * dq_v[lag])
+        # the last flow change of each valve: at its far end as a lagged demand or supply, at
+        # its controlled end as the proximal term that makes dH there exact at the fixed point
+        np.add.at(rhs, far[lag], far_sign[lag, None] * dq_v[lag])
+        np.add.at(rhs, valves.ctrl[press], ctrl_sign[press, None] * dq_v[press])
         rhs[iso] = 0.0
         dH = factor(rhs)
         dHn = np.vstack([dH, np.zeros((solver.network.n_sources, dH.shape[1]))])
         dQ = -(wb1 - w[:, None] * (dHn[solver.link_from] - dHn[solver.link_to]))
-        new = np.zeros_like(dq_v)
+        new = dq_v.copy()
         prv = act & (valves.kind == PRV)
         psv = act & (valves.kind == PSV)
-        new[prv] = -w_s[prv, None] * (b1[s][prv] + dHn[valves.to[prv]])
-        new[psv] = -w_s[psv, None] * (b1[s][psv] - dHn[valves.frm[psv]])
+        new[prv] -= w_s[prv, None] * (b1[s][prv] + dHn[valves.to[prv]])
+        new[psv] -= w_s[psv, None] * (b1[s][psv] - dHn[valves.frm[psv]])
         step = np.abs(new - dq_v).max(initial=0.0)
         dq_v = new
-        if step <= 1e-12 * max(np.abs(new).max(initial=0.0), 1e-30):
+        if step <= 1e-13 * max(np.abs(new).max(initial=0.0), 1e-30):
             break
     dQ[s] = np.where(act[:, None], dq_v, dQ[s])
     return dH, dQ
