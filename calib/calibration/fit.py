@@ -24,6 +24,7 @@ from scipy import optimize
 from calib import units
 from calib.calibration import criteria as _criteria
 from calib.calibration import flags as _flags
+from calib.calibration import zones
 from calib.calibration.groups import Grouping, make_groups
 from calib.calibration.priors import GroupPrior, group_prior
 from calib.calibration.estimate import Estimate, estimate
@@ -356,6 +357,7 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
     if loss != "linear":
         findings.append(f"Robust loss '{loss}' (f_scale {f_scale:g} standardized units): the intervals "
                         "are the linearized ones at the solution.")
+    findings.extend(zones.test_findings(network, tests, full, results))  # valves and zones
     findings.extend(tests.notes)
 
     return FitResult(network=network, tests=tests, grouping=grouping, prior=gp, params=prob.params,

@@ -21,6 +21,10 @@ class PredictedReading:
     node: str
     static: float
     residual: float
+    #: the pressure zone of the node while the hydrant flows (the source or active valve feeding it)
+    zone: str = ""
+    #: valves whose state differs between the two snapshots, in words ("" when none)
+    valve_note: str = ""
 
     @property
     def drop(self) -> float:
@@ -81,5 +85,9 @@ def predict_test(network, flows: dict, gauges, roughness=None, source_head=None,
          Snapshot(demand_factor=demand_factor, extra_demand=extra, source_head=heads,
                   label="residual")], roughness=roughness)
     index = network.node_index
+    from calib.calibration.zones import describe_changes, state_changes
+    note = " ".join(describe_changes("on site", state_changes(network, static, residual)))
+    zone = residual.zone if residual.zone is not None else np.full(network.n_junctions, "")
     return [PredictedReading(node=k, static=float(static.pressure[index[k]]),
-                             residual=float(residual.pressure[index[k]])) for k in keys]
+                             residual=float(residual.pressure[index[k]]),
+                             zone=str(zone[index[k]]), valve_note=note) for k in keys]

@@ -121,9 +121,11 @@ class CalibrationProblem:
 
         # --- constant parts of dF/dp --------------------------------------------------------
         n_pipes = network.n_pipes
-        self.n_links = n_pipes + len(network.pumps)
-        link_from = np.concatenate([network.pipe_from, network.pumps.from_node]).astype(np.int64)
-        link_to = np.concatenate([network.pipe_to, network.pumps.to_node]).astype(np.int64)
+        self.n_links = n_pipes + len(network.pumps) + len(network.valves)  # solver's link order
+        link_from = np.concatenate([network.pipe_from, network.pumps.from_node,
+                                    network.valves.from_node]).astype(np.int64)
+        link_to = np.concatenate([network.pipe_to, network.pumps.to_node,
+                                  network.valves.to_node]).astype(np.int64)
         self._source_incidence = {}
         for (t, s), col in self.offset_col.items():
             v = np.where(link_from == s, -1.0, 0.0) + np.where(link_to == s, 1.0, 0.0)

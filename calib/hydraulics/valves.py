@@ -424,7 +424,8 @@ def sensitivity_solve(solver, result, w, b1, b2, pat, iso):
     S = pat.assemble(w, extra)
     factor = pat.factorize(S)
     b1 = b1.copy()
-    b1[s][act & (valves.kind == FCV)] = 0.0
+    # an active valve's equation holds a grade or a flow: no roughness or source grade enters it
+    b1[s][act] = 0.0
     wb1 = w[:, None] * b1
     sign = np.where(valves.kind == PSV, 1.0, -1.0)
     base = b2 - pat.inflow_matrix(wb1)
