@@ -64,6 +64,33 @@ def grid_network(nx: int, ny: int, spacing: float = 150.0, n_groups: int = 3, se
         y=np.concatenate([iy * spacing, [0.0]]), name="synthetic grid")
 
 
+def zoned_grid(setting_psi: float, drop: float = 20.0, seed: int = 1):
+    """``grid_network(6, 4, n_groups=2)`` cut into two pressure zones: its three eastern columns
+    ``drop`` m lower, joined to the rest only by one reducing valve (8 in, K 3 fully open) set at
+    ``setting_psi`` [psi] at its outlet; the other pipes across the cut are left out.
+
+    Returns ``(network, east)``, ``east`` the mask of the low zone's junctions.
+    """
+    from calib.network.model import Valves
+    net = grid_network(6, 4, n_groups=2, seed=seed)
+    nj = net.n_junctions
+    east = np.arange(nj) % 6 >= 3
+    elev = net.elevation.copy()
+    elev[:nj][east] -= drop
+    side = np.r_[east, [False]]  # the reservoir is on the west side
+    f, t = net.pipe_from, net.pipe_to
+    cross = np.flatnonzero(side[f] != side[t])
+    keep = np.setdiff1d(np.arange(net.n_pipes), cross)
+    k = cross[0]
+    a, b = (f[k], t[k]) if not side[f[k]] else (t[k], f[k])
+    arrays = {name: getattr(net, name)[keep] for name in
+              ("pipe_ids", "pipe_from", "pipe_to", "length", "diameter", "roughness",
+               "minor_loss", "status", "roughness_height", "group", "material", "installed")}
+    valves = Valves(ids=["V1"], from_node=[a], to_node=[b], diameter=[8 * units.INCH], kind=[0],
+                    setting=[setting_psi * units.PSI], mode=[0], minor_loss=[3.0])
+    return net.replace(elevation=elev, valves=valves, name="zoned synthetic grid", **arrays), east
+
+
 def plan_tests(network: Network, n_tests: int, seed: int = 0, flow_gpm=(800.0, 1500.0),
                n_gauges: int = 2, spread_over=None):
     """Pick ``n_tests`` tests: a flowing hydrant and ``n_gauges`` gauges among its neighbours.

@@ -129,6 +129,8 @@ def run_job(job: CheckJob) -> CheckResult:
     bad = [g.node for g in out if g.suspect]
     msg = ("Suspect reading at " + ", ".join(bad) + ": see what to do below") if bad else \
         f"Readings agree with the model within {values.fmt(job.tol, 'pressure', job.system)}"
+    if predicted and predicted[0].valve_note:  # a valve changes state under the test: say so
+        msg += ". " + predicted[0].valve_note
     return CheckResult(True, msg, out)
 
 

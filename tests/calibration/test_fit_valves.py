@@ -2,8 +2,8 @@
 numerical reference, common practice), the fit's truth inside its intervals, the finding when a
 reducing valve changes state while a hydrant flows, and predict_test's zone and note.
 
-Invented data: a 6 x 4 grid (calib.calibration.synthetic) whose three eastern columns are 20 m lower
-and fed only through one reducing valve.
+Invented data: ``synthetic.zoned_grid``, a 6 x 4 grid whose three eastern columns are 20 m lower and
+fed only through one reducing valve.
 """
 
 import numpy as np
@@ -12,32 +12,11 @@ import pytest
 from calib.calibration import fit, predict_test
 from calib.calibration.groups import make_groups
 from calib.calibration.problem import CalibrationProblem
-from calib.calibration.synthetic import grid_network, plan_tests, synthetic_tests
+from calib.calibration.synthetic import plan_tests, synthetic_tests, zoned_grid
 from calib.hydraulics import NetworkSolver
-from calib.network.model import Valves
 from calib.units import GPM, PSI
 
 TRUTH = np.array([110.0, 80.0])
-
-
-def zoned_grid(setting_psi):
-    net = grid_network(6, 4, n_groups=2, seed=1)
-    nj = net.n_junctions
-    east = np.arange(nj) % 6 >= 3
-    elev = net.elevation.copy()
-    elev[:nj][east] -= 20.0
-    side = np.r_[east, [False]]  # the reservoir is on the west side
-    f, t = net.pipe_from, net.pipe_to
-    cross = np.flatnonzero(side[f] != side[t])
-    keep = np.setdiff1d(np.arange(net.n_pipes), cross)
-    k = cross[0]
-    a, b = (f[k], t[k]) if not side[f[k]] else (t[k], f[k])
-    arrays = {name: getattr(net, name)[keep] for name in
-              ("pipe_ids", "pipe_from", "pipe_to", "length", "diameter", "roughness",
-               "minor_loss", "status", "roughness_height", "group", "material", "installed")}
-    valves = Valves(ids=["V1"], from_node=[a], to_node=[b], diameter=[8 * 0.0254], kind=[0],
-                    setting=[setting_psi * PSI], mode=[0], minor_loss=[3.0])
-    return net.replace(elevation=elev, valves=valves, **arrays), east
 
 
 def test_jacobian_with_an_active_valve_matches_finite_differences():
@@ -88,3 +67,4 @@ def test_a_valve_opening_under_the_test_is_named_in_the_findings_and_on_site():
     quiet = predict_test(net, flows={"J18": 300 * GPM}, gauges=["J18", str(net.node_ids[far])])
     assert quiet[0].valve_note == ""
     assert quiet[0].zone == "R1" and quiet[1].zone == "V1"  # the valve active: the low zone is its
+
