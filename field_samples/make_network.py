@@ -2,7 +2,7 @@
 
     python field_samples/make_network.py
 
-writes ``field_samples/tallowmere/network/{junctions,sources,pipes}.csv`` and
+writes ``field_samples/tallowmere/network/{junctions,sources,pipes,valves}.csv`` and
 ``field_samples/tallowmere/network.geojson`` (the same network). Deterministic: one seeded numpy
 generator, so a rerun gives the same files.
 
@@ -14,6 +14,13 @@ system at a lower grade. Trunk mains of 12-16 in cross the grid; the street loop
 (1930s-1960s, in rings outward); later areas in cement-lined ductile iron and PVC. C-factors are the
 office model's guesses by material (CI 100, DI 130, PVC 150), not measured values; inside diameters
 are taken equal to the nominal sizes. All names, places and values are invented for demonstration.
+
+Mereside, the low south-east of town by the mere, lies about 45 ft below the streets around it; at
+the system's grade its pressures would pass 100 psi, so it is a pressure zone of its own: fed through
+two pressure-reducing valve stations on its northern edge (75 and 73 psi at their outlets; at rest
+the 73 psi station leads and the other stays shut until a large draw pulls its outlet down), the
+other mains across its edge shut by closed boundary valves. A gate valve on the old town's western
+main was found three-quarters shut and is modelled as a throttle (K 25).
 """
 
 from __future__ import annotations
@@ -50,11 +57,22 @@ GROUPS = {
 }
 
 
+#: Mereside, the low zone: street-grid columns from ``ZONE_I`` east and rows up to ``ZONE_J`` north.
+ZONE_I, ZONE_J = 9, 3
+MERE_DROP = 48.0  # [ft] how far Mereside's ground lies below the valley side
+#: The reducing-valve stations: grid column of the street main they sit on, setting [psi] at the
+#: outlet; a throttled gate valve on the south-north main from grid node THROTTLE_AT (K open 0.2).
+PRV_STATIONS = ((11, 75.0), (16, 73.0))
+THROTTLE_AT, THROTTLE_K = (0, 8), 25.0
+
+
 def ground(x, y):
-    """Ground elevation [ft]: a valley side rising west to east plus a smooth hill in the east."""
+    """Ground elevation [ft]: a valley side rising west to east, a smooth hill in the east and the
+    low shore of the mere in the south-east (Mereside)."""
     slope = 806.0 + 0.0022 * x
     hill = 34.0 * np.exp(-((x - 6400.0) ** 2 + (y - 3600.0) ** 2) / (2 * 1500.0 ** 2))
-    return slope + hill
+    mere = MERE_DROP / ((1 + np.exp(-(1575.0 - y) / 120.0)) * (1 + np.exp(-(x - 3825.0) / 150.0)))
+    return slope + hill - mere
 
 
 def grid_nodes(rng):
@@ -187,7 +205,67 @@ def build(rng):
                            np.round(ground(sx[1], sy[1]), 1)],
         "x [ft]": np.round(sx, 1), "y [ft]": np.round(sy, 1), "zone": ["plant", "hill"]})
     pipes = pipe_frame(rng, links, all_x, all_y, list(junctions["id"]) + ["PLANT", "HILLTANK"])
-    return junctions, sources, pipes
+    junctions, pipes, valves = zone_valves(junctions, pipes, x, y)
+    return junctions, sources, pipes, valves
+
+
+def in_mereside(node: int) -> bool:
+    """Grid node number -> whether it lies in Mereside (branch nodes follow their main)."""
+    return node // NY >= ZONE_I and node % NY <= ZONE_J
+
+
+def zone_valves(junctions, pipes, x, y):
+    """Mereside's edge: the reducing-valve stations (each splits its street main with a vault
+    junction), closed boundary valves on the other mains across the edge, and the throttle."""
+    ids = list(junctions["id"])
+    number = {k: i for i, k in enumerate(ids)}
+    n_grid = NX * NY
+    zone = np.zeros(len(ids), dtype=bool)
+    zone[:n_grid] = [in_mereside(k) for k in range(n_grid)]
+    # branch nodes take the side of the grid node they hang from
+    for a, b in zip(pipes["from"], pipes["to"]):
+        if a in number and b in number and number[b] >= n_grid and number[a] < len(ids):
+            zone[number[b]] |= zone[number[a]]
+    junctions.loc[zone, "zone"] = "mereside"
+    ends = [(number.get(a), number.get(b)) for a, b in zip(pipes["from"], pipes["to"])]
+    across = [k for k, (a, b) in enumerate(ends) if a is not None and b is not None
+              and zone[a] != zone[b]]
+    stations = {f"J{node_number(i, ZONE_J + 1) + 1:03d}": psi for i, psi in PRV_STATIONS}
+    extra, valves = [], []
+    for k in across:
+        a, b = pipes.at[k, "from"], pipes.at[k, "to"]
+        up, down = (a, b) if zone[number[b]] else (b, a)
+        if up in stations:
+            vault = f"J{len(ids) + len(extra) + 1:03d}"
+            extra.append(vault_row(junctions, number[down], number[up], vault, x, y, "mereside"))
+            pipes.loc[k, ["from", "to"]] = [up, vault]  # the main now ends at the valve's vault
+            valves.append({"id": f"PRV-{len(valves) + 1}", "from": vault, "to": down,
+                           "diameter [in]": pipes.at[k, "diameter [in]"],
+                           "type": "pressure-reducing", "pressure [psi]": stations[up],
+                           "loss_coefficient": "", "status": "active", "minor_loss": 3.0})
+        else:
+            pipes.loc[k, "status"] = "closed"  # a zone boundary valve
+    i, j = THROTTLE_AT
+    a, b = f"J{node_number(i, j) + 1:03d}", f"J{node_number(i, j + 1) + 1:03d}"
+    k = pipes.index[(pipes["from"] == a) & (pipes["to"] == b)][0]
+    node = f"J{len(ids) + len(extra) + 1:03d}"
+    extra.append(vault_row(junctions, number[b], number[a], node, x, y, ""))
+    pipes.loc[k, "to"] = node
+    valves.append({"id": "TV-1", "from": node, "to": b, "diameter [in]": pipes.at[k, "diameter [in]"],
+                   "type": "throttle", "pressure [psi]": "", "loss_coefficient": THROTTLE_K,
+                   "status": "active", "minor_loss": 0.2})
+    junctions = pd.concat([junctions, pd.DataFrame(extra)], ignore_index=True)
+    return junctions, pipes, pd.DataFrame(valves)
+
+
+def vault_row(junctions, at, toward, vault_id, x, y, zone):
+    """A valve vault junction 30 ft from node ``at`` toward node ``toward`` (no demand, no hydrant)."""
+    d = np.array([x[toward] - x[at], y[toward] - y[at]])
+    px, py = np.array([x[at], y[at]]) + 30.0 * d / np.linalg.norm(d)
+    zone = zone or junctions.at[at, "zone"]
+    return {"id": vault_id, "elevation [ft]": round(float(ground(px, py)), 1), "demand [gpm]": 0.0,
+            "x [ft]": round(float(px), 1), "y [ft]": round(float(py), 1), "zone": zone,
+            "hydrant": "no"}
 
 
 def zone_of(x, y):
@@ -252,15 +330,18 @@ def street_pipe(pipes, i, j):
 
 def main(out=HERE / "tallowmere"):
     rng = np.random.default_rng(SEED)
-    junctions, sources, pipes = build(rng)
+    junctions, sources, pipes, valves = build(rng)
     folder = Path(out) / "network"
     fileio.write_csv(folder / "junctions.csv", junctions, float_format=None)
     fileio.write_csv(folder / "sources.csv", sources, float_format=None)
     fileio.write_csv(folder / "pipes.csv", pipes, float_format=None)
+    fileio.write_csv(folder / "valves.csv", valves, float_format=None)
     network = read_network(folder)  # checks the generated town like any user's network
     write_network_geojson(network, Path(out) / "network.geojson", units="us", length_unit="ft")
     print(f"Tallowmere: {network.n_junctions} junctions, {network.n_sources} sources, "
-          f"{network.n_pipes} pipes, {int(network.hydrant.sum())} hydrants, base demand "
+          f"{network.n_pipes} pipes, {len(network.valves)} valves, "
+          f"{int((network.zone == 'mereside').sum())} junctions in Mereside, "
+          f"{int(network.hydrant.sum())} hydrants, base demand "
           f"{junctions['demand [gpm]'].sum():.0f} gpm -> {folder}")
 
 

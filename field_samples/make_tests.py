@@ -70,9 +70,12 @@ NETWORK = HERE / "tallowmere" / "network"
 OUT = HERE / "tallowmere" / "tests"
 #: The demo truth: C per group (the office model guesses CI 100, DI 130, PVC 150).
 TRUE_C = {"CI-1930s": 58.0, "CI-1950s": 72.0, "CI-1960s": 84.0, "DI": 126.0, "PVC": 145.0}
-#: The day's plan: the group each test is aimed at, in the order the crews work.
+#: The day's plan: the group each test is aimed at, in the order the crews work; "@edge" asks
+#: for a first flowing hydrant in Mereside within ``EDGE_FT`` of a reducing-valve station, where a
+#: test's flow comes through the valves (and may change their state).
 PLAN = ("CI-1930s", "CI-1950s", "CI-1960s", "DI", "PVC", "CI-1930s", "CI-1960s", "CI-1950s",
-        "PVC", "CI-1960s", "DI", "CI-1930s")
+        "PVC", "CI-1960s", "DI", "CI-1930s", "DI@edge", "PVC@edge")
+EDGE_FT = 1300.0
 SIGMA_PSI = 1.0
 GAUGE_HEIGHT_FT = 2.0  # outlet cap above the node elevation
 OUTLET_IN, OUTLET_C = 2.5, 0.90
@@ -191,6 +194,15 @@ def _size_pumper(planner, net, heads, flowing, s_base, pool):
     return None
 
 
+def _near_station(net):
+    """Junctions of Mereside within ``EDGE_FT`` of a reducing valve's outlet."""
+    v = net.valves
+    outlets = v.to_node[v.kind == 0]
+    n = net.n_junctions
+    d = np.min([np.hypot(net.x[:n] - net.x[o], net.y[:n] - net.y[o]) for o in outlets], axis=0)
+    return set(np.flatnonzero((net.zone[:n] == "mereside") & (d <= EDGE_FT * units.FT)).tolist())
+
+
 def _design(planner, net, group, heads, used, rng):
     """The best test aimed at ``group``: (flowing nodes, "hose" | "pumper", reading, gauges, score)
     or None; the reading is the pitot [psi] on each hose outlet, or the meter [gpm] on each pumper.
@@ -200,13 +212,17 @@ def _design(planner, net, group, heads, used, rng):
     group's C, and how little of that movement the other groups share).
     """
     n = net.n_junctions
+    group, _, where = group.partition("@")
     share = _group_share(net, group)
     every = [int(h) for h in np.flatnonzero(net.hydrant)]
     hyd = [h for h in every if h not in used]  # a hydrant flows in one test only; it may gauge in many
     cand = [h for h in hyd if share[h] >= 0.5]
+    if where == "edge":
+        edge = _near_station(net)
+        cand = [h for h in cand if h in edge]
     rng.shuffle(cand)
     s_base, s_pert = planner.statics(heads)
-    g_index = planner.groups.index(group)
+    g_index = planner.groups.index(group)  # the group without its "@edge"
     best, best_key = None, None
     for first in cand:
         mates = _near(net, first, hyd, MATE_FT)
@@ -284,8 +300,10 @@ def main() -> None:
         how = (f"{len(flowing)} hydrant(s), {len(outlets)} x {OUTLET_IN:g} in outlets read by pitot"
                if pitot_form else
                f"{len(flowing)} hydrant(s), {PUMPER_IN:g} in pumper outlet(s) through a flow meter")
+        aim = group.replace("@edge", "") + " mains" + (
+            " in Mereside, near a reducing-valve station" if group.endswith("@edge") else "")
         tests.append({"test_id": tid, "date": start, "crew": CREWS[(t - 1) % 2],
-                      "notes": f"aimed at the {group} mains; {how}, about {total_gpm:.0f} gpm; "
+                      "notes": f"aimed at the {aim}; {how}, about {total_gpm:.0f} gpm; "
                                "dechlorinating diffusers used"})
         for node, p_psi, q, _d in outlets:
             row = {"test_id": tid, "node": str(net.node_ids[node])}
