@@ -17,8 +17,8 @@ are taken equal to the nominal sizes. All names, places and values are invented 
 
 Mereside, the low south-east of town by the mere, lies about 45 ft below the streets around it; at
 the system's grade its pressures would pass 100 psi, so it is a pressure zone of its own: fed through
-two pressure-reducing valve stations on its northern edge (75 and 73 psi at their outlets; at rest
-the 73 psi station leads and the other stays shut until a large draw pulls its outlet down), the
+two pressure-reducing valve stations on its northern edge (65 and 63 psi at their outlets; at rest
+the 63 psi station leads and the other stays shut until a large draw pulls its outlet down), the
 other mains across its edge shut by closed boundary valves. A gate valve on the old town's western
 main was found three-quarters shut and is modelled as a throttle (K 25).
 """
@@ -62,7 +62,7 @@ ZONE_I, ZONE_J = 9, 3
 MERE_DROP = 48.0  # [ft] how far Mereside's ground lies below the valley side
 #: The reducing-valve stations: grid column of the street main they sit on, setting [psi] at the
 #: outlet; a throttled gate valve on the south-north main from grid node THROTTLE_AT (K open 0.2).
-PRV_STATIONS = ((11, 75.0), (16, 73.0))
+PRV_STATIONS = ((11, 65.0), (16, 63.0))
 THROTTLE_AT, THROTTLE_K = (0, 8), 25.0
 
 
