@@ -237,7 +237,9 @@ def zone_valves(junctions, pipes, x, y):
         up, down = (a, b) if zone[number[b]] else (b, a)
         if up in stations:
             vault = f"J{len(ids) + len(extra) + 1:03d}"
-            extra.append(vault_row(junctions, number[down], number[up], vault, x, y, "mereside"))
+            # the vault is upstream of its valve: hydraulically on the supply side of the edge
+            extra.append(vault_row(junctions, number[down], number[up], vault, x, y,
+                                   junctions.at[number[up], "zone"]))
             pipes.loc[k, ["from", "to"]] = [up, vault]  # the main now ends at the valve's vault
             valves.append({"id": f"PRV-{len(valves) + 1}", "from": vault, "to": down,
                            "diameter [in]": pipes.at[k, "diameter [in]"],

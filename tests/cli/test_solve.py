@@ -149,7 +149,9 @@ def test_demo_town_static_pressures_are_realistic(tmp_path, capsys, network):
     nodes = pd.read_csv(out_file)
     junctions = nodes[nodes["node"].str.startswith("J")]["pressure [psi]"]
     assert junctions.min() >= 45 and junctions.max() <= 110
-    assert "solved tallowmere: 343 junctions, 531 pipes" in out
+    assert "solved tallowmere: 346 junctions, 531 pipes" in out
+    # Mereside behind its reducing valves: the lead station holds its outlet at its 63 psi setting
+    assert "valves: 2 active, 0 open, 1 closed; 2 zone(s): PLANT+HILLTANK, PRV-2" in out
 
 
 def test_darcy_weisbach_on_the_demo_town(tmp_path, capsys):
