@@ -8,10 +8,11 @@ replaced by a control valve of its diameter, the types in turn: a reducing valve
 grade its downstream node has without valves, a throttle with K = 10, a flow-limiting valve set at
 80 % of the pipe's flow without valves, a sustaining valve set 1 m above its upstream node's grade.
 Prints, for the grid without and with valves, the median solve time, iterations,
-factorizations, time per iteration and their ratio, and the valve states; once with the solver's
-reuse of an older factorization (the default: how many iterations refactor depends on how many
-links changed much) and once with a factorization at every iteration (the cost of an iteration
-itself). The data are invented; no real network.
+factorizations, time per iteration and the median of the per-repeat ratios (the two solves of a
+repeat run one after the other, so that both see the same load on a shared machine), and the valve
+states; once with the solver's reuse of an older factorization (the default: how many iterations
+refactor depends on how many links changed much) and once with a factorization at every iteration
+(the cost of an iteration itself). The data are invented; no real network.
 """
 
 from __future__ import annotations
@@ -68,14 +69,21 @@ def with_valves(net, every: int):
                        valves=valves, name=net.name + "-valves")
 
 
-def timed(net, repeats: int, reuse: bool = True):
-    solver = NetworkSolver(net, reuse_factor=reuse)
-    times, result = [], None
+def timed_pair(net, zoned, repeats: int, reuse: bool = True):
+    """Solves of the grid without and with valves in turn (so both see the same load): medians of
+    the solve times and of the per-repeat ratios of time per iteration, and the last results."""
+    plain, valved = NetworkSolver(net, reuse_factor=reuse), NetworkSolver(zoned, reuse_factor=reuse)
+    t_plain, t_valved, ratios, r0, r1 = [], [], [], None, None
     for _ in range(repeats):
         t0 = time.perf_counter()
-        result = solver.solve()
-        times.append(time.perf_counter() - t0)
-    return statistics.median(times), result
+        r0 = plain.solve()
+        t_plain.append(time.perf_counter() - t0)
+        t0 = time.perf_counter()
+        r1 = valved.solve()
+        t_valved.append(time.perf_counter() - t0)
+        ratios.append((t_valved[-1] / r1.iterations) / (t_plain[-1] / r0.iterations))
+    median = statistics.median
+    return median(t_plain), median(t_valved), median(ratios), r0, r1
 
 
 def main(argv=None) -> int:
@@ -94,14 +102,13 @@ def main(argv=None) -> int:
         net = square_grid(m)
         zoned = with_valves(net, args.every)
         for reuse in (True, False):
-            t0, r0 = timed(net, args.repeats, reuse)
-            t1, r1 = timed(zoned, args.repeats, reuse)
+            t0, t1, ratio, r0, r1 = timed_pair(net, zoned, args.repeats, reuse)
             per0, per1 = t0 / r0.iterations, t1 / r1.iterations
             states = list(r1.valve_state)
             print(f"| {net.n_pipes} | {len(zoned.valves)} | {'yes' if reuse else 'no'} | "
                   f"{t0:.3f} / {t1:.3f} | {r0.iterations} / {r1.iterations} | "
                   f"{r0.factorizations} / {r1.factorizations} | "
-                  f"{per0 * 1e3:.2f} / {per1 * 1e3:.2f} ms | {per1 / per0:.2f} | "
+                  f"{per0 * 1e3:.2f} / {per1 * 1e3:.2f} ms | {ratio:.2f} | "
                   f"{states.count('active')}/{states.count('open')}/{states.count('closed')} |")
     print(f"# load after: {os.getloadavg()[0]:.2f}")
     return 0

@@ -65,7 +65,7 @@ from scipy.sparse.csgraph import connected_components
 
 from calib.errors import ConvergenceError, NetworkError, Problem
 from calib.hydraulics import headloss as hl
-from calib.network.model import ValveMode, ValveType
+from calib.network.model import PipeStatus, ValveMode, ValveType
 from calib.units import GAMMA_WATER
 
 ACTIVE, OPEN, CLOSED = int(ValveMode.ACTIVE), int(ValveMode.OPEN), int(ValveMode.CLOSED)
@@ -323,7 +323,6 @@ class ValveLinks:
     def _link_active(self, state):
         """Active links of the whole network (pipes/pumps as the network gives them)."""
         net = self.network
-        from calib.network.model import PipeStatus
         return np.concatenate([net.status != PipeStatus.CLOSED,
                                np.asarray(net.pumps.speed) > 0, state != CLOSED])
 
