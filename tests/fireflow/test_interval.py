@@ -1,0 +1,82 @@
+"""The 95 % interval of the available flow: linearised propagation of the groups' C covariance,
+against finite differences and against a sampled (Monte Carlo) propagation on the demo town."""
+
+import numpy as np
+import pytest
+
+from calib.fireflow import FireFlowScan
+from calib.fireflow.fitdir import read_covariance, read_fit
+
+
+@pytest.fixture(scope="module")
+def scan(town, fit_dir):
+    inputs = read_fit(fit_dir, network=town)
+    assert inputs.covariance is not None and not inputs.covariance.undetermined.any()
+    return FireFlowScan(town, roughness=inputs.roughness, covariance=inputs.covariance)
+
+
+def _with_groups(scan, c_groups):
+    cov = scan.covariance
+    c = scan.roughness.copy()
+    sel = cov.pipe_group >= 0
+    c[sel] = np.asarray(c_groups)[cov.pipe_group[sel]]
+    return FireFlowScan(scan.network, roughness=c, options=scan.options, solver=scan.solver)
+
+
+def _group_c(scan):
+    cov = scan.covariance
+    sel = cov.pipe_group >= 0
+    return np.array([scan.roughness[sel][cov.pipe_group[sel] == g][0] for g in range(cov.n_groups)])
+
+
+@pytest.mark.parametrize("node", ["J017", "J322"])
+def test_gradients_match_central_differences(scan, node):
+    got = scan.hydrant(node)
+    c0 = _group_c(scan)
+    for g in range(len(c0)):
+        h = 0.05
+        up, down = c0.copy(), c0.copy()
+        up[g] += h
+        down[g] -= h
+        a, b = _with_groups(scan, up).hydrant(node), _with_groups(scan, down).hydrant(node)
+        fd_res = (a.flow_at_residual - b.flow_at_residual) / (2 * h)
+        fd_sys = (a.flow_system - b.flow_system) / (2 * h)
+        scale = max(abs(got.grad_residual).max(), 1e-9)
+        assert got.grad_residual[g] == pytest.approx(fd_res, rel=1e-3, abs=1e-3 * scale)
+        # the system flow comes from a search stopped within 0.005 psi: looser
+        scale = max(abs(got.grad_system).max(), 1e-9)
+        assert got.grad_system[g] == pytest.approx(fd_sys, rel=0.02, abs=0.02 * scale)
+
+
+def test_linearised_interval_matches_sampled_propagation(scan):
+    # Monte Carlo: draw the group C-factors from N(C, Cov) (JCGM 101:2008 propagation of
+    # distributions), recompute the available flow, and compare its spread with the first-order
+    # sd. 150 draws: the sampled sd itself is uncertain by about 1/sqrt(2 x 150) = 6 %, so 20 %.
+    rng = np.random.default_rng(7)
+    c0 = _group_c(scan)
+    draws = rng.multivariate_normal(c0, scan.covariance.cov, size=150)
+    for node in ("J017", "J113"):
+        got = scan.hydrant(node)
+        assert got.sd > 0 and got.low < got.available < got.high
+        flows = np.array([_with_groups(scan, c).hydrant(node).available for c in draws])
+        assert np.std(flows, ddof=1) == pytest.approx(got.sd, rel=0.20)
+        assert np.mean(flows) == pytest.approx(got.available, abs=0.5 * got.sd)
+        inside = np.mean((flows >= got.low) & (flows <= got.high))
+        assert 0.88 <= inside <= 1.0  # about 95 % of the draws fall inside
+
+
+def test_undetermined_group_gives_no_interval_and_says_why(scan, tmp_path):
+    cov = scan.covariance
+    names = cov.names
+    lines = ["group," + ",".join(names)]
+    for g, n in enumerate(names):
+        cells = ["" if (g == 0 or k == 0) else f"{cov.cov[g, k]:.6g}" for k in range(len(names))]
+        lines.append(n + "," + ",".join(cells))
+    path = tmp_path / "covariance.csv"
+    path.write_text("\n".join(lines) + "\n")
+    groups = np.array([names[g] if g >= 0 else "" for g in cov.pipe_group], dtype=object)
+    blanked = read_covariance(path, groups)
+    assert blanked.undetermined.tolist() == [True] + [False] * (len(names) - 1)
+    s = FireFlowScan(scan.network, roughness=scan.roughness, covariance=blanked, solver=scan.solver)
+    got = s.hydrant("J017")  # J017's flow depends on the first group (CI-1930s mains)
+    assert np.isnan(got.low) and names[0] in got.note
