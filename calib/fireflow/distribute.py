@@ -105,21 +105,22 @@ def _bar(total: int, progress: bool):
 def run(network, nodes, roughness=None, options: ScanOptions | None = None,
         covariance: GroupCovariance | None = None, workers: int | None = None,
         scheduler: str | None = None, batch_size: int | None = None, progress: bool = True,
-        retries: int = 1) -> ScanResult:
+        retries: int = 1, client=None) -> ScanResult:
     """Scan ``nodes``: ``workers=0`` (and no scheduler) in this process; otherwise on Dask, a
     ``LocalCluster`` of ``workers`` single-threaded processes (default: this machine's cores), or
-    the cluster at ``scheduler`` (e.g. ``tcp://10.0.0.5:8786``; its workers need this package)."""
+    the cluster at ``scheduler`` (e.g. ``tcp://10.0.0.5:8786``; its workers need this package), or
+    an open ``client`` (left open; for tests and benchmarks that reuse one cluster)."""
     job = ScanJob(network=network, roughness=roughness, options=options or ScanOptions(),
                   covariance=covariance)
     job.options.check()
     nodes = [str(n) for n in nodes]
     start = time.perf_counter()
-    if scheduler is None and workers == 0:
+    if scheduler is None and workers == 0 and client is None:
         flows, failures, solves = _run_here(job, nodes, batch_size, progress, retries)
         used = 0
     else:
         flows, failures, solves, used = _run_dask(job, nodes, workers, scheduler, batch_size,
-                                                  progress, retries)
+                                                  progress, retries, client)
     return ScanResult(flows=flows, failures=failures, workers=used,
                       seconds=time.perf_counter() - start, solves=solves)
 
@@ -143,11 +144,13 @@ def _run_here(job, nodes, batch_size, progress, retries):
     return flows, failures, solves
 
 
-def _run_dask(job, nodes, workers, scheduler, batch_size, progress, retries):
+def _run_dask(job, nodes, workers, scheduler, batch_size, progress, retries, client=None):
     from dask.distributed import Client, LocalCluster, as_completed
 
-    cluster = None
-    if scheduler is None:
+    cluster, own = None, client is None
+    if client is not None:
+        pass
+    elif scheduler is None:
         n = workers or os.cpu_count() or 1
         cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True,
                                dashboard_address=None, silence_logs=logging.CRITICAL)
@@ -178,6 +181,7 @@ def _run_dask(job, nodes, workers, scheduler, batch_size, progress, retries):
         failures.sort(key=lambda f: f.index)
         return flows, failures, solves, used
     finally:
-        client.close()
+        if own:
+            client.close()
         if cluster is not None:
             cluster.close()
