@@ -43,3 +43,19 @@ def test_si_units_and_bad_options(tmp_path, capsys):
     assert main(["fireflow", str(NETWORK), "--out", str(out), "--fit", str(tmp_path / "none")]) == 2
     err = capsys.readouterr().err
     assert "--residual" in err and "NOPE" in err and "--fit" in err
+
+
+def test_fit_report_carries_the_fire_flow_summary(town, fit_dir):
+    from calib.calibration import fit, read_tests
+    from calib.calibration.report import render
+    from calib.fireflow import FireFlowScan
+    from calib.fireflow.fitdir import read_fit
+    from calib.units import GPM
+    from tests.fireflow.conftest import TESTS
+    result = fit(town, read_tests(TESTS, town), influence=False)
+    page = render(result, curves=False)
+    assert "Fire flow with the fitted C" in page and "python -m calib fireflow" in page
+    # the figure shown for J017 is the one the command gives from the exported fit folder
+    inputs = read_fit(fit_dir, network=town)
+    j017 = FireFlowScan(town, roughness=inputs.roughness, covariance=inputs.covariance).hydrant("J017")
+    assert "<td>J017</td>" in page and f"<td>{j017.available / GPM:.0f}</td>" in page
