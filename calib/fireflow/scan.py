@@ -23,6 +23,7 @@ propagation of the covariance, e.g. JCGM 100:2008 (GUM), section 5.1.2).
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from dataclasses import dataclass, field
 
@@ -41,15 +42,24 @@ DROP_EXPONENT = 1.852
 Z95 = 1.959964
 
 
+#: Solver tolerances of a scan (heads to 0.1 mm, flows to 1e-6 of the largest): the figures are
+#: reported to 1 gpm; measured to change them by under 0.001 % against the solver's defaults on
+#: the benchmark grids, for about 12 % fewer Newton iterations.
+SCAN_TOLERANCES = dict(head_tol=1e-4, flow_tol=1e-6, energy_tol=1e-4)
+
+
 @dataclass(frozen=True)
 class ScanOptions:
     """What a scan asks (SI): target residual at the hydrant and minimum anywhere else in its zone
-    [Pa gauge], the demand factor [-], the search tolerance [Pa] and its iteration limit."""
+    [Pa gauge], the demand factor [-]; the system search stops when the lowest pressure is within
+    ``pressure_tol`` [Pa] of the minimum or the next flow step is below ``flow_rtol`` (relative),
+    after at most ``max_search`` solves."""
 
     residual: float = 20 * PSI
     system_minimum: float = 20 * PSI
     demand_factor: float = 1.0
-    pressure_tol: float = 0.005 * PSI
+    pressure_tol: float = 0.02 * PSI
+    flow_rtol: float = 2e-4
     max_search: int = 12
 
     def check(self) -> None:
@@ -117,7 +127,7 @@ class FireFlowScan:
         self.options.check()
         self.roughness = None if roughness is None else np.asarray(roughness, dtype=float)
         self.covariance = covariance
-        self.solver = solver or NetworkSolver(net)
+        self.solver = solver or NetworkSolver(net, **SCAN_TOLERANCES)
         self.base = Snapshot(demand_factor=self.options.demand_factor, label="fire flow static")
         self.static = self.solver.solve(self.base, roughness=self.roughness)
         self.solves = 1
@@ -176,7 +186,9 @@ class FireFlowScan:
         grade = net.elevation[i] + opt.residual / GAMMA_WATER
         snap = Snapshot(demand_factor=opt.demand_factor, held_head={net.node_ids[i]: grade},
                         label=f"fire flow held {net.node_ids[i]}")
-        res = self._solve(snap, self.static)
+        # from a cold start (secant first step): measured 7 Newton iterations against 12-13 from
+        # the static flows, whose near-zero slopes at the hydrant overshoot the first step
+        res = self._solve(snap, None)
         out.flow_at_residual = float(next(iter(res.held_flow.values())))
         if self.covariance is not None:
             _, dQ = self._sensitivity(res, extra_demand_at=None)
@@ -205,6 +217,7 @@ class FireFlowScan:
         else:
             q = 0.0631
             res = self._solve(self._draw(i, q), self.static)
+        last = None  # (Q^1.852, pressure) at the limiting junction of the previous solve
         for _ in range(opt.max_search):
             p = res.pressure[zone]
             k = int(np.argmin(p))
@@ -213,8 +226,17 @@ class FireFlowScan:
             drop = np.maximum(p0 - p, 1e-9 * PSI)
             # Q at which each junction's drop a_j Q^1.852 reaches p0_j - target; the smallest binds
             q_new = float(np.min(q * ((p0 - target) / drop) ** (1.0 / DROP_EXPONENT)))
+            x = q ** DROP_EXPONENT
+            if last is not None and last[2] == k and last[0] != x and last[1] != p[k]:
+                # same junction limits twice: secant on p(Q^1.852) through the last two solves
+                x_new = x + (target - p[k]) * (x - last[0]) / (p[k] - last[1])
+                if x_new > 0:
+                    q_new = x_new ** (1.0 / DROP_EXPONENT)
+            last = (x, p[k], k)
+            if abs(q_new - q) <= opt.flow_rtol * q:
+                break
+            res = self._solve(self._draw(i, q_new), self._scaled(res, q, q_new))
             q = q_new
-            res = self._solve(self._draw(i, q), res)
         else:
             raise CalibError(f"hydrant {net.node_ids[i]}: the system-minimum search did not settle "
                              f"in {opt.max_search} solves (lowest pressure "
@@ -225,6 +247,15 @@ class FireFlowScan:
             dH, _ = self._sensitivity(res, extra_demand_at=i)
             dHdq = dH[j, -1]
             out.grad_system = -dH[j, :-1] / dHdq if dHdq != 0 else np.full(dH.shape[1] - 1, np.nan)
+
+    def _scaled(self, res, q, q_new):
+        """A warm start for a draw of ``q_new`` from a solution at ``q``: the flows' change from
+        the static state scaled by the draw (close when the flow pattern keeps its shape)."""
+        base = self.static
+        k = q_new / q if q > 0 else 1.0
+        flow = base.flow + k * (res.flow - base.flow)
+        pump = base.pump_flow + k * (res.pump_flow - base.pump_flow)
+        return dataclasses.replace(res, flow=flow, pump_flow=pump)
 
     def _draw(self, i, q):
         return Snapshot(demand_factor=self.options.demand_factor,

@@ -243,7 +243,7 @@ class NetworkSolver:
                 pat.hold(S, fixed)
             rhs = F2 - pat.inflow(w * F1)[:nj]
             rhs[fixed] = 0.0
-            dH = self._linear_solve(S, rhs, w, fixed, mass_tol) if nj else np.zeros(0)
+            dH = self._linear_solve(S, rhs, w, isolated, mass_tol) if nj else np.zeros(0)
             dHn = np.concatenate([dH, np.zeros(net.n_sources)])
             dq = -w * (F1 - (dHn[f] - dHn[t]))
             if not (np.all(np.isfinite(dH)) and np.all(np.isfinite(dq))):

@@ -43,7 +43,7 @@ def test_gradients_match_central_differences(scan, node):
         fd_sys = (a.flow_system - b.flow_system) / (2 * h)
         scale = max(abs(got.grad_residual).max(), 1e-9)
         assert got.grad_residual[g] == pytest.approx(fd_res, rel=1e-3, abs=1e-3 * scale)
-        # the system flow comes from a search stopped within 0.005 psi: looser
+        # the system flow comes from a search stopped within 0.02 psi: looser
         scale = max(abs(got.grad_system).max(), 1e-9)
         assert got.grad_system[g] == pytest.approx(fd_sys, rel=0.02, abs=0.02 * scale)
 
