@@ -89,10 +89,12 @@ def main(argv=None) -> int:
     eff = scaling[2] / (2 * scaling[1])
     print(f"speed-up 1 -> 2 workers: {scaling[2] / scaling[1]:.2f} (efficiency {eff:.0%})")
     for name in ("10k", "50k"):
-        est = ", ".join(f"{n} workers {20000 / (rates[name] * n * min(eff, 1.0)) / 60:.0f} min"
+        # hydrants are independent: on cores of their own, N workers scan N times as fast (batches
+        # cost one scatter of the network per worker); the speed-up measured here on a shared
+        # 2-core machine is printed above, not used
+        est = ", ".join(f"{n} workers {20000 / (rates[name] * n) / 60:.0f} min"
                         for n in (1, 2, 8, 32, 128))
-        print(f"20k hydrants on the {name} grid (per-core rate x workers x the measured "
-              f"efficiency): {est}")
+        print(f"20k hydrants on the {name} grid at this per-core rate, linear in workers: {est}")
     if args.full:
         net = grids["10k"]
         allnodes = [str(i) for i in net.node_ids[: net.n_junctions]]

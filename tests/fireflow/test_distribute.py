@@ -60,3 +60,17 @@ def test_a_batch_that_fails_once_is_retried(town, monkeypatch):
     result = distribute.run(town, nodes, workers=0, progress=False, batch_size=4)
     assert calls["n"] == 2 and not result.failures
     assert all(math.isfinite(f.available) for f in result.flows)
+
+
+def test_command_on_an_existing_cluster_by_scheduler_address(cluster, tmp_path):
+    import pandas as pd
+    from calib.cli import main
+    from tests.fireflow.conftest import NETWORK
+    nodes = "J007,J010,J017,J018,J022"
+    here, there = tmp_path / "here.csv", tmp_path / "there.csv"
+    assert main(["fireflow", str(NETWORK), "--out", str(here), "--workers", "0", "--nodes", nodes,
+                 "--quiet"]) == 0
+    address = cluster.scheduler_info()["address"]
+    assert main(["fireflow", str(NETWORK), "--out", str(there), "--scheduler", address,
+                 "--nodes", nodes, "--quiet", "--batch-size", "2"]) == 0
+    assert pd.read_csv(here).equals(pd.read_csv(there))
