@@ -19,7 +19,8 @@ import uuid
 from dataclasses import dataclass, field
 
 from calib.errors import CalibError
-from calib.fireflow.scan import FireFlowScan, GroupCovariance, HydrantFlow, ScanOptions
+from calib.fireflow.scan import (FireFlowScan, GroupCovariance, HydrantFlow, ScanOptions,
+                                 locality_order)
 
 
 @dataclass
@@ -70,6 +71,7 @@ def _scan_for(job: ScanJob) -> FireFlowScan:
 def scan_batch(job: ScanJob, nodes: list) -> tuple[list, int]:
     """Figures of each hydrant of one batch -> (flows, solves). Runs on a worker."""
     scan = _scan_for(job)
+    scan.reset()
     before = scan.solves
     out = []
     for node in nodes:
@@ -113,7 +115,9 @@ def run(network, nodes, roughness=None, options: ScanOptions | None = None,
     job = ScanJob(network=network, roughness=roughness, options=options or ScanOptions(),
                   covariance=covariance)
     job.options.check()
-    nodes = [str(n) for n in nodes]
+    wanted = [str(n) for n in nodes]
+    # neighbours in the same batch, one after the other: warm starts (``FireFlowScan``)
+    nodes = locality_order(network, list(dict.fromkeys(wanted)))
     start = time.perf_counter()
     if scheduler is None and workers == 0 and client is None:
         flows, failures, solves = _run_here(job, nodes, batch_size, progress, retries)
@@ -121,6 +125,8 @@ def run(network, nodes, roughness=None, options: ScanOptions | None = None,
     else:
         flows, failures, solves, used = _run_dask(job, nodes, workers, scheduler, batch_size,
                                                   progress, retries, client)
+    by_node = {f.node: f for f in flows}
+    flows = [by_node[n] for n in wanted]  # the requested order
     return ScanResult(flows=flows, failures=failures, workers=used,
                       seconds=time.perf_counter() - start, solves=solves)
 
