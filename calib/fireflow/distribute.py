@@ -100,7 +100,9 @@ def default_batch_size(n_nodes: int, workers: int) -> int:
 
 def _bar(total: int, progress: bool):
     from tqdm import tqdm
-    return tqdm(total=total, unit="hydrant", desc="fire flow", disable=not progress,
+    # off a terminal (CI, a log file) tqdm stays silent (disable=None): carriage returns would pile
+    # up into one long line; the command prints its summary line either way
+    return tqdm(total=total, unit="hydrant", desc="fire flow", disable=None if progress else True,
                 file=sys.stderr, mininterval=0.5)
 
 
