@@ -109,7 +109,9 @@ def run(args) -> int:
         "system minimum": show(options.system_minimum) + " at any other junction of the hydrant's "
         "zone (the junctions' zone column; the whole network for a junction without one)",
         "demand factor": f"{options.demand_factor:g} x base demand",
-        "interval": "95 %, normal, first-order" if fit.covariance is not None else "none",
+        "interval": ("95 %, normal, first-order; from the fitted C-factors' uncertainty only "
+                     "(not demands, valve positions or tank levels)")
+        if fit.covariance is not None else "none",
         "run": (f"{len(nodes)} hydrants, {result.solves} solves, {result.seconds:.1f} s, "
                 + (f"{result.workers} Dask workers" if result.workers else "in one process")),
     }
