@@ -80,3 +80,15 @@ def test_undetermined_group_gives_no_interval_and_says_why(scan, tmp_path):
     s = FireFlowScan(scan.network, roughness=scan.roughness, covariance=blanked, solver=scan.solver)
     got = s.hydrant("J017")  # J017's flow depends on the first group (CI-1930s mains)
     assert np.isnan(got.low) and names[0] in got.note
+
+
+def test_exported_covariance_agrees_with_the_group_intervals(fit_dir):
+    # groups.csv gives C +/- t sd; covariance.csv's diagonal must give the same sd for every group
+    # (one t quantile per fit), to the 2 decimals groups.csv is rounded to
+    import pandas as pd
+    groups = pd.read_csv(fit_dir / "groups.csv")
+    cov = pd.read_csv(fit_dir / "covariance.csv")
+    assert cov["group"].tolist() == groups["group"].tolist()
+    sd = np.sqrt(np.diag(cov[groups["group"].tolist()].to_numpy(float)))
+    t = (groups["c_high"] - groups["c_low"]).to_numpy() / (2 * sd)
+    assert np.allclose(t, t[0], atol=0.01 / sd.min()) and 1.9 < t[0] < 2.3
