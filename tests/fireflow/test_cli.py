@@ -59,3 +59,13 @@ def test_fit_report_carries_the_fire_flow_summary(town, fit_dir):
     inputs = read_fit(fit_dir, network=town)
     j017 = FireFlowScan(town, roughness=inputs.roughness, covariance=inputs.covariance).hydrant("J017")
     assert "<td>J017</td>" in page and f"<td>{j017.available / GPM:.0f}</td>" in page
+
+
+def test_map_bands_are_contiguous_and_named():
+    from calib.fireflow.outputs import BANDS, NO_FIGURE, band
+    assert band(float("nan")) == ("no figure", NO_FIGURE)
+    for k, (lower, colour) in enumerate(BANDS):
+        assert band(lower)[1] == colour  # lower bound inclusive
+        if k:
+            assert band(lower - 0.01)[1] == BANDS[k - 1][1]
+    assert band(1e9)[0].endswith("or more")
