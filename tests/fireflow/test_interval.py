@@ -92,3 +92,19 @@ def test_exported_covariance_agrees_with_the_group_intervals(fit_dir):
     sd = np.sqrt(np.diag(cov[groups["group"].tolist()].to_numpy(float)))
     t = (groups["c_high"] - groups["c_low"]).to_numpy() / (2 * sd)
     assert np.allclose(t, t[0], atol=0.01 / sd.min()) and 1.9 < t[0] < 2.3
+
+
+def test_roughness_csv_read_by_column_name_with_blanks(town, tmp_path):
+    from calib.errors import InputError
+    from calib.fireflow.fitdir import read_roughness
+    path = tmp_path / "roughness.csv"
+    # columns in another order, an extra column, a blank C (keeps the network's C)
+    path.write_text("c_high,c_factor,pipe_id,extra,group\n,88.5,P001,x,CI-1950s\n,,P002,,\n")
+    c, groups = read_roughness(path, town)
+    k1, k2 = town.pipe_index["P001"], town.pipe_index["P002"]
+    assert c[k1] == 88.5 and c[k2] == town.roughness[k2] and groups[k1] == "CI-1950s"
+    path.write_text("pipe_id,c_factor\nNOPE,90\nP001,900\n")
+    with pytest.raises(InputError) as err:
+        read_roughness(path, town)
+    text = str(err.value)
+    assert "NOPE" in text and "row 2" in text and "row 3" in text and "1 to 200" in text
