@@ -420,7 +420,7 @@ def sensitivity_solve(solver, result, w, b1, b2, pat, iso):
                    0.0)
     extra = iso.astype(float) + np.bincount(valves.ctrl, weights=w_s,
                                             minlength=solver.network.n_nodes)[: solver.nj]
-    S = pat.assemble(w, extra)
+    S = pat.hold(pat.assemble(w, extra), iso)  # iso includes held junctions (Snapshot.held_head)
     factor = pat.factorize(S)
     b1 = b1.copy()
     # an active valve's equation holds a grade or a flow: no roughness or source grade enters it
