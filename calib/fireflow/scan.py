@@ -151,7 +151,7 @@ class FireFlowScan:
             sel = g >= 0
             # pipe -> group incidence (n_links x groups), scaled per pipe by dh/dC at each solution
             self._group_of = sp.csr_matrix((np.ones(int(sel.sum())), (np.flatnonzero(sel), g[sel])),
-                                           shape=(self.solver.np_ + self.solver.nu,
+                                           shape=(len(self.solver.link_from),  # with valves
                                                   covariance.n_groups))
 
     # --- per hydrant -------------------------------------------------------------------------
@@ -290,7 +290,7 @@ class FireFlowScan:
         """dH, dQ for the group C-factors (and the draw at one junction as a last column)."""
         solver = self.solver
         dh = solver.dheadloss_droughness(res)
-        per_link = np.concatenate([dh, np.zeros(solver.nu)])
+        per_link = np.concatenate([dh, np.zeros(len(solver.link_from) - len(dh))])  # pumps, valves: 0
         dF1 = sp.diags(per_link) @ self._group_of
         nj = self.network.n_junctions
         dF2 = sp.csr_matrix((nj, self.covariance.n_groups))

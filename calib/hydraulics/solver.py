@@ -301,9 +301,9 @@ class NetworkSolver:
                     isolated = iso | self.valves.cut_off(active, vstate) if self.nv else iso
                     self._check_isolated(isolated, demand)
             if self.nv and dq_max <= STATE_CHECK_FLOW * q_ref:  # valves: states near a solution
-                vchanged, vstate, q, held = self.valves.update(q, H, vstate, vflips, demand,
+                vchanged, vstate, q, vhold = self.valves.update(q, H, vstate, vflips, demand,
                                                                settled=dh_max <= STATE_HEAD_TOL)
-                vheld |= held
+                vheld |= vhold
                 if vchanged:
                     changed = True
                     active = active.copy()
