@@ -65,12 +65,12 @@ def test_held_flow_agrees_with_nfpa_291_arithmetic_on_the_model(fitted):
 
 
 def test_model_rating_near_the_demo_days_field_rating(fitted):
-    # The demo day rated T01 in the field: 2500 gpm, gauge J318 81.5 -> 69 psi, so by NFPA 291
-    # Q20 = 2500 (61.5 / 12.5)^0.54 = 5910 gpm at J318. The calibrated model, drawing at J017 until
+    # The demo day rated T01 in the field: 2500 gpm, gauge J318 82 -> 68.5 psi, so by NFPA 291
+    # Q20 = 2500 (62 / 13.5)^0.54 = 5694 gpm at J318. The calibrated model, drawing at J017 until
     # J318 reads 20 psi, must give about the same (5 %: gauges read to 0.5 psi, the fit's scatter).
     scan, _ = fitted
-    field = rated_flow(2500 * GPM, 81.5 * PSI, 69 * PSI)
-    assert field / GPM == pytest.approx(5910.2, abs=0.5)
+    field = rated_flow(2500 * GPM, 82 * PSI, 68.5 * PSI)
+    assert field / GPM == pytest.approx(5694.4, abs=0.5)
     j = scan.network.node_index["J318"]
     model = brentq(lambda q: _pressure(scan, "J017", q, j) - 20 * PSI, 0.0, 2.0, xtol=1e-9)
     assert model == pytest.approx(field, rel=0.05)
