@@ -18,6 +18,8 @@ class SetupScreen(FieldScreen):
     diameter_unit = StringProperty("in")
     length_unit = StringProperty("ft")
     sources = ListProperty([])
+    tank_by = StringProperty("level")  # what the crew types for a tank: its level or its grade
+    tank_range = StringProperty("")
 
     def refresh(self):
         if not self.tid:
@@ -28,6 +30,15 @@ class SetupScreen(FieldScreen):
         self.diameter_unit = self.service.unit_of("diameter")
         self.length_unit = self.service.unit_of("gauge_height")
         self.sources = self.service.sources()
+        self.tank_range = self.service.tank_range(self.ids.source.text)
+
+    def on_pre_enter(self, *args):
+        super().on_pre_enter(*args)
+        self.fill_boxes(views.setup_boxes(self.service, self.tid, self.ids.source.text))
+
+    def fill_boxes(self, boxes):
+        """The typed boxes re-shown from what is saved, in the units now chosen."""
+        self.ids.height.text, self.ids.grade.text, self.tank_by = boxes["height"], boxes["tank"], boxes["tank_by"]
 
     def pick(self, hydrant):
         self.picked = hydrant
@@ -56,5 +67,12 @@ class SetupScreen(FieldScreen):
     def set_height(self, text):
         self.show(self.service.set_gauge_height(self.tid, text))
 
-    def set_grade(self, source, text):
-        self.show(self.service.set_source_grade(self.tid, source, text))
+    def set_tank_by(self, what):
+        self.tank_by = what
+
+    def set_tank(self, source, text):
+        self.show(self.service.set_source(self.tid, source, text, self.tank_by))
+
+    def clear_tank(self, source):
+        self.show(self.service.clear_source(self.tid, source))
+        self.ids.grade.text = ""

@@ -190,23 +190,63 @@ class TestService:
     def sources(self) -> list[str]:
         """Ids of the area's fixed-grade sources (reservoirs, tanks); empty without a network."""
         net = self.area.network
-        return [] if net is None else [str(s) for s in net.source_ids]
+        if net is None:
+            return []
+        # Tanks first: their level is what an operator reports; a plant's grade rarely changes.
+        return [str(s) for _, s in sorted(zip(net.source_kind != "tank", net.source_ids),
+                                          key=lambda p: p[0])]
 
     def set_source_grade(self, tid: str, source: str, text: str) -> Outcome:
-        """Record a source's grade at the time of the test (e.g. the tank level from the operator)."""
+        """Record a source's grade (water surface elevation) at the time of the test."""
+        return self.set_source(tid, source, text, "grade")
+
+    def set_tank_level(self, tid: str, source: str, text: str) -> Outcome:
+        """Record a tank's water level (depth above its floor) as the operator gives it."""
+        return self.set_source(tid, source, text, "level")
+
+    def set_source(self, tid: str, source: str, text: str, what: str = "level") -> Outcome:
+        """Record a source's ``level`` or ``grade`` at the time of the test; the level becomes a grade
+        from the tank's floor in the network, and a value the tank cannot hold is refused."""
+        from calib.network import tanks  # the level <-> grade rule lives with the network
+
         if source not in self.sources():
             return Outcome(False, f"'{source}' is not a source of the area"
                                   + (f" (expected one of {', '.join(self.sources())})" if self.sources()
                                      else ": load the area's network first"))
+        if what not in ("level", "grade"):
+            return Outcome(False, "Enter a tank's level or its grade")
+        net, system = self.area.network, self.system
         try:
-            si, unit = values.parse_value(text, "source_grade", self.system)
+            si, unit = values.parse_value(text, "tank_level" if what == "level" else "source_grade",
+                                          system)
+            grade = tanks.grade_from_level(net, source, si, system) if what == "level" else \
+                tanks.check_grade(net, source, si, system)
         except InputError as exc:
             return Outcome(False, _first_message(exc))
 
         def change(h):
             kept = [b for b in h.get("boundary", []) if b["source"] != source]
-            h["boundary"] = kept + [{"source": source, "si": si, "unit": unit, "text": str(text)}]
-        return self._edit(tid, change, f"Grade of {source}: {values.fmt(si, 'length', self.system)}", si)
+            h["boundary"] = kept + [{"source": source, "si": grade, "entered": what,
+                                     "level": si if what == "level" else None,
+                                     "unit": unit, "text": str(text)}]
+        shown = values.fmt(grade, "length", system)
+        msg = (f"{source}: level {values.fmt(si, 'length', system)} = grade {shown}" if what == "level"
+               else f"{source}: grade {shown}")
+        return self._edit(tid, change, msg, grade)
+
+    def clear_source(self, tid: str, source: str) -> Outcome:
+        """Forget the level or grade noted for ``source`` (the model's own grade is used again)."""
+        def change(h):
+            h["boundary"] = [b for b in h.get("boundary", []) if b["source"] != source]
+        return self._edit(tid, change, f"{source}: cleared; the model's grade is used")
+
+    def tank_range(self, source: str) -> str:
+        """What the tank can hold, in words, for the set-up screen ('' without a network)."""
+        from calib.network import tanks
+
+        if source not in self.sources():
+            return ""
+        return tanks.describe_range(self.area.network, source, self.system)
 
     # --- readings ----------------------------------------------------------------------------
     def slots(self, tid: str) -> list[tuple[str, str, str]]:

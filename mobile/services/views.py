@@ -92,8 +92,15 @@ def setup_view(service, tid: str) -> dict:
             "gauges": list(h["gauges"]), "outlets": outlets,
             "gauge_height": values.fmt(gh["si"], "length", sys_) if gh else values.fmt(0.0, "length", sys_),
             "area": h.get("area", ""),
-            "boundary": "   ".join(f"{b['source']} {values.fmt(b['si'], 'length', sys_)}"
-                                   for b in h.get("boundary", [])) or "none noted"}
+            "boundary": "   ".join(_boundary_text(b, sys_) for b in h.get("boundary", []))
+            or "none noted: the model's grade is used"}
+
+
+def _boundary_text(b: dict, system: str) -> str:
+    grade = values.fmt(b["si"], "length", system)
+    if b.get("entered") == "level" and b.get("level") is not None:
+        return f"{b['source']} level {values.fmt(b['level'], 'length', system)} (grade {grade})"
+    return f"{b['source']} grade {grade}"
 
 
 def checklist_rows(service, tid: str) -> list[dict]:
@@ -135,3 +142,22 @@ def history_text(service, tid: str) -> str:
                 f"{r.entered_text} {r.unit}"
             lines.append(f"    {r.slot}: {shown}  (typed '{typed}')")
     return "\n".join(lines)
+
+
+def setup_boxes(service, tid: str, source: str = "") -> dict:
+    """What the set-up's typed boxes hold, from what is saved, as bare numbers in today's units."""
+    if not tid:
+        return {"height": "", "tank": "", "tank_by": "level"}
+    h, sys_ = service.header(tid), service.system
+    gh = h.get("gauge_height")
+    noted = next((b for b in h.get("boundary", []) if b["source"] == source), None)
+    tank, by = "", "level"
+    if noted is not None:
+        by = "level" if noted.get("entered") == "level" and noted.get("level") is not None else "grade"
+        tank = _bare(noted["level"] if by == "level" else noted["si"], sys_)
+    return {"height": _bare(gh["si"], sys_) if gh else "", "tank": tank, "tank_by": by}
+
+
+def _bare(si: float, system: str) -> str:
+    """A length as a bare number to retype, with enough digits to round-trip what was entered."""
+    return f"{values.convert(si, 'length', system):.3f}".rstrip("0").rstrip(".")
