@@ -206,7 +206,7 @@ class HydrantFieldApp(App):
         except (CalibError, OSError) as exc:
             return Outcome(False, f"Export failed: {exc}. Each file is either the old or the new one, "
                                   "never half-written; export again to bring them all up to date.")
-        return Outcome(True, f"Exported {done['tests']} tests to {done['folder']}")
+        return Outcome(True, export.done_message(done))
 
     # --- snapshot mode -----------------------------------------------------------------------
     def _snapshot(self, todo: list[str]) -> None:

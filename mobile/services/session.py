@@ -341,6 +341,20 @@ class TestService:
             return Outcome(False, "Still to do: " + "; ".join(todo))
         return self._guard(lambda: self.store.finish(tid), f"Test {tid} finished and saved")
 
+    def correction_question(self, tid: str, reason: str) -> Outcome:
+        """What to ask before a correction reopens ``tid`` (ok), or why it cannot be reopened."""
+        reason = (reason or "").strip()
+        t = self.store.test(tid)
+        if t.status != "finished":
+            return Outcome(False, f"Test {tid} is not finished: change its readings directly, no "
+                                  "correction is needed")
+        if not reason:
+            return Outcome(False, f"Type why test {tid} is corrected (e.g. 'residual re-read'): "
+                                  "the reason is kept with it")
+        return Outcome(True, f"Reopen test {tid} to correct it ({reason})? Its finished revision "
+                             f"{t.current_revision} stays as it is and is the one exported until "
+                             "you finish the correction.")
+
     def correct(self, tid: str, reason: str) -> Outcome:
         """Start a correction: a new revision; the previous one stays readable unchanged."""
         try:

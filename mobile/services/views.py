@@ -6,14 +6,15 @@ chosen in the settings. No Kivy here.
 
 from __future__ import annotations
 
-from mobile.services import checklist, values
+from mobile.services import checklist, values, verdicts
 
 SEVERITY_WORD = {"error": "PROBLEM", "warning": "CHECK", "info": "NOTE"}
 
 #: What the screens show before a test is open (every key the kv files read).
 EMPTY_RESULTS = {"flow": "-", "rated": "-", "rated_label": "Flow at the target residual", "klass": "",
                  "klass_colour": "", "static": "-", "residual": "-", "gauge": "", "findings": "",
-                 "missing": [], "complete": False, "class_note": ""}
+                 "missing": [], "complete": False, "class_note": "", "verdict": "",
+                 "suspect": False}
 EMPTY_SETUP = {"test_id": "", "started": "", "crew": "", "weather": "", "notes": "", "gauges": [],
                "outlets": [], "gauge_height": "", "area": "", "boundary": ""}
 
@@ -24,6 +25,10 @@ def results_view(service, tid: str, revision: int | None = None) -> dict:
     r = service.results(tid, revision)
     target = values.fmt(r.target, "pressure", sys_)
     findings = [f"{SEVERITY_WORD.get(s, s.upper())}: {m}" for s, _, m in r.findings]
+    check = verdicts.current(service, tid, revision)
+    verdict = verdicts.text(check)
+    if verdict:  # the model check's word comes first: it is what the crew must act on
+        findings.insert(0, verdict)
     return {
         "flow": values.fmt(r.flow, "flow", sys_),
         "rated": values.fmt(r.rated_flow, "flow", sys_),
@@ -38,6 +43,8 @@ def results_view(service, tid: str, revision: int | None = None) -> dict:
         "missing": list(r.missing),
         "complete": not r.missing and r.rated_flow is not None,
         "class_note": r.class_note,
+        "verdict": verdict,
+        "suspect": bool(check and check["verdict"]["suspect"]),
     }
 
 

@@ -65,3 +65,92 @@ def test_a_level_needs_a_floor_in_the_network(service):
     tid = service.new_test(crew="X")
     out = service.set_tank_level(tid, service.sources()[0], "10")
     assert not out.ok and "no floor" in out.message and "grade instead" in out.message
+
+
+def _whole(service, crew="A. Brennan"):
+    h = service.area.hydrants
+    tid = service.new_test(crew=crew)
+    for key in service.checklist_keys():
+        service.tick(tid, key, True)
+    assert service.set_gauges(tid, [h[0]]).ok
+    assert service.add_outlet(tid, h[1], diameter_text="2.5").ok
+    for slot, text in ((f"static@{h[0]}", "72"), (f"residual@{h[0]}", "58"), ("pitot@o1", "22")):
+        assert service.enter(tid, slot, text).ok
+    return tid
+
+
+# --- A1: a reopened test never vanishes from the export -------------------------------------------
+def test_reopening_asks_first_with_its_reason_and_a_draft_needs_no_correction(service):
+    tid = _whole(service)
+    assert not service.correction_question(tid, "gauge re-read").ok  # still a draft
+    assert service.finish(tid).ok
+    assert not service.correction_question(tid, "  ").ok  # a reason is needed
+    ask = service.correction_question(tid, "gauge re-read")
+    assert ask.ok and tid in ask.message and "gauge re-read" in ask.message
+    assert service.store.test(tid).status == "finished"  # asking changes nothing
+
+
+def test_a_test_under_correction_is_exported_as_its_finished_revision(service, area, tmp_path):
+    from calib.calibration.tests_io import read_tests
+
+    tid = _whole(service)
+    assert service.finish(tid).ok
+    assert service.correct(tid, "residual re-read").ok
+    assert service.enter(tid, f"residual@{area.hydrants[0]}", "50").ok  # not finished yet
+    done = export.export_tests(service, tmp_path / "out")
+    assert done["tests"] == 1 and done["left_out"] == []
+    assert any(tid in n and "finished revision 1" in n for n in done["notes"]), done["notes"]
+    assert "finished revision 1" in export.done_message(done)
+    ts = read_tests(tmp_path / "out", area.network)
+    assert ts.test_ids == [tid]
+    assert dict(zip(ts.kind, ts.pressure))["residual"] == pytest.approx(58 * PSI, rel=1e-6)
+    record = json.loads((tmp_path / "out" / f"{tid}.json").read_text())
+    assert record["exported_revision"] == 1 and record["current_revision"] == 2
+
+
+def test_export_lists_what_it_leaves_out_before_writing(service, tmp_path):
+    done_id = _whole(service)
+    service.finish(done_id)
+    draft = service.new_test(crew="B")
+    plan = export.plan_text(service)
+    assert f"{draft} (a draft never finished)" in plan and "1 test(s) to export" in plan
+    done = export.export_tests(service, tmp_path / "out")
+    assert done["left_out"] == [(draft, "a draft never finished")]
+    assert draft in export.done_message(done)
+
+
+# --- A3: the model check's verdict is kept -------------------------------------------------------
+def test_verdict_is_saved_shown_until_readings_change_and_exported(service, area, tmp_path):
+    from mobile.services import check, verdicts
+
+    tid = _whole(service)
+    at = verdicts.stamp(service, tid)
+    result = check.check_test(service, tid)
+    assert result.ok, result.message
+    assert verdicts.save(service, tid, result, at).ok
+    shown = views.results_view(service, tid)
+    assert shown["verdict"].startswith("MODEL CHECK") and "Tallowmere" in shown["verdict"]
+    assert shown["findings"].startswith("MODEL CHECK")
+    assert shown["suspect"] == any(g.suspect for g in result.gauges)
+    service.finish(tid)
+    export.export_tests(service, tmp_path / "out")
+    record = json.loads((tmp_path / "out" / f"{tid}.json").read_text())
+    (kept,) = record["model_checks"]
+    assert kept["revision"] == 1 and kept["in_force"] and kept["verdict"]["message"] == result.message
+    assert kept["verdict"]["gauges"][0]["predicted_static"] == pytest.approx(
+        result.gauges[0].predicted_static)
+    # a reading entered after the check makes its verdict out of date on the screen
+    service.correct(tid, "static re-read")
+    service.enter(tid, f"static@{area.hydrants[0]}", "73")
+    assert views.results_view(service, tid)["verdict"] == ""
+    assert views.results_view(service, tid, revision=1)["verdict"].startswith("MODEL CHECK")
+
+
+def test_a_check_that_could_not_run_is_no_verdict(store):
+    from mobile.services import check, verdicts
+
+    bare = TestService(store, Area("No area loaded"))
+    tid = bare.new_test(crew="X")
+    result = check.check_test(bare, tid)
+    assert not verdicts.save(bare, tid, result, verdicts.stamp(bare, tid)).ok
+    assert store.checks(tid) == []
