@@ -22,12 +22,18 @@ class ReadingsScreen(FieldScreen):
         self.rows = [dict(r, selected=r["slot"] == self.slot) for r in rows]
         row = next((r for r in self.rows if r["slot"] == self.slot), None)
         self.prompt = row["label"] if row else "Set up gauge and flow hydrants first"
-        self.ids.keypad.unit = row["unit"] if row else ""
+        self.ids.keypad.units = views.keypad_units(row["kind"], self.service.system) if row else []
+        if self.ids.keypad.unit not in self.ids.keypad.units:  # a unit the crew chose stays
+            self.ids.keypad.unit = row["unit"] if row else ""
         self.result = views.results_view(self.service, self.tid)
 
+    def on_pre_enter(self, *args):
+        self.ids.keypad.text, self.ids.keypad.unit = "", ""  # nothing typed elsewhere carries over
+        super().on_pre_enter(*args)
+
     def select(self, slot):
-        self.slot = slot
-        self.ids.keypad.text = ""
+        self.slot, self.message = slot, ""  # a message about another reading is stale now
+        self.ids.keypad.text, self.ids.keypad.unit = "", ""
         self.refresh()
 
     def enter(self, text):

@@ -3,10 +3,7 @@
 from kivy.properties import DictProperty, ListProperty, StringProperty
 
 from mobile.screens.base import FieldScreen
-from mobile.services import views
-
-#: Common outlet sizes offered first (hose 2.5 in, pumper 4 and 4.5 in); any size can be typed.
-OUTLET_SIZES = {"us": ["2.5", "4", "4.5"], "si": ["64", "102", "114"]}
+from mobile.services import outlets, views
 
 
 class SetupScreen(FieldScreen):
@@ -14,7 +11,7 @@ class SetupScreen(FieldScreen):
     hydrants = ListProperty([])
     picked = StringProperty("")
     picked_outlet = StringProperty("")
-    sizes = ListProperty(OUTLET_SIZES["us"])
+    sizes = ListProperty(outlets.sizes("us"))
     diameter_unit = StringProperty("in")
     length_unit = StringProperty("ft")
     sources = ListProperty([])
@@ -26,7 +23,7 @@ class SetupScreen(FieldScreen):
             return
         self.view = views.setup_view(self.service, self.tid)
         self.hydrants = self.service.area.search(self.ids.hsearch.text)
-        self.sizes = OUTLET_SIZES[self.service.system]
+        self.sizes = outlets.sizes(self.service.system)
         self.diameter_unit = self.service.unit_of("diameter")
         self.length_unit = self.service.unit_of("gauge_height")
         self.sources = self.service.sources()

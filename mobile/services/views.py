@@ -54,7 +54,8 @@ def reading_rows(service, tid: str, selected: str = "") -> list[dict]:
     for slot, name, label in service.slots(tid):
         text = texts.get(slot, "-")
         rows.append({"slot": slot, "field": name, "label": label, "value": text,
-                     "unit": service.unit_of(name), "selected": slot == selected})
+                     "unit": service.unit_of(name), "kind": values.FIELDS[name].kind,
+                     "selected": slot == selected})
     return rows
 
 
@@ -168,3 +169,24 @@ def setup_boxes(service, tid: str, source: str = "") -> dict:
 def _bare(si: float, system: str) -> str:
     """A length as a bare number to retype, with enough digits to round-trip what was entered."""
     return f"{values.convert(si, 'length', system):.3f}".rstrip("0").rstrip(".")
+
+
+def target_note(system: str) -> str:
+    """The settings' note on the target residual, with one figure for 20 psi in the chosen units."""
+    from calib.flowtest import DEFAULT_TARGET
+
+    t = values.fmt(DEFAULT_TARGET, "pressure", system)
+    at = "20 psi" if system == "us" else f"{t} (20 psi)"
+    return (f"NFPA 291 rates hydrants at {at} residual; change it only where your authority asks. "
+            f"The class is always taken at {at}.")
+
+
+#: Units the keypad's unit key offers, by kind: the display unit of the system first.
+KEYPAD_UNITS = {"pressure": ["psi", "kPa", "bar"], "flow": ["gpm", "L/s"],
+                "diameter": ["in", "mm"], "length": ["ft", "m"]}
+
+
+def keypad_units(kind: str, system: str) -> list[str]:
+    """Units the keypad's unit key cycles through for a field of ``kind``, today's unit first."""
+    first = values.field_unit(kind, system)
+    return [first] + [u for u in KEYPAD_UNITS[kind] if u != first]

@@ -154,3 +154,75 @@ def test_a_check_that_could_not_run_is_no_verdict(store):
     result = check.check_test(bare, tid)
     assert not verdicts.save(bare, tid, result, verdicts.stamp(bare, tid)).ok
     assert store.checks(tid) == []
+
+
+# --- A4: SI mode ---------------------------------------------------------------------------------
+def test_standard_outlets_in_si_are_exact_conversions():
+    from mobile.services import outlets
+
+    # 1 in = 25.4 mm exactly (NIST SP 811): 2.5 in = 63.5 mm, 4 in = 101.6 mm, 4.5 in = 114.3 mm
+    assert outlets.sizes("si") == ["63.5", "101.6", "114.3"]
+    for text, inches in zip(outlets.sizes("si"), outlets.STANDARD_IN):
+        assert values.parse_value(text, "diameter", "si")[0] == pytest.approx(inches * INCH, rel=1e-12)
+
+
+def test_same_pitot_same_flow_in_us_and_si(service):
+    """The issue's 1.6 %: a 64 mm default gave more flow than 2.5 in; 63.5 mm gives the same."""
+    from mobile.services import outlets
+
+    h = service.area.hydrants
+    us = service.new_test(crew="X")
+    service.set_gauges(us, [h[0]])
+    service.add_outlet(us, h[1], outlets.sizes("us")[0])
+    service.enter(us, "pitot@o1", "22")
+    service.set_units("si")
+    si = service.new_test(crew="X")
+    service.set_gauges(si, [h[0]])
+    service.add_outlet(si, h[1], outlets.sizes("si")[0])
+    service.enter(si, "pitot@o1", "22 psi")
+    assert service.results(si).flow == pytest.approx(service.results(us).flow, rel=1e-12)
+
+
+def test_one_figure_for_the_20_psi_target():
+    # 20 psi = 137.895 kPa (NIST SP 811): shown as 138 kPa wherever SI is chosen
+    note = views.target_note("si")
+    assert "138 kPa" in note and "140" not in note
+    assert values.fmt(20 * PSI, "pressure", "si") == "138 kPa"
+    from calib.flowtest import CAUTIONS
+
+    assert not any("140 kPa" in c for c in CAUTIONS)
+
+
+def test_boxes_are_reshown_in_the_new_units(tank_service):
+    s = tank_service
+    tid = s.new_test(crew="X")
+    src = s.sources()[0]
+    assert s.set_gauge_height(tid, "3").ok  # ft
+    assert s.set_source_grade(tid, src, "270").ok  # ft
+    us = views.setup_boxes(s, tid, src)
+    assert (us["height"], us["tank"], us["tank_by"]) == ("3", "270", "grade")
+    s.set_units("si")
+    si = views.setup_boxes(s, tid, src)
+    assert (si["height"], si["tank"]) == ("0.914", "82.296")  # 3 ft, 270 ft in m (0.3048 m/ft)
+    assert s.set_source_grade(tid, src, si["tank"]).ok  # SET again stores the same grade
+    assert s.header(tid)["boundary"][0]["si"] == pytest.approx(270 * FT, abs=1e-3)
+
+
+def test_a_unit_chosen_on_the_keypad_is_honoured(service):
+    from mobile.widgets.keypad import Keypad
+
+    service.set_units("si")
+    pad = Keypad()
+    pad.units = views.keypad_units("pressure", "si")
+    pad.unit = pad.units[0]
+    assert pad.unit == "kPa"
+    for key in "72":
+        pad.press(key)
+    pad.press("unit")
+    assert pad.typed() == "72 psi"
+    h = service.area.hydrants
+    tid = service.new_test(crew="X")
+    service.set_gauges(tid, [h[0]])
+    out = service.enter(tid, f"static@{h[0]}", pad.typed())
+    assert out.ok and out.value == pytest.approx(72 * PSI)
+    assert service.store.readings(tid)[f"static@{h[0]}"].unit == "psi"
