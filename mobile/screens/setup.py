@@ -22,7 +22,7 @@ class SetupScreen(FieldScreen):
         if not self.tid:
             return
         self.view = views.setup_view(self.service, self.tid)
-        self.hydrants = self.service.area.search(self.ids.hsearch.text)
+        self.hydrants = views.hydrant_rows(self.service.area, self.ids.hsearch.text)
         self.sizes = outlets.sizes(self.service.system)
         self.diameter_unit = self.service.unit_of("diameter")
         self.length_unit = self.service.unit_of("gauge_height")
@@ -38,7 +38,11 @@ class SetupScreen(FieldScreen):
         self.ids.height.text, self.ids.grade.text, self.tank_by = boxes["height"], boxes["tank"], boxes["tank_by"]
 
     def pick(self, hydrant):
-        self.picked = hydrant
+        self.picked, self.message = hydrant, ""  # a message about the last pick is stale now
+
+    def search(self):
+        self.picked, self.message = "", ""
+        self.refresh()
 
     def save_text(self, name, text):
         self.show(self.service.set_field(self.tid, name, text))

@@ -140,10 +140,13 @@ class TestService:
         except InputError as exc:
             return Outcome(False, _first_message(exc))
         return self._edit(tid, lambda h: h.__setitem__("gauges", list(dict.fromkeys(ids))),
-                          "Gauge hydrant: " + ", ".join(ids))
+                          "Gauge hydrant: " + ", ".join(ids) if ids else "No gauge hydrant now")
 
     def add_gauge(self, tid: str, hydrant_id: str) -> Outcome:
-        return self.set_gauges(tid, self.header(tid)["gauges"] + [hydrant_id])
+        out = self.set_gauges(tid, self.header(tid)["gauges"] + [hydrant_id])
+        if out.ok:
+            out.warnings = [n for n in [self.area.hydrant_note(hydrant_id.strip())] if n]
+        return out
 
     def remove_gauge(self, tid: str, hydrant_id: str) -> Outcome:
         return self.set_gauges(tid, [g for g in self.header(tid)["gauges"] if g != hydrant_id])
@@ -168,7 +171,10 @@ class TestService:
             h["outlets"].append({"uid": uid, "hydrant": hid, "kind": kind, "shape": shape,
                                  "pumper": bool(pumper), "diameter": dia, "diameter_unit": unit,
                                  "diameter_text": str(diameter_text)})
-        return self._edit(tid, change, f"Outlet added on {hid}")
+        out = self._edit(tid, change, f"Outlet added on {hid}")
+        if out.ok:
+            out.warnings = [n for n in [self.area.hydrant_note(hid)] if n]
+        return out
 
     def remove_outlet(self, tid: str, uid: str) -> Outcome:
         return self._edit(tid, lambda h: h.__setitem__(

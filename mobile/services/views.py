@@ -190,3 +190,9 @@ def keypad_units(kind: str, system: str) -> list[str]:
     """Units the keypad's unit key cycles through for a field of ``kind``, today's unit first."""
     first = values.field_unit(kind, system)
     return [first] + [u for u in KEYPAD_UNITS[kind] if u != first]
+
+
+def hydrant_rows(area, text: str = "") -> list[dict]:
+    """Rows of the set-up's picker: hydrants matching ``text``, then junctions without a hydrant."""
+    return [{"text": h if area.is_hydrant(h) else f"{h} (junction)", "key": h}
+            for h in area.search(text)]

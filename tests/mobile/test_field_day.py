@@ -226,3 +226,34 @@ def test_a_unit_chosen_on_the_keypad_is_honoured(service):
     out = service.enter(tid, f"static@{h[0]}", pad.typed())
     assert out.ok and out.value == pytest.approx(72 * PSI)
     assert service.store.readings(tid)[f"static@{h[0]}"].unit == "psi"
+
+
+# --- A5: any junction, helpful and fresh messages ---------------------------------------------------
+def test_any_junction_can_be_picked_with_a_note(store):
+    from mobile.services.demo import builtin_network
+
+    net = builtin_network()
+    hydrant = net.hydrant.copy()
+    hydrant[5] = False  # the model lists no hydrant at TM-122
+    s = TestService(store, Area.from_network(net.replace(hydrant=hydrant), name="Tallowmere"))
+    plain = str(net.junction_ids[5])
+    assert plain not in s.area.hydrants
+    tid = s.new_test(crew="X")
+    out = s.add_gauge(tid, plain)
+    assert out.ok and any("no hydrant" in w for w in out.warnings), out
+    out = s.add_outlet(tid, plain.lower(), "2.5")
+    assert out.ok and s.outlets(tid)[0]["hydrant"] == plain and out.warnings
+    assert not s.add_gauge(tid, s.area.hydrants[0]).warnings  # a listed hydrant: no note
+    assert any(r["key"] == plain and "junction" in r["text"]
+               for r in views.hydrant_rows(s.area, plain[:4]))
+
+
+def test_a_missing_id_gets_a_message_that_helps(service):
+    tid = service.new_test(crew="X")
+    out = service.add_gauge(tid, "QQ-9")
+    assert not out.ok and "e.g. none" not in out.message
+    assert "QQ-9" in out.message and "painted on the hydrant" in out.message, out.message
+    out = service.add_gauge(tid, "TM-9")
+    assert "TM-1" in out.message  # close ids offered
+    out = service.add_gauge(tid, "")
+    assert not out.ok and "tap one in the list" in out.message
