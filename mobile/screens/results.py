@@ -15,6 +15,7 @@ class ResultsScreen(FieldScreen):
     status = StringProperty("")
     caution = StringProperty(checklist.DESIGN_CAUTION)
     drawing = BooleanProperty(False)  # the curve is being drawn in a worker
+    finished = BooleanProperty(False)
 
     _curve_for = ""
     asking = None  # the open confirmation, if any
@@ -32,6 +33,7 @@ class ResultsScreen(FieldScreen):
         self.drawing = True
         self.app.curve_png(self.tid, self.show_curve)
         self.status = self.app.test_status(self.tid)
+        self.finished = self.service.store.test(self.tid).status == "finished"
         self.history = views.history_text(self.service, self.tid)
 
     @mainthread

@@ -37,11 +37,28 @@ class Outcome:
 def _first_message(exc: Exception) -> str:
     if isinstance(exc, InputError) and exc.problems:
         p = exc.problems[0]
-        text = p.message
+        text = p.message[0].upper() + p.message[1:]
+        same = [q for q in exc.problems if q.message == p.message and q.file]
+        if p.file and p.file not in text:  # e.g. which files of a network folder are missing
+            text = ", ".join(dict.fromkeys(q.file for q in same or [p])) + ": " + p.message
         if p.expected:
             text += f" (expected {p.expected})"
-        return text[0].upper() + text[1:]
+        more = len(exc.problems) - max(len(same), 1)
+        if more:
+            text += f"; and {more} more problem{'s' if more > 1 else ''}"
+        return text
     return str(exc)
+
+
+def slot_label(slot: str, header: dict) -> str:
+    """A reading's name in plain words: 'Static at J041', 'Pitot at J285, outlet 1'."""
+    name, _, where = slot.partition("@")
+    if name in ("static", "residual", "static_end"):
+        return {"static": "Static", "residual": "Residual",
+                "static_end": "Static after closing"}[name] + f" at {where}"
+    hydrant = next((o["hydrant"] for o in header.get("outlets", []) if o["uid"] == where), "?")
+    what = "Meter flow" if name == "flow" else "Pitot"
+    return f"{what} at {hydrant}, outlet {where.lstrip('o')}"
 
 
 class TestService:
@@ -261,10 +278,8 @@ class TestService:
         out = [(f"static@{g}", "static", f"Static at {g}") for g in h["gauges"]]
         out += [(f"residual@{g}", "residual", f"Residual at {g}") for g in h["gauges"]]
         for o in h["outlets"]:
-            if o["kind"] == "meter":
-                out.append((f"flow@{o['uid']}", "flow", f"Meter flow, {o['hydrant']} ({o['uid']})"))
-            else:
-                out.append((f"pitot@{o['uid']}", "pitot", f"Pitot, {o['hydrant']} ({o['uid']})"))
+            name = "flow" if o["kind"] == "meter" else "pitot"
+            out.append((f"{name}@{o['uid']}", name, slot_label(f"{name}@{o['uid']}", h)))
         return out
 
     def enter(self, tid: str, slot: str, text: str) -> Outcome:
@@ -394,5 +409,6 @@ class TestService:
                          "area": t.area, "started_at": h.get("started_at", ""),
                          "hydrants": hydrants, "crew": h.get("crew", ""),
                          "rated": values.fmt(res.rated_flow, "flow", system),
+                         "target": values.fmt(res.target, "pressure", system),
                          "class": res.class_label})
         return rows

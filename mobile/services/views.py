@@ -89,10 +89,11 @@ def setup_view(service, tid: str) -> dict:
     outlets = []
     for o in h["outlets"]:
         if o["kind"] == "meter":
-            desc = f"{o['hydrant']}  outlet {o['uid']}: meter / diffuser"
+            desc = f"{o['hydrant']} outlet {o['uid'].lstrip('o')}: read on a meter or diffuser"
         else:
-            desc = (f"{o['hydrant']}  outlet {o['uid']}: {values.fmt(o['diameter'], 'diameter', sys_)}"
-                    f" {o['shape']}{' pumper' if o.get('pumper') else ''}")
+            desc = (f"{o['hydrant']} outlet {o['uid'].lstrip('o')}: "
+                    f"{values.fmt(o['diameter'], 'diameter', sys_)}, {o['shape']} edge"
+                    f"{', large outlet' if o.get('pumper') else ''}")
         outlets.append({"uid": o["uid"], "text": desc})
     gh = h.get("gauge_height")
     return {"test_id": tid, "started": h.get("started_at", "").replace("T", "  "),
@@ -117,7 +118,7 @@ def checklist_rows(service, tid: str) -> list[dict]:
              "detail": i.detail, "ticked": bool(ticked.get(i.key))} for i in checklist.ITEMS]
 
 
-ALL_AREAS = "all areas"
+ALL_AREAS = "every area"
 
 
 def test_rows(service, when: str = "all", hydrant: str = "", area: str = ALL_AREAS) -> list[dict]:
@@ -125,30 +126,43 @@ def test_rows(service, when: str = "all", hydrant: str = "", area: str = ALL_ARE
     out = []
     area = "" if area == ALL_AREAS else area
     for t in service.list_tests(when=when, hydrant=hydrant, area=area):
-        state = "DRAFT" if t["status"] == "draft" else "done"
-        rev = f" rev {t['revision']}" if t["revision"] > 1 else ""
+        state = "DRAFT, not finished" if t["status"] == "draft" else "finished"
+        if t["revision"] > 1:
+            state += f", corrected {t['revision'] - 1} time{'s' if t['revision'] > 2 else ''}"
         line = (f"{t['test_id']}   {t['started_at'][11:16]}   {', '.join(t['hydrants'][:3])}")
-        figure = f"{t['rated']}  {t['class']}" if t["class"] else "incomplete"
+        figure = f"{t['rated']} at {t['target']}, class {t['class']}" if t["class"] else \
+            "readings missing"
         out.append({"test_id": t["test_id"], "line": line, "figure": figure,
-                    "state": state + rev, "draft": t["status"] == "draft"})
+                    "state": state, "draft": t["status"] == "draft"})
     return out
 
 
 def history_text(service, tid: str) -> str:
-    """Every revision and every reading ever entered, oldest first, for the correction history."""
+    """Every revision and every reading ever entered, oldest first, in plain words with the time."""
+    from mobile.services.session import slot_label
+
     sys_ = service.system
     lines = []
+    history = service.store.history(tid)
     for rev in service.store.revisions(tid):
-        reason = f" - {rev['reason']}" if rev["reason"] else ""
-        lines.append(f"Revision {rev['revision']}  {rev['created_at'][:16].replace('T', ' ')}{reason}")
-        for r in service.store.history(tid):
+        header = service.header(tid, rev["revision"])
+        started = rev["created_at"][:16].replace("T", " ")
+        head = (f"Revision {rev['revision']}, started {started}" if rev["revision"] == 1 else
+                f"Correction {rev['revision'] - 1} (revision {rev['revision']}), {started}: "
+                f"{rev['reason']}")
+        if rev.get("finished_at"):
+            head += f"; finished {rev['finished_at'][11:16]}"
+        lines.append(head)
+        for r in history:
             if r.revision != rev["revision"]:
                 continue
             name = r.slot.split("@")[0]
             shown = values.fmt(r.si_value, values.FIELDS[name].kind, sys_)
             typed = r.entered_text if any(c.isalpha() for c in r.entered_text) else \
                 f"{r.entered_text} {r.unit}"
-            lines.append(f"    {r.slot}: {shown}  (typed '{typed}')")
+            kind = values.FIELDS[name].kind
+            note = "" if r.unit == values.field_unit(kind, sys_) else f"  (typed as {typed})"
+            lines.append(f"    {r.entered_at[11:16]}  {slot_label(r.slot, header)}: {shown}{note}")
     return "\n".join(lines)
 
 

@@ -6,6 +6,7 @@ from kivy.uix.boxlayout import BoxLayout
 from kivy.uix.button import Button
 from kivy.uix.label import Label
 from kivy.uix.popup import Popup
+from kivy.uix.scrollview import ScrollView
 from kivy.uix.textinput import TextInput
 from kivy.uix.togglebutton import ToggleButton
 
@@ -34,9 +35,11 @@ class Figure(Label):
     caption = StringProperty("")
 
 
-class Message(Label):
-    """The plain message line under an entry; red when ``bad``."""
+class Message(ScrollView):
+    """The message under an entry, red when ``bad``. Its height is fixed (three lines, a longer
+    message scrolls), so that a message never moves the buttons a gloved finger is aiming at."""
 
+    text = StringProperty("")
     bad = BooleanProperty(False)
 
 

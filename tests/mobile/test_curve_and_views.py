@@ -56,8 +56,12 @@ def test_history_lists_every_reading_as_typed(service):
     service.correct(tid, "gauge re-read")
     service.enter(tid, f"residual@{service.area.hydrants[0]}", "57.5")
     text = views.history_text(service, tid)
-    assert "Revision 2" in text and "gauge re-read" in text
-    assert "typed '58 psi'" in text and "typed '57.5 psi'" in text
+    assert "(revision 2)" in text and "gauge re-read" in text
+    assert "@" not in text  # plain words, not slot codes
+    h0 = service.area.hydrants[0]
+    assert f"Residual at {h0}: 58.0 psi\n" in text and f"Residual at {h0}: 57.5 psi" in text
+    service.set_units("si")  # a reading typed in another unit than shown says how it was typed
+    assert "(typed as 58 psi)" in views.history_text(service, tid)
 
 
 def test_keypad_goes_to_the_first_empty_reading_and_stays_on_a_chosen_one(service):

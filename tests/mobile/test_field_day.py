@@ -257,3 +257,24 @@ def test_a_missing_id_gets_a_message_that_helps(service):
     assert "TM-1" in out.message  # close ids offered
     out = service.add_gauge(tid, "")
     assert not out.ok and "tap one in the list" in out.message
+
+
+# --- B: plain words ---------------------------------------------------------------------------------
+def test_home_rows_say_what_the_figure_is_and_the_state_in_words(service):
+    tid = _whole(service)
+    service.finish(tid)
+    service.correct(tid, "re-read")
+    (row,) = views.test_rows(service, "all")
+    assert row["figure"] == "1,599 gpm at 20.0 psi, class AA"  # NFPA 291 worked example: 1598.53
+    assert row["state"] == "DRAFT, not finished, corrected 1 time"
+    assert views.ALL_AREAS == "every area"
+
+
+def test_load_area_error_names_the_missing_files(tmp_path):
+    from calib.errors import CalibError
+    from mobile.services.session import _first_message
+
+    with pytest.raises(CalibError) as e:
+        Area.load(tmp_path)
+    text = _first_message(e.value)
+    assert "junctions.csv" in text and "sources.csv" in text and "pipes.csv" in text
