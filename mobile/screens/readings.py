@@ -1,9 +1,10 @@
 """Readings: pick a reading, type it on the keypad, SAVE; each value is checked and stored at once."""
 
-from kivy.properties import DictProperty, ListProperty, StringProperty
+from kivy.clock import Clock
+from kivy.properties import BooleanProperty, DictProperty, ListProperty, StringProperty
 
 from mobile.screens.base import FieldScreen
-from mobile.services import views
+from mobile.services import timing, views
 
 
 class ReadingsScreen(FieldScreen):
@@ -11,6 +12,8 @@ class ReadingsScreen(FieldScreen):
     slot = StringProperty("")
     prompt = StringProperty("")
     result = DictProperty(views.EMPTY_RESULTS)
+    timer = StringProperty("")
+    flowing = BooleanProperty(False)
 
     _advance = False  # after a saved reading: the next refresh moves to the first empty one
 
@@ -26,10 +29,22 @@ class ReadingsScreen(FieldScreen):
         if self.ids.keypad.unit not in self.ids.keypad.units:  # a unit the crew chose stays
             self.ids.keypad.unit = row["unit"] if row else ""
         self.result = views.results_view(self.service, self.tid)
+        self.tick_timer()
+
+    def tick_timer(self, *args):
+        header = self.service.header(self.tid) if self.tid else {}
+        self.timer, self.flowing = timing.timer_text(header), timing.running(header)
 
     def on_pre_enter(self, *args):
         self.ids.keypad.text, self.ids.keypad.unit = "", ""  # nothing typed elsewhere carries over
         super().on_pre_enter(*args)
+        self._clock = Clock.schedule_interval(self.tick_timer, 1.0)
+
+    def on_leave(self, *args):
+        self._clock.cancel()
+
+    def toggle_flow(self):
+        self.show(self.service.stop_flow(self.tid) if self.flowing else self.service.start_flow(self.tid))
 
     def select(self, slot):
         self.slot, self.message = slot, ""  # a message about another reading is stale now

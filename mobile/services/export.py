@@ -24,7 +24,7 @@ import pandas as pd
 
 from calib import fileio, flowtest
 
-from mobile.services import checklist, values, verdicts
+from mobile.services import checklist, timing, values, verdicts
 from mobile.services.compute import outlet_record
 
 TABLES = ("flows.csv", "pressures.csv", "boundary.csv", "tests.csv")
@@ -76,7 +76,8 @@ def test_record(service, tid: str, res=None, revision: int | None = None) -> dic
     t = service.store.test(tid)
     revision = revision or t.current_revision
     res = service.results(tid, revision) if res is None else res
-    ticked = service.header(tid, revision)["checklist"]
+    h = service.header(tid, revision)
+    ticked = h["checklist"]
     revisions = []
     for rev in service.store.revisions(tid):
         revisions.append({**rev, "header": service.header(tid, rev["revision"]),
@@ -87,6 +88,8 @@ def test_record(service, tid: str, res=None, revision: int | None = None) -> dic
         "units_note": "values '*_si' in m, m3/s and Pa (gauge); 'unit' and 'entered_text' as typed",
         "test_id": tid, "status": t.status, "area": t.area, "created_at": t.created_at,
         "current_revision": t.current_revision, "exported_revision": revision,
+        "flow_timer": {"opened": h.get("flow_started_at"), "closed": h.get("flow_stopped_at"),
+                       "duration_s": timing.duration(h)},
         "revisions": revisions,
         "model_checks": verdicts.all_checks(service, tid),
         "history": [asdict(r) for r in service.store.history(tid)],
@@ -132,8 +135,11 @@ def export_tests(service, folder, include_drafts: bool = False) -> dict:
                 continue
             shown = {k: None if x is None else values.convert(x.si_value, "pressure", system)
                      for k, x in (("static", s), ("residual", r))}
+            end = readings.get(f"static_end@{g}")
             pressures.append({"test_id": t.test_id, "node": g, f"static [{up}]": shown["static"],
                               f"residual [{up}]": shown["residual"],
+                              f"static_end [{up}]": None if end is None else
+                              values.convert(end.si_value, "pressure", system),
                               f"gauge_height [{ul}]": values.convert(gh, "length", system)})
         for b in h.get("boundary", []):
             boundary.append({"test_id": t.test_id, "source": b["source"],
@@ -144,6 +150,9 @@ def export_tests(service, folder, include_drafts: bool = False) -> dict:
                       "notes": h.get("notes", ""), "revision": revision,
                       "status": "finished" if revision != t.current_revision else t.status,
                       "correction_open": "yes" if revision != t.current_revision else "no",
+                      "flow_opened": h.get("flow_started_at") or "",
+                      "flow_closed": h.get("flow_stopped_at") or "",
+                      "flow_duration [s]": timing.duration(h),
                       f"rated_flow [{uq}]": None if res.rated_flow is None else
                       values.convert(res.rated_flow, "flow", system),
                       f"target [{up}]": values.convert(res.target, "pressure", system),
@@ -156,10 +165,11 @@ def export_tests(service, folder, include_drafts: bool = False) -> dict:
         "flows.csv": ["test_id", "node", f"flow [{uq}]", f"pitot [{up}]", f"outlet_diameter [{ud}]",
                       "coefficient", "pumper_factor", "outlet", "read_by"],
         "pressures.csv": ["test_id", "node", f"static [{up}]", f"residual [{up}]",
-                          f"gauge_height [{ul}]"],
+                          f"gauge_height [{ul}]", f"static_end [{up}]"],
         "boundary.csv": ["test_id", "source", f"head [{ul}]"],
         "tests.csv": ["test_id", "date", "time", "crew", "area", "weather", "notes", "revision",
-                      "status", "correction_open", f"rated_flow [{uq}]", f"target [{up}]", "class"],
+                      "status", "correction_open", "flow_opened", "flow_closed",
+                      "flow_duration [s]", f"rated_flow [{uq}]", f"target [{up}]", "class"],
     }
     for name, rows in zip(TABLES, (flows, pressures, boundary, tests)):
         fileio.write_csv(folder / name, pd.DataFrame(rows, columns=columns[name]))

@@ -14,7 +14,7 @@ from datetime import date, datetime
 from calib.errors import CalibError, InputError
 from calib.units import PSI
 
-from mobile.services import checklist, values
+from mobile.services import checklist, timing, values
 from mobile.services.area import Area
 from mobile.services.compute import Results, compute
 from mobile.store import Store, StoreError
@@ -48,6 +48,12 @@ def _first_message(exc: Exception) -> str:
             text += f"; and {more} more problem{'s' if more > 1 else ''}"
         return text
     return str(exc)
+
+
+def field_of(slot: str) -> str:
+    """The field a reading slot is checked as: ``static_end@J1`` is a static."""
+    name = slot.split("@", 1)[0]
+    return "static" if name == "static_end" else name
 
 
 def slot_label(slot: str, header: dict) -> str:
@@ -107,9 +113,14 @@ class TestService:
             n += 1
         return f"{stem}{n:02d}"
 
-    def new_test(self, crew: str = "", area: str | None = None) -> str:
-        """Create a draft with id and time filled in; returns the id (raises ``StoreError``)."""
+    def new_test(self, crew: str | None = None, area: str | None = None) -> str:
+        """Create a draft with id and time filled in; returns the id (raises ``StoreError``).
+
+        Without ``crew`` the crew of the newest test is carried over (the same crew all day)."""
         tid = self.next_test_id()
+        if crew is None:
+            last = self.store.tests()
+            crew = self.store.header(last[0].test_id).get("crew", "") if last else ""
         header = {"test_id": tid, "started_at": datetime.now().astimezone().isoformat(timespec="minutes"),
                   "crew": crew[:TEXT_FIELDS["crew"]], "weather": "", "notes": "",
                   "area": area if area is not None else self.area.name, "gauges": [], "outlets": [],
@@ -271,6 +282,46 @@ class TestService:
             return ""
         return tanks.describe_range(self.area.network, source, self.system)
 
+    # --- flow timer --------------------------------------------------------------------------
+    def start_flow(self, tid: str) -> Outcome:
+        """The flowing hydrant is open: the timer starts (a second tap restarts it)."""
+        at = timing.now()
+        return self._edit(tid, lambda h: h.update(flow_started_at=at, flow_stopped_at=None),
+                          f"Flow timer started at {at[11:19]} UTC")
+
+    def stop_flow(self, tid: str) -> Outcome:
+        """The flowing hydrant is closed: the timer stops and the duration is saved."""
+        h = self.header(tid)
+        if not timing.running(h):
+            return Outcome(False, "The flow timer is not running: tap START FLOW when the hydrant "
+                                  "is open")
+        at = timing.now()
+        h["flow_stopped_at"] = at
+        return self._edit(tid, lambda x: x.update(flow_stopped_at=at),
+                          f"Flowed {timing.clock(timing.duration(h))}: now re-read the static",
+                          timing.duration(h))
+
+    # --- outlets remembered per hydrant -------------------------------------------------------
+    def remembered_outlet(self, hydrant: str) -> dict:
+        """The outlet last used on ``hydrant`` (size as typed, shape, kind, large outlet), from the
+        newest test there; the standard 2.5 in smooth hose outlet read by pitot otherwise."""
+        from mobile.services import outlets
+
+        for t in self.store.tests():  # newest first
+            for o in reversed(self.store.header(t.test_id).get("outlets", [])):
+                if o["hydrant"] == hydrant:
+                    dia = "" if o.get("diameter") is None else \
+                        f"{values.convert(o['diameter'], 'diameter', self.system):.1f}".rstrip("0").rstrip(".")
+                    return {"diameter": dia or outlets.sizes(self.system)[0], "shape": o["shape"],
+                            "kind": o["kind"], "pumper": bool(o.get("pumper")), "remembered": True}
+        return {"diameter": outlets.sizes(self.system)[0], "shape": "smooth", "kind": "pitot",
+                "pumper": False, "remembered": False}
+
+    def add_remembered_outlet(self, tid: str, hydrant: str) -> Outcome:
+        """Add an outlet on ``hydrant`` as it was last set up there (one tap from the map)."""
+        o = self.remembered_outlet(hydrant.strip())
+        return self.add_outlet(tid, hydrant, o["diameter"], o["shape"], o["kind"], o["pumper"])
+
     # --- readings ----------------------------------------------------------------------------
     def slots(self, tid: str) -> list[tuple[str, str, str]]:
         """The readings a test asks for: (slot, field, label), in the order a crew reads them."""
@@ -280,6 +331,9 @@ class TestService:
         for o in h["outlets"]:
             name = "flow" if o["kind"] == "meter" else "pitot"
             out.append((f"{name}@{o['uid']}", name, slot_label(f"{name}@{o['uid']}", h)))
+        # The static again once the hydrant is closed (optional; a change points at drift or a
+        # system that changed during the test).
+        out += [(f"static_end@{g}", "static", slot_label(f"static_end@{g}", h)) for g in h["gauges"][:1]]
         return out
 
     def enter(self, tid: str, slot: str, text: str) -> Outcome:
@@ -336,7 +390,7 @@ class TestService:
     def reading_texts(self, tid: str) -> dict[str, str]:
         """The readings in force, slot -> display text (one read of the store for all of them)."""
         system = self.system
-        return {slot: values.fmt(r.si_value, values.FIELDS[slot.split("@")[0]].kind, system)
+        return {slot: values.fmt(r.si_value, values.FIELDS[field_of(slot)].kind, system)
                 for slot, r in self.store.readings(tid).items()}
 
     def reading_text(self, tid: str, slot: str) -> str:

@@ -51,9 +51,12 @@ def results_view(service, tid: str, revision: int | None = None) -> dict:
 def reading_rows(service, tid: str, selected: str = "") -> list[dict]:
     """Rows of the readings list: slot, label and the value in force ('-' while empty)."""
     rows, texts = [], service.reading_texts(tid)
+    stored = service.readings(tid)
     for slot, name, label in service.slots(tid):
         text = texts.get(slot, "-")
-        rows.append({"slot": slot, "field": name, "label": label, "value": text,
+        when = f"read {stored[slot].entered_at[11:16]} UTC" if slot in stored else \
+            ("optional: after the hydrant is closed" if slot.startswith("static_end@") else "")
+        rows.append({"slot": slot, "field": name, "label": label, "value": text, "when": when,
                      "unit": service.unit_of(name), "kind": values.FIELDS[name].kind,
                      "selected": slot == selected})
     return rows
@@ -139,7 +142,7 @@ def test_rows(service, when: str = "all", hydrant: str = "", area: str = ALL_ARE
 
 def history_text(service, tid: str) -> str:
     """Every revision and every reading ever entered, oldest first, in plain words with the time."""
-    from mobile.services.session import slot_label
+    from mobile.services.session import field_of, slot_label
 
     sys_ = service.system
     lines = []
@@ -156,7 +159,7 @@ def history_text(service, tid: str) -> str:
         for r in history:
             if r.revision != rev["revision"]:
                 continue
-            name = r.slot.split("@")[0]
+            name = field_of(r.slot)
             shown = values.fmt(r.si_value, values.FIELDS[name].kind, sys_)
             typed = r.entered_text if any(c.isalpha() for c in r.entered_text) else \
                 f"{r.entered_text} {r.unit}"

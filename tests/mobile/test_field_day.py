@@ -278,3 +278,52 @@ def test_load_area_error_names_the_missing_files(tmp_path):
         Area.load(tmp_path)
     text = _first_message(e.value)
     assert "junctions.csv" in text and "sources.csv" in text and "pipes.csv" in text
+
+
+# --- C: timer, static after closing, remembered outlets, crew carried over --------------------------
+def test_flow_timer_duration_is_saved_and_exported(service, tmp_path, monkeypatch):
+    from mobile.services import timing
+
+    tid = _whole(service)
+    assert not service.stop_flow(tid).ok  # not started
+    clock = iter(["2026-05-14T09:30:00+00:00", "2026-05-14T09:34:05+00:00"])
+    monkeypatch.setattr(timing, "now", lambda: next(clock))
+    assert service.start_flow(tid).ok
+    assert timing.running(service.header(tid))
+    out = service.stop_flow(tid)
+    assert out.ok and out.value == 245 and "4:05" in out.message  # 9:30:00 -> 9:34:05
+    service.finish(tid)
+    export.export_tests(service, tmp_path / "out")
+    tests_csv = (tmp_path / "out" / "tests.csv").read_text()
+    assert "flow_duration [s]" in tests_csv.splitlines()[0] and ",245" in tests_csv
+    record = json.loads((tmp_path / "out" / f"{tid}.json").read_text())
+    assert record["flow_timer"]["duration_s"] == 245
+
+
+def test_static_after_closing_is_optional_and_checked(service):
+    tid = _whole(service)
+    g = service.area.hydrants[0]
+    assert service.missing(tid) == []  # not needed to finish
+    slots = [s for s, _, _ in service.slots(tid)]
+    assert slots[-1] == f"static_end@{g}"
+    assert service.enter(tid, f"static_end@{g}", "60").ok  # 12 psi below the 72 psi start
+    codes = [c for _, c, _ in service.results(tid).findings]
+    assert "static-changed" in codes  # calib.flowtest finding (common practice threshold)
+    rows = views.reading_rows(service, tid)
+    assert all(r["when"].startswith("read ") for r in rows)
+
+
+def test_outlets_are_remembered_per_hydrant_and_the_crew_carried_over(service):
+    h = service.area.hydrants
+    first = service.new_test(crew="R. Okafor")
+    assert service.add_outlet(first, h[1], "4.5", "square", "pitot", pumper=True).ok
+    fresh = service.remembered_outlet(h[2])
+    assert fresh == {"diameter": "2.5", "shape": "smooth", "kind": "pitot", "pumper": False,
+                     "remembered": False}
+    second = service.new_test()
+    assert service.header(second)["crew"] == "R. Okafor"
+    assert service.add_remembered_outlet(second, h[1]).ok
+    o = service.outlets(second)[0]
+    assert (o["diameter"], o["shape"], o["pumper"]) == (pytest.approx(4.5 * INCH), "square", True)
+    service.set_units("si")
+    assert service.remembered_outlet(h[1])["diameter"] == "114.3"  # 4.5 in exactly (NIST SP 811)
