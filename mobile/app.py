@@ -27,21 +27,22 @@ from mobile.screens.check import CheckScreen
 from mobile.screens.checklist import ChecklistScreen
 from mobile.screens.export import ExportScreen
 from mobile.screens.home import HomeScreen
+from mobile.screens.map import MapScreen
 from mobile.screens.readings import ReadingsScreen
 from mobile.screens.results import ResultsScreen
 from mobile.screens.settings import SettingsScreen
 from mobile.screens.setup import SetupScreen
-from mobile.services import background, curve, demo, export
+from mobile.services import background, curve, demo, export, mapdata
 from mobile.services.area import Area
 from mobile.services.session import Outcome, TestService, _first_message
 from mobile.store import Store
-from mobile.widgets import common, folders, keypad  # noqa: F401 - registers the widget classes for kv
+from mobile.widgets import common, folders, keypad, netmap  # noqa: F401 - registers the widget classes for kv
 from mobile.widgets.folders import FolderBrowser
 
 HERE = Path(__file__).resolve().parent
 #: Environment variable that overrides the data folder (used by the tests).
 DATA_ENV = "HYDRANT_FIELD_DATA"
-CLASSES = {"home": HomeScreen, "checklist": ChecklistScreen, "setup": SetupScreen,
+CLASSES = {"home": HomeScreen, "checklist": ChecklistScreen, "setup": SetupScreen, "map": MapScreen,
            "readings": ReadingsScreen, "results": ResultsScreen, "check": CheckScreen,
            "export": ExportScreen, "settings": SettingsScreen}
 _KV_LOADED = False
@@ -121,7 +122,13 @@ class HydrantFieldApp(App):
     def go(self, name: str) -> None:
         if name != "home" and name not in ("settings", "export") and not self.test_id:
             name = "home"
+        if self.root.current == name:  # e.g. another test opened on the same screen: show it afresh
+            self.root.get_screen(name).on_pre_enter()
         self.root.current = name
+
+    def setup_screen(self) -> str:
+        """Where hydrants are picked first: the map when the area has one, else the set-up list."""
+        return "map" if mapdata.MapData.from_area(self.service.area) is not None else "setup"
 
     def new_test(self) -> None:
         try:

@@ -56,3 +56,7 @@ class ReadingsScreen(FieldScreen):
         if outcome.ok:  # go on to the next empty reading (in the one refresh that show makes)
             self.ids.keypad.text, self._advance = "", True
         self.show(outcome)
+
+    def finish(self):
+        if self.show(self.service.finish(self.tid)):
+            self.app.go("results")

@@ -39,6 +39,12 @@ class SetupScreen(FieldScreen):
 
     def pick(self, hydrant):
         self.picked, self.message = hydrant, ""  # a message about the last pick is stale now
+        self.show_outlet(self.service.remembered_outlet(hydrant))
+
+    def show_outlet(self, o):
+        """The outlet last used on the picked hydrant, ready to add again."""
+        self.ids.diameter.text, self.ids.shape.text, self.ids.kind.text = o["diameter"], o["shape"], o["kind"]
+        self.ids.pumper.state = "down" if o["pumper"] else "normal"
 
     def search(self):
         self.picked, self.message = "", ""

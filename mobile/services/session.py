@@ -159,6 +159,13 @@ class TestService:
             return Outcome(False, f"'{key}' is not a checklist item")
         return self._edit(tid, lambda h: h["checklist"].__setitem__(key, bool(ticked)), "Saved")
 
+    def tick_all(self, tid: str) -> Outcome:
+        """The crew says every required item is done: tick them all in one tap (optional ones,
+        which local rules decide, stay as they are)."""
+        keys = [i.key for i in checklist.ITEMS if i.required]
+        return self._edit(tid, lambda h: h["checklist"].update({k: True for k in keys}),
+                          f"{len(keys)} required items ticked")
+
     def checklist_keys(self) -> list[str]:
         return checklist.item_keys()
 

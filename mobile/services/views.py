@@ -213,3 +213,48 @@ def hydrant_rows(area, text: str = "") -> list[dict]:
     """Rows of the set-up's picker: hydrants matching ``text``, then junctions without a hydrant."""
     return [{"text": h if area.is_hydrant(h) else f"{h} (junction)", "key": h}
             for h in area.search(text)]
+
+
+EMPTY_MAP = {"title": "", "picked": "", "outlet": "", "gauges": [], "flows": [], "nearby": [],
+             "nearby_title": "", "available": False, "note": ""}
+
+
+def map_view(service, tid: str, data, picked: str = "", here=None) -> dict:
+    """What the map screen shows: the test's hydrants by role, the picked one, the nearest list."""
+    from mobile.services import mapdata
+
+    if data is None:
+        return dict(EMPTY_MAP, note="This area has no map: its network has no x and y coordinates "
+                                    "(or no network is loaded). Pick hydrants from the list in SET-UP.")
+    h = service.header(tid) if tid else {"gauges": [], "outlets": []}
+    area = service.area
+    out = dict(EMPTY_MAP, available=True, gauges=list(h["gauges"]),
+               flows=sorted({o["hydrant"] for o in h["outlets"]}))
+    if picked:
+        o = service.remembered_outlet(picked)
+        unit = values.field_unit("diameter", service.system)
+        kind = "meter" if o["kind"] == "meter" else f"{o['diameter']} {unit} {o['shape']}"
+        out["picked"] = picked + ("" if area.is_hydrant(picked) else "  (junction: no hydrant in the model)")
+        out["outlet"] = f"ADD AS FLOW OUTLET ({kind}{', as last time' if o['remembered'] else ''})"
+    centre = here or (data.where(picked) if picked else None)
+    if centre:
+        unit = values.field_unit("length", service.system)
+        near = [(i, d) for i, d in data.nearest_first(*centre, count=9) if i != picked][:8]
+        out["nearby"] = [{"key": i, "text": i, "side": mapdata.distance_text(d, data.lonlat, unit)}
+                         for i, d in near]
+        out["nearby_title"] = "Nearest hydrants " + ("to the point you tapped" if here else f"to {picked}")
+    else:
+        out["nearby_title"] = "Tap the map where you stand (or MY POSITION) for the nearest hydrants"
+    return out
+
+
+def located(data, lon: float, lat: float):
+    """A device position arrived: ``(Outcome, [x, y] or [])`` for the map (the nearest list is
+    centred there), or why it cannot be used."""
+    from mobile.services.session import Outcome
+
+    at = data.position(lon, lat) if data is not None else None
+    if at is None:
+        return Outcome(False, "The network's coordinates are not longitude/latitude, so the "
+                              "device's position cannot be placed: tap where you stand on the map"), []
+    return Outcome(True, f"Your position: {lat:.5f}, {lon:.5f}"), list(at)
