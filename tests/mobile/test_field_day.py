@@ -327,3 +327,16 @@ def test_outlets_are_remembered_per_hydrant_and_the_crew_carried_over(service):
     assert (o["diameter"], o["shape"], o["pumper"]) == (pytest.approx(4.5 * INCH), "square", True)
     service.set_units("si")
     assert service.remembered_outlet(h[1])["diameter"] == "114.3"  # 4.5 in exactly (NIST SP 811)
+
+
+def test_export_folder_choices_and_new_folder(tmp_path):
+    from mobile.services import folders
+
+    assert folders.shared_documents()  # plyer's documents folder, or ~/Documents
+    ok, path = folders.make_folder(tmp_path, "May tests")
+    assert ok and (tmp_path / "May tests").is_dir() and path.endswith("May tests")
+    assert folders.make_folder(tmp_path, "May tests")[0]  # already there: fine, opened
+    for bad in ("", "a/b", ".hidden", "x:y"):
+        ok, why = folders.make_folder(tmp_path, bad)
+        assert not ok and why
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["May tests"]
