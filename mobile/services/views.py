@@ -133,8 +133,9 @@ def test_rows(service, when: str = "all", hydrant: str = "", area: str = ALL_ARE
         if t["revision"] > 1:
             state += f", corrected {t['revision'] - 1} time{'s' if t['revision'] > 2 else ''}"
         line = (f"{t['test_id']}   {t['started_at'][11:16]}   {', '.join(t['hydrants'][:3])}")
-        figure = f"{t['rated']} at {t['target']}, class {t['class']}" if t["class"] else \
-            "readings missing"
+        figure = t["rated"] if t["class"] else "-"
+        state += (f";  flow at {t['target']} residual {t['rated']}, class {t['class']}" if t["class"]
+                  else ";  readings missing")
         out.append({"test_id": t["test_id"], "line": line, "figure": figure,
                     "state": state, "draft": t["status"] == "draft"})
     return out

@@ -265,8 +265,9 @@ def test_home_rows_say_what_the_figure_is_and_the_state_in_words(service):
     service.finish(tid)
     service.correct(tid, "re-read")
     (row,) = views.test_rows(service, "all")
-    assert row["figure"] == "1,599 gpm at 20.0 psi, class AA"  # NFPA 291 worked example: 1598.53
-    assert row["state"] == "DRAFT, not finished, corrected 1 time"
+    assert row["figure"] == "1,599 gpm"  # NFPA 291 worked example: 1598.53
+    assert row["state"] == ("DRAFT, not finished, corrected 1 time;  flow at 20.0 psi residual "
+                            "1,599 gpm, class AA")
     assert views.ALL_AREAS == "every area"
 
 
