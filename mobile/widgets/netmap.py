@@ -116,6 +116,8 @@ class NetworkMap(StencilView):
     def on_touch_up(self, touch):
         start = touch.ud.get("map_start")
         handled = super().on_touch_up(touch)
+        if "button" in touch.profile and str(touch.button).startswith("scroll"):
+            return handled  # a mouse wheel zooms, it never picks
         if start is None or self.view is None:
             return handled
         if abs(touch.x - start[0]) > TAP_SLOP or abs(touch.y - start[1]) > TAP_SLOP:
