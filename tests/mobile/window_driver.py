@@ -102,6 +102,17 @@ def type_on(keypad, text):
         yield
 
 
+def enter_readings(readings, values):
+    """Type each value on the keypad and SAVE it, keeping the prompt and the message of each."""
+    pad = readings.ids.keypad
+    for value in values:
+        report.setdefault("prompts", []).append(readings.prompt)
+        yield from type_on(pad, value)
+        tap(pad.ids.enter)
+        yield
+        report.setdefault("messages", []).append(readings.message)
+
+
 def touch_sizes(app):
     """Smallest side [dp] of every visible tappable widget on every screen (a 48 dp target rule)."""
     from kivy.metrics import dp
@@ -172,21 +183,10 @@ def script_enter(app):
     yield from wait_for(lambda: app.root.current == "readings")
     yield from settle()
     readings = app.root.get_screen("readings")
-    pad = readings.ids.keypad
-    for value in ("72", "58"):
-        report.setdefault("prompts", []).append(readings.prompt)
-        yield from type_on(pad, value)
-        tap(pad.ids.enter)
-        yield
-        report.setdefault("messages", []).append(readings.message)
+    yield from enter_readings(readings, ("72", "58"))  # static and residual
     tap(readings.ids.timer_button)  # START FLOW: the hydrant is open
     yield from wait_for(lambda: readings.flowing)
-    for value in ("18", "20"):
-        report.setdefault("prompts", []).append(readings.prompt)
-        yield from type_on(pad, value)
-        tap(pad.ids.enter)
-        yield
-        report.setdefault("messages", []).append(readings.message)
+    yield from enter_readings(readings, ("18", "20"))  # the two pitots
     tap(readings.ids.timer_button)  # STOP FLOW: closed
     yield from wait_for(lambda: not readings.flowing)
     report["timer_text"] = readings.timer
