@@ -17,6 +17,9 @@ from kivy.core.window import Window
 from kivy.lang import Builder
 from kivy.logger import Logger
 from kivy.properties import StringProperty
+from kivy.factory import Factory
+from kivy.metrics import dp
+from kivy.uix.boxlayout import BoxLayout
 from kivy.uix.popup import Popup
 from kivy.uix.screenmanager import NoTransition, ScreenManager
 
@@ -159,10 +162,16 @@ class HydrantFieldApp(App):
         start = self.store.get_setting("area_path") or str(demo.TALLOWMERE.parent)
         browser = FolderBrowser(path=str(Path(start).parent) if Path(start).exists() else str(Path.home()),
                                 suffixes=[".geojson"], action="LOAD THIS NETWORK FOLDER")
+        box = BoxLayout(orientation="vertical", spacing=dp(6))
+        box.add_widget(browser)
+        cancel = Factory.BigButton(text="CANCEL: KEEP THE AREA LOADED NOW", tone="grey")
+        box.add_widget(cancel)
         popup = Popup(title="Tap a .geojson file, or open a network folder and load it",
-                      title_size="20sp", content=browser, size_hint=(0.95, 0.95))
+                      title_size="20sp", content=box, size_hint=(0.95, 0.95))
         browser.bind(on_choose=lambda _, path: (popup.dismiss(), self.load_area(path)))
+        cancel.bind(on_release=lambda *_: popup.dismiss())
         popup.open()
+        return popup
 
     def load_area(self, path):
         """Read the network in a worker (a large one takes a while); the home screen shows the outcome."""

@@ -78,6 +78,7 @@ def test_enter_a_two_outlet_test_on_the_map_with_the_timer_then_correct_it(tmp_p
     assert f"{tid}: exported as its finished revision 1" in found["export_plan"], found["export_plan"]
     # a refused id shows a message; picking a hydrant clears it
     assert "QQ-9" in found["refused"] and found["after_pick"] == ""
+    assert found["area_dialog_closed"]  # LOAD AREA's dialog: a visible cancel
     # LOAD AREA reads the network in a worker: a message at once, the outcome when it is read.
     assert found["load_message_at_once"].startswith("Loading"), found["load_message_at_once"]
     assert found["load_message"].startswith("Loaded Tallowmere"), found["load_message"]

@@ -253,9 +253,15 @@ def script_find(app):
     app.go("export")
     yield from settle()
     report["export_plan"] = app.root.get_screen("export").plan
-    # LOAD AREA's load runs in a worker; the home screen says so, then shows the outcome.
+    # LOAD AREA's dialog has a visible cancel that closes it.
     app.go("home")
     yield from settle()
+    popup = app.pick_area()
+    yield from settle()
+    tap(popup_button("CANCEL: KEEP THE AREA LOADED NOW"))
+    yield from settle()
+    report["area_dialog_closed"] = popup.parent is None
+    # LOAD AREA's load runs in a worker; the home screen says so, then shows the outcome.
     from mobile.services import demo
     app.load_area(demo.TALLOWMERE)
     report["load_message_at_once"] = home.message
