@@ -103,9 +103,10 @@ def check_drop(static: float, residual: float, system: str = "us") -> list[Findi
     out = []
     if drop < MIN_DROP * (1 - _SLACK):
         out.append(Finding("drop-below-10psi", "warning",
-                           f"The pressure dropped only {fmt_pressure(drop, system)}. Modelling practice asks "
-                           f"for at least {fmt_pressure(MIN_DROP, system)} so that gauge error does not "
-                           "swamp it (Walski 2000, JAWWA). Open another outlet or hydrant if it is safe.",
+                           f"The pressure dropped only {fmt_pressure(drop, system)}: open another outlet "
+                           f"or hydrant if it is safe, until it drops at least "
+                           f"{fmt_pressure(MIN_DROP, system)}, so that gauge error does not swamp it "
+                           "(modelling practice, Walski 2000, JAWWA).",
                            "Walski, Model calibration data: the good, the bad and the useless, JAWWA 2000"))
     if drop < MIN_DROP_FRACTION * static * (1 - _SLACK):
         out.append(Finding("drop-below-25pct", "warning",

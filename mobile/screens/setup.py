@@ -74,6 +74,10 @@ class SetupScreen(FieldScreen):
     def set_height(self, text):
         self.show(self.service.set_gauge_height(self.tid, text))
 
+    def source_changed(self, source):
+        self.fill_boxes(views.setup_boxes(self.service, self.tid, source))
+        self.refresh()
+
     def set_tank_by(self, what):
         self.tank_by = what
 

@@ -281,6 +281,14 @@ class TestService:
             h["boundary"] = [b for b in h.get("boundary", []) if b["source"] != source]
         return self._edit(tid, change, f"{source}: cleared; the model's grade is used")
 
+    def tank_has_floor(self, source: str) -> bool:
+        """True when the network gives ``source`` a floor, so that a level can be typed."""
+        import math
+
+        from calib.network import tanks
+
+        return source in self.sources() and math.isfinite(tanks.tank_range(self.area.network, source)[0])
+
     def tank_range(self, source: str) -> str:
         """What the tank can hold, in words, for the set-up screen ('' without a network)."""
         from calib.network import tanks

@@ -177,7 +177,7 @@ def setup_boxes(service, tid: str, source: str = "") -> dict:
     h, sys_ = service.header(tid), service.system
     gh = h.get("gauge_height")
     noted = next((b for b in h.get("boundary", []) if b["source"] == source), None)
-    tank, by = "", "level"
+    tank, by = "", "level" if service.tank_has_floor(source) else "grade"
     if noted is not None:
         by = "level" if noted.get("entered") == "level" and noted.get("level") is not None else "grade"
         tank = _bare(noted["level"] if by == "level" else noted["si"], sys_)

@@ -63,6 +63,7 @@ def test_noted_value_can_be_cleared(tank_service):
 
 def test_a_level_needs_a_floor_in_the_network(service):
     tid = service.new_test(crew="X")
+    assert views.setup_boxes(service, tid, service.sources()[0])["tank_by"] == "grade"
     out = service.set_tank_level(tid, service.sources()[0], "10")
     assert not out.ok and "no floor" in out.message and "grade instead" in out.message
 
