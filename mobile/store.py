@@ -87,6 +87,11 @@ class StoreError(CalibError, RuntimeError):
     """The store could not save or read; the message says what and that earlier data are intact."""
 
 
+def _plain(value):
+    """JSON for what ``json`` does not know (numpy arrays and numbers in a verdict): plain values."""
+    return value.tolist() if hasattr(value, "tolist") else str(value)
+
+
 def now_iso() -> str:
     """Current UTC time as ISO 8601 with seconds, e.g. ``2026-05-14T09:30:00+00:00``."""
     return datetime.now(timezone.utc).replace(microsecond=0).isoformat()
@@ -360,7 +365,8 @@ class Store:
             self._test_in(conn, test_id)
             conn.execute("INSERT INTO checks (test_id, revision, created_at, last_seq, verdict) "
                          "VALUES (?, ?, ?, ?, ?)", (test_id, int(revision), now_iso(), int(last_seq),
-                                                    json.dumps(verdict, sort_keys=True)))
+                                                    json.dumps(verdict, sort_keys=True,
+                                                               default=_plain)))
 
     def checks(self, test_id: str) -> list[dict]:
         """Every verdict kept for the test, oldest first: revision, created_at, last_seq, verdict."""
