@@ -75,6 +75,7 @@ def test_enter_a_two_outlet_test_on_the_map_with_the_timer_then_correct_it(tmp_p
     assert found["status_while_asked"] == "finished"
     assert "revision 2" in found["status_after"] and found["status_after"].startswith("DRAFT")
     assert found["reason_after"] == "" and found["other_reason"] == ""
+    assert "outside the plausible range" in found["refused_reading"] and not found["keypad_moved"]
     assert f"{tid}: exported as its finished revision 1" in found["export_plan"], found["export_plan"]
     # a refused id shows a message; picking a hydrant clears it
     assert "QQ-9" in found["refused"] and found["after_pick"] == ""

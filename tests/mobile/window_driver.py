@@ -243,6 +243,20 @@ def script_find(app):
     yield from wait_for(lambda: "revision 2" in app.test_status(app.test_id))
     report["status_after"] = app.test_status(app.test_id)
     report["reason_after"] = results.ids.reason.text
+    # A refused reading shows its message in a place kept for it: the keypad does not move.
+    app.go("readings")
+    yield from settle()
+    readings = app.root.get_screen("readings")
+    pad = readings.ids.keypad
+    before = pad.ids.enter.to_window(*pad.ids.enter.pos)
+    yield from type_on(pad, "999")
+    tap(pad.ids.enter)
+    yield from wait_for(lambda: readings.bad and readings.message)
+    yield from settle()
+    report["refused_reading"] = readings.message
+    report["keypad_moved"] = pad.ids.enter.to_window(*pad.ids.enter.pos) != before
+    app.go("results")
+    yield from settle()
     # Another test: its reason box is empty.
     results.ids.reason.text = "typed for the first test"
     other = next(t.test_id for t in app.store.tests() if t.test_id != app.test_id)
