@@ -28,7 +28,7 @@ class CheckScreen(FieldScreen):
     def refresh(self):
         if self.tid != self._shown_for and not self.running:  # another test: clear the old answer
             self._shown_for, self.rows, self.bad = self.tid, [], False
-            self.summary = "Tap RUN CHECK to simulate this test on the area's network."
+            self.summary = views.check_summary(self.service, self.tid)
 
     def run(self):
         if self.running:

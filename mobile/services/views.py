@@ -259,3 +259,10 @@ def located(data, lon: float, lat: float):
         return Outcome(False, "The network's coordinates are not longitude/latitude, so the "
                               "device's position cannot be placed: tap where you stand on the map"), []
     return Outcome(True, f"Your position: {lat:.5f}, {lon:.5f}"), list(at)
+
+
+def check_summary(service, tid: str) -> str:
+    """The check screen's headline before a run: the verdict kept for these readings, if any."""
+    kept = verdicts.text(verdicts.current(service, tid)) if tid else ""
+    return (kept + "\nTap RUN CHECK to check again.") if kept else \
+        "Tap RUN CHECK to simulate this test on the area's network."

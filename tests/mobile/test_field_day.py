@@ -133,6 +133,7 @@ def test_verdict_is_saved_shown_until_readings_change_and_exported(service, area
     assert shown["verdict"].startswith("MODEL CHECK") and "Tallowmere" in shown["verdict"]
     assert shown["findings"].startswith("MODEL CHECK")
     assert shown["suspect"] == any(g.suspect for g in result.gauges)
+    assert views.check_summary(service, tid).startswith(shown["verdict"])
     service.finish(tid)
     export.export_tests(service, tmp_path / "out")
     record = json.loads((tmp_path / "out" / f"{tid}.json").read_text())
