@@ -62,13 +62,17 @@ def current(service, tid: str, revision: int | None = None) -> dict | None:
 
 
 def text(check: dict | None) -> str:
-    """One line for the results screen, '' without a verdict in force."""
+    """The verdict for the results screen: when, which model, and what to do ('' without one)."""
     if not check:
         return ""
     v = check["verdict"]
     when = check["created_at"][11:16]
-    head = "MODEL CHECK: SUSPECT READING" if v["suspect"] else "MODEL CHECK: agrees"
-    return f"{head} ({when} UTC, model {v['model']}): {v['message']}"
+    model = v["model"].split(" (")[0]  # the area's name; the export keeps where it was read from
+    if not v["suspect"]:
+        return f"MODEL CHECK {when} UTC (model {model}): {v['message']}"
+    advice = [f"{g['node']}: {a}" for g in v["gauges"] for a in g.get("advice", [])]
+    return (f"MODEL CHECK {when} UTC (model {model}): SUSPECT READING at "
+            f"{', '.join(v['suspect'])}.\n" + "\n".join(advice))
 
 
 def all_checks(service, tid: str) -> list[dict]:
