@@ -343,3 +343,16 @@ def test_export_folder_choices_and_new_folder(tmp_path):
         ok, why = folders.make_folder(tmp_path, bad)
         assert not ok and why
     assert sorted(p.name for p in tmp_path.iterdir()) == ["May tests"]
+
+
+def test_layout_words_hold_in_both_orientations():
+    """The set-up no longer points 'on the right' (the picker is below in portrait), and the bar
+    never cuts the test id (it wraps to two lines instead)."""
+    from pathlib import Path
+
+    import mobile
+
+    kv = {p.name: p.read_text() for p in Path(mobile.__file__).parent.rglob("*.kv")}
+    assert not any("on the right" in text for text in kv.values())
+    bar = kv["common.kv"].split("<Bar>:")[1].split("\n<")[0]
+    assert "shorten: True" not in bar and "max_lines: 2" in bar
