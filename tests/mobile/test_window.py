@@ -70,6 +70,7 @@ def test_enter_a_two_outlet_test_on_the_map_with_the_timer_then_correct_it(tmp_p
     assert found["screen"] == "results"
     assert found["rated_label"] == entered["rated_label"]
     assert found["status"] == "finished"
+    assert found["reopened_at_top"]  # every screen opens at its top
     # a correction asks first; the reason box belongs to one test
     assert tid in found["asked"] and "residual re-read" in found["asked"], found["asked"]
     assert found["status_while_asked"] == "finished"

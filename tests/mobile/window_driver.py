@@ -231,6 +231,13 @@ def script_find(app):
     yield
     report["screen"] = app.root.current
     results = app.root.get_screen("results")
+    # scrolled down, left, opened again: the results open at their top (headline, FINISH in place)
+    results.ids.details.scroll_y = 0
+    app.go("home")
+    yield from settle()
+    app.open_test(sys.argv[4])
+    yield from settle()
+    report["reopened_at_top"] = results.ids.details.scroll_y == 1
     report["rated_label"] = results.ids.rated.text
     report["status"] = app.test_status(app.test_id)
     # A correction: a reason, CORRECT, the question, YES.
