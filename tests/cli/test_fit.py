@@ -63,6 +63,19 @@ def test_demo_fit_recovers_the_demo_truth_and_flags_the_planted_reading(demo_run
     assert len(rough) == 531
 
 
+def test_demo_fit_outputs_get_the_mode_an_ordinary_write_gives(demo_run):
+    # POSIX open(2): a new file is 0666 less the umask (was 0600, the temporary file's mode)
+    import os
+    import stat
+    _, out, _, _ = demo_run
+    mask = os.umask(0o022)
+    os.umask(mask)
+    want = 0o666 & ~mask
+    files = sorted(p for p in out.iterdir() if p.is_file())
+    assert len(files) >= 5 and want & 0o044  # the test's own umask lets others read
+    assert {p.name: oct(stat.S_IMODE(os.stat(p).st_mode)) for p in files} == {p.name: oct(want) for p in files}
+
+
 def test_report_is_self_contained_with_cautions(demo_run):
     _, out, _, _ = demo_run
     page = (out / "report.html").read_text()
