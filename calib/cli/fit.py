@@ -2,7 +2,7 @@
 
 Thin: read the network (``calib.network.io``) and the tests folder (``calib.calibration.read_tests``),
 fit (``calib.calibration.fit``), write the exports and the report into OUT, print a summary table.
-Progress on stderr after every solver call: a bar on a terminal, one line per phase elsewhere. Bad input exits 2 with every problem
+Progress on stderr after every solver call: a tqdm bar on a terminal, one line per phase elsewhere. Bad input exits 2 with every problem
 listed; a fit that cannot be carried out exits 1.
 """
 
@@ -79,24 +79,25 @@ def _sigma(text: str) -> float:
 
 
 class ProgressBar:
-    """Progress on stderr: a bar redrawn in place on a terminal, one line per phase elsewhere.
+    """Progress on stderr: a tqdm bar on a terminal, one line per phase elsewhere.
 
     ``__call__(n, stage)`` is the fit's progress callback (``n`` solver calls so far; ``stage`` the
-    phase, with a detail after a colon, e.g. ``"leave-one-out: T04 J316"``). On a terminal the bar is
-    redrawn at most ten times a second with carriage returns. Off a terminal (CI, a log file, a pipe)
-    carriage returns would pile up into one long line, so each phase is written once, when it ends:
-    ``fit: 96 solves, 0.2 s``. ``tty`` overrides the stream's own ``isatty()``.
+    phase, with a detail after a colon, e.g. ``"leave-one-out: T04 J316"``). On a terminal a ``tqdm``
+    bar counts the solves (redrawn at most ten times a second), its total an estimate that grows when
+    the fit needs more, the phase beside it. Off a terminal (CI, a log file, a pipe) redraws would pile
+    up into one long line, so each phase is written once, when it ends: ``fit: 96 solves, 0.2 s``.
+    ``tty`` overrides the stream's own ``isatty()``.
     """
 
     def __init__(self, stream=None, width: int = 28, expected: int = 400, tty: bool | None = None):
         self.stream = stream or sys.stderr
         self.width, self.expected = width, max(expected, 1)
-        self.start = time.perf_counter()
         if tty is None:
             isatty = getattr(self.stream, "isatty", None)
             tty = bool(isatty()) if callable(isatty) else False
         self.tty = tty
-        self._stage, self._last = None, 0.0
+        self._bar = None
+        self._stage = None
         # off a terminal: the phase in progress, its first solve count, start time and details
         self._phase, self._phase_n0, self._phase_t0, self._details, self._n = None, 0, 0.0, [], 0
 
@@ -107,16 +108,18 @@ class ProgressBar:
             self._log(n, stage)
 
     def _draw(self, n: int, stage: str) -> None:
-        now = time.perf_counter()
-        # redraw at most ten times a second (or on a new stage) so that the bar costs nothing
-        if stage == self._stage and now - self._last < 0.1:
-            return
-        self._stage, self._last = stage, now
-        self.expected = max(self.expected, int(n * 1.15))
-        done = int(self.width * min(n / self.expected, 1.0))
-        bar = "#" * done + "." * (self.width - done)
-        self.stream.write(f"\r[{bar}] {n:5d} solves  {now - self.start:5.1f} s  {stage[:40]:<40s}")
-        self.stream.flush()
+        from tqdm import tqdm
+
+        if self._bar is None:
+            self._bar = tqdm(total=self.expected, file=self.stream, unit=" solves", mininterval=0.1,
+                             ncols=100, leave=True,
+                             bar_format="{percentage:3.0f}%|{bar}| {n_fmt} solves {elapsed}  {desc}")
+        if n > self._bar.total:
+            self._bar.total = int(n * 1.15)  # the fit needed more solves than estimated
+        if stage != self._stage:
+            self._stage = stage
+            self._bar.set_description_str(stage[:40], refresh=False)
+        self._bar.update(n - self._bar.n)
 
     def _log(self, n: int, stage: str) -> None:
         phase, _, detail = str(stage).partition(":")
@@ -144,9 +147,10 @@ class ProgressBar:
         self._phase = None
 
     def close(self) -> None:
-        if self.tty:
-            self.stream.write("\n")
-        else:
+        if self._bar is not None:
+            self._bar.close()  # leaves the bar on its line and ends it
+            self._bar = None
+        if not self.tty:
             self._end_phase()
         self.stream.flush()
 

@@ -192,8 +192,11 @@ def test_progress_counts_the_solves_of_each_phase():
         "fit: 5 solves", "refit: 3 solves", "leave-one-out (2 readings: T01 J1, T02 J2): 4 solves"]
 
 
-def test_progress_on_a_terminal_keeps_the_redrawn_bar():
+def test_progress_on_a_terminal_is_a_tqdm_bar_redrawn_in_place():
     import io
+    import re
+
+    import tqdm
 
     class Terminal(io.StringIO):
         def isatty(self):
@@ -203,7 +206,20 @@ def test_progress_on_a_terminal_keeps_the_redrawn_bar():
     bar = cli_fit.ProgressBar(stream, expected=10)
     for n in range(1, 6):
         bar(n, "fit" if n < 4 else "refit")
+    assert isinstance(bar._bar, tqdm.tqdm)  # the library's bar, not a hand-drawn one
+    bar(14, "refit")  # more solves than expected: the total grows, the bar never overflows
+    assert bar._bar.total >= 14
     bar.close()
     text = stream.getvalue()
-    assert bar.tty and text.count("\r[") >= 2 and "#" in text and text.endswith("\n")
-    assert "solves" in text and "\n" not in text[:-1]  # redrawn in place, one line
+    assert bar.tty and text.count("\r") >= 2 and text.endswith("\n")
+    assert "\n" not in text[:-1]  # redrawn in place, one line
+    last = text.rstrip("\n").split("\r")[-1]
+    assert re.search(r"\d+%\|.*\| 14 solves .*refit", last), last
+
+
+def test_tqdm_is_a_declared_dependency():
+    # the progress bar's library is installed with the package (pyproject.toml), not by chance
+    import tomllib
+    from pathlib import Path
+    meta = tomllib.loads((Path(__file__).resolve().parents[2] / "pyproject.toml").read_text())
+    assert any(d.split(">")[0].split("=")[0].strip() == "tqdm" for d in meta["project"]["dependencies"])
