@@ -5,7 +5,12 @@
 - ``roughness.csv``: one row per pipe (``pipe_id, group, c_factor, c_low, c_high``), ready for a bulk
   import into an office model; pipes in no group keep their C and have empty interval cells.
 - ``readings.csv``: ``test_id, node, kind, observed, simulated, residual`` (observed minus simulated)
-  in the chosen pressure unit, the standardized residual, and ``flag`` (empty when the reading fits).
+  in the chosen pressure unit, the standardized residual, ``used`` (in the final fit), ``flag`` (why
+  the reading is suspect: a face check or a gross error; empty when it is not), ``cook_distance``
+  (empty for a reading left out) and ``influence`` (why the fit leans on it: Cook's distance above 1,
+  a leave-one-out refit that moves a C; empty otherwise). Influence is a property of where the tests
+  were made, not of the reading's quality: an influential reading is often the only one that informs a
+  group. Filter on ``flag`` for suspects, never on ``influence``.
 - ``pipes.geojson``: the network with the calibrated C (``calib.network.io.write_network_geojson``),
   written when the network came with coordinates or pipe geometry.
 Text cells are neutralized against spreadsheet formulas by ``calib.fileio.write_csv``.
@@ -81,6 +86,8 @@ def readings_frame(result, system: str = "us") -> pd.DataFrame:
         "standardized": np.round(result.z, 2),
         "used": result.estimate.used,
         "flag": result.flag,
+        "cook_distance": np.round(result.cook, 3),
+        "influence": list(result.influence) or [""] * t.n_readings,
     })
 
 

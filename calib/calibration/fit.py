@@ -51,11 +51,14 @@ class FitResult:
     simulated: np.ndarray  # per reading: simulated gauge pressure [Pa]
     z: np.ndarray  # per reading: standardized residual
     cook: np.ndarray  # per reading: Cook's distance (nan for readings left out)
-    flag: list  # per reading: "" or a short reason
+    flag: list  # per reading: "" or why the reading is suspect (face check, gross error)
     rmse: float  # [Pa] over readings used
     criteria: list
     max_headloss: float  # [m], largest head loss across the system in a static snapshot
     findings: list = field(default_factory=list)
+    # per reading: "" or how much it weighs on the fit (Cook's distance, leave-one-out shift): a
+    # property of the test layout, not of the reading's quality; never a flag
+    influence: list = field(default_factory=list)
     n_solves: int = 0
     options: dict = field(default_factory=dict)
 
@@ -240,9 +243,9 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
     # influence: Cook's distance, then leave-one-out refits of the strongest candidates
     n_used = int(est.used.sum())
     used_idx = np.flatnonzero(est.used)
+    influence = [""] * n
     for i in used_idx[cook[used_idx] > 1.0]:
-        if not flag[i]:
-            flag[i] = f"influential: Cook's distance {cook[i]:.2f} > 1"
+        influence[i] = f"Cook's distance {cook[i]:.2f} > 1"
     if influence and n_used > p + 1:
         cand = [i for i in used_idx[np.argsort(-cook[used_idx])][:2] if cook[i] > 4.0 / n_used]
         sd_c = est.sd[prob.c_cols]
@@ -259,9 +262,9 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
             rel = np.where(np.isfinite(sd_c) & (sd_c > 0), shift / np.where(sd_c > 0, sd_c, 1), 0.0)
             g = int(np.argmax(rel))
             if rel[g] > 1.0:
-                text = (f"influential: leaving it out moves C of {grouping.names[g]} by "
+                text = (f"leaving it out moves C of {grouping.names[g]} by "
                         f"{shift[g]:.1f} ({rel[g]:.1f} sd)")
-                flag[i] = flag[i] + "; " + text if flag[i] else text
+                influence[i] = influence[i] + "; " + text if influence[i] else text
 
     # identifiability
     cov = est.cov
@@ -361,7 +364,7 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
     return FitResult(network=network, tests=tests, grouping=grouping, prior=gp, params=prob.params,
                      estimate=est, first=first, corr=corr, move_together=together, informed=informed,
                      status=status, simulated=simulated, z=z, cook=cook, flag=flag, rmse=rmse,
-                     criteria=crit, max_headloss=max_hl, findings=findings,
+                     criteria=crit, max_headloss=max_hl, findings=findings, influence=influence,
                      n_solves=sum(pr.n_solves for pr in problems),
                      options=dict(group_by=group_by or "group column", prior=prior if isinstance(prior, str)
                                   else ("none" if prior is None else "given"), c_bounds=tuple(c_bounds),

@@ -6,7 +6,9 @@
   hat matrix of the weighted Jacobian (Belsley, Kuh and Welsch 1980, *Regression Diagnostics*; the
   internally studentized residual with the stated sigma).
 - Cook's distance ``D_i = z_i^2 h_ii / (p (1 - h_ii))`` (Cook 1977, Technometrics 19(1)); the usual
-  screening rule flags D > 1, candidates for a leave-one-out refit above 4/n (common practice).
+  screening rule calls D > 1 influential, candidates for a leave-one-out refit above 4/n (common
+  practice). Influence says how much the fit leans on a reading (the test layout), not that the
+  reading is wrong: the fit reports it apart from the flags, which mark suspect readings only.
 """
 
 from __future__ import annotations

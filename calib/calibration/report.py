@@ -2,7 +2,7 @@
 
 Sections, in the order a modeler reads them: the cautions; the result at a glance; the groups (table,
 and C with its interval against the prior, the model's C before and the C bounds); the flagged
-readings; the findings in words; the fit statistics and the calibration accuracy criteria; how well
+(suspect) readings; the influential readings, apart; the findings in words; the fit statistics and the calibration accuracy criteria; how well
 the readings fit (observed vs simulated, residuals by test); hydrant curves; parameter correlation;
 the tests; the method and its sources. matplotlib runs with the Agg backend (no display). The page is
 written atomically through ``calib.fileio``.
@@ -301,7 +301,7 @@ def render(result, system: str = "us", curves: bool = True) -> str:
     if result.prior is not None:
         parts.append(f"<p class='note'>Prior: {e(result.prior.source)}.</p>")
     flagged = [i for i, f in enumerate(result.flag) if f]
-    parts.append("<h2>Flagged readings</h2>")
+    parts.append("<h2>Flagged readings (suspect)</h2>")
     if flagged:
         parts.append(_table(["test", "node", "kind", f"observed [{pu}]", f"simulated [{pu}]",
                              "left out", "standardized residual, final fit [-]", "reason"],
@@ -317,6 +317,15 @@ def render(result, system: str = "us", curves: bool = True) -> str:
                      "before discarding it.</p>")
     else:
         parts.append("<p>None.</p>")
+    leaning = [i for i, f in enumerate(result.influence) if f]
+    if leaning:
+        parts.append("<h2>Influential readings</h2>")
+        parts.append(_table(["test", "node", "kind", "Cook's distance [-]", "why the fit leans on it"],
+                            [[t.test_ids[t.test[i]], net.node_ids[t.node[i]], t.kind[i],
+                              _fmt(result.cook[i], 2), result.influence[i]] for i in leaning]))
+        parts.append("<p class='note'>Not suspect: these readings weigh much on the fit because of "
+                     "where the tests were made (often the only reading that loads a group). Keep "
+                     "them; a further test that loads the same groups would share their weight.</p>")
     parts.append("<h2>Findings</h2><ul>" + "".join(f"<li>{e(f)}</li>" for f in result.findings)
                  + "</ul>")
     rmse = units.from_si(result.rmse, "pressure", pu)

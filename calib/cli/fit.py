@@ -172,14 +172,19 @@ def summary(result, system: str = "us") -> str:
     lines.append(f"RMSE of pressures {rmse:.2f} {pu} over {int(result.estimate.used.sum())} readings; "
                  + ("intervals scaled by s^2 = %.2f" % result.estimate.s2 if result.estimate.scaled
                     else "intervals from the stated sigma"))
+    t, net = result.tests, result.network
     flagged = [(i, f) for i, f in enumerate(result.flag) if f]
     if flagged:
-        lines.append("flagged readings:")
-        t, net = result.tests, result.network
+        lines.append("suspect readings (flag):")
         for i, f in flagged:
             lines.append(f"  {t.test_ids[t.test[i]]} {net.node_ids[t.node[i]]} {t.kind[i]}: {f}")
     else:
-        lines.append("no flagged readings")
+        lines.append("no suspect readings")
+    leaning = [(i, f) for i, f in enumerate(getattr(result, "influence", []) or []) if f]
+    if leaning:
+        lines.append("influential readings (the fit leans on them; not suspect, keep them):")
+        for i, f in leaning:
+            lines.append(f"  {t.test_ids[t.test[i]]} {net.node_ids[t.node[i]]} {t.kind[i]}: {f}")
     return "\n".join(lines)
 
 

@@ -63,6 +63,26 @@ def test_demo_fit_recovers_the_demo_truth_and_flags_the_planted_reading(demo_run
     assert len(rough) == 531
 
 
+def test_flag_holds_suspects_only_and_influence_has_its_own_column(demo_run):
+    # the demo's planted gross error is the one suspect; the readings the fit leans on (Cook 1977;
+    # leave-one-out refits) are good readings and must not look suspect to a filter on `flag`
+    _, out, text, _ = demo_run
+    readings = pd.read_csv(out / "readings.csv", keep_default_na=False)
+    assert list(readings.columns[-4:]) == ["used", "flag", "cook_distance", "influence"]
+    flagged = readings[readings.flag != ""]
+    assert len(flagged) == 1 and flagged.flag.iloc[0].startswith("standardized residual")
+    assert not readings.flag.str.contains("influen|Cook|leaving it out").any()
+    leaning = readings[readings.influence != ""]
+    assert len(leaning) >= 1 and (leaning.flag == "").all() and leaning.used.astype(str).eq("True").all()
+    assert leaning.influence.str.contains("Cook's distance|leaving it out moves C").all()
+    # the summary lists them under separate headings
+    suspects, _, rest = text.partition("suspect readings (flag):")
+    assert rest and "influential readings" in rest
+    flagged_part, _, influential_part = rest.partition("influential readings")
+    assert "standardized residual" in flagged_part and "leaving it out" not in flagged_part
+    assert "leaving it out" in influential_part or "Cook" in influential_part
+
+
 def test_demo_fit_outputs_get_the_mode_an_ordinary_write_gives(demo_run):
     # POSIX open(2): a new file is 0666 less the umask (was 0600, the temporary file's mode)
     import os
