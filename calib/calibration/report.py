@@ -129,11 +129,18 @@ def _plots(result, system: str, curves: bool = True) -> dict[str, str]:
     # outside the C bounds: shaded, so an interval that reaches a bound is seen as cut by it
     ax.axhspan(ylo, c_lo, color="grey", alpha=0.15, lw=0, label=f"outside C bounds {c_lo:g}-{c_hi:g}")
     ax.axhspan(c_hi, yhi, color="grey", alpha=0.15, lw=0)
-    ax.errorbar(g, result.c, yerr=[result.c - lo_c, hi_c - result.c], fmt="o", capsize=5, ms=7,
-                color="tab:blue", label="fitted C, 95 % interval")
+    det = result.c_determined
+    if det.any():
+        ax.errorbar(g[det], result.c[det], yerr=[(result.c - lo_c)[det], (hi_c - result.c)[det]],
+                    fmt="o", capsize=5, ms=7, color="tab:blue", label="fitted C, 95 % interval")
+    if (~det).any():
+        # no fitted value: only the range the tests leave open (up to the C bounds)
+        ax.vlines(g[~det], lo_c[~det], hi_c[~det], colors="tab:blue", linestyles=":", lw=2,
+                  label="undetermined: range the tests allow")
     for gi in g:
-        ax.annotate(f"{result.c[gi]:.0f}", (gi, hi_c[gi]), xytext=(0, 4),  # above its interval
-                    textcoords="offset points", ha="center", va="bottom", fontsize=8, color="tab:blue")
+        ax.annotate(f"{result.c[gi]:.0f}" if det[gi] else "undetermined", (gi, hi_c[gi]),
+                    xytext=(0, 4), textcoords="offset points", ha="center", va="bottom", fontsize=8,
+                    color="tab:blue")  # above its interval
     if result.prior is not None:
         ax.errorbar(g + 0.25, result.prior.c, yerr=1.96 * result.prior.spread, fmt="s", mfc="none",
                     capsize=3, color="grey", label="prior, +/-1.96 sd")
@@ -223,7 +230,8 @@ def _glance(result, pu: str) -> str:
             + (f", {n_out} left out of the final fit" if n_out else "")
             + f". RMSE of pressures {rmse:.2f} {pu}.")
     if at_bound:
-        text += f" At a C bound (interval not reliable): {', '.join(at_bound)}."
+        text += (f" Fit goes to a C bound (no fitted value; the exports keep the model's C): "
+                 f"{', '.join(at_bound)}.")
     return text
 
 
@@ -279,10 +287,16 @@ def render(result, system: str = "us", curves: bool = True) -> str:
     gf = groups_frame(result)
     rows = []
     for i, r in gf.iterrows():
-        status = r["status"] + (f" ({result.informed[i]:.0%})" if result.prior is not None else "")
-        if bool(r["at_bound"]):
-            status += ", at a C bound"
-        rows.append([r["group"], _fmt(r["c_factor"]), f"{_fmt(r['c_low'])} - {_fmt(r['c_high'])}",
+        if result.c_determined[i]:
+            status = r["status"] + (f" ({result.informed[i]:.0%})" if result.prior is not None else "")
+            c_text, interval = _fmt(r["c_factor"]), f"{_fmt(r['c_low'])} - {_fmt(r['c_high'])}"
+        else:
+            status = "undetermined" + (", fit goes to a C bound" if bool(r["at_bound"]) else "") \
+                + f"; the exports keep the model's C {r['model_c']:.0f}"
+            c_text, interval = "-", r["tests_say"]
+        if r["interval_method"] != "linearized":
+            interval += " (profile likelihood)"
+        rows.append([r["group"], c_text, interval,
                      "-" if result.prior is None else f"{r['prior_c']:.0f} +/- {r['prior_spread']:.0f}",
                      _fmt(r["model_c"]), int(r["n_pipes"]), status,
                      _fmt(r["c_all_readings"]) if "c_all_readings" in gf else "-"])
@@ -291,9 +305,13 @@ def render(result, system: str = "us", curves: bool = True) -> str:
                          "C with every reading kept"], rows))
     parts.append("<p class='note'>C is the Hazen-Williams coefficient [-]. The share says how much of "
                  "a group's precision comes from the readings rather than the prior: above 50 % "
-                 "informed, 10 - 50 % weakly informed, below undetermined. \"C with every reading "
-                 "kept\" is the fit before flagged readings were left out; it shows how much they "
-                 "pull.</p>")
+                 "informed, 10 - 50 % weakly informed, below undetermined. A group the tests do not "
+                 "determine (or whose fit goes to a C bound) shows no fitted C: only what the tests "
+                 "say (a one-sided limit, or nothing within the C bounds); roughness.csv and "
+                 "pipes.geojson keep the model's C for its pipes. Intervals are linearized where that "
+                 "can be trusted, else profile likelihood (Venzon and Moolgavkar 1988; Bates and Watts "
+                 "1988), never outside the C bounds. \"C with every reading kept\" is the fit before "
+                 "flagged readings were left out; it shows how much they pull.</p>")
     other = other_parameters_frame(result)
     if len(other):
         parts.append(_table(list(other.columns), other.values.tolist()))
@@ -331,10 +349,8 @@ def render(result, system: str = "us", curves: bool = True) -> str:
     rmse = units.from_si(result.rmse, "pressure", pu)
     parts.append(f"<h2>Fit statistics</h2><p>RMSE of pressures {rmse:.2f} {pu} over "
                  f"{int(est.used.sum())} readings used (of {t.n_readings}); weighted sum of squares "
-                 f"{est.chi2:.1f} on {est.dof} degrees of freedom; intervals "
-                 + (f"scaled by s<sup>2</sup> = {est.s2:.2f} (chi-square test rejects the stated sigma)"
-                    if est.scaled else "from the stated gauge sigma (chi-square test does not reject it)")
-                 + f"; t quantile {est.t:.3f}. Largest head loss across the system in a static "
+                 f"{est.chi2:.1f} on {est.dof:.1f} degrees of freedom. Scale of the readings: "
+                 + e(est.scale_note) + f"; quantile of the 95 % intervals {est.t:.3f}. Largest head loss across the system in a static "
                  f"snapshot {units.from_si(result.max_headloss, 'head', units.display_unit('head', system)):.1f} "
                  f"{units.display_unit('head', system)}.</p>")
     parts.append(_table(["criterion", "source", "required", "achieved", "met"],
@@ -369,8 +385,15 @@ def render(result, system: str = "us", curves: bool = True) -> str:
         "Hazen-Williams C per group by bounded weighted least squares (scipy.optimize.least_squares, "
         "trust-region reflective; after Lansey and Basnet 1991), the Jacobian by implicit "
         "differentiation of the Todini and Pilati (1988) global gradient equations at each converged "
-        "snapshot. Covariance s<sup>2</sup> (J<sup>T</sup>WJ)<sup>-1</sup> by an SVD pseudo-inverse "
-        "(Bard 1974); 95 % intervals with the t quantile. Flags: face checks, standardized residuals "
+        "snapshot. Covariance (J<sup>T</sup>WJ)<sup>-1</sup> by an SVD pseudo-inverse (Bard 1974), "
+        "the readings' rows weighted by their scale: the stated gauge sigma when a two-sided "
+        "chi-square test does not reject it (normal quantile), else s<sup>2</sup> = S/(n-p) from their "
+        "scatter (t quantile), which is also the case when no accuracy was stated; prior rows keep "
+        "their own spread. 95 % intervals: linearized where that can be trusted, else profile "
+        "likelihood - the other parameters refit with the C held fixed, the ends where the sum of "
+        "squares rises by the squared quantile (Venzon and Moolgavkar 1988, Applied Statistics 37(1); "
+        "Bates and Watts 1988, Nonlinear Regression Analysis and Its Applications) - never outside the "
+        "C bounds. Flags: face checks, standardized residuals "
         "with leverage, Cook's distance (Cook 1977) and leave-one-out refits; readings beyond the "
         "threshold are left out one at a time and the fit repeated. Accuracy criteria: WRc (1989) "
         "Network Analysis - A Code of Practice, and the AWWA ECAC (1999) calibration guidelines, "

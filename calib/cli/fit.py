@@ -37,8 +37,9 @@ def register(subparsers) -> None:
                         "diameter=8,12); default the group column of pipes.csv")
     p.add_argument("--prior", choices=("handbook", "none"), default="handbook",
                    help="regularizing prior on C by material and age (default handbook)")
-    p.add_argument("--sigma", default="1 psi", metavar="P",
-                   help="gauge accuracy where pressures.csv gives none (default 1 psi)")
+    p.add_argument("--sigma", default=None, metavar="P",
+                   help="gauge accuracy where pressures.csv gives none; a two-sided chi-square test "
+                        "checks it. Default: not stated, the readings' scale comes from their scatter")
     p.add_argument("--units", choices=("us", "si"), default="us", help="units of the outputs")
     p.add_argument("--loss", choices=("linear", "soft_l1", "huber"), default="linear",
                    help="least-squares loss (default linear; robust losses damp outliers)")
@@ -67,7 +68,9 @@ def _bounds(text: str) -> tuple[float, float]:
     return lo, hi
 
 
-def _sigma(text: str) -> float:
+def _sigma(text: str | None) -> float | None:
+    if text is None:
+        return None  # not stated: the fit takes the scale from the scatter
     try:
         value = units.to_si(text, "pressure", "psi")
     except ValueError as exc:
@@ -155,23 +158,59 @@ class ProgressBar:
         self.stream.flush()
 
 
+def scale_words(result, system: str = "us") -> str:
+    """One phrase: which scale the intervals use and why (stated sigma, or the readings' scatter)."""
+    import numpy as np
+
+    est = result.estimate
+    pu = units.display_unit("pressure", system)
+    sig = float(np.median(result.tests.sigma[est.used])) if est.used.any() else units.PSI
+    s = units.from_si(math.sqrt(est.s2) * sig, "pressure", pu)
+    if not est.sigma_stated:
+        if not est.scaled:
+            return "no gauge accuracy stated and no degrees of freedom left: nominal 1 psi used"
+        return (f"no gauge accuracy stated: scale from the readings' scatter, s = {s:.2f} {pu} "
+                f"(t quantile {est.t:.2f})")
+    if est.scaled:
+        return (f"stated gauge sigma rejected by a two-sided chi-square test (p = {est.chi2_p:.2g}): "
+                f"scale from the scatter, s = {s:.2f} {pu}")
+    return f"stated gauge sigma holds (two-sided chi-square p = {est.chi2_p:.2g})"
+
+
 def summary(result, system: str = "us") -> str:
-    """The table printed at the end: groups, C, interval, pipes, informed; then the flagged readings."""
+    """The table printed at the end: groups, C, interval, pipes, status; then suspect, then influential readings.
+
+    A group the tests do not determine shows no C (a dash), what the tests do say (a one-sided limit
+    or none) and the model's C that the exports keep.
+    """
     w = max(5, max(len(n) for n in result.grouping.names))
-    lines = [f"{'group':<{w}s} {'C':>6s} {'95% interval':>15s} {'pipes':>6s}  informed"]
+    lines = [f"{'group':<{w}s} {'C':>6s} {'95% interval':>15s} {'pipes':>6s}  status"]
+    model_c = result.grouping.length_weighted(result.network, result.network.roughness)
+    n_pipes = result.grouping.n_pipes()
     for g, name in enumerate(result.grouping.names):
         lo, hi = result.c_low[g], result.c_high[g]
-        interval = f"{lo:6.1f}-{hi:6.1f}" if math.isfinite(lo) and math.isfinite(hi) else "undetermined"
-        share = f" ({result.informed[g]:.0%} from the tests)" if result.prior is not None else ""
-        if result.c_at_bound[g]:
-            share += ", at a bound"
-        lines.append(f"{name:<{w}s} {result.c[g]:6.1f} {interval:>15s} "
-                     f"{int(result.grouping.n_pipes()[g]):6d}  {result.status[g]}{share}")
+        lo_open, hi_open = bool(result.c_low_open[g]), bool(result.c_high_open[g])
+        if result.c_determined[g]:
+            c_text = f"{result.c[g]:6.1f}"
+            interval = f"{lo:6.1f}-{hi:6.1f}"
+            note = result.status[g]
+            if result.prior is not None:
+                note += f" ({result.informed[g]:.0%} from the tests)"
+            if result.c_method[g] != "linearized":
+                note += ", profile-likelihood interval"
+        else:
+            c_text = "-"
+            interval = ("no limit" if lo_open and hi_open else f"at most {hi:.0f}" if lo_open
+                        else f"at least {lo:.0f}" if hi_open else f"({lo:.0f}-{hi:.0f})")
+            note = "undetermined"
+            if result.c_at_bound[g]:
+                note += f", fit goes to the bound {result.c[g]:.0f}"
+            note += f"; model C {model_c[g]:.0f} kept"
+        lines.append(f"{name:<{w}s} {c_text:>6s} {interval:>15s} {int(n_pipes[g]):6d}  {note}")
     pu = units.display_unit("pressure", system)
     rmse = units.from_si(result.rmse, "pressure", pu)
     lines.append(f"RMSE of pressures {rmse:.2f} {pu} over {int(result.estimate.used.sum())} readings; "
-                 + ("intervals scaled by s^2 = %.2f" % result.estimate.s2 if result.estimate.scaled
-                    else "intervals from the stated sigma"))
+                 + scale_words(result, system))
     t, net = result.tests, result.network
     flagged = [(i, f) for i, f in enumerate(result.flag) if f]
     if flagged:
