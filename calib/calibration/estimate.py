@@ -203,8 +203,8 @@ def _profile_rise(problem, est, i, value, x_warm):
         z0 = np.clip(x_full[free], lo + 1e-9 * (hi - lo), hi - 1e-9 * (hi - lo))
         sol = optimize.least_squares(lambda z: problem.residuals(embed(z)), z0,
                                      jac=lambda z: problem.jacobian(embed(z))[:, free],
-                                     bounds=(lo, hi), method="trf", x_scale="jac", max_nfev=25,
-                                     xtol=1e-6, ftol=1e-6, gtol=1e-6)
+                                     bounds=(lo, hi), method="trf", x_scale="jac", max_nfev=8,
+                                     xtol=1e-4, ftol=1e-4, gtol=1e-4)
         x_full = embed(sol.x)
     r = problem.residuals(x_full)
     return max(float(r @ r) - S0, 0.0), x_full
@@ -213,9 +213,10 @@ def _profile_rise(problem, est, i, value, x_warm):
 def _profile_end(problem, est, i, direction, cut):
     """One end of the profile-likelihood interval of parameter ``i``: ``(value, reaches_bound, fits)``.
 
-    Steps out from the estimate (doubling) until the rise passes ``cut`` or the bound is reached, then
-    Brent's method on the signed root of the rise (close to linear in C: Bates and Watts' profile t),
-    each refit warm-started from the nearest point already refit.
+    Secant steps on the signed root of the rise (close to linear in C: Bates and Watts' profile t),
+    starting at the linearized end and kept inside a bracket once the cut-off is passed; an end that
+    reaches the bound below the cut-off is the bound. Each refit starts from the nearest point refit
+    so far, moved along the linearized profile trace.
     """
     x0 = est.x
     bound = problem.lower[i] if direction < 0 else problem.upper[i]
@@ -223,29 +224,50 @@ def _profile_end(problem, est, i, direction, cut):
     if room <= 5e-4 * (problem.upper[i] - problem.lower[i]):
         return float(bound), True, 0
     seen = {float(x0[i]): (0.0, x0)}
+    with np.errstate(invalid="ignore", divide="ignore"):
+        trace = est.cov[:, i] / est.cov[i, i]
+    trace = trace if np.all(np.isfinite(trace)) else None
 
     def rise_at(value):
-        warm = seen[min(seen, key=lambda v: abs(v - value))][1]
+        value = float(value)
+        if value in seen:  # brentq asks for the bracket's ends again
+            return seen[value][0]
+        near = min(seen, key=lambda v: abs(v - value))
+        warm = seen[near][1]
+        if trace is not None:  # the other parameters start where the linearized profile trace says
+            warm = np.clip(warm + (value - near) * trace, problem.lower, problem.upper)
         rise, x_at = _profile_rise(problem, est, i, value, warm)
         seen[float(value)] = (rise, x_at)
         return rise
 
     half = est.t * est.sd[i]
     step = min(half, room) if np.isfinite(half) and half > 0 else room / 2.0
-    inside = float(x0[i])
-    while True:
-        value = float(x0[i] + direction * step)
-        if rise_at(value) >= cut:
-            outside = value
-            break
-        if step >= room * (1 - 1e-12):
-            return float(bound), True, len(seen) - 1  # the tests do not bound it on this side
-        inside = value
-        step = min(2.0 * step, room)
     root_cut = np.sqrt(cut)
-    end = optimize.brentq(lambda v: np.sqrt(rise_at(v)) - root_cut, inside, outside, xtol=0.05,
-                          maxiter=30)
-    return float(end), False, len(seen) - 1
+    # secant steps on the signed root of the rise, kept inside a bracket once one is found
+    inside, outside = (float(x0[i]), 0.0), None  # (C, root) with root < / >= the cut's
+    value = float(x0[i] + direction * step)
+    for _ in range(12):
+        root = np.sqrt(rise_at(value))
+        if abs(root - root_cut) <= 0.005 * root_cut:
+            return value, False, len(seen) - 1
+        if root < root_cut:
+            if abs(value - bound) <= 1e-9 * room:
+                return float(bound), True, len(seen) - 1  # the tests do not bound it on this side
+            inside = (value, root)
+        else:
+            outside = (value, root)
+        if outside is not None and abs(outside[0] - inside[0]) < 0.05:
+            break
+        (ca, ra), (cb, rb) = ((inside, outside) if outside is not None else
+                              ((float(x0[i]), 0.0), inside))
+        guess = cb + (root_cut - rb) * (cb - ca) / (rb - ra) if rb != ra else bound
+        lo_c, hi_c = sorted((inside[0], outside[0] if outside is not None else float(bound)))
+        if not lo_c < guess < hi_c:
+            guess = float(bound) if outside is None else 0.5 * (inside[0] + outside[0])
+        value = float(guess)
+    a, b = inside, outside if outside is not None else inside
+    value = a[0] + (root_cut - a[1]) * (b[0] - a[0]) / (b[1] - a[1]) if b[1] != a[1] else a[0]
+    return float(value), False, len(seen) - 1
 
 
 def linear_trustworthy(problem, est, i, cut) -> bool:

@@ -276,9 +276,9 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
     # influence: Cook's distance, then leave-one-out refits of the strongest candidates
     n_used = int(est.used.sum())
     used_idx = np.flatnonzero(est.used)
-    influence = [""] * n
+    leaning = [""] * n  # the influence notes (``influence`` is the option)
     for i in used_idx[cook[used_idx] > 1.0]:
-        influence[i] = f"Cook's distance {cook[i]:.2f} > 1"
+        leaning[i] = f"Cook's distance {cook[i]:.2f} > 1"
     if influence and n_used > p + 1:
         cand = [i for i in used_idx[np.argsort(-cook[used_idx])][:2] if cook[i] > 4.0 / n_used]
         sd_c = est.sd[prob.c_cols]
@@ -297,7 +297,7 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
             if rel[g] > 1.0:
                 text = (f"leaving it out moves C of {grouping.names[g]} by "
                         f"{shift[g]:.1f} ({rel[g]:.1f} sd)")
-                influence[i] = influence[i] + "; " + text if influence[i] else text
+                leaning[i] = leaning[i] + "; " + text if leaning[i] else text
 
     # identifiability
     cov = est.cov
@@ -352,7 +352,7 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
         col = prob.c_cols[g]
         limit = limit_text(est, col)
         if status[g] == "undetermined":
-            if est.at_bound[col]:
+            if est.at_bound[col] and not (est.low_open[col] and est.high_open[col]):
                 why = (f"its C goes to the bound {est.x[col]:.0f} of {c_bounds[0]:g}-{c_bounds[1]:g}, "
                        "which is no fitted value. Check the model (closed valves, diameters) there")
             elif gp is not None:
@@ -399,9 +399,11 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
     for i, reason in face.items():
         findings.append(f"Reading {tests.test_ids[tests.test[i]]} / {network.node_ids[tests.node[i]]} "
                         f"({tests.kind[i]}) fails a face check: {reason}; left out.")
-    sig_m = float(np.median(tests.sigma_head))
+    sig_m = float(np.median(tests.sigma_head)) * (np.sqrt(est.s2) if not est.sigma_stated else 1.0)
     if sig_m > 0.5:
-        findings.append(f"The gauges' stated accuracy ({sig_m:.2f} m of head) is coarser than the "
+        what = ("The gauges' stated accuracy" if est.sigma_stated
+                else "The readings' scatter (no accuracy was stated)")
+        findings.append(f"{what} ({sig_m:.2f} m of head) is coarser than the "
                         "WRc 0.5 m tolerance: that criterion cannot be met by these gauges alone.")
     if loss != "linear":
         findings.append(f"Robust loss '{loss}' (f_scale {f_scale:g} standardized units): the intervals "
@@ -411,7 +413,7 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
     return FitResult(network=network, tests=tests, grouping=grouping, prior=gp, params=prob.params,
                      estimate=est, first=first, corr=corr, move_together=together, informed=informed,
                      status=status, simulated=simulated, z=z, cook=cook, flag=flag, rmse=rmse,
-                     criteria=crit, max_headloss=max_hl, findings=findings, influence=influence,
+                     criteria=crit, max_headloss=max_hl, findings=findings, influence=leaning,
                      n_solves=sum(pr.n_solves for pr in problems),
                      options=dict(group_by=group_by or "group column", prior=prior if isinstance(prior, str)
                                   else ("none" if prior is None else "given"), c_bounds=tuple(c_bounds),

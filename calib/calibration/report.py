@@ -291,7 +291,9 @@ def render(result, system: str = "us", curves: bool = True) -> str:
             status = r["status"] + (f" ({result.informed[i]:.0%})" if result.prior is not None else "")
             c_text, interval = _fmt(r["c_factor"]), f"{_fmt(r['c_low'])} - {_fmt(r['c_high'])}"
         else:
-            status = "undetermined" + (", fit goes to a C bound" if bool(r["at_bound"]) else "") \
+            limited = not (result.c_low_open[i] and result.c_high_open[i])
+            status = "undetermined" + (", fit goes to a C bound" if bool(r["at_bound"]) and limited
+                                       else "") \
                 + f"; the exports keep the model's C {r['model_c']:.0f}"
             c_text, interval = "-", r["tests_say"]
         if r["interval_method"] != "linearized":

@@ -203,7 +203,7 @@ def summary(result, system: str = "us") -> str:
             interval = ("no limit" if lo_open and hi_open else f"at most {hi:.0f}" if lo_open
                         else f"at least {lo:.0f}" if hi_open else f"({lo:.0f}-{hi:.0f})")
             note = "undetermined"
-            if result.c_at_bound[g]:
+            if result.c_at_bound[g] and not (lo_open and hi_open):
                 note += f", fit goes to the bound {result.c[g]:.0f}"
             note += f"; model C {model_c[g]:.0f} kept"
         lines.append(f"{name:<{w}s} {c_text:>6s} {interval:>15s} {int(n_pipes[g]):6d}  {note}")
