@@ -222,12 +222,14 @@ def _glance(result, pu: str) -> str:
     counts = {k: status.count(k) for k in ("informed", "weakly informed", "undetermined")}
     words = ", ".join(f"{n} {k}" for k, n in counts.items() if n)
     n_flag = sum(1 for f in result.flag if f)
+    n_lean = sum(1 for f in result.influence if f)
     n_out = int((~est.used).sum())
     rmse = units.from_si(result.rmse, "pressure", pu)
     at_bound = [name for name, b in zip(result.grouping.names, result.c_at_bound) if b]
     text = (f"{t.n_tests} tests, {t.n_readings} readings; {result.grouping.n_groups} pipe groups: "
-            f"{words}. {n_flag} reading(s) flagged"
+            f"{words}. {n_flag} suspect reading(s) flagged"
             + (f", {n_out} left out of the final fit" if n_out else "")
+            + (f"; {n_lean} influential reading(s), listed apart (not suspect)" if n_lean else "")
             + f". RMSE of pressures {rmse:.2f} {pu}.")
     if at_bound:
         text += (f" Fit goes to a C bound (no fitted value; the exports keep the model's C): "

@@ -7,22 +7,15 @@ import pytest
 from calib import units
 from calib.calibration import fit, read_tests
 from calib.calibration.estimate import covariance
-from calib.calibration.groups import make_groups
 from calib.calibration.priors import GroupPrior
-from calib.calibration.synthetic import (grid_network, plan_tests, synthetic_tests,
+from calib.calibration.synthetic import (plan_tests, synthetic_tests,
                                          write_tests_folder)
-from calib.hydraulics import NetworkSolver
 
 TRUTH = np.array([120.0, 90.0, 70.0])
 
 
-@pytest.fixture(scope="module")
-def small():
-    """A 6 x 5 grid (50 pipes), 3 groups, 9 tests spread over the districts."""
-    net = grid_network(6, 5, n_groups=3, seed=4)
-    grp = make_groups(net)
-    plan = plan_tests(net, 9, seed=1, flow_gpm=(1000.0, 1500.0))
-    return net, grp, plan, NetworkSolver(net)
+# the fixture `small` (a 6 x 5 grid, 3 groups, 9 tests) is in conftest.py, shared with
+# test_intervals_scale.py
 
 
 def test_covariance_matches_the_linear_least_squares_formula():
