@@ -8,7 +8,7 @@
   (informed, weakly informed, undetermined); ``determined`` (true/false: false when undetermined or on
   a C bound); ``at_bound`` (true whenever the fit's C sits on a C bound); ``interval_method``
   (linearized, or profile likelihood where the linearized interval cannot be trusted);
-  ``tests_say`` (the interval or limit in words, e.g. "C at most 62 at 95 %"); ``c_all_readings``
+  ``interval_text`` (the interval or limit in words, e.g. "C at most 62 at 95 %"); ``c_all_readings``
   (the fit with every reading, when readings were left out); ``model_c`` (the network's C before,
   length-weighted).
 - ``roughness.csv``: one row per pipe (``pipe_id, group, c_factor, c_low, c_high, c_source``), ready for
@@ -57,7 +57,7 @@ def groups_frame(result) -> pd.DataFrame:
         "determined": det,
         "at_bound": result.c_at_bound,
         "interval_method": result.c_method,
-        "tests_say": [result.limit(i) for i in range(g.n_groups)],
+        "interval_text": [result.limit(i) for i in range(g.n_groups)],
     })
     if result.first is not None:
         frame["c_all_readings"] = np.round(result.first.x[result.c_cols], 2)

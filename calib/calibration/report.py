@@ -291,13 +291,15 @@ def render(result, system: str = "us", curves: bool = True) -> str:
     for i, r in gf.iterrows():
         if result.c_determined[i]:
             status = r["status"] + (f" ({result.informed[i]:.0%})" if result.prior is not None else "")
-            c_text, interval = _fmt(r["c_factor"]), f"{_fmt(r['c_low'])} - {_fmt(r['c_high'])}"
+            c_text = _fmt(r["c_factor"])
+            interval = (f"{_fmt(r['c_low'])} - {_fmt(r['c_high'])}"
+                        if np.isfinite(r["c_low"]) and np.isfinite(r["c_high"]) else r["interval_text"])
         else:
             limited = not (result.c_low_open[i] and result.c_high_open[i])
             status = "undetermined" + (", fit goes to a C bound" if bool(r["at_bound"]) and limited
                                        else "") \
                 + f"; the exports keep the model's C {r['model_c']:.0f}"
-            c_text, interval = "-", r["tests_say"]
+            c_text, interval = "-", r["interval_text"]
         if r["interval_method"] != "linearized":
             interval += " (profile likelihood)"
         rows.append([r["group"], c_text, interval,

@@ -192,7 +192,9 @@ def summary(result, system: str = "us") -> str:
         lo_open, hi_open = bool(result.c_low_open[g]), bool(result.c_high_open[g])
         if result.c_determined[g]:
             c_text = f"{result.c[g]:6.1f}"
-            interval = f"{lo:6.1f}-{hi:6.1f}"
+            # an end on a C bound is no limit: say the one side the fit bounds
+            interval = (f"at least {lo:.1f}" if hi_open else f"at most {hi:.1f}" if lo_open
+                        else f"{lo:6.1f}-{hi:6.1f}")
             note = result.status[g]
             if result.prior is not None:
                 note += f" ({result.informed[g]:.0%} from the tests)"
