@@ -245,7 +245,8 @@ def run(args) -> int:
                          expected="a folder for the outputs (created when missing)")
     network = read_network(args.network)
     tests = read_tests(args.tests, network, sigma=sigma)
-    bar = None if args.quiet else ProgressBar(expected=12 * 2 * tests.n_tests)
+    # about 100 solves a test on the demo day (fit, refits, interval checks, leave-one-out)
+    bar = None if args.quiet else ProgressBar(expected=100 * tests.n_tests)
     try:
         result = fit(network, tests, group_by=args.group_by, prior=args.prior, c_bounds=c_bounds,
                      loss=args.loss, demand_factor=args.demand_factor,
