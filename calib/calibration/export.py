@@ -22,6 +22,7 @@
   a leave-one-out refit that moves a C; empty otherwise). Influence is a property of where the tests
   were made, not of the reading's quality: an influential reading is often the only one that informs a
   group. Filter on ``flag`` for suspects, never on ``influence``.
+- ``covariance.csv``: the covariance of the group C-factors (``group`` then one column per group).
 - ``pipes.geojson``: the network with the C of roughness.csv (``calib.network.io.write_network_geojson``),
   written when the network came with coordinates or pipe geometry.
 Text cells are neutralized against spreadsheet formulas by ``calib.fileio.write_csv``.
@@ -72,6 +73,18 @@ def other_parameters_frame(result) -> pd.DataFrame:
              "high": round(float(est.high[i]), 4), "unit": "[-]" if p.kind == "demand" else "[m]"}
             for i, p in enumerate(result.params) if p.kind != "c"]
     return pd.DataFrame(rows, columns=["parameter", "value", "low", "high", "unit"])
+
+
+def covariance_frame(result) -> pd.DataFrame:
+    """Covariance of the group C-factors [C^2] (``estimate.py``), one row and column per group in
+    groups.csv order; blank where a group is undetermined (no finite variance). Read by
+    ``calib.fireflow`` to carry the C uncertainty into the fire flow."""
+    names = list(result.grouping.names)
+    cov = np.asarray(result.estimate.cov, float)[np.ix_(result.c_cols, result.c_cols)]
+    cov = np.where(np.isfinite(cov), cov, np.nan)
+    frame = pd.DataFrame(cov, columns=names)
+    frame.insert(0, "group", names)
+    return frame
 
 
 def roughness_frame(result) -> pd.DataFrame:
@@ -125,7 +138,8 @@ def write_outputs(result, out, system: str = "us") -> list[Path]:
     out = Path(out)
     paths = [fileio.write_csv(out / "groups.csv", groups_frame(result)),
              fileio.write_csv(out / "roughness.csv", roughness_frame(result)),
-             fileio.write_csv(out / "readings.csv", readings_frame(result, system))]
+             fileio.write_csv(out / "readings.csv", readings_frame(result, system)),
+             fileio.write_csv(out / "covariance.csv", covariance_frame(result))]
     other = other_parameters_frame(result)
     if len(other):
         paths.append(fileio.write_csv(out / "parameters.csv", other))
