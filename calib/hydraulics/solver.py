@@ -235,7 +235,11 @@ class NetworkSolver:
             S = pat.assemble(w, isolated.astype(float))
             rhs = F2 - pat.inflow(w * F1)[:nj]
             rhs[isolated] = 0.0
-            dH = self._linear_solve(S, rhs, w, isolated, mass_tol) if nj else np.zeros(0)
+            try:
+                dH = self._linear_solve(S, rhs, w, isolated, mass_tol) if nj else np.zeros(0)
+            except (RuntimeError, ValueError, np.linalg.LinAlgError) as exc:  # e.g. singular LU
+                self._fail(f"the linear system is singular ({exc}); a pipe of extreme diameter, "
+                           "length or C is the usual cause", it + 1, F2, dH, dq, e2)
             dHn = np.concatenate([dH, np.zeros(net.n_sources)])
             dq = -w * (F1 - (dHn[f] - dHn[t]))
             if not (np.all(np.isfinite(dH)) and np.all(np.isfinite(dq))):
