@@ -143,6 +143,16 @@ def check_unit_text(unit) -> None:
                          "gpm, L/s, ft or m**3/s)")
 
 
+def parse_number(text: str) -> float:
+    """A plain number written as text (a table cell, a bare option): ``parse_value_text`` without
+    a unit. Raises ``ValueError`` saying why (a comma, an expression, a unit, junk)."""
+    magnitude, unit = parse_value_text(text)
+    if unit is not None:
+        raise ValueError(f"'{_shown(text)}' is not a number (the unit belongs in the column header "
+                         "or is not wanted here)")
+    return magnitude
+
+
 def parse_value_text(text: str) -> tuple[float, str | None]:
     """Split a typed value ``"72.5 psi"`` into ``(72.5, "psi")``; ``"72"`` gives ``(72.0, None)``.
 
