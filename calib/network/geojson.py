@@ -152,6 +152,7 @@ def _read_collection(path: Path, file: str, data) -> Network:
             f"-180..180 / latitude -90..90, and the file gives no length_unit", file=file,
             field="length_unit", expected='a top-level "length_unit": "ft" (or "m") for a file '
             "in map-grid coordinates, or WGS84 longitude/latitude (RFC 7946)"))
+        raise NetworkError(problems)  # lengths measured on such coordinates would only add noise
     parsed = {name: c.parse(file, name, problems) for name, c in tables.items()
               if name != "pumps" or c.rows}
     network_tables = NetworkTables(parsed["junctions"], parsed["sources"], parsed["pipes"],
