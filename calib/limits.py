@@ -15,6 +15,7 @@ This module holds numbers and their wording only; it does not parse text (``cali
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 
@@ -69,6 +70,7 @@ class Limit:
         unit = _UNIT[system][self.kind]
         return f"{_num(from_si(lo, self.kind, unit))} to {_num(from_si(hi, self.kind, unit))} {unit}"
 
+    @functools.lru_cache(maxsize=64)  # noqa: B019 - a few frozen limits, built once
     def expected(self, system: str = "us") -> str:
         """The range in words for an error message, both unit systems, the usual range beside."""
         more = "more than " if self.low_open else ""

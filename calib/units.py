@@ -14,6 +14,7 @@ Conventions (printed in reports and outputs):
 
 from __future__ import annotations
 
+import functools
 import re
 
 import pint
@@ -61,6 +62,7 @@ def parse_header(header: str) -> tuple[str, str | None]:
     return m.group("name").strip().lower(), (unit.strip() if unit is not None else None)
 
 
+@functools.lru_cache(maxsize=512)  # a few units are asked for again and again; pint is slow
 def unit_factor(unit: str, kind: str) -> float:
     """Factor that turns a magnitude in ``unit`` into SI for a physical ``kind`` (see ``SI_UNIT``).
 

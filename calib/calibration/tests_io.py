@@ -192,6 +192,8 @@ class _Table:
         """
         raw = self.text(i, name)
         where = dict(file=self.name, row=i + 2, id=row_id, field=self.columns.get(name, name))
+        if raw == "" and not required:
+            return math.nan
         expected = _expected(name)
         if raw == "":
             if required:
@@ -360,9 +362,12 @@ def read_tests(folder, network, sigma: float = units.PSI) -> TestSet:
             t_idx = test_index(tid, f, i)
             n_idx = _node(network, f, i, tid, problems)
             q = f.number(i, "flow", tid) if "flow" in f.columns else math.nan
-            if f.text(i, "flow") != "" and f.text(i, "pitot") != "" and \
-                    not _flow_matches_pitot(f, i, tid, q, problems):
-                continue
+            if f.text(i, "flow") != "" and f.text(i, "pitot") != "":
+                if not _flow_matches_pitot(f, i, tid, q, problems):
+                    continue
+            elif f.text(i, "flow") != "":  # unused beside a measured flow, yet never junk
+                _coefficient(f, i, tid)
+                f.number(i, "outlet_diameter", tid)
             if math.isnan(q) and f.text(i, "flow") == "":
                 if "pitot" not in f.columns or f.text(i, "pitot") == "":
                     problems.append(Problem("neither flow nor pitot is given", file="flows.csv",
