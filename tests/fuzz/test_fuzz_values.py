@@ -18,7 +18,7 @@ from . import oracle
 from .strategies import maybe, must_refuse
 
 
-@oracle.fuzz_settings(1500)
+@oracle.fuzz_settings(1200)
 @given(text=maybe, field=st.sampled_from(sorted(values.FIELDS)), system=st.sampled_from(["us", "si"]))
 def test_app_value_parsing(text, field, system):
     with oracle.time_bound():
@@ -46,7 +46,7 @@ def test_app_refuses_every_known_bad_value(text, field):
     raise AssertionError(f"{text!r} was taken as a {field}")
 
 
-@oracle.fuzz_settings(800)
+@oracle.fuzz_settings(700)
 @given(text=maybe, kind=st.sampled_from(["pressure", "flow", "diameter", "length", "head"]))
 def test_value_text_is_a_number_and_a_unit(text, kind):
     with oracle.time_bound():
@@ -84,7 +84,7 @@ GOOD = {
 }
 
 
-@oracle.fuzz_settings(500)
+@oracle.fuzz_settings(300)
 @given(data=st.data(), broken=st.lists(st.sampled_from(sorted(OPTIONS)), min_size=1, max_size=3,
                                        unique=True), mode=st.sampled_from(["bad", "maybe", "good"]),
        units_system=st.sampled_from(["us", "si"]))
