@@ -143,8 +143,7 @@ ELEVATION = Limit("elevation", "elevation", -500.0, 6000.0, "common practice; fr
 DEMAND = Limit("demand", "flow", -100000 * GPM, 100000 * GPM, "common practice")
 #: Pipe inside diameter: service lines from about 3/4 in; the largest water tunnels about 7-8 m
 #: (from memory). 10 m leaves room; a 1e9 diameter makes the solver's matrix singular.
-PIPE_DIAMETER = Limit("pipe diameter", "diameter", 5 * _MM, 10.0, "common practice; from memory",
-                      usual=(2 * INCH, 144 * INCH))
+PIPE_DIAMETER = Limit("pipe diameter", "diameter", 5 * _MM, 10.0, "common practice; from memory")
 #: Pipe length: above zero (``validate`` says so); 100 km bounds a single transmission main link.
 PIPE_LENGTH = Limit("pipe length", "length", 0.0, 100e3, "common practice", low_open=True)
 #: Hazen-Williams C: new PVC about 150, old unlined cast iron 40-100 (handbook tables, e.g. the

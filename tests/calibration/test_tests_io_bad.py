@@ -6,23 +6,12 @@ c 0.90, d 2.5 in, p 40 psi -> 1061.22 gpm (check-values.md [C]). Ranges: ``calib
 import pytest
 
 from calib.calibration import read_tests
-from calib.calibration.synthetic import grid_network
 from calib.errors import InputError
+
+from .test_tests_io import _write, net  # noqa: F401 - the same small network and folder writer
 
 FLOWS = "test_id,node,flow [gpm]\nA,J5,1000\n"
 PRESSURES = "test_id,node,static [psi],residual [psi]\nA,J4,80,70\n"
-
-
-@pytest.fixture()
-def net():
-    return grid_network(4, 3, seed=0)
-
-
-def _write(folder, **files):
-    folder.mkdir(parents=True, exist_ok=True)
-    for name, text in files.items():
-        (folder / f"{name}.csv").write_text(text)
-    return folder
 
 
 def problems(folder, net) -> str:

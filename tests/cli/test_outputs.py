@@ -125,3 +125,12 @@ def test_solve_demand_factor_refused(net_copy, tmp_path, capsys, value):
     code, _, err = run(capsys, "solve", net_copy, "--out", tmp_path / "n.csv",
                        f"--demand-factor={value}")
     assert code == 2 and "field '--demand-factor'" in err
+
+
+@pytest.mark.parametrize("rule", ["diameter=8,1e400", "diameter=8,nan", "diameter=0"])
+def test_fit_group_by_band_edges_outside_pipe_diameters_are_refused(tmp_path, capsys, rule):
+    # accepted before: an infinite or NaN band edge grouped pipes silently
+    code, _, err = run(capsys, "fit", NETWORK, TESTS, "--out", tmp_path / "o", "--quiet",
+                       f"--group-by={rule}")
+    assert code == 2 and "field '--group-by'" in err and "plausible pipe diameter" in err
+    assert not (tmp_path / "o").exists()

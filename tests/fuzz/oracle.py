@@ -88,13 +88,13 @@ def refused_well(code: int, err: str, target: str) -> bool:
     assert code in (0, 1, 2), f"exit code {code}: {err[-500:]}"
     assert "Traceback" not in err
     if code == 2:
-        assert err.startswith("error: ") or "usage:" in err, err[-500:]
-        if not "usage:" in err:  # argparse's own refusals name the option in its words
+        assert "\nerror: " in "\n" + err or "usage:" in err, err[-500:]  # warnings may come first
+        if "usage:" not in err:  # argparse's own refusals name the option in its words
             assert _NAMES.search(err), f"the message names no file, row, id, field or option: {err}"
         COUNTS[(target, "refused well")] += 1
         return True
     if code == 1:
-        assert err.startswith("error: "), err[-500:]
+        assert "\nerror: " in "\n" + err, err[-500:]
         COUNTS[(target, "computation refused (exit 1)")] += 1
         return False
     COUNTS[(target, "accepted")] += 1

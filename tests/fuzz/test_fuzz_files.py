@@ -152,22 +152,29 @@ def test_network_cell_that_cannot_be_a_number_in_range_is_refused(mutation):
     oracle.library_refusal(err.value, "network reader")
 
 
+def structural_case(mutation, tables, read, error, target, refuse_kinds, check):
+    """One structural mutation of a copy of ``tables``: read into plausible values, or refused."""
+    with tempfile.TemporaryDirectory() as tmp:
+        folder = Path(tmp)
+        write(folder, tables)
+        kind = apply_structure(folder, tables, mutation)
+        try:
+            with oracle.time_bound():
+                got = read(folder)
+        except error as exc:
+            oracle.library_refusal(exc, target)
+            return
+    assert (kind, mutation[1]) not in refuse_kinds, f"{kind} of {mutation[1]} accepted"
+    check(got)
+    oracle.COUNTS[(target, "accepted")] += 1
+
+
 @oracle.fuzz_settings(100)
 @given(mutation=structural_mutation(NETWORK))
 def test_network_folder_mutations(mutation):
-    with tempfile.TemporaryDirectory() as tmp:
-        folder = Path(tmp)
-        write(folder, NETWORK)
-        kind = apply_structure(folder, NETWORK, mutation)
-        try:
-            with oracle.time_bound():
-                net = read_network(folder)
-        except NetworkError as exc:
-            oracle.library_refusal(exc, "network reader")
-            return
-    assert kind not in ("folder", "empty", "duplicate row", "binary") or mutation[1] == "pumps.csv"
-    check_network(net)
-    oracle.COUNTS[("network reader", "accepted")] += 1
+    must = {(k, n) for k in ("folder", "empty", "duplicate row", "binary") for n in NETWORK_FILES}
+    structural_case(mutation, NETWORK, read_network, NetworkError, "network reader", must,
+                    check_network)
 
 
 _NET = read_network(DEMO / "network")
@@ -199,20 +206,10 @@ def test_tests_cell_that_cannot_be_a_number_in_range_is_refused(mutation):
 @oracle.fuzz_settings(100)
 @given(mutation=structural_mutation(TESTS))
 def test_tests_folder_mutations(mutation):
-    with tempfile.TemporaryDirectory() as tmp:
-        folder = Path(tmp)
-        write(folder, TESTS)
-        kind = apply_structure(folder, TESTS, mutation)
-        try:
-            with oracle.time_bound():
-                ts = read_tests(folder, _NET)
-        except InputError as exc:
-            oracle.library_refusal(exc, "tests reader")
-            return
-    assert kind not in ("folder", "binary") and not (kind == "empty" and mutation[1] in (
-        "flows.csv", "pressures.csv")), f"{kind} of {mutation[1]} accepted"
-    check_tests(ts)
-    oracle.COUNTS[("tests reader", "accepted")] += 1
+    must = {(k, n) for k in ("folder", "binary") for n in TEST_FILES} | \
+        {("empty", n) for n in ("flows.csv", "pressures.csv")}
+    structural_case(mutation, TESTS, lambda folder: read_tests(folder, _NET), InputError,
+                    "tests reader", must, check_tests)
 
 
 SMALL = {"junctions.csv": "id,elevation [ft],demand [gpm]\nJ1,100,50\nJ2,110,20\n",

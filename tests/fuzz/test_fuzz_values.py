@@ -130,3 +130,22 @@ def _bare(option, system):
     kind = {"pressure": "pressure", "diameter": "diameter", "flow": "flow", "elevation": "elevation",
             "length": "length"}[KIND[option].kind]
     return _BARE[system][kind]
+
+
+@oracle.fuzz_settings(300)
+@given(rule=st.one_of(maybe, st.builds(lambda k, e: f"{k}={e}", st.sampled_from(
+    ["diameter", "material", "decade", "group"]), maybe), st.builds(
+    lambda a, b: f"material,diameter={a},{b}", maybe, maybe)))
+def test_group_by_rule(rule):
+    from calib.calibration.groups import parse_rule
+    with oracle.time_bound():
+        try:
+            parts = parse_rule(rule)
+        except InputError as exc:
+            assert "'--group-by'" in str(exc)
+            oracle.COUNTS[("fit --group-by rule", "refused well")] += 1
+            return
+    for key, edges in parts:
+        for edge in edges or ():
+            assert not limits.PIPE_DIAMETER.refuses(edge * units.INCH), rule
+    oracle.COUNTS[("fit --group-by rule", "accepted")] += 1
