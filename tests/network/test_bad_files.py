@@ -126,3 +126,11 @@ def test_good_lon_lat_file_still_reads(tmp_path):
     path.write_text(json.dumps(_collection(_grid_features(10.0, 50.0, 0.004))))
     net = read_network(path)
     assert np.isfinite(net.length).all() and net.length[0] > 0
+
+
+def test_header_unit_that_is_an_expression_is_refused_at_once(make_folder):
+    import time
+    started = time.monotonic()
+    text = problems_of(make_folder(pipes=PIPES.replace("diameter [in]", "diameter [9**9**9]")))
+    assert "pipes.csv, row 1, field 'diameter'" in text and "unknown unit" in text
+    assert time.monotonic() - started < 10  # not evaluated by pint
