@@ -215,6 +215,16 @@ class _Table:
         return value
 
 
+def _coefficient(table: _Table, i: int, row_id: str) -> float:
+    """Outlet coefficient of row i: a number, an outlet shape (NFPA 291 outlet figure), 0.90 if blank."""
+    raw = table.text(i, "coefficient").lower()
+    if raw == "":
+        return DEFAULT_COEFFICIENT
+    if raw in OUTLET_COEFFICIENTS:
+        return OUTLET_COEFFICIENTS[raw]
+    return table.number(i, "coefficient", row_id)  # range and message as for every other number
+
+
 def _expected(name: str) -> str | None:
     """The plausible range of column ``name`` in words (None for a column without one)."""
     if name not in RANGE:
@@ -259,16 +269,6 @@ def _flow_matches_pitot(table: _Table, i: int, row_id: str, flow: float, problem
             expected="one of them per row, or a flow that is the pitot's (within 1 %)"))
         return False
     return True
-
-
-def _coefficient(table: _Table, i: int, row_id: str) -> float:
-    """Outlet coefficient of row i: a number, an outlet shape (NFPA 291 outlet figure), 0.90 if blank."""
-    raw = table.text(i, "coefficient").lower()
-    if raw == "":
-        return DEFAULT_COEFFICIENT
-    if raw in OUTLET_COEFFICIENTS:
-        return OUTLET_COEFFICIENTS[raw]
-    return table.number(i, "coefficient", row_id)  # range and message as for every other number
 
 
 def _node(network, table: _Table, i: int, row_id: str, problems, junction_only=True) -> int | None:

@@ -235,11 +235,7 @@ class NetworkSolver:
             S = pat.assemble(w, isolated.astype(float))
             rhs = F2 - pat.inflow(w * F1)[:nj]
             rhs[isolated] = 0.0
-            try:
-                dH = self._linear_solve(S, rhs, w, isolated, mass_tol) if nj else np.zeros(0)
-            except (RuntimeError, ValueError, np.linalg.LinAlgError) as exc:  # e.g. singular LU
-                self._fail(f"the linear system is singular ({exc}); a pipe of extreme diameter, "
-                           "length or C is the usual cause", it + 1, F2, dH, dq, e2)
+            dH = self._linear_solve(S, rhs, w, isolated, mass_tol) if nj else np.zeros(0)
             dHn = np.concatenate([dH, np.zeros(net.n_sources)])
             dq = -w * (F1 - (dHn[f] - dHn[t]))
             if not (np.all(np.isfinite(dH)) and np.all(np.isfinite(dq))):
@@ -274,7 +270,12 @@ class NetworkSolver:
                 dH = self.pattern.pcg(S, fac[0], rhs, 0.1 * mass_tol, cap)
                 if dH is not None:
                     return dH
-        factor = self.pattern.factorize(S)
+        try:
+            factor = self.pattern.factorize(S)
+        except (RuntimeError, ValueError, np.linalg.LinAlgError) as exc:  # e.g. singular LU
+            raise ConvergenceError(
+                f"network '{self.network.name}': the linear system is singular ({exc}); a pipe of "
+                "extreme diameter, length or C is the usual cause") from None
         self.factorizations += 1
         self._factor = (factor, w, isolated.copy())
         return factor(rhs)

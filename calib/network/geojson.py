@@ -133,6 +133,7 @@ def _read_collection(path: Path, file: str, data) -> Network:
                                    expected='{"type": "FeatureCollection", "features": [...]}'))
     problems: list[Problem] = []
     scale = None  # metres per coordinate unit; None = longitude/latitude
+    outside: list[int] = []  # features whose coordinates are no longitude/latitude
     if data.get("length_unit") is not None:
         try:
             scale = unit_factor(str(data["length_unit"]), "length")
@@ -142,7 +143,6 @@ def _read_collection(path: Path, file: str, data) -> Network:
             scale = 1.0
     tables = {name: _Collector() for name in ("junctions", "sources", "pipes", "pumps")}
     geometry = {"pipes": [], "pumps": []}
-    outside: list[int] = []  # features whose coordinates are no longitude/latitude
     for row, feature in enumerate(data["features"], start=1):
         _read_feature(file, row, feature, scale, tables, geometry, problems, outside)
     if outside:

@@ -18,9 +18,10 @@ from scipy.sparse.csgraph import connected_components
 
 from calib import limits
 from calib.errors import NetworkError, Problem
-from calib.network import pump_curve, ranges
+from calib.network import pump_curve
 from calib.network.model import Network, PipeStatus, Pumps
 from calib.network.tables import NetworkTables, ParsedTable
+from calib.network.ranges import check_ranges
 
 #: Plausible Hazen-Williams C: new smooth pipe is about 150, badly tuberculated mains go below 40.
 C_RANGE = (limits.C_FACTOR.low, limits.C_FACTOR.high)  # stated in calib.limits
@@ -183,7 +184,7 @@ def assemble(tables: NetworkTables, problems: list[Problem], name: str = "networ
     repeated = np.array([index.get(str(k), -1) != i for i, k in enumerate(node_ids)], dtype=bool)
     p_from, p_to = _link_ends(p, index, problems)
     _check_pipe_values(p, problems)
-    ranges.check_ranges(tables, problems)  # plausibility of every number (calib.limits)
+    check_ranges(tables, problems)  # plausibility of every number (calib.limits)
     status = p.get("status", 0) if "status" in p.values else np.zeros(len(p), np.int8)
     status = np.asarray(status, dtype=np.int8)
     frm, to, active = p_from, p_to, status != PipeStatus.CLOSED
