@@ -34,8 +34,8 @@ DEFAULT_UNIT = {"flow": "gpm", "pitot": "psi", "outlet_diameter": "in", "static"
                 "residual": "psi", "gauge_height": "ft", "sigma": "psi", "head": "ft"}
 KIND = {"flow": "flow", "pitot": "pressure", "outlet_diameter": "diameter", "static": "pressure",
         "residual": "pressure", "gauge_height": "length", "sigma": "pressure", "head": "head"}
-#: Plausible range of each column, stated once in ``calib.limits`` (messages in US units, as crews
-#: read them, SI beside).
+#: Plausible ranges in SI, with the text shown in messages (US units, as crews read them).
+#: Each is stated once, in ``calib.limits``; messages give the SI range beside.
 RANGE = {
     "flow": limits.FLOW,
     "pitot": limits.PITOT,
