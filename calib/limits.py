@@ -135,6 +135,10 @@ SIGMA = Limit("gauge accuracy", "pressure", 0.01 * PSI, 20 * PSI, "common practi
 #: the highest served towns lie near 4 000-5 000 m (from memory).
 HEAD = Limit("hydraulic grade", "head", -500.0, 6000.0, "common practice; from memory")
 
+#: A tank's water depth above its floor (boundary.csv ``level``, the field app's tank level):
+#: standpipes and elevated tanks stand up to some tens of metres; 100 m leaves room.
+TANK_LEVEL = Limit("tank level", "head", 0.0, 100.0, "common practice")
+
 # --- the network -------------------------------------------------------------------------------
 #: Ground elevation of a node, the same reasoning as ``HEAD``.
 ELEVATION = Limit("elevation", "elevation", -500.0, 6000.0, "common practice; from memory")

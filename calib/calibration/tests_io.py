@@ -46,6 +46,7 @@ RANGE = {
     "gauge_height": limits.GAUGE_HEIGHT,
     "sigma": limits.SIGMA,
     "head": limits.HEAD,
+    "level": limits.TANK_LEVEL,  # a tank's level above its floor, where boundary.csv gives one
 }
 DEFAULT_COEFFICIENT = 0.90  # NFPA 291 outlet figure: smooth, well-rounded outlet
 
