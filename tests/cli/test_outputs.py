@@ -134,3 +134,25 @@ def test_fit_group_by_band_edges_outside_pipe_diameters_are_refused(tmp_path, ca
                        f"--group-by={rule}")
     assert code == 2 and "field '--group-by'" in err and "plausible pipe diameter" in err
     assert not (tmp_path / "o").exists()
+
+
+def test_fireflow_outputs_beside_out_never_overwrite_the_network(tmp_path, capsys):
+    # fireflow writes OUT.csv, OUT.geojson and OUT.html: --out town.csv beside town.geojson would
+    # have replaced the network it read
+    from calib.network.io import read_network, write_network_geojson
+    path = write_network_geojson(read_network(NETWORK), tmp_path / "town.geojson")
+    before = path.read_bytes()
+    code, _, err = run(capsys, "fireflow", path, "--out", tmp_path / "town.csv", "--workers", "0",
+                       "--quiet")
+    assert code == 2 and "field '--out'" in err and "town.geojson" in err
+    assert path.read_bytes() == before
+
+
+@pytest.mark.parametrize("argv, option", [
+    (["--demand-factor", "1_0"], "--demand-factor"), (["--demand-factor", "2**3"], "--demand-factor"),
+    (["--residual", "9**9**9 psi"], "--residual"), (["--system-minimum", "20,5"], "--system-minimum"),
+])
+def test_fireflow_options_are_numbers_and_units(tmp_path, capsys, argv, option):
+    code, _, err = run(capsys, "fireflow", NETWORK, "--out", tmp_path / "f.csv", "--workers", "0",
+                       "--quiet", *argv)
+    assert code == 2 and f"field '{option}'" in err
