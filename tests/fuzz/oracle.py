@@ -108,6 +108,11 @@ def library_refusal(exc: BaseException, target: str) -> None:
     COUNTS[(target, "refused well")] += 1
 
 
+def names_something(text: str) -> bool:
+    """True when a message names a file, a row, an id, a field or an option."""
+    return bool(_NAMES.search(text))
+
+
 def report() -> list[str]:
     """Lines for the terminal summary: cases per target and outcome."""
     targets = sorted({t for t, _ in COUNTS})

@@ -136,20 +136,27 @@ def check_network(net) -> None:
     assert np.all((net.roughness >= limits.C_FACTOR.low) & (net.roughness <= limits.C_FACTOR.high))
 
 
-@oracle.fuzz_settings(100)
-@given(mutation=cell_mutation(NETWORK))
-def test_network_cell_that_cannot_be_a_number_in_range_is_refused(mutation):
+def refusal_of_cell(mutation, tables, read, error) -> str:
+    """Write ``tables`` with one cell replaced, read them: the refusal's text (any other outcome fails)."""
     name, i, j, value = mutation
-    tables = {n: [list(r) for r in rows] for n, rows in NETWORK.items()}
+    tables = {n: [list(r) for r in rows] for n, rows in tables.items()}
     tables[name][i][j] = value
     with tempfile.TemporaryDirectory() as tmp:
         write(Path(tmp), tables)
-        with oracle.time_bound(), pytest.raises(NetworkError) as err:
-            read_network(tmp)
-    text = str(err.value)
+        with oracle.time_bound(), pytest.raises(error) as err:
+            read(tmp)
+    assert oracle.names_something(str(err.value)), str(err.value)
+    return str(err.value)
+
+
+@oracle.fuzz_settings(100)
+@given(mutation=cell_mutation(NETWORK))
+def test_network_cell_that_cannot_be_a_number_in_range_is_refused(mutation):
+    name, i, _, _ = mutation
+    text = refusal_of_cell(mutation, NETWORK, read_network, NetworkError)
     assert name in text, text
     assert f"{name}, row {i + 1}" in text or "cannot be read" in text, text
-    oracle.library_refusal(err.value, "network reader")
+    oracle.COUNTS[("network reader", "refused well")] += 1
 
 
 def structural_case(mutation, tables, read, error, target, refuse_kinds, check):
@@ -191,16 +198,10 @@ def check_tests(ts) -> None:
 @oracle.fuzz_settings(100)
 @given(mutation=cell_mutation(TESTS))
 def test_tests_cell_that_cannot_be_a_number_in_range_is_refused(mutation):
-    name, i, j, value = mutation
-    tables = {n: [list(r) for r in rows] for n, rows in TESTS.items()}
-    tables[name][i][j] = value
-    with tempfile.TemporaryDirectory() as tmp:
-        write(Path(tmp), tables)
-        with oracle.time_bound(), pytest.raises(InputError) as err:
-            read_tests(tmp, _NET)
-    text = str(err.value)
+    name, i, _, _ = mutation
+    text = refusal_of_cell(mutation, TESTS, lambda folder: read_tests(folder, _NET), InputError)
     assert f"{name}, row {i + 1}" in text or ("cannot be read" in text and name in text), text
-    oracle.library_refusal(err.value, "tests reader")
+    oracle.COUNTS[("tests reader", "refused well")] += 1
 
 
 @oracle.fuzz_settings(100)
