@@ -58,8 +58,8 @@ def register(subparsers) -> None:
 #: Every file ``fit`` can write into OUT. A run replaces them all: a file of this list that the run
 #: does not write (report.html with --no-report, parameters.csv, pipes.geojson) is removed, so no
 #: file of an earlier run can pass for this run's (``calib.fileio.output_folder``).
-OUTPUTS = ("groups.csv", "roughness.csv", "readings.csv", "parameters.csv", "pipes.geojson",
-           "report.html")
+OUTPUTS = ("groups.csv", "roughness.csv", "readings.csv", "parameters.csv", "covariance.csv",
+           "pipes.geojson", "report.html")
 
 
 def _bounds(text: str) -> tuple[float, float]:
