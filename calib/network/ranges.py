@@ -22,7 +22,8 @@ CHECKS = {
     "junctions": (("elevation", limits.ELEVATION, False), ("demand", limits.DEMAND, False),
                   ("x", limits.MAP_COORDINATE, False), ("y", limits.MAP_COORDINATE, False)),
     "sources": (("head", limits.HEAD, False), ("elevation", limits.ELEVATION, False),
-                ("x", limits.MAP_COORDINATE, False), ("y", limits.MAP_COORDINATE, False)),
+                ("x", limits.MAP_COORDINATE, False), ("y", limits.MAP_COORDINATE, False),
+                ("floor", limits.ELEVATION, False), ("level_max", limits.TANK_LEVEL, True)),
     "pipes": (("length", limits.PIPE_LENGTH, True), ("diameter", limits.PIPE_DIAMETER, True),
               ("minor_loss", limits.MINOR_LOSS, True)),
     "pumps": (*((f"{q}_{i}", limits.PUMP_HEAD if q == "head" else limits.PUMP_FLOW, False)

@@ -68,6 +68,8 @@ FIELDS = {
     "target": _spec("target", "pressure", limits.PRESSURE, "target residual"),
     # A source's hydraulic grade (tank water level as an elevation), as the calibration reader takes it.
     "source_grade": _spec("source_grade", "length", limits.HEAD, "source grade"),
+    # A tank's water depth above its floor, as the operator reads it.
+    "tank_level": _spec("tank_level", "length", limits.TANK_LEVEL, "tank level"),
 }
 
 
