@@ -60,7 +60,9 @@ def test_singular_solver_matrix_is_a_convergence_error_not_a_traceback():
     net = read_network(demo)
     diameter = net.diameter.copy()
     diameter[7] = 1e9
-    with pytest.raises(ConvergenceError, match="singular"):
+    # (on the zoned demo town the step turns non-finite before the factor is found singular;
+    # either way a ConvergenceError that says the linear system broke down)
+    with pytest.raises(ConvergenceError, match="singular|non-finite"):
         NetworkSolver(net.replace(diameter=diameter)).solve()
 
 
