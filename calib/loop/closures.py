@@ -1,0 +1,170 @@
+"""Which closed (or throttled) pipe would best explain a test's readings.
+
+A valve closed in the street but open in the model is the most common cause of a test that no C-factor
+explains (Walski 1983, J. Water Resour. Plann. Manage. 109(4); Walski et al. 2003, *Advanced Water
+Distribution Modeling and Management*, calibration chapter). Method:
+
+1. Screen every open pipe with the analytic sensitivities: for ``p_k = ln(r_k)`` (the log of pipe k's
+   resistance), ``dF1_k/dp_k = h_k`` (its friction loss), so ``dH_g/dp_k = a_g[k] h_k`` where ``a_g`` is
+   the flow response to a unit demand at gauge node g - one adjoint solve per gauge node, because the
+   global gradient system ``[[D, A12], [A12^T, 0]]`` is symmetric (Todini and Pilati 1988). A pipe
+   scores by how much of the misfit ``r = (h - y) / sigma`` its sensitivity pattern ``s_k`` explains
+   with a resistance increase: ``|r|^2 - (s_k . r)^2 / |s_k|^2`` when ``s_k . r`` has the sign of an
+   increase (a closure only ever adds resistance).
+2. Confirm the best screened ones with exact solves: the pipe's resistance multiplied by 10, 100 and
+   ``CLOSED`` (its C scaled by ``m^(-1/1.852)``, Hazen-Williams), keeping the best; misfit after =
+   the weighted sum of squares at that setting.
+3. Pipes in series (through junctions with two pipes and no gauge or flow of the test) carry the same
+   flow: no test there can tell them apart; the note says so.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.sparse as sp
+
+from calib.errors import ConvergenceError
+from calib.hydraulics.headloss import HW_FLOW_EXPONENT
+from calib.loop.linear import Linearizer, TestReadings
+
+CLOSED = 1.0e8  # resistance multiplier taken as closed (flow about 5e-5 of open at the same loss)
+THROTTLES = (10.0, 100.0)  # partly closed settings tried besides closed
+SCREEN_CHUNK = 4000
+
+
+@dataclass
+class Closure:
+    """One candidate: pipe index and id, its ends, misfits (weighted sums of squares) and a note."""
+
+    pipe: int
+    pipe_id: str
+    start: str
+    end: str
+    misfit_before: float
+    misfit_after: float
+    multiplier: float
+    note: str = ""
+    screen: float = np.nan
+
+
+class ClosureFinder:
+    """Ranks pipes whose closing or throttling best explains one test (``rank``)."""
+
+    def __init__(self, network, grouping, solver=None, linearizer: Linearizer | None = None):
+        self.network = network
+        self.lin = linearizer or Linearizer(network, grouping, solver)
+        nj = network.n_junctions
+        degree = np.bincount(np.concatenate([network.pipe_from, network.pipe_to]), minlength=network.n_nodes)
+        self._degree2 = np.flatnonzero(degree[:nj] == 2)
+        self._open = np.flatnonzero(np.asarray(network.status) == 0) if hasattr(network, "status") \
+            else np.arange(network.n_pipes)
+
+    # --- pieces --------------------------------------------------------------------------------
+    def misfit(self, test: TestReadings, state, roughness=None) -> float:
+        h = self.lin.at(state, test, roughness=roughness, jacobian=False)
+        r = (h - test.hgl) / test.sigma_head
+        return float(r @ r)
+
+    def screen(self, test: TestReadings, state) -> np.ndarray:
+        """Per pipe: the linearized misfit left after its best resistance increase (inf: cannot help)."""
+        net, lin = self.network, self.lin
+        n_links = lin.n_links
+        r_all = np.zeros(len(test.node))
+        S = np.zeros((len(test.node), net.n_pipes))
+        rough = lin.roughness(np.asarray(state)[: lin.G])
+        for kind in ("static", "residual"):
+            rows = np.flatnonzero(test.kind == kind)
+            if rows.size == 0:
+                continue
+            res = lin.solve(state, test, kind)
+            r_all[rows] = (np.asarray(res.head)[test.node[rows]] - test.hgl[rows]) / test.sigma_head[rows]
+            nodes = np.unique(test.node[rows])
+            nodes = nodes[nodes < net.n_junctions]
+            if nodes.size == 0:
+                continue
+            unit = sp.csc_matrix((np.ones(len(nodes)), (nodes, np.arange(len(nodes)))),
+                                 shape=(net.n_junctions, len(nodes)))
+            _, a = lin.solver.sensitivities(res, sp.csc_matrix((n_links, len(nodes))), unit)
+            a = a.toarray() if sp.issparse(a) else np.asarray(a)
+            # dh_k/dp_k for p_k = ln r_k: the friction loss, from dh/dC = -1.852 h / C
+            dhdp = -np.asarray(lin.solver.dheadloss_droughness(res), float) * rough / HW_FLOW_EXPONENT
+            col = {int(n): c for c, n in enumerate(nodes)}
+            for i in rows:
+                S[i] = a[: net.n_pipes, col[int(test.node[i])]] * dhdp / test.sigma_head[i]
+        sr = r_all @ S
+        ss = np.einsum("ij,ij->j", S, S)
+        # the misfit r = h - y falls when the head change s delta (delta > 0) points against r
+        helps = (sr < 0) & (ss > 0)
+        left = np.full(net.n_pipes, np.inf)
+        left[helps] = r_all @ r_all - sr[helps] ** 2 / ss[helps]
+        return left
+
+    def _series_chains(self, test: TestReadings) -> np.ndarray:
+        """Chain label per pipe: pipes joined through degree-2 junctions outside the test share one."""
+        net = self.network
+        parent = np.arange(net.n_pipes)
+
+        def find(k):
+            while parent[k] != k:
+                parent[k] = parent[parent[k]]
+                k = parent[k]
+            return k
+        busy = set(int(n) for n in test.node) | set(int(n) for n in test.flows)
+        inc = {}
+        for k, (a, b) in enumerate(zip(net.pipe_from, net.pipe_to)):
+            inc.setdefault(int(a), []).append(k)
+            inc.setdefault(int(b), []).append(k)
+        for node in self._degree2:
+            if int(node) in busy:
+                continue
+            k1, k2 = inc[int(node)]
+            parent[find(k1)] = find(k2)
+        return np.array([find(k) for k in range(net.n_pipes)])
+
+    # --- the ranking -----------------------------------------------------------------------------
+    def rank(self, test: TestReadings, state, top: int = 10, confirm: int = 25) -> list[Closure]:
+        """The ``top`` pipes whose closing or throttling best explains ``test``, best first."""
+        net, lin = self.network, self.lin
+        state = np.asarray(state, float)
+        before = self.misfit(test, state)
+        left = self.screen(test, state)
+        cand = [int(k) for k in np.argsort(left, kind="stable")[:confirm] if np.isfinite(left[k])]
+        base = lin.roughness(state[: lin.G])
+        out = []
+        for k in cand:
+            best = (np.inf, CLOSED)
+            for mult in (CLOSED,) + THROTTLES:
+                rough = base.copy()
+                rough[k] = base[k] * mult ** (-1.0 / HW_FLOW_EXPONENT)
+                try:
+                    m = self.misfit(test, state, roughness=rough)
+                except ConvergenceError:
+                    continue
+                if m < best[0] - 1e-9:
+                    best = (m, mult)
+            if not np.isfinite(best[0]):
+                continue
+            note = "closed" if best[1] == CLOSED else f"partly closed (about {best[1]:g} x its resistance)"
+            out.append(Closure(k, str(net.pipe_ids[k]), str(net.node_ids[net.pipe_from[k]]),
+                               str(net.node_ids[net.pipe_to[k]]), before, best[0], best[1], note,
+                               float(left[k])))
+        out.sort(key=lambda c: c.misfit_after)
+        chains = self._series_chains(test)
+        first = {}
+        for c in out:
+            ch = chains[c.pipe]
+            if ch in first:
+                c.note += f"; in series with {first[ch]}: no test here can tell them apart"
+            else:
+                first[ch] = c.pipe_id
+        for c in out:
+            if c.misfit_after > 0.8 * c.misfit_before:
+                c.note += "; explains little of the misfit"
+        return out[:top]
+
+    def best_for_check(self, test: TestReadings, state):
+        """(pipe id, misfit after) of the best candidate, for the check's ranking of causes."""
+        ranked = self.rank(test, state, top=1, confirm=3)
+        return (ranked[0].pipe_id, ranked[0].misfit_after) if ranked else None
