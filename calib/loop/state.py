@@ -137,3 +137,15 @@ def initial_state(network, grouping, prior: str = "handbook", fit_dir=None, year
     else:
         base = model_state(network, grouping)
     return fit_state(fit_dir, network, grouping, base) if fit_dir else base
+
+
+def default_grouping(network):
+    """The network's group column; without one, groups by material and install decade, else material."""
+    from calib.calibration.groups import make_groups
+    from calib.errors import CalibrationError
+    for rule in (None, "material,decade", "material"):
+        try:
+            return make_groups(network, rule)
+        except (CalibrationError, InputError):
+            continue
+    return make_groups(network, "material")

@@ -177,3 +177,25 @@ def test_fit_folder_without_groups_csv_names_the_folder(tmp_path, demo):
     with pytest.raises(InputError) as err:
         fit_state(tmp_path, net, grouping, handbook_state(net, grouping, 2026))
     assert "groups.csv" in str(err.value)
+
+
+def test_check_command_writes_the_issue_columns_in_both_unit_systems(tmp_path, capsys):
+    from pathlib import Path
+    from calib.cli import main
+    root = Path(__file__).resolve().parents[2] / "field_samples" / "tallowmere"
+    out = tmp_path / "check.csv"
+    assert main(["check", str(root / "network"), str(root / "tests"), "--out", str(out)]) == 0
+    frame = pd.read_csv(out)
+    assert list(frame.columns) == ["test_id", "node", "kind", "observed [psi]", "predicted [psi]",
+                                   "low [psi]", "high [psi]", "verdict", "reason"]
+    assert len(frame) == 48 and (frame["verdict"] == "suspect").sum() == 1
+    assert ((frame["low [psi]"] < frame["predicted [psi]"]) & (frame["predicted [psi]"] < frame["high [psi]"])).all()
+    text = capsys.readouterr().out
+    assert "gauge accuracy" in text and "sd 1 ft" in text and "47 ok, 1 suspect" in text
+    si = tmp_path / "si.csv"
+    assert main(["check", str(root / "network"), str(root / "tests"), "--out", str(si), "--units", "si",
+                 "--prior", "none"]) == 0
+    frame_si = pd.read_csv(si)
+    assert "observed [kPa]" in frame_si.columns
+    assert frame_si["observed [kPa]"].to_numpy() == pytest.approx(frame["observed [psi]"].to_numpy() * 6.894757,
+                                                                  abs=0.01)
