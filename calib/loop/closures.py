@@ -31,6 +31,7 @@ from calib.loop.linear import Linearizer, TestReadings
 
 CLOSED = 1.0e8  # resistance multiplier taken as closed (flow about 5e-5 of open at the same loss)
 THROTTLES = (10.0, 100.0)  # partly closed settings tried besides closed
+THROTTLE_BEST = 8  # the partly closed settings are tried on this many of the best closed
 SCREEN_CHUNK = 4000
 
 
@@ -62,8 +63,8 @@ class ClosureFinder:
             else np.arange(network.n_pipes)
 
     # --- pieces --------------------------------------------------------------------------------
-    def misfit(self, test: TestReadings, state, roughness=None) -> float:
-        h = self.lin.at(state, test, roughness=roughness, jacobian=False)
+    def misfit(self, test: TestReadings, state, roughness=None, warm=None) -> float:
+        h = self.lin.at(state, test, roughness=roughness, jacobian=False, warm=warm)
         r = (h - test.hgl) / test.sigma_head
         return float(r @ r)
 
@@ -132,23 +133,33 @@ class ClosureFinder:
         left = self.screen(test, state)
         cand = [int(k) for k in np.argsort(left, kind="stable")[:confirm] if np.isfinite(left[k])]
         base = lin.roughness(state[: lin.G])
+        # every candidate starts from the open network's solution: one pipe changed is a local change
+        opened = {kind: lin.solve(state, test, kind) for kind in set(test.kind.tolist())}
+
+        def tried(k, mult):
+            rough = base.copy()
+            rough[k] = base[k] * mult ** (-1.0 / HW_FLOW_EXPONENT)
+            try:
+                return self.misfit(test, state, roughness=rough, warm=opened)
+            except ConvergenceError:
+                return np.inf
+        # closed first for every screened pipe; the partly closed settings for the best of those
+        # (and for any that closing overshoots: worse closed than open)
+        best = {k: (tried(k, CLOSED), CLOSED) for k in cand}
+        order = sorted(best, key=lambda k: best[k][0])
+        for k in set(order[:THROTTLE_BEST]) | {k for k in cand if best[k][0] > before}:
+            for mult in THROTTLES:
+                m = tried(k, mult)
+                if m < best[k][0] - 1e-9:
+                    best[k] = (m, mult)
         out = []
         for k in cand:
-            best = (np.inf, CLOSED)
-            for mult in (CLOSED,) + THROTTLES:
-                rough = base.copy()
-                rough[k] = base[k] * mult ** (-1.0 / HW_FLOW_EXPONENT)
-                try:
-                    m = self.misfit(test, state, roughness=rough)
-                except ConvergenceError:
-                    continue
-                if m < best[0] - 1e-9:
-                    best = (m, mult)
-            if not np.isfinite(best[0]):
+            misfit, mult = best[k]
+            if not np.isfinite(misfit):
                 continue
-            note = "closed" if best[1] == CLOSED else f"partly closed (about {best[1]:g} x its resistance)"
+            note = "closed" if mult == CLOSED else f"partly closed (about {mult:g} x its resistance)"
             out.append(Closure(k, str(net.pipe_ids[k]), str(net.node_ids[net.pipe_from[k]]),
-                               str(net.node_ids[net.pipe_to[k]]), before, best[0], best[1], note,
+                               str(net.node_ids[net.pipe_to[k]]), before, misfit, mult, note,
                                float(left[k])))
         out.sort(key=lambda c: c.misfit_after)
         chains = self._series_chains(test)

@@ -124,7 +124,7 @@ class Linearizer:
     def roughness(self, c_group) -> np.ndarray:
         return self.grouping.per_pipe(c_group, self.network.roughness)
 
-    def solve(self, state, test: TestReadings, kind: str, roughness=None):
+    def solve(self, state, test: TestReadings, kind: str, roughness=None, warm=None):
         """The ``SolveResult`` of one snapshot (``"static"`` or ``"residual"``) at ``state``."""
         from calib.hydraulics import Snapshot
         net = self.network
@@ -137,11 +137,13 @@ class Linearizer:
         snap = Snapshot(extra_demand=extra, source_head=heads, label=f"{test.test_id} {kind}")
         rough = self.roughness(state[: self.G]) if roughness is None else roughness
         key = (test.test_id, kind)
+        if warm is not None:  # a given start (e.g. the open network for a closed pipe): kept as is
+            return self.solver.solve(snap, roughness=rough, warm_start=warm)
         res = self.solver.solve(snap, roughness=rough, warm_start=self._warm.get(key))
         self._warm[key] = res
         return res
 
-    def at(self, state, test: TestReadings, roughness=None, jacobian: bool = True):
+    def at(self, state, test: TestReadings, roughness=None, jacobian: bool = True, warm=None):
         """Simulated grade [m] at each reading and (n_readings x n_state) Jacobian at ``state``."""
         state = np.asarray(state, float)
         key = (test.test_id, state.tobytes(), jacobian) if roughness is None else None
@@ -154,7 +156,7 @@ class Linearizer:
             rows = np.flatnonzero(test.kind == kind)
             if rows.size == 0:
                 continue
-            res = self.solve(state, test, kind, roughness)
+            res = self.solve(state, test, kind, roughness, None if warm is None else warm.get(kind))
             h[rows] = np.asarray(res.head, float)[test.node[rows]]
             if jacobian:
                 dH = self.sensitivities(res, test, kind)
