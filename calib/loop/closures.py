@@ -7,10 +7,14 @@ Distribution Modeling and Management*, calibration chapter). Method:
 1. Screen every open pipe with the analytic sensitivities: for ``p_k = ln(r_k)`` (the log of pipe k's
    resistance), ``dF1_k/dp_k = h_k`` (its friction loss), so ``dH_g/dp_k = a_g[k] h_k`` where ``a_g`` is
    the flow response to a unit demand at gauge node g - one adjoint solve per gauge node, because the
-   global gradient system ``[[D, A12], [A12^T, 0]]`` is symmetric (Todini and Pilati 1988). A pipe
-   scores by how much of the misfit ``r = (h - y) / sigma`` its sensitivity pattern ``s_k`` explains
-   with a resistance increase: ``|r|^2 - (s_k . r)^2 / |s_k|^2`` when ``s_k . r`` has the sign of an
-   increase (a closure only ever adds resistance).
+   global gradient system ``[[D, A12], [A12^T, 0]]`` is symmetric (Todini and Pilati 1988). Closing
+   pipe k removes its conductance ``g_k = 1/D_k`` from the linearized network; by the Sherman-Morrison
+   formula that scales the first-order change by ``beta_k = 1 / (1 - g_k R_k)``, with ``R_k`` the
+   effective resistance between the pipe's ends (``(e_i - e_j)^T S^-1 (e_i - e_j)`` for the Schur
+   complement S; exact for up to ``EXACT_NODES`` junctions, else estimated with ``JL_VECTORS`` random
+   projections, Spielman and Srivastava 2011, SIAM J. Comput. 40(6)). A pipe scores the misfit
+   ``|r + delta s_k|^2`` left at the best ``delta`` in ``[0, beta_k]`` (open to closed), with
+   ``r = (h - y) / sigma``.
 2. Confirm the best screened ones with exact solves: the pipe's resistance multiplied by 10, 100 and
    ``CLOSED`` (its C scaled by ``m^(-1/1.852)``, Hazen-Williams), keeping the best; misfit after =
    the weighted sum of squares at that setting.
@@ -32,7 +36,8 @@ from calib.loop.linear import Linearizer, TestReadings
 CLOSED = 1.0e8  # resistance multiplier taken as closed (flow about 5e-5 of open at the same loss)
 THROTTLES = (10.0, 100.0)  # partly closed settings tried besides closed
 THROTTLE_BEST = 8  # the partly closed settings are tried on this many of the best closed
-SCREEN_CHUNK = 4000
+EXACT_NODES = 1500  # effective resistances exactly (a dense inverse) up to this many junctions
+JL_VECTORS = 64  # random projections for the effective resistances of larger networks
 
 
 @dataclass
@@ -75,6 +80,7 @@ class ClosureFinder:
         r_all = np.zeros(len(test.node))
         S = np.zeros((len(test.node), net.n_pipes))
         rough = lin.roughness(np.asarray(state)[: lin.G])
+        beta = None
         for kind in ("static", "residual"):
             rows = np.flatnonzero(test.kind == kind)
             if rows.size == 0:
@@ -94,13 +100,42 @@ class ClosureFinder:
             col = {int(n): c for c, n in enumerate(nodes)}
             for i in rows:
                 S[i] = a[: net.n_pipes, col[int(test.node[i])]] * dhdp / test.sigma_head[i]
+            if kind == "residual" or beta is None:
+                beta = self._beta(res)
         sr = r_all @ S
         ss = np.einsum("ij,ij->j", S, S)
-        # the misfit r = h - y falls when the head change s delta (delta > 0) points against r
-        helps = (sr < 0) & (ss > 0)
-        left = np.full(net.n_pipes, np.inf)
-        left[helps] = r_all @ r_all - sr[helps] ** 2 / ss[helps]
+        # misfit left at the best amplitude between open (0) and closed (beta) in the linear network
+        delta = np.clip(-np.divide(sr, ss, out=np.zeros_like(sr), where=ss > 0), 0.0, beta)
+        left = np.einsum("ij,ij->j", r_all[:, None] + S * delta, r_all[:, None] + S * delta)
+        left[(ss <= 0) | (delta <= 0)] = np.inf
         return left
+
+    def _beta(self, res) -> np.ndarray:
+        """Per pipe: 1 / (1 - g_k R_k), the Sherman-Morrison factor of closing it in the linear network."""
+        net, lin = self.network, self.lin
+        nj, n_links = net.n_junctions, lin.n_links
+        active = np.asarray(res._active, bool)
+        g = np.where(active, 1.0 / res._grad, 0.0)[: net.n_pipes]
+        frm, to = net.pipe_from, net.pipe_to
+        zeros = lambda p: sp.csc_matrix((n_links, p))  # noqa: E731
+        if nj <= EXACT_NODES:
+            dH, _ = lin.solver.sensitivities(res, zeros(nj), sp.identity(nj, format="csc"))
+            Sinv = np.vstack([np.asarray(dH.toarray() if sp.issparse(dH) else dH), np.zeros((net.n_sources, nj))])
+            Sinv = np.hstack([Sinv, np.zeros((Sinv.shape[0], net.n_sources))])
+            R = Sinv[frm, frm] + Sinv[to, to] - 2.0 * Sinv[frm, to]
+        else:
+            rng = np.random.default_rng(0)
+            wl = np.where(active, 1.0 / res._grad, 0.0)
+            lf, lt = lin.solver.link_from, lin.solver.link_to
+            Q = rng.choice([-1.0, 1.0], size=(JL_VECTORS, n_links)) / np.sqrt(JL_VECTORS)
+            Y = np.zeros((JL_VECTORS, net.n_nodes))  # Q W^1/2 B, B the link-node incidence
+            np.add.at(Y.T, lf, (Q * np.sqrt(wl)).T)
+            np.add.at(Y.T, lt, -(Q * np.sqrt(wl)).T)
+            dH, _ = lin.solver.sensitivities(res, zeros(JL_VECTORS), Y[:, :nj].T)
+            Z = np.vstack([np.asarray(dH.toarray() if sp.issparse(dH) else dH), np.zeros((net.n_sources, JL_VECTORS))])
+            R = np.sum((Z[frm] - Z[to]) ** 2, axis=1)
+        gr = np.clip(g * np.abs(R), 0.0, 0.999)  # 1: a bridge, whose closing cuts the network apart
+        return 1.0 / (1.0 - gr)
 
     def _series_chains(self, test: TestReadings) -> np.ndarray:
         """Chain label per pipe: pipes joined through degree-2 junctions outside the test share one."""

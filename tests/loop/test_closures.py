@@ -79,3 +79,22 @@ def test_closures_command_on_the_demo_day(tmp_path, demo):
     # T05's misfit is a misread gauge (truth.json), not a closure: no pipe explains much of it
     assert frame["note"].str.contains("explains little").all()
     assert main(["closures", f"{root}/network", f"{root}/tests", "--test", "T99"]) == 2
+
+
+def test_effective_resistance_estimate_matches_the_exact_one(demo, monkeypatch):
+    """The Sherman-Morrison factor 1 / (1 - g R) from random projections (Spielman and Srivastava 2011:
+    64 vectors give R within about sqrt(2/64) = 18 % in the typical case) against the dense inverse."""
+    import calib.loop.closures as closures
+    net, tests, grouping, _ = demo
+    finder = ClosureFinder(net, grouping)
+    test = split_tests(tests)[0]
+    x = finder.lin.nominal(grouping.length_weighted(net, net.roughness), test)
+    res = finder.lin.solve(x, test, "residual")
+    exact = finder._beta(res)
+    monkeypatch.setattr(closures, "EXACT_NODES", 0)
+    approx = finder._beta(res)
+    gr_exact, gr_approx = 1 - 1 / exact, 1 - 1 / approx
+    assert np.all(exact >= 1.0)
+    assert np.median(np.abs(gr_approx - gr_exact) / np.maximum(gr_exact, 1e-3)) < 0.25
+    # a dead-end pipe is a bridge: closing it cuts its junction off (g R = 1, clipped at 0.999)
+    assert np.isclose(gr_exact.max(), 0.999)
