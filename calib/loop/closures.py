@@ -36,6 +36,7 @@ from calib.loop.linear import Linearizer, TestReadings
 CLOSED = 1.0e8  # resistance multiplier taken as closed (flow about 5e-5 of open at the same loss)
 THROTTLES = (10.0, 100.0)  # partly closed settings tried besides closed
 THROTTLE_BEST = 8  # the partly closed settings are tried on this many of the best closed
+TIE = 3.84  # misfits closer than the chi-square 95 % point on 1 degree of freedom: the data cannot tell
 EXACT_NODES = 1500  # effective resistances exactly (a dense inverse) up to this many junctions
 JL_VECTORS = 64  # random projections for the effective resistances of larger networks
 
@@ -205,6 +206,9 @@ class ClosureFinder:
                 c.note += f"; in series with {first[ch]}: no test here can tell them apart"
             else:
                 first[ch] = c.pipe_id
+        for c in out[1:]:
+            if out and c.misfit_after - out[0].misfit_after <= TIE:
+                c.note += "; fits as well as rank 1 within the gauges' noise"
         for c in out:
             if c.misfit_after > 0.8 * c.misfit_before:
                 c.note += "; explains little of the misfit"

@@ -43,9 +43,10 @@ PITOT = (10.0, 30.0)  # [psi] NFPA 291 band for pitot readings
 PITOT_MARGIN_PSI = 5.0
 HOSE_IN, HOSE_C = 2.5, 0.90
 #: what a crew can open: (description, largest flow [gpm], number of hose outlets read by pitot or 0)
-OUTLETS = (("4.5 in pumper outlet through a flow meter", 2500.0, 0),
+#: (hose outlets read by pitot first: the common kit; the pumper and a meter for larger flows)
+OUTLETS = (("one 2.5 in hose outlet read by pitot", None, 1),
            ("two 2.5 in hose outlets read by pitot", None, 2),
-           ("one 2.5 in hose outlet read by pitot", None, 1))
+           ("4.5 in pumper outlet through a flow meter", 2500.0, 0))
 FLOW_STEPS_GPM = (2500.0, 2000.0, 1750.0, 1500.0, 1250.0, 1000.0, 750.0, 600.0)
 MIN_DROP_PSI = 4.0
 GOOD_DROP_PSI = 10.0  # Walski: a drop of 10 psi or more
