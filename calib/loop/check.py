@@ -145,7 +145,7 @@ class SequentialCheck:
             x = x_new
             if step < 1e-3:
                 break
-        h = self.lin.at(x[:n], test, jacobian=False)
+        h, _ = self.lin.at(x[:n], test)  # with its Jacobian: the next search often starts here
         r = (h[rows] + E[rows] @ x[n:] - y) / sig
         d = x - ma
         cost = float(r @ r + d @ np.linalg.solve(Pa, d))

@@ -111,7 +111,7 @@ class Linearizer:
         self.grouped = np.flatnonzero(grouping.index >= 0)
         self.n_state = self.G + self.S + 1
         self._warm: dict = {}
-        self._memo: dict = {}  # (test, state, jacobian) -> (h, J): the same point is often asked twice
+        self._memo: dict = {}  # (test, state) -> (h, J or None): the same point is often asked twice
 
     def nominal(self, c_group, test: TestReadings) -> np.ndarray:
         """The state with ``c_group``, the test's noted source grades (else the network's) and flow scale 1."""
@@ -146,8 +146,8 @@ class Linearizer:
     def at(self, state, test: TestReadings, roughness=None, jacobian: bool = True, warm=None):
         """Simulated grade [m] at each reading and (n_readings x n_state) Jacobian at ``state``."""
         state = np.asarray(state, float)
-        key = (test.test_id, state.tobytes(), jacobian) if roughness is None else None
-        if key is not None and key in self._memo:
+        key = (test.test_id, state.tobytes()) if roughness is None else None
+        if key is not None and key in self._memo and (self._memo[key][1] is not None or not jacobian):
             h, J = self._memo[key]
             return (h.copy(), J.copy()) if jacobian else h.copy()
         h = np.zeros(len(test.node))
@@ -164,7 +164,7 @@ class Linearizer:
         if key is not None:
             if len(self._memo) > 64:
                 self._memo.clear()
-            self._memo[key] = (h.copy(), J.copy())
+            self._memo[key] = (h.copy(), J.copy() if jacobian else None)
         return (h, J) if jacobian else h
 
     def sensitivities(self, res, test: TestReadings, kind: str) -> np.ndarray:
