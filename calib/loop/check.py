@@ -141,9 +141,10 @@ class SequentialCheck:
             x_new = ma + K @ (y - hr - H @ (ma - x))
             x_new[: self.lin.G] = np.clip(x_new[: self.lin.G], *C_LIMITS)
             x_new[n - 1] = np.clip(x_new[n - 1], 0.2, 3.0)
-            step = np.max(np.abs(x_new - x)) if len(x) else 0.0
+            # converged when no unknown moves by more than 1 % of its prior sd
+            step = np.max(np.abs(x_new - x) / np.sqrt(np.maximum(np.diag(Pa), 1e-12))) if len(x) else 0.0
             x = x_new
-            if step < 1e-3:
+            if step < 1e-2:
                 break
         h, _ = self.lin.at(x[:n], test)  # with its Jacobian: the next search often starts here
         r = (h[rows] + E[rows] @ x[n:] - y) / sig
