@@ -199,3 +199,26 @@ def test_check_command_writes_the_issue_columns_in_both_unit_systems(tmp_path, c
     assert "observed [kPa]" in frame_si.columns
     assert frame_si["observed [kPa]"].to_numpy() == pytest.approx(frame["observed [psi]"].to_numpy() * 6.894757,
                                                                   abs=0.01)
+
+
+def test_check_command_from_a_fit_folder(tmp_path, demo):
+    """--fit: the office's last fit (here groups.csv written with intervals about the demo's truth, the
+    columns by name in another order, one interval blank) starts the state; verdicts as with the prior."""
+    from pathlib import Path
+    from calib.cli import main
+    net, _, grouping, truth = demo
+    rows = []
+    for name in grouping.names:
+        c = truth["c_factor"][name]
+        rows.append({"status": "informed", "c_high": c + 6, "c_low": c - 6, "group": name, "c_factor": c})
+    rows[-1]["c_high"] = ""
+    pd.DataFrame(rows).to_csv(tmp_path / "groups.csv", index=False)
+    root = Path(__file__).resolve().parents[2] / "field_samples" / "tallowmere"
+    out = tmp_path / "check.csv"
+    assert main(["check", str(root / "network"), str(root / "tests"), "--out", str(out),
+                 "--fit", str(tmp_path)]) == 0
+    frame = pd.read_csv(out)
+    bad = frame[frame["verdict"] == "suspect"]
+    assert list(zip(bad["test_id"], bad["node"], bad["kind"])) == [("T05", "J299", "residual")]
+    assert main(["check", str(root / "network"), str(root / "tests"), "--out", str(out),
+                 "--fit", str(tmp_path / "nowhere")]) == 2
