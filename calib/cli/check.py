@@ -56,16 +56,16 @@ def verdict_frame(verdicts, system: str = "us") -> pd.DataFrame:
 
 
 def run(args) -> int:
-    from calib.calibration import make_groups, read_tests
+    from calib.calibration import read_tests
     from calib.cli.fit import _sigma
     from calib.loop import check, closures
-    from calib.loop.state import initial_state
+    from calib.loop.state import default_grouping, initial_state
     from calib.network.io import read_network
 
     sigma = _sigma(args.sigma)
     network = read_network(args.network)
     tests = read_tests(args.tests, network, sigma=sigma)
-    grouping = make_groups(network)
+    grouping = default_grouping(network)
     state = initial_state(network, grouping, args.prior, args.fit, tests=tests)
     t0 = time.perf_counter()
     finder = closures.ClosureFinder(network, grouping)

@@ -48,12 +48,12 @@ def closure_frame(ranked) -> pd.DataFrame:
 
 
 def run(args) -> int:
-    from calib.calibration import make_groups, read_tests
+    from calib.calibration import read_tests
     from calib.cli.fit import _sigma
     from calib.loop.check import SequentialCheck
     from calib.loop.closures import ClosureFinder
     from calib.loop.linear import split_tests
-    from calib.loop.state import initial_state
+    from calib.loop.state import default_grouping, initial_state
     from calib.network.io import read_network
 
     if not 1 <= args.top <= 1000:
@@ -65,7 +65,7 @@ def run(args) -> int:
     if args.test not in ids:
         raise InputError(f"test '{args.test}' is not in {args.tests}", field="--test",
                          expected="one of " + ", ".join(ids[:20]) + (" ..." if len(ids) > 20 else ""))
-    grouping = make_groups(network)
+    grouping = default_grouping(network)
     t0 = time.perf_counter()
     checker = SequentialCheck(network, grouping, initial_state(network, grouping, args.prior, args.fit,
                                                                tests=tests))
