@@ -169,6 +169,12 @@ def test_fit_folder_by_column_name_with_blank_and_one_sided_intervals(tmp_path, 
     assert st.sd[2] == pytest.approx(5 / 1.959964, rel=1e-4)  # one-sided: its one side
     assert st.sd[4] == pytest.approx(8 / 1.959964, rel=1e-4)  # infinite high bound: the low side
     assert any("keeps the prior" in n for n in st.notes)
+    # a marker column instead of the status (issue 8's groups.csv), and a group the network lacks
+    pd.DataFrame({"group": [grouping.names[0], "OLD-ZONE"], "c_factor": ["58", "90"], "c_low": ["54", "80"],
+                  "c_high": ["62", "100"], "undetermined": ["True", "False"]}).to_csv(tmp_path / "groups.csv",
+                                                                                  index=False)
+    st = fit_state(tmp_path, net, grouping, base)
+    assert st.mean[0] == base.mean[0] and any("OLD-ZONE" in n for n in st.notes)
 
 
 def test_fit_folder_without_groups_csv_names_the_folder(tmp_path, demo):
