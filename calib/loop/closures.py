@@ -197,6 +197,7 @@ class ClosureFinder:
             out.append(Closure(k, str(net.pipe_ids[k]), str(net.node_ids[net.pipe_from[k]]),
                                str(net.node_ids[net.pipe_to[k]]), before, misfit, mult, note,
                                float(left[k])))
+        out = [c for c in out if c.misfit_after < c.misfit_before]  # a closure that fits worse explains nothing
         out.sort(key=lambda c: c.misfit_after)
         chains = self._series_chains(test)
         first = {}

@@ -205,6 +205,29 @@ def run_job(job: CheckJob) -> CheckResult:
     return CheckResult(True, msg, out)
 
 
+def closures_for(service, tid: str, top: int = 5) -> list:
+    """The pipes whose closing best explains test ``tid`` (``calib.loop.closures.Closure``, best first),
+    with the day's earlier tests as the running fit; [] when the test cannot be simulated yet."""
+    job = prepare(service, tid)
+    if isinstance(job, CheckResult):
+        return []
+    from calib.loop.check import SequentialCheck
+    from calib.loop.closures import ClosureFinder
+    from calib.loop.state import default_grouping, handbook_state
+    import datetime as _dt
+    net = job.network
+    grouping = default_grouping(net)
+    finder = ClosureFinder(net, grouping)
+    checker = SequentialCheck(net, grouping, handbook_state(net, grouping, float(_dt.date.today().year)),
+                              solver=finder.lin.solver)
+    checker.lin = finder.lin
+    for k, (flows, observed, grades) in enumerate(job.earlier):
+        checker.judge(_readings(net, f"earlier-{k + 1}", flows, observed, grades, job.sigma))
+    test = _readings(net, "this test", job.flows, job.observed, job.source_head, job.sigma)
+    m, _ = checker.prior(test)
+    return finder.rank(test, m, top=top)
+
+
 def check_test(service, tid: str, tol: float = TOLERANCE) -> CheckResult:
     """Run the model check for test ``tid`` on this thread (blocking)."""
     job = prepare(service, tid, tol)

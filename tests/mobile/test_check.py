@@ -173,3 +173,16 @@ def test_the_days_earlier_tests_feed_the_check(service, area):
     job = check.prepare(service, second)
     assert len(job.earlier) == 1 and set(job.earlier[0][1]) == {area.hydrants[0]}
     assert "1 earlier test(s)" in check.run_job(job).message
+
+
+def test_closures_for_a_test_in_the_app(service, area):
+    """A residual 9 psi below the model (a bigger drop, as a closed valve gives): the service ranks
+    pipes best first, each lowering the test's misfit."""
+    tid = _readings_from_model(service, area)
+    g = area.hydrants[0]
+    low = service.readings(tid)[f"residual@{g}"].si_value / PSI - 9.0
+    assert service.enter(tid, f"residual@{g}", f"{low:.2f}").ok
+    ranked = check.closures_for(service, tid, top=3)
+    assert 1 <= len(ranked) <= 3
+    assert all(c.misfit_after < c.misfit_before for c in ranked)
+    assert [c.misfit_after for c in ranked] == sorted(c.misfit_after for c in ranked)
