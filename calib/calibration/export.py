@@ -6,6 +6,7 @@
   import into an office model; pipes in no group keep their C and have empty interval cells.
 - ``readings.csv``: ``test_id, node, kind, observed, simulated, residual`` (observed minus simulated)
   in the chosen pressure unit, the standardized residual, and ``flag`` (empty when the reading fits).
+- ``covariance.csv``: the covariance of the group C-factors (``group`` then one column per group).
 - ``pipes.geojson``: the network with the calibrated C (``calib.network.io.write_network_geojson``),
   written when the network came with coordinates or pipe geometry.
 Text cells are neutralized against spreadsheet formulas by ``calib.fileio.write_csv``.
@@ -52,6 +53,18 @@ def other_parameters_frame(result) -> pd.DataFrame:
     return pd.DataFrame(rows, columns=["parameter", "value", "low", "high", "unit"])
 
 
+def covariance_frame(result) -> pd.DataFrame:
+    """Covariance of the group C-factors [C^2] (``estimate.py``), one row and column per group in
+    groups.csv order; blank where a group is undetermined (no finite variance). Read by
+    ``calib.fireflow`` to carry the C uncertainty into the fire flow."""
+    names = list(result.grouping.names)
+    cov = np.asarray(result.estimate.cov, float)[np.ix_(result.c_cols, result.c_cols)]
+    cov = np.where(np.isfinite(cov), cov, np.nan)
+    frame = pd.DataFrame(cov, columns=names)
+    frame.insert(0, "group", names)
+    return frame
+
+
 def roughness_frame(result) -> pd.DataFrame:
     """One row per pipe with its calibrated C and its group's interval."""
     net, g = result.network, result.grouping
@@ -95,7 +108,8 @@ def write_outputs(result, out, system: str = "us") -> list[Path]:
     out = Path(out)
     paths = [fileio.write_csv(out / "groups.csv", groups_frame(result)),
              fileio.write_csv(out / "roughness.csv", roughness_frame(result)),
-             fileio.write_csv(out / "readings.csv", readings_frame(result, system))]
+             fileio.write_csv(out / "readings.csv", readings_frame(result, system)),
+             fileio.write_csv(out / "covariance.csv", covariance_frame(result))]
     other = other_parameters_frame(result)
     if len(other):
         paths.append(fileio.write_csv(out / "parameters.csv", other))

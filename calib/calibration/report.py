@@ -352,6 +352,8 @@ def render(result, system: str = "us", curves: bool = True) -> str:
     if not t.info.empty:
         cols, rows = _info_rows(t.info)
         parts.append("<h2>Tests</h2>" + _table(cols, rows))
+    from calib.fireflow.fitsummary import html_section  # fire flow with the fitted C
+    parts.append(html_section(result, system))
     parts.append(
         "<h2>Method</h2><p>Each test gives a static snapshot (normal demand) and a residual snapshot "
         "(normal demand plus the test's flows); both kinds of reading are fitted (static readings "
