@@ -159,26 +159,31 @@ def _readings(network, test_id, flows, observed, grades, sigma):
                         np.asarray(network.elevation, float)[nodes])
 
 
+def _checker(job: CheckJob):
+    """(checker, closure finder, this test): the state brought up to the test by the day's earlier ones."""
+    import datetime as _dt
+    from calib.loop.check import SequentialCheck
+    from calib.loop.closures import ClosureFinder
+    from calib.loop.state import default_grouping, handbook_state
+    net = job.network
+    grouping = default_grouping(net)
+    finder = ClosureFinder(net, grouping)
+    checker = SequentialCheck(net, grouping, handbook_state(net, grouping, float(_dt.date.today().year)),
+                              solver=finder.lin.solver, closures=finder.best_for_check)
+    checker.lin = finder.lin
+    for k, (flows, observed, grades) in enumerate(job.earlier):
+        checker.judge(_readings(net, f"earlier-{k + 1}", flows, observed, grades, job.sigma))
+    return checker, finder, _readings(net, "this test", job.flows, job.observed, job.source_head, job.sigma)
+
+
 def run_job(job: CheckJob) -> CheckResult:
     """Judge the test (the slow part: network solves) with the day's earlier tests; safe in a worker."""
     try:
-        import datetime as _dt
-        from calib.loop.check import SequentialCheck
-        from calib.loop.closures import ClosureFinder
-        from calib.loop.state import default_grouping, handbook_state
+        import calib.loop.check  # noqa: F401 - the check's package; loaded when needed
     except ImportError:
         return CheckResult(False, "The model check is not available in this build")
-    net = job.network
     try:
-        grouping = default_grouping(net)
-        state = handbook_state(net, grouping, float(_dt.date.today().year))
-        finder = ClosureFinder(net, grouping)
-        checker = SequentialCheck(net, grouping, state, solver=finder.lin.solver,
-                                  closures=finder.best_for_check)
-        checker.lin = finder.lin
-        for k, (flows, observed, grades) in enumerate(job.earlier):
-            checker.judge(_readings(net, f"earlier-{k + 1}", flows, observed, grades, job.sigma))
-        test = _readings(net, "this test", job.flows, job.observed, job.source_head, job.sigma)
+        checker, finder, test = _checker(job)
         verdicts = checker.judge(test)
         closures = []
         if any(v.suspect for v in verdicts):
@@ -211,19 +216,7 @@ def closures_for(service, tid: str, top: int = 5) -> list:
     job = prepare(service, tid)
     if isinstance(job, CheckResult):
         return []
-    from calib.loop.check import SequentialCheck
-    from calib.loop.closures import ClosureFinder
-    from calib.loop.state import default_grouping, handbook_state
-    import datetime as _dt
-    net = job.network
-    grouping = default_grouping(net)
-    finder = ClosureFinder(net, grouping)
-    checker = SequentialCheck(net, grouping, handbook_state(net, grouping, float(_dt.date.today().year)),
-                              solver=finder.lin.solver)
-    checker.lin = finder.lin
-    for k, (flows, observed, grades) in enumerate(job.earlier):
-        checker.judge(_readings(net, f"earlier-{k + 1}", flows, observed, grades, job.sigma))
-    test = _readings(net, "this test", job.flows, job.observed, job.source_head, job.sigma)
+    checker, finder, test = _checker(job)
     m, _ = checker.prior(test)
     return finder.rank(test, m, top=top)
 
