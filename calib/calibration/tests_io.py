@@ -27,13 +27,15 @@ import pandas as pd
 
 from calib import units
 from calib.errors import InputError, Problem
+from calib.network import tanks
 from calib.flowtest.pitot import OUTLET_COEFFICIENTS, pitot_discharge
 
 #: Unit assumed for a column whose header has no bracket (the trade's US units).
 DEFAULT_UNIT = {"flow": "gpm", "pitot": "psi", "outlet_diameter": "in", "static": "psi",
-                "residual": "psi", "gauge_height": "ft", "sigma": "psi", "head": "ft"}
+                "residual": "psi", "gauge_height": "ft", "sigma": "psi", "head": "ft", "level": "ft"}
 KIND = {"flow": "flow", "pitot": "pressure", "outlet_diameter": "diameter", "static": "pressure",
-        "residual": "pressure", "gauge_height": "length", "sigma": "pressure", "head": "head"}
+        "residual": "pressure", "gauge_height": "length", "sigma": "pressure", "head": "head",
+        "level": "head"}
 #: Plausible ranges in SI, with the text shown in messages (US units, as crews read them).
 RANGE = {
     "flow": (0.0, 10000 * units.GPM, "more than 0 and at most 10000 gpm"),
@@ -212,6 +214,33 @@ class _Table:
         return value
 
 
+def _boundary_grade(network, b: _Table, i: int, tid: str, s_idx, problems) -> float:
+    """A boundary.csv row's grade [m]: its head, or its level above the tank's floor."""
+    has_head = b.text(i, "head") != ""
+    if has_head or "level" not in b.columns:
+        head = b.number(i, "head", tid, required=True)
+        if math.isnan(head) or s_idx is None:
+            return head
+        try:
+            return tanks.check_grade(network, str(network.node_ids[s_idx]), head)
+        except InputError as exc:
+            p = exc.problems[0]
+            problems.append(Problem(p.message, file=b.name, row=i + 2, id=tid,
+                                    field=b.columns["head"], expected=p.expected))
+            return math.nan
+    level = b.number(i, "level", tid, required=True)
+    if math.isnan(level) or s_idx is None:
+        return math.nan
+    source = str(network.node_ids[s_idx])
+    try:
+        return tanks.grade_from_level(network, source, level)
+    except InputError as exc:
+        p = exc.problems[0]
+        problems.append(Problem(p.message, file=b.name, row=i + 2, id=tid,
+                                field=b.columns["level"], expected=p.expected))
+        return math.nan
+
+
 def _coefficient(table: _Table, i: int, row_id: str) -> float:
     """Outlet coefficient of row i: a number, an outlet shape (NFPA 291 outlet figure), 0.90 if blank."""
     raw = table.text(i, "coefficient").lower()
@@ -370,13 +399,16 @@ def read_tests(folder, network, sigma: float = units.PSI) -> TestSet:
     # boundary.csv
     heads: dict[int, dict[int, float]] = {}
     if (folder / "boundary.csv").is_file():
-        b = _Table(folder / "boundary.csv", problems, ("test_id", "source", "head"))
+        b = _Table(folder / "boundary.csv", problems, ("test_id", "source"))
+        b.require_any(("head", "level"), "no 'head' or 'level' column",
+                      "'head [ft]' (the source's grade) or 'level [ft]' (a tank's water depth "
+                      "above its floor, as the operator gives it)")
         if b.ok:
             for i in range(len(b)):
                 tid = b.text(i, "test_id")
                 t_idx = test_index(tid, b, i)
                 s_idx = _node(network, b, i, tid, problems, junction_only=False)
-                h = b.number(i, "head", tid, required=True)
+                h = _boundary_grade(network, b, i, tid, s_idx, problems)
                 if t_idx is None or s_idx is None or math.isnan(h):
                     continue
                 heads.setdefault(t_idx, {})[s_idx] = h
