@@ -79,6 +79,10 @@ class TestSet:
     elevation: np.ndarray  # node elevation at each reading [m]
     pitot_tests: list[str] = field(default_factory=list)  # tests whose flows came as pitot readings
     notes: list[str] = field(default_factory=list)
+    # per reading: True where someone stated the gauge's accuracy (pressures.csv `sigma`, --sigma);
+    # where not, ``sigma`` holds the nominal 1 psi and the fit takes the scale from the scatter.
+    # None: stated everywhere
+    sigma_stated: np.ndarray | None = None
 
     @property
     def n_tests(self) -> int:
@@ -105,7 +109,9 @@ class TestSet:
                   ("test", "node", "kind", "pressure", "gauge_height", "sigma", "row", "elevation")}
         return TestSet(folder=self.folder, test_ids=self.test_ids, flows=self.flows,
                        source_head=self.source_head, day=self.day, days=self.days, info=self.info,
-                       pitot_tests=self.pitot_tests, notes=list(self.notes), **arrays)
+                       pitot_tests=self.pitot_tests, notes=list(self.notes),
+                       sigma_stated=None if self.sigma_stated is None else self.sigma_stated[keep],
+                       **arrays)
 
 
 # --- reading tables --------------------------------------------------------------------------
@@ -275,8 +281,11 @@ def _node(network, table: _Table, i: int, row_id: str, problems, junction_only=T
     return int(idx)
 
 
-def read_tests(folder, network, sigma: float = units.PSI) -> TestSet:
+def read_tests(folder, network, sigma: float | None = None) -> TestSet:
     """Read a tests folder against ``network``; ``sigma`` [Pa] is the gauge accuracy where none is given.
+
+    ``sigma=None``: nobody stated it; such readings get the nominal 1 psi as a relative weight and
+    ``sigma_stated`` False, and the fit takes their scale from the scatter.
 
     Raises ``InputError`` listing every problem (file, row, test id, field, plausible range).
     """
@@ -357,7 +366,7 @@ def read_tests(folder, network, sigma: float = units.PSI) -> TestSet:
             per[n_idx] = per.get(n_idx, 0.0) + q  # two outlets on one hydrant add up
 
     # pressures.csv
-    cols = {k: [] for k in ("test", "node", "kind", "pressure", "gauge_height", "sigma", "row")}
+    cols = {k: [] for k in ("test", "node", "kind", "pressure", "gauge_height", "sigma", "row", "stated")}
     pr = _Table(folder / "pressures.csv", problems, ("test_id", "node"))
     pr.require_any(("static", "residual"), "neither a static nor a residual column",
                    "'static [psi]' and 'residual [psi]'")
@@ -370,7 +379,8 @@ def read_tests(folder, network, sigma: float = units.PSI) -> TestSet:
             gh = pr.number(i, "gauge_height", tid)
             sg = pr.number(i, "sigma", tid)
             gh = 0.0 if math.isnan(gh) else gh
-            sg = sigma if math.isnan(sg) else sg
+            stated = not (math.isnan(sg) and sigma is None)
+            sg = (units.PSI if sigma is None else sigma) if math.isnan(sg) else sg
             values = {k: pr.number(i, k, tid) for k in ("static", "residual") if k in pr.columns}
             if all(math.isnan(v) for v in values.values()) and all(pr.text(i, k) == "" for k in values):
                 problems.append(Problem("no reading in the row", file="pressures.csv", row=i + 2,
@@ -394,6 +404,7 @@ def read_tests(folder, network, sigma: float = units.PSI) -> TestSet:
                 cols["pressure"].append(value)
                 cols["gauge_height"].append(gh)
                 cols["sigma"].append(sg)
+                cols["stated"].append(stated)
                 cols["row"].append(i + 2)
 
     # boundary.csv
@@ -444,4 +455,4 @@ def read_tests(folder, network, sigma: float = units.PSI) -> TestSet:
         kind=np.asarray(cols["kind"], dtype=object), pressure=np.asarray(cols["pressure"], float),
         gauge_height=np.asarray(cols["gauge_height"], float), sigma=np.asarray(cols["sigma"], float),
         row=np.asarray(cols["row"], dtype=np.int64), elevation=network.elevation[node].astype(float),
-        pitot_tests=sorted(pitot_tests), notes=notes)
+        pitot_tests=sorted(pitot_tests), notes=notes, sigma_stated=np.asarray(cols["stated"], bool))

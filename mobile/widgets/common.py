@@ -10,6 +10,10 @@ from kivy.uix.scrollview import ScrollView
 from kivy.uix.textinput import TextInput
 from kivy.uix.togglebutton import ToggleButton
 
+from mobile import kivy_log
+
+kivy_log.install()  # a Field (TextInput) loads the X cut buffer on Linux; the app does not use it
+
 
 class BigButton(Button):
     """A 64 dp high button with a solid fill; ``tone`` picks navy, green or red."""
