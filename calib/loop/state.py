@@ -98,7 +98,8 @@ def fit_state(folder, network, grouping, fallback: GroupState) -> GroupState:
         lo = _number(row.get("c_low", ""))
         hi = _number(row.get("c_high", ""))
         status = str(row.get("status", "")).strip().lower()
-        if str(row.get("undetermined", "")).strip().lower() in ("true", "yes", "1", "x"):
+        if (str(row.get("undetermined", "")).strip().lower() in ("true", "yes", "1", "x")
+                or str(row.get("determined", "")).strip().lower() in ("false", "no", "0")):
             status = "undetermined"  # a marker column instead of (or besides) the status
         if not math.isfinite(c) or not 0 < c < 250:
             state.notes.append(f"{path} row {r + 2}: c_factor '{row['c_factor']}' is not a C; "

@@ -175,6 +175,10 @@ def test_fit_folder_by_column_name_with_blank_and_one_sided_intervals(tmp_path, 
                                                                                   index=False)
     st = fit_state(tmp_path, net, grouping, base)
     assert st.mean[0] == base.mean[0] and any("OLD-ZONE" in n for n in st.notes)
+    # the fit command's own groups.csv marks it in a 'determined' column
+    pd.DataFrame({"group": [grouping.names[0]], "c_factor": ["58"], "c_low": ["54"], "c_high": ["62"],
+                  "determined": ["False"]}).to_csv(tmp_path / "groups.csv", index=False)
+    assert fit_state(tmp_path, net, grouping, base).mean[0] == base.mean[0]
 
 
 def test_fit_folder_without_groups_csv_names_the_folder(tmp_path, demo):
