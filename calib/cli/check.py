@@ -63,6 +63,8 @@ def run(args) -> int:
     from calib.network.io import read_network
 
     sigma = _sigma(args.sigma)
+    fileio.check_outputs({"--out": args.out},
+                         fileio.input_files(*(p for p in (args.network, args.tests, args.fit) if p)))
     network = read_network(args.network)
     tests = read_tests(args.tests, network, sigma=sigma)
     grouping = default_grouping(network)

@@ -58,6 +58,9 @@ def run(args) -> int:
 
     if not 1 <= args.top <= 1000:
         raise InputError(f"--top {args.top} is out of range", field="--top", expected="1 to 1000")
+    if args.out:
+        fileio.check_outputs({"--out": args.out},
+                             fileio.input_files(*(p for p in (args.network, args.tests, args.fit) if p)))
     network = read_network(args.network)
     tests = read_tests(args.tests, network, sigma=_sigma(args.sigma))
     ordered = split_tests(tests)

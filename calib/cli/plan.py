@@ -61,6 +61,8 @@ def run(args) -> int:
     if not (math.isfinite(margin) and 0 <= margin <= 50 * units.PSI):
         raise InputError(f"'{args.margin}' is not a plausible margin", field="--margin", expected="0 to 50 psi")
     out = Path(args.out)
+    fileio.check_outputs({"--out": [out, out.with_suffix(".geojson")]},
+                         fileio.input_files(*(p for p in (args.network, args.fit) if p)))
     network = read_network(args.network)
     grouping = default_grouping(network)
     year = args.year or float(_dt.date.today().year)

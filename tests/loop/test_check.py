@@ -232,3 +232,15 @@ def test_check_command_from_a_fit_folder(tmp_path, demo):
     assert list(zip(bad["test_id"], bad["node"], bad["kind"])) == [("T05", "J299", "residual")]
     assert main(["check", str(root / "network"), str(root / "tests"), "--out", str(out),
                  "--fit", str(tmp_path / "nowhere")]) == 2
+
+
+def test_check_refuses_to_overwrite_an_input(tmp_path):
+    import shutil
+    from pathlib import Path
+    from calib.cli import main
+    root = Path(__file__).resolve().parents[2] / "field_samples" / "tallowmere"
+    tests = tmp_path / "tests"
+    shutil.copytree(root / "tests", tests)
+    before = (tests / "pressures.csv").read_bytes()
+    assert main(["check", str(root / "network"), str(tests), "--out", str(tests / "pressures.csv")]) == 2
+    assert (tests / "pressures.csv").read_bytes() == before
