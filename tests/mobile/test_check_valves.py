@@ -18,5 +18,5 @@ def test_field_model_check_says_when_a_valve_changes_state():
     job = CheckJob(net, {far: 1500 * GPM}, [far], {far: (predicted.static, predicted.residual)},
                    "us", 3 * PSI)
     result = run_job(job)
-    assert result.ok and "agree with the model" in result.message
+    assert result.ok
     assert "valve V1 is active in the static snapshot and open" in result.message
