@@ -26,7 +26,7 @@ def _planted_row(tests, net, truth):
     return rows[0]
 
 
-def test_todays_fixed_tolerance_check_flags_7_of_24_gauges_6_of_them_good(demo):
+def test_todays_fixed_tolerance_check_flags_9_of_28_gauges_8_of_them_good(demo):
     """The issue's measurement, reproduced: mobile.services.check.advise with 5 psi, model C unchanged."""
     from mobile.services.check import advise
     net, tests, _, truth = demo
@@ -42,16 +42,16 @@ def test_todays_fixed_tolerance_check_flags_7_of_24_gauges_6_of_them_good(demo):
                    for j in sel if tests.node[j] == i}
             if advise(obs["static"], obs["residual"], p.static, p.residual):
                 flagged.append((tid, p.node))
-    assert tests.n_readings == 48  # 24 gauges, a static and a residual each
-    assert len(flagged) == 7
-    assert sum(f != planted for f in flagged) == 6
+    assert tests.n_readings == 56  # 28 gauges, a static and a residual each
+    assert len(flagged) == 9  # the zoned demo day (7 of 24, 6 good, on the day before Mereside)
+    assert sum(f != planted for f in flagged) == 8
 
 
 def test_demo_day_no_good_reading_suspect_and_the_planted_one_is(demo):
     net, tests, grouping, truth = demo
     state = initial_state(net, grouping, "handbook", tests=tests)
     verdicts = ck.check_tests(net, tests, state, grouping)
-    assert len(verdicts) == 48
+    assert len(verdicts) == 56
     planted = _planted_row(tests, net, truth)
     suspect = [v.row for v in verdicts if v.suspect]
     assert suspect == [planted]
@@ -198,10 +198,10 @@ def test_check_command_writes_the_issue_columns_in_both_unit_systems(tmp_path, c
     frame = pd.read_csv(out)
     assert list(frame.columns) == ["test_id", "node", "kind", "observed [psi]", "predicted [psi]",
                                    "low [psi]", "high [psi]", "verdict", "reason"]
-    assert len(frame) == 48 and (frame["verdict"] == "suspect").sum() == 1
+    assert len(frame) == 56 and (frame["verdict"] == "suspect").sum() == 1
     assert ((frame["low [psi]"] < frame["predicted [psi]"]) & (frame["predicted [psi]"] < frame["high [psi]"])).all()
     text = capsys.readouterr().out
-    assert "gauge accuracy" in text and "sd 1 ft" in text and "47 ok, 1 suspect" in text
+    assert "gauge accuracy" in text and "sd 1 ft" in text and "55 ok, 1 suspect" in text
     si = tmp_path / "si.csv"
     assert main(["check", str(root / "network"), str(root / "tests"), "--out", str(si), "--units", "si",
                  "--prior", "none"]) == 0
