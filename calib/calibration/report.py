@@ -4,7 +4,8 @@ Sections, in the order a modeler reads them: the cautions; the result at a glanc
 and C with its interval against the prior, the model's C before and the C bounds); the flagged
 readings; the findings in words; the fit statistics and the calibration accuracy criteria; how well
 the readings fit (observed vs simulated, residuals by test); hydrant curves; parameter correlation;
-the tests; the method and its sources. matplotlib runs with the Agg backend (no display). The page is
+the tests; the method and its sources. matplotlib draws each figure once, through its Agg canvas
+(no pyplot, no display), laid out by its constrained layout during that one draw. The page is
 written atomically through ``calib.fileio``.
 """
 
@@ -102,17 +103,21 @@ def _curve(solver, rough, flows, heads, gauge, known=(), start=None):
 
 def _png(fig) -> str:
     buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=100, bbox_inches="tight")
-    import matplotlib.pyplot as plt
-    plt.close(fig)
+    fig.savefig(buf, format="png", dpi=100)  # one draw: the layout is made during it
     return base64.b64encode(buf.getvalue()).decode("ascii")
 
 
-def _plots(result, system: str, curves: bool = True) -> dict[str, str]:
-    import matplotlib
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
+def _figure(figsize, rows: int = 1, cols: int = 1, margins: dict | None = None, **kw):
+    """A figure outside pyplot (nothing kept in a global registry): constrained layout, or fixed
+    ``margins`` (``subplots_adjust``) where that layout costs more than the draw (many panels)."""
+    from matplotlib.figure import Figure
+    fig = Figure(figsize=figsize, layout=None if margins else "constrained")
+    if margins:
+        fig.subplots_adjust(**margins)
+    return fig, fig.subplots(rows, cols, **kw)
 
+
+def _plots(result, system: str, curves: bool = True) -> dict[str, str]:
     t, net = result.tests, result.network
     pu = units.display_unit("pressure", system)
     conv = lambda v: units.from_si(np.asarray(v, float), "pressure", pu)  # noqa: E731
@@ -120,7 +125,7 @@ def _plots(result, system: str, curves: bool = True) -> dict[str, str]:
     flagged = np.array([bool(f) for f in result.flag])
     out = {}
 
-    fig, ax = plt.subplots(figsize=(5.6, 5.2))
+    fig, ax = _figure((5.6, 5.2))
     for kind, marker in (("static", "s"), ("residual", "o")):
         sel = (t.kind == kind) & ~flagged
         ax.scatter(sim[sel], obs[sel], marker=marker, s=28, label=f"{kind} reading", alpha=0.8)
@@ -142,7 +147,7 @@ def _plots(result, system: str, curves: bool = True) -> dict[str, str]:
     ax.legend(fontsize=8, loc="upper left")
     out["observed vs simulated"] = _png(fig)
 
-    fig, ax = plt.subplots(figsize=(7.4, 4.0))
+    fig, ax = _figure((7.4, 4.0))
     xs = t.test + np.where(t.kind == "static", -0.12, 0.12)
     ax.axhline(0, color="grey", lw=1)
     thr = result.options.get("threshold", 3.0)
@@ -162,7 +167,7 @@ def _plots(result, system: str, curves: bool = True) -> dict[str, str]:
     ax.legend(fontsize=7, ncol=4, loc="upper center", bbox_to_anchor=(0.5, -0.16), frameon=False)
     out["residuals by test"] = _png(fig)
 
-    fig, ax = plt.subplots(figsize=(8.6, 4.4))
+    fig, ax = _figure((8.6, 4.4))
     g = np.arange(result.grouping.n_groups)
     c_lo, c_hi = result.options.get("c_bounds", (40.0, 160.0))
     lo_c = np.where(np.isfinite(result.c_low), result.c_low, c_lo)
@@ -201,7 +206,10 @@ def _plots(result, system: str, curves: bool = True) -> dict[str, str]:
         n_show = min(t.n_tests, 12)
         cols = 4
         rows = int(np.ceil(n_show / cols))
-        fig, axes = plt.subplots(rows, cols, figsize=(11, 2.9 * rows), squeeze=False)
+        height = 2.9 * rows
+        fig, axes = _figure((11, height), rows, cols, squeeze=False, margins=dict(
+            left=0.06, right=0.99, bottom=0.5 / height, top=1 - 0.7 / height, wspace=0.35,
+            hspace=0.45))
         rough = result.roughness()
         fu = units.display_unit("flow", system)
         for k in range(n_show):
@@ -238,7 +246,6 @@ def _plots(result, system: str, curves: bool = True) -> dict[str, str]:
             axes[k // cols][k % cols].set_axis_off()
         fig.suptitle("Hydrant curves at each test's first gauge: calibrated model (line), static and "
                      "residual readings (dots; x flagged), flow tested (dotted)", fontsize=10)
-        fig.tight_layout()
         out["hydrant curves"] = _png(fig)
     return out
 
