@@ -38,7 +38,6 @@ class SolveResult:
     _grad: np.ndarray = field(default=None, repr=False)
     _active: np.ndarray = field(default=None, repr=False)
     _isolated_mask: np.ndarray = field(default=None, repr=False)
-    _factor: tuple = field(default=None, repr=False, compare=False)  # (factor, w, isolated) last made
 
     @property
     def link_flow(self) -> np.ndarray:

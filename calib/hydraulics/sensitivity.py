@@ -42,30 +42,12 @@ def sensitivities(solver, result: SolveResult, dF1_dp, dF2_dp):
     rhs = b2 - pat.inflow_matrix(wb1)
     rhs[iso] = 0.0
     S = pat.assemble(w, iso.astype(float))
-    dH = _solve(pat, S, rhs, result._factor, iso) if (rhs.shape[1] and nj) else np.zeros((nj, rhs.shape[1]))
+    dH = pat.factorize(S)(rhs) if (rhs.shape[1] and nj) else np.zeros((nj, rhs.shape[1]))
     dHn = np.vstack([dH, np.zeros((solver.network.n_sources, dH.shape[1]))])
     dQ = -(wb1 - w[:, None] * (dHn[solver.link_from] - dHn[solver.link_to]))
     if vector:
         return dH[:, 0], dQ[:, 0]
     return dH, dQ
-
-
-def _solve(pattern, S, rhs, last, isolated, rtol: float = 1e-10, max_steps: int = 4):
-    """``S^-1 rhs`` with the solver's last factor of this state (made at the last Newton step, a flow
-    change within the solver's tolerance away) and iterative refinement against the exact S
-    (Wilkinson's; e.g. Golub and Van Loan, Matrix Computations, 4th ed., sec. 3.5.3) until each
-    column's last correction is within ``rtol`` of the column; a new factorization when there is
-    no such factor or it does not get there in ``max_steps``."""
-    if last is not None and last[0].pattern is pattern and np.array_equal(last[2], isolated):
-        factor = last[0]
-        b = rhs[pattern.perm]
-        x = factor.solve_permuted(b)
-        for _ in range(max_steps):
-            dx = factor.solve_permuted(b - S @ x)
-            x += dx
-            if np.all(np.abs(dx).max(axis=0) <= rtol * np.abs(x).max(axis=0)):
-                return x[pattern.inv]
-    return pattern.factorize(S)(rhs)
 
 
 def dheadloss_droughness(solver, result: SolveResult) -> np.ndarray:

@@ -168,8 +168,6 @@ class NetworkSolver:
         if warm_start is not None:
             q = warm_start.link_flow.astype(float).copy()
             active = warm_start._active.copy()
-            if warm_start._factor is not None and warm_start._factor[0].pattern is self.pattern:
-                self._factor = warm_start._factor  # precondition with that state's own last factor
         else:
             q = self._initial_flow()
             active = np.ones(self.np_ + self.nu, dtype=bool)
@@ -381,7 +379,7 @@ class NetworkSolver:
             isolated=[str(i) for i in net.node_ids[:nj][isolated]],
             closed_links=[str(i) for i in self.link_ids[~active]],
             snapshot=resolved.snapshot, roughness=rough, _grad=grad, _active=active.copy(),
-            _isolated_mask=isolated.copy(), _factor=self._factor)
+            _isolated_mask=isolated.copy())
 
     # --- derivatives at a solution (see ``calib.hydraulics.sensitivity``) ---------------------
     def sensitivities(self, result: SolveResult, dF1_dp, dF2_dp):
