@@ -2,7 +2,9 @@
 
 Every file the package writes goes through here: the content is written to a temporary file in the
 same folder, flushed to disk and moved over the target in one ``os.replace``, so an error or a kill
-never leaves a half-written file behind.
+never leaves a half-written file behind. The file gets the permissions an ordinary ``open(path, "w")``
+would give it: an existing file keeps its mode, a new one gets ``0o666`` less the process umask
+(``tempfile.mkstemp`` alone would leave ``0o600``, readable by the owner only).
 """
 
 from __future__ import annotations
@@ -31,6 +33,7 @@ def atomic_open(path, mode: str = "w", encoding: str | None = "utf-8", newline: 
     binary = "b" in mode
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     try:
+        os.fchmod(fd, _ordinary_mode(path))
         with os.fdopen(fd, mode, encoding=None if binary else encoding,
                        newline=None if binary else newline) as fh:
             yield fh
@@ -41,6 +44,28 @@ def atomic_open(path, mode: str = "w", encoding: str | None = "utf-8", newline: 
         with contextlib.suppress(OSError):
             os.unlink(tmp)
         raise
+
+
+def _umask() -> int:
+    """The process umask, read without changing it where Linux tells it (/proc), else set and restored."""
+    try:
+        with open("/proc/self/status", encoding="ascii") as fh:
+            for line in fh:
+                if line.startswith("Umask:"):
+                    return int(line.split()[1], 8)
+    except (OSError, ValueError, IndexError):
+        pass
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
+
+
+def _ordinary_mode(path: Path) -> int:
+    """Mode an ordinary write would leave: the existing file's, else ``0o666 & ~umask``."""
+    try:
+        return os.stat(path).st_mode & 0o7777
+    except OSError:
+        return 0o666 & ~_umask()
 
 
 def write_text(path, text: str) -> Path:

@@ -37,6 +37,7 @@ NX, NY = 19, 14  # street grid nodes west-east, south-north
 BLOCK = 450.0  # [ft] between grid nodes
 TOTAL_DEMAND = 1150.0  # [gpm] average-day base demand of the town
 PLANT_HEAD, TANK_HEAD = 1004.0, 994.0  # [ft] hydraulic grades of the two sources
+TANK_FLOOR, TANK_DEPTH = 960.0, 40.0  # [ft] the tank's floor grade and greatest water depth
 OLD_TOWN = (900.0, 2900.0)  # [ft] centre of the first settlement, near the plant
 
 # Pipe groups: material, install decade range, office C guess, roughness height [mm] for
@@ -185,7 +186,9 @@ def build(rng):
         "kind": ["reservoir", "tank"],
         "elevation [ft]": [np.round(ground(sx[0], sy[0]) - 12.0, 1),
                            np.round(ground(sx[1], sy[1]), 1)],
-        "x [ft]": np.round(sx, 1), "y [ft]": np.round(sy, 1), "zone": ["plant", "hill"]})
+        "x [ft]": np.round(sx, 1), "y [ft]": np.round(sy, 1), "zone": ["plant", "hill"],
+        # The tank's floor and greatest depth, so that an operator's level becomes a grade.
+        "floor [ft]": [None, TANK_FLOOR], "level_max [ft]": [None, TANK_DEPTH]})
     pipes = pipe_frame(rng, links, all_x, all_y, list(junctions["id"]) + ["PLANT", "HILLTANK"])
     return junctions, sources, pipes
 

@@ -17,6 +17,9 @@ from kivy.core.window import Window
 from kivy.lang import Builder
 from kivy.logger import Logger
 from kivy.properties import StringProperty
+from kivy.factory import Factory
+from kivy.metrics import dp
+from kivy.uix.boxlayout import BoxLayout
 from kivy.uix.popup import Popup
 from kivy.uix.screenmanager import NoTransition, ScreenManager
 
@@ -27,21 +30,22 @@ from mobile.screens.check import CheckScreen
 from mobile.screens.checklist import ChecklistScreen
 from mobile.screens.export import ExportScreen
 from mobile.screens.home import HomeScreen
+from mobile.screens.map import MapScreen
 from mobile.screens.readings import ReadingsScreen
 from mobile.screens.results import ResultsScreen
 from mobile.screens.settings import SettingsScreen
 from mobile.screens.setup import SetupScreen
-from mobile.services import background, curve, demo, export
+from mobile.services import background, curve, demo, export, mapdata
 from mobile.services.area import Area
 from mobile.services.session import Outcome, TestService, _first_message
 from mobile.store import Store
-from mobile.widgets import common, folders, keypad  # noqa: F401 - registers the widget classes for kv
+from mobile.widgets import common, folders, keypad, netmap  # noqa: F401 - registers the widget classes for kv
 from mobile.widgets.folders import FolderBrowser
 
 HERE = Path(__file__).resolve().parent
 #: Environment variable that overrides the data folder (used by the tests).
 DATA_ENV = "HYDRANT_FIELD_DATA"
-CLASSES = {"home": HomeScreen, "checklist": ChecklistScreen, "setup": SetupScreen,
+CLASSES = {"home": HomeScreen, "checklist": ChecklistScreen, "setup": SetupScreen, "map": MapScreen,
            "readings": ReadingsScreen, "results": ResultsScreen, "check": CheckScreen,
            "export": ExportScreen, "settings": SettingsScreen}
 _KV_LOADED = False
@@ -121,7 +125,13 @@ class HydrantFieldApp(App):
     def go(self, name: str) -> None:
         if name != "home" and name not in ("settings", "export") and not self.test_id:
             name = "home"
+        if self.root.current == name:  # e.g. another test opened on the same screen: show it afresh
+            self.root.get_screen(name).on_pre_enter()
         self.root.current = name
+
+    def setup_screen(self) -> str:
+        """Where hydrants are picked first: the map when the area has one, else the set-up list."""
+        return "map" if mapdata.MapData.from_area(self.service.area) is not None else "setup"
 
     def new_test(self) -> None:
         try:
@@ -152,10 +162,16 @@ class HydrantFieldApp(App):
         start = self.store.get_setting("area_path") or str(demo.TALLOWMERE.parent)
         browser = FolderBrowser(path=str(Path(start).parent) if Path(start).exists() else str(Path.home()),
                                 suffixes=[".geojson"], action="LOAD THIS NETWORK FOLDER")
+        box = BoxLayout(orientation="vertical", spacing=dp(6))
+        box.add_widget(browser)
+        cancel = Factory.BigButton(text="CANCEL: KEEP THE AREA LOADED NOW", tone="grey")
+        box.add_widget(cancel)
         popup = Popup(title="Tap a .geojson file, or open a network folder and load it",
-                      title_size="20sp", content=browser, size_hint=(0.95, 0.95))
+                      title_size="20sp", content=box, size_hint=(0.95, 0.95))
         browser.bind(on_choose=lambda _, path: (popup.dismiss(), self.load_area(path)))
+        cancel.bind(on_release=lambda *_: popup.dismiss())
         popup.open()
+        return popup
 
     def load_area(self, path):
         """Read the network in a worker (a large one takes a while); the home screen shows the outcome."""
@@ -206,7 +222,7 @@ class HydrantFieldApp(App):
         except (CalibError, OSError) as exc:
             return Outcome(False, f"Export failed: {exc}. Each file is either the old or the new one, "
                                   "never half-written; export again to bring them all up to date.")
-        return Outcome(True, f"Exported {done['tests']} tests to {done['folder']}")
+        return Outcome(True, export.done_message(done))
 
     # --- snapshot mode -----------------------------------------------------------------------
     def _snapshot(self, todo: list[str]) -> None:

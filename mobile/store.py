@@ -60,12 +60,36 @@ MIGRATIONS: dict[int, list[str]] = {
         "CREATE TABLE settings (key TEXT PRIMARY KEY, value TEXT NOT NULL)",
         "CREATE INDEX readings_by_test ON readings (test_id, revision, slot)",
     ],
+    3: [
+        # When each revision was finished (NULL: never), so that an export of a test under
+        # correction can take its last finished revision. Earlier revisions of older databases
+        # were finished before a correction opened the next one.
+        "ALTER TABLE revisions ADD COLUMN finished_at TEXT",
+        """UPDATE revisions SET finished_at = created_at WHERE revision < (SELECT current_revision
+               FROM tests WHERE tests.test_id = revisions.test_id) OR revision = (SELECT
+               current_revision FROM tests WHERE tests.test_id = revisions.test_id AND
+               status = 'finished')""",
+        # The on-site model check's verdicts, kept with the revision they judged; ``last_seq`` is
+        # the newest reading they saw (a later reading makes the verdict out of date).
+        """CREATE TABLE checks (
+               seq INTEGER PRIMARY KEY AUTOINCREMENT,
+               test_id TEXT NOT NULL REFERENCES tests(test_id),
+               revision INTEGER NOT NULL,
+               created_at TEXT NOT NULL,
+               last_seq INTEGER NOT NULL,
+               verdict TEXT NOT NULL)""",
+    ],
 }
 SCHEMA_VERSION = max(MIGRATIONS)
 
 
 class StoreError(CalibError, RuntimeError):
     """The store could not save or read; the message says what and that earlier data are intact."""
+
+
+def _plain(value):
+    """JSON for what ``json`` does not know (numpy arrays and numbers in a verdict): plain values."""
+    return value.tolist() if hasattr(value, "tolist") else str(value)
 
 
 def now_iso() -> str:
@@ -210,7 +234,8 @@ class Store:
                 raise StoreError(f"test id '{test_id}' is already used: pick another id")
             conn.execute("INSERT INTO tests (test_id, created_at, area, status, current_revision) "
                          "VALUES (?, ?, ?, 'draft', 1)", (test_id, stamp, area))
-            conn.execute("INSERT INTO revisions VALUES (?, 1, ?, '', ?)",
+            conn.execute("INSERT INTO revisions (test_id, revision, created_at, reason, header) "
+                         "VALUES (?, 1, ?, '', ?)",
                          (test_id, stamp, json.dumps(header, sort_keys=True)))
 
     def has_test(self, test_id: str) -> bool:
@@ -236,7 +261,8 @@ class Store:
         return json.loads(row[0])
 
     def revisions(self, test_id: str) -> list[dict]:
-        rows = self.conn.execute("SELECT revision, created_at, reason FROM revisions WHERE test_id=? "
+        rows = self.conn.execute("SELECT revision, created_at, reason, finished_at FROM revisions "
+                                 "WHERE test_id=? "
                                  "ORDER BY revision", (test_id,))
         return [dict(r) for r in rows]
 
@@ -253,8 +279,16 @@ class Store:
 
     def finish(self, test_id: str) -> None:
         with self.transaction(f"finish test {test_id}") as conn:
-            self._test_in(conn, test_id)
+            t = self._test_in(conn, test_id)
             conn.execute("UPDATE tests SET status='finished' WHERE test_id=?", (test_id,))
+            conn.execute("UPDATE revisions SET finished_at=? WHERE test_id=? AND revision=?",
+                         (now_iso(), test_id, t["current_revision"]))
+
+    def last_finished_revision(self, test_id: str) -> int | None:
+        """The newest revision that was finished (a test under correction keeps it), or None."""
+        row = self.conn.execute("SELECT MAX(revision) FROM revisions WHERE test_id=? AND "
+                                "finished_at IS NOT NULL", (test_id,)).fetchone()
+        return None if row[0] is None else int(row[0])
 
     def new_revision(self, test_id: str, reason: str) -> int:
         """Start a correction: a new revision (a copy of the current header), the test back to draft.
@@ -265,10 +299,14 @@ class Store:
             raise StoreError("say why the test is corrected (e.g. 'gauge re-read'): the reason is kept")
         with self.transaction(f"start a correction of test {test_id}") as conn:
             t = self._test_in(conn, test_id)
+            if t["status"] != "finished":
+                raise StoreError(f"test '{test_id}' is not finished: change its readings directly, "
+                                 "no correction is needed")
             old = t["current_revision"]
             header = conn.execute("SELECT header FROM revisions WHERE test_id=? AND revision=?",
                                   (test_id, old)).fetchone()[0]
-            conn.execute("INSERT INTO revisions VALUES (?, ?, ?, ?, ?)",
+            conn.execute("INSERT INTO revisions (test_id, revision, created_at, reason, header) "
+                         "VALUES (?, ?, ?, ?, ?)",
                          (test_id, old + 1, now_iso(), reason.strip(), header))
             conn.execute("UPDATE tests SET current_revision=?, status='draft' WHERE test_id=?",
                          (old + 1, test_id))
@@ -312,6 +350,29 @@ class Store:
         """Every reading ever entered for the test, oldest first (corrections included)."""
         rows = self.conn.execute("SELECT * FROM readings WHERE test_id=? ORDER BY seq", (test_id,))
         return [Reading(**dict(r)) for r in rows]
+
+    def last_seq(self, test_id: str, revision: int | None = None) -> int:
+        """Sequence number of the newest reading in force at ``revision`` (0 when none)."""
+        revision = revision or self.test(test_id).current_revision
+        row = self.conn.execute("SELECT MAX(seq) FROM readings WHERE test_id=? AND revision<=?",
+                                (test_id, revision)).fetchone()
+        return int(row[0] or 0)
+
+    # --- model-check verdicts ----------------------------------------------------------------
+    def add_check(self, test_id: str, revision: int, last_seq: int, verdict: dict) -> None:
+        """Keep one model-check verdict (JSON-serializable dict) with the revision it judged."""
+        with self.transaction(f"save the model check of test {test_id}") as conn:
+            self._test_in(conn, test_id)
+            conn.execute("INSERT INTO checks (test_id, revision, created_at, last_seq, verdict) "
+                         "VALUES (?, ?, ?, ?, ?)", (test_id, int(revision), now_iso(), int(last_seq),
+                                                    json.dumps(verdict, sort_keys=True,
+                                                               default=_plain)))
+
+    def checks(self, test_id: str) -> list[dict]:
+        """Every verdict kept for the test, oldest first: revision, created_at, last_seq, verdict."""
+        rows = self.conn.execute("SELECT revision, created_at, last_seq, verdict FROM checks "
+                                 "WHERE test_id=? ORDER BY seq", (test_id,))
+        return [{**dict(r), "verdict": json.loads(r["verdict"])} for r in rows]
 
     # --- settings ----------------------------------------------------------------------------
     def get_setting(self, key: str, default=None):

@@ -1,21 +1,45 @@
-"""One bounded weighted least-squares solution and its covariance (the statistics of one fit).
+"""One bounded weighted least-squares solution, its scale, covariance and intervals (the statistics of a fit).
 
 - ``scipy.optimize.least_squares`` (trust-region reflective), weights 1/sigma, optional robust loss.
-- Covariance ``Cov = s^2 (J^T W J)^-1`` (Bard 1974, *Nonlinear Parameter Estimation*) from the final
-  analytic Jacobian by an SVD pseudo-inverse that cuts singular values below ``eps * max(m, n) * s_max``
-  (as ``scipy.optimize.curve_fit`` does); a parameter with a part in the cut space is undetermined
-  (infinite variance), never given a narrow interval.
-- ``s^2 = 1`` (the stated sigma) unless a chi-square test of the weighted sum of squares S on n - p
-  degrees of freedom rejects it on the high side at 5 %; then ``s^2 = S / (n - p)``. Prior rows count
-  as observations. 95 % intervals ``theta +/- t(0.975, n - p) sqrt(Cov_ii)``.
+- The readings' scale. When nobody stated the gauges' accuracy (no ``sigma`` column, no ``--sigma``)
+  the readings' variance comes from their scatter, ``s^2 = S_r / (n_r - p)`` (S_r the weighted sum of
+  squares of the readings at the nominal 1 psi, n_r readings, p the parameters they determine: the trace
+  of the hat matrix over the reading rows, p itself without a prior), and intervals use the t quantile
+  on n_r - p degrees of freedom. When the accuracy was stated, a two-sided chi-square test of S_r on
+  n_r - p degrees of freedom at 5 % decides (the global test of the variance factor of adjustment
+  computations): not rejected, the stated sigma holds and intervals use the normal quantile; rejected
+  (either side), ``s^2 = S_r / (n_r - p)`` with the t quantile. Prior rows keep their own stated
+  spread: only the readings' rows are rescaled, and with a prior the fit is repeated with the rescaled
+  weights until s^2 settles (it moves the balance between readings and prior).
+- Covariance ``(J^T W J)^-1`` (Bard 1974, *Nonlinear Parameter Estimation*) from the final analytic
+  Jacobian, reading rows weighted 1/(s sigma), by an SVD pseudo-inverse that cuts singular values below
+  ``eps * max(m, n) * s_max`` (as ``scipy.optimize.curve_fit`` does); a parameter with a part in the
+  cut space is undetermined (infinite variance), never given a narrow interval.
+- Intervals (``refine_intervals``): the linearized 95 % interval ``theta +/- q sd`` where it can be
+  trusted; a profile-likelihood interval where it cannot - the C at a bound, an interval reaching past
+  the C bounds, an undetermined C, or a sum of squares that is far from quadratic at the linearized
+  ends. The profile refits the other parameters with that C held fixed and finds where the weighted sum
+  of squares has risen by ``q^2`` (the profile t of Bates and Watts 1988, *Nonlinear Regression
+  Analysis and Its Applications*, ch. 6; the endpoint search of Venzon and Moolgavkar 1988, *Applied
+  Statistics* 37(1); with a known sigma the cut-off is the chi-square(1) 95 % point 3.84). The
+  profile never leaves the C bounds: an end that reaches a bound is the bound, and the tests then give
+  a one-sided limit only.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 from scipy import optimize, stats
+
+#: Far from quadratic: the rise of the sum of squares at a linearized interval end, along the
+#: linearized profile trace, outside this share of the expected q^2 (the half-width off by about a
+#: quarter or more). A project choice, not a published threshold.
+QUADRATIC_RANGE = (0.64, 1.56)
+LINEARIZED = "linearized"
+PROFILE = "profile likelihood"
+
 
 @dataclass
 class Estimate:
@@ -28,17 +52,23 @@ class Estimate:
     cov: np.ndarray
     undetermined: np.ndarray  # bool
     at_bound: np.ndarray  # bool
-    s2: float  # variance factor used (1.0 = stated sigma)
-    scaled: bool
-    chi2: float  # weighted sum of squares S
-    dof: int
-    chi2_p: float
-    t: float
+    s2: float  # variance factor of the readings relative to their stated (or nominal) sigma
+    scaled: bool  # True when s2 comes from the readings' scatter (not the stated sigma)
+    chi2: float  # weighted sum of squares S at the stated (or nominal) sigma, readings and prior rows
+    dof: float  # n_r - p (the parameters the readings determine)
+    chi2_p: float  # two-sided p of the chi-square test of the stated sigma (nan when none was stated)
+    t: float  # quantile of the 95 % intervals (normal with a stated sigma that holds, else t)
     nfev: int
     message: str
-    jac: np.ndarray  # weighted Jacobian at x (readings then prior rows)
-    residual: np.ndarray  # weighted residuals at x
+    jac: np.ndarray  # weighted Jacobian at x (readings then prior rows), readings at s * sigma
+    residual: np.ndarray  # weighted residuals at x, readings at s * sigma
     used: np.ndarray  # bool over all readings
+    sigma_stated: bool = True
+    scale_note: str = ""  # which scale the intervals use, and why
+    method: list = field(default_factory=list)  # per parameter: LINEARIZED or PROFILE
+    low_open: np.ndarray | None = None  # per parameter: the low end is the C bound (no lower limit)
+    high_open: np.ndarray | None = None  # per parameter: the high end is the C bound
+    n_profile_fits: int = 0
 
 
 def covariance(J: np.ndarray, rcond: float | None = None):
@@ -63,32 +93,225 @@ def covariance(J: np.ndarray, rcond: float | None = None):
     return cov, undetermined
 
 
+def _hat_trace_readings(J: np.ndarray, n_r: int) -> float:
+    """Trace of the hat matrix over the first ``n_r`` rows: the parameters the readings determine."""
+    if J.size == 0:
+        return 0.0
+    U, s, _ = np.linalg.svd(J, full_matrices=False)
+    keep = s > np.finfo(float).eps * max(J.shape) * (s[0] if s.size else 0.0)
+    return float(np.sum(U[:n_r, keep] ** 2))
+
+
+def _scale(S_r: float, dof: float, stated: bool):
+    """(s2, scaled, chi2_p, q, note) for the readings' sum of squares ``S_r`` on ``dof`` degrees of freedom."""
+    zq = float(stats.norm.ppf(0.975))
+    if dof < 0.5:
+        note = ("no degrees of freedom left to judge the readings' scatter: intervals use the "
+                + ("stated sigma" if stated else "nominal 1 psi (no accuracy was stated)"))
+        return 1.0, False, float("nan"), zq, note
+    s2 = S_r / dof
+    tq = float(stats.t.ppf(0.975, dof))
+    if not stated:
+        note = (f"no gauge accuracy was stated, so the readings' scale comes from their scatter: "
+                f"s = {np.sqrt(s2):.2f} x the nominal 1 psi (s^2 = S/(n-p) = {S_r:.1f}/{dof:.1f}), "
+                f"t quantile {tq:.3f} on {dof:.1f} degrees of freedom")
+        return s2, True, float("nan"), tq, note
+    p_low, p_high = float(stats.chi2.cdf(S_r, dof)), float(stats.chi2.sf(S_r, dof))
+    p = min(1.0, 2.0 * min(p_low, p_high))
+    test = (f"the weighted sum of squares {S_r:.1f} on {dof:.1f} degrees of freedom (two-sided "
+            f"chi-square p = {p:.3g})")
+    if p >= 0.05:
+        return 1.0, False, p, zq, f"the stated gauge sigma holds: {test} does not reject it"
+    side = "larger" if p_high < p_low else "smaller"
+    note = (f"the readings scatter {side} than the stated gauge sigma: {test} rejects it, so the "
+            f"intervals use s^2 = S/(n-p) = {s2:.2f} and the t quantile {tq:.3f}")
+    return s2, True, p, tq, note
+
+
 def estimate(problem, x0, loss, f_scale, max_nfev, used) -> Estimate:
-    sol = optimize.least_squares(problem.residuals, x0, jac=problem.jacobian,
-                                 bounds=(problem.lower, problem.upper), method="trf", loss=loss,
-                                 f_scale=f_scale, x_scale="jac", max_nfev=max_nfev,
-                                 xtol=1e-8, ftol=1e-8, gtol=1e-8)
-    x = sol.x
-    r = problem.residuals(x)
-    J = problem.jacobian(x)
-    cov1, undetermined = covariance(J)
-    n_rows, p = J.shape
-    # prior rows are observations too (of the parameters), so they count in n
-    dof = int(n_rows - p)
-    S = float(r @ r)
-    if dof > 0:
-        chi2_p = float(stats.chi2.sf(S, dof))
-        scaled = chi2_p < 0.05
-        s2 = S / dof if scaled else 1.0
-        t = float(stats.t.ppf(0.975, dof))
-    else:
-        chi2_p, scaled, s2, t = float("nan"), False, 1.0, float(stats.norm.ppf(0.975))
-    cov = cov1 * s2
+    stated = bool(getattr(problem.tests, "sigma_stated", None) is None
+                  or np.all(problem.tests.sigma_stated))
+    n_r = problem.n_readings
+    nominal = np.array(problem.sigma_h, float)
+    k2 = 1.0  # readings' variance factor the weights carry now
+    x_start = np.asarray(x0, float)
+    nfev = 0
+    for _ in range(5):
+        problem.sigma_h = nominal * np.sqrt(k2)
+        sol = optimize.least_squares(problem.residuals, x_start, jac=problem.jacobian,
+                                     bounds=(problem.lower, problem.upper), method="trf", loss=loss,
+                                     f_scale=f_scale, x_scale="jac", max_nfev=max_nfev,
+                                     xtol=1e-8, ftol=1e-8, gtol=1e-8)
+        nfev += int(sol.nfev)
+        x = sol.x
+        r = problem.residuals(x)
+        J = problem.jacobian(x)
+        S_r = float(r[:n_r] @ r[:n_r]) * k2  # at the stated (or nominal) sigma
+        dof = n_r - _hat_trace_readings(J, n_r)
+        s2, scaled, chi2_p, q, note = _scale(S_r, dof, stated)
+        target = s2 if scaled else 1.0
+        # without a prior the solution does not depend on a common scale of the weights; with one the
+        # readings' weight against the prior does: refit until the scale settles
+        if problem.n_prior_rows == 0 or abs(target - k2) <= 0.02 * max(target, 1e-12):
+            break
+        k2, x_start = target, x
+    if abs((s2 if scaled else 1.0) - k2) > 1e-12:
+        k2 = s2 if scaled else 1.0
+        problem.sigma_h = nominal * np.sqrt(k2)
+        r = problem.residuals(x)
+        J = problem.jacobian(x)
+    cov, undetermined = covariance(J)
+    S = S_r + float(r[n_r:] @ r[n_r:])
     sd = np.sqrt(np.where(np.isfinite(np.diag(cov)), np.diag(cov), np.inf))
     sd[undetermined] = np.inf
-    tol = 1e-6 * np.maximum(1.0, np.abs(problem.upper - problem.lower))
-    at_bound = ((np.asarray(sol.active_mask) != 0) | (x - problem.lower < tol)
-                | (problem.upper - x < tol))
-    return Estimate(x=x, sd=sd, low=x - t * sd, high=x + t * sd, cov=cov, undetermined=undetermined,
-                    at_bound=at_bound, s2=s2, scaled=scaled, chi2=S, dof=dof, chi2_p=chi2_p, t=t,
-                    nfev=int(sol.nfev), message=str(sol.message), jac=J, residual=r, used=used)
+    at_bound = _at_bound(problem, x, sol.active_mask)
+    p = len(x)
+    return Estimate(x=x, sd=sd, low=x - q * sd, high=x + q * sd, cov=cov, undetermined=undetermined,
+                    at_bound=at_bound, s2=float(s2 if scaled else 1.0), scaled=scaled, chi2=S,
+                    dof=float(dof), chi2_p=chi2_p, t=q, nfev=nfev, message=str(sol.message), jac=J,
+                    residual=r, used=used, sigma_stated=stated, scale_note=note,
+                    method=[LINEARIZED] * p, low_open=np.zeros(p, dtype=bool),
+                    high_open=np.zeros(p, dtype=bool))
+
+
+def _at_bound(problem, x, active_mask=None) -> np.ndarray:
+    """True where a parameter sits on a bound as printed (within 0.05 % of its range: 0.06 for C 40-160)."""
+    tol = 5e-4 * np.abs(problem.upper - problem.lower)
+    on = (x - problem.lower <= tol) | (problem.upper - x <= tol)
+    if active_mask is not None:
+        on |= np.asarray(active_mask) != 0
+    return on
+
+
+# --- intervals that can be trusted ---------------------------------------------------------------
+def _profile_rise(problem, est, i, value, x_warm):
+    """Rise of the weighted sum of squares when parameter ``i`` is held at ``value`` and the others refit.
+
+    Returns ``(rise, x)``; the weights are those of ``est`` (``problem.sigma_h`` as ``estimate`` left it).
+    """
+    x_full = np.array(x_warm, float)
+    x_full[i] = value
+    free = np.flatnonzero(np.arange(len(x_full)) != i)
+    S0 = float(est.residual @ est.residual)
+    if free.size:
+        def embed(z):
+            full = x_full.copy()
+            full[free] = z
+            return full
+
+        lo, hi = problem.lower[free], problem.upper[free]
+        z0 = np.clip(x_full[free], lo + 1e-9 * (hi - lo), hi - 1e-9 * (hi - lo))
+        sol = optimize.least_squares(lambda z: problem.residuals(embed(z)), z0,
+                                     jac=lambda z: problem.jacobian(embed(z))[:, free],
+                                     bounds=(lo, hi), method="trf", x_scale="jac", max_nfev=8,
+                                     xtol=1e-4, ftol=1e-4, gtol=1e-4)
+        x_full = embed(sol.x)
+    r = problem.residuals(x_full)
+    return max(float(r @ r) - S0, 0.0), x_full
+
+
+def _profile_end(problem, est, i, direction, cut):
+    """One end of the profile-likelihood interval of parameter ``i``: ``(value, reaches_bound, fits)``.
+
+    Secant steps on the signed root of the rise (close to linear in C: Bates and Watts' profile t),
+    starting at the linearized end and kept inside a bracket once the cut-off is passed; an end that
+    reaches the bound below the cut-off is the bound. Each refit starts from the nearest point refit
+    so far, moved along the linearized profile trace.
+    """
+    x0 = est.x
+    bound = problem.lower[i] if direction < 0 else problem.upper[i]
+    room = abs(bound - x0[i])
+    if room <= 5e-4 * (problem.upper[i] - problem.lower[i]):
+        return float(bound), True, 0
+    seen = {float(x0[i]): (0.0, x0)}
+    with np.errstate(invalid="ignore", divide="ignore"):
+        trace = est.cov[:, i] / est.cov[i, i]
+    trace = trace if np.all(np.isfinite(trace)) else None
+
+    def rise_at(value):
+        value = float(value)
+        if value in seen:  # brentq asks for the bracket's ends again
+            return seen[value][0]
+        near = min(seen, key=lambda v: abs(v - value))
+        warm = seen[near][1]
+        if trace is not None:  # the other parameters start where the linearized profile trace says
+            warm = np.clip(warm + (value - near) * trace, problem.lower, problem.upper)
+        rise, x_at = _profile_rise(problem, est, i, value, warm)
+        seen[float(value)] = (rise, x_at)
+        return rise
+
+    half = est.t * est.sd[i]
+    step = min(half, room) if np.isfinite(half) and half > 0 else room / 2.0
+    root_cut = np.sqrt(cut)
+    # secant steps on the signed root of the rise, kept inside a bracket once one is found
+    inside, outside = (float(x0[i]), 0.0), None  # (C, root) with root < / >= the cut's
+    value = float(x0[i] + direction * step)
+    for _ in range(12):
+        root = np.sqrt(rise_at(value))
+        if abs(root - root_cut) <= 0.005 * root_cut:
+            return value, False, len(seen) - 1
+        if root < root_cut:
+            if abs(value - bound) <= 1e-9 * room:
+                return float(bound), True, len(seen) - 1  # the tests do not bound it on this side
+            inside = (value, root)
+        else:
+            outside = (value, root)
+        if outside is not None and abs(outside[0] - inside[0]) < 0.05:
+            break
+        (ca, ra), (cb, rb) = ((inside, outside) if outside is not None else
+                              ((float(x0[i]), 0.0), inside))
+        guess = cb + (root_cut - rb) * (cb - ca) / (rb - ra) if rb != ra else bound
+        lo_c, hi_c = sorted((inside[0], outside[0] if outside is not None else float(bound)))
+        if not lo_c < guess < hi_c:
+            guess = float(bound) if outside is None else 0.5 * (inside[0] + outside[0])
+        value = float(guess)
+    a, b = inside, outside if outside is not None else inside
+    value = a[0] + (root_cut - a[1]) * (b[0] - a[0]) / (b[1] - a[1]) if b[1] != a[1] else a[0]
+    return float(value), False, len(seen) - 1
+
+
+def linear_trustworthy(problem, est, i, cut) -> bool:
+    """True when the linearized interval of parameter ``i`` can stand (see the module docstring)."""
+    lo, hi = est.x[i] - est.t * est.sd[i], est.x[i] + est.t * est.sd[i]
+    if est.undetermined[i] or not np.isfinite(est.sd[i]) or est.at_bound[i]:
+        return False
+    if lo < problem.lower[i] or hi > problem.upper[i]:
+        return False
+    # along the linearized profile trace (the other parameters moving as the covariance says), the
+    # rise at each end should be q^2 when the sum of squares is quadratic
+    direction = est.cov[:, i] / est.cov[i, i]
+    if not np.all(np.isfinite(direction)):
+        return False
+    S0 = float(est.residual @ est.residual)
+    for end in (-1.0, 1.0):
+        x = np.clip(est.x + end * est.t * est.sd[i] * direction, problem.lower, problem.upper)
+        r = problem.residuals(x)
+        ratio = (float(r @ r) - S0) / cut
+        if not QUADRATIC_RANGE[0] <= ratio <= QUADRATIC_RANGE[1]:
+            return False
+    return True
+
+
+def refine_intervals(problem, est: Estimate, columns) -> Estimate:
+    """Replace untrustworthy linearized intervals of ``columns`` (the C-factors) by profile intervals.
+
+    Every interval is clipped to the parameter's bounds. ``problem`` must be the one ``est`` came from.
+    """
+    cut = est.t ** 2
+    low = np.clip(est.low, problem.lower, problem.upper)
+    high = np.clip(est.high, problem.lower, problem.upper)
+    low_open = np.isclose(low, problem.lower) & ~np.isfinite(est.sd)
+    high_open = np.isclose(high, problem.upper) & ~np.isfinite(est.sd)
+    method = list(est.method) or [LINEARIZED] * len(est.x)
+    fits = 0
+    for i in columns:
+        i = int(i)
+        if linear_trustworthy(problem, est, i, cut):
+            continue
+        low[i], low_open[i], f1 = _profile_end(problem, est, i, -1.0, cut)
+        high[i], high_open[i], f2 = _profile_end(problem, est, i, +1.0, cut)
+        fits += f1 + f2
+        method[i] = PROFILE
+    est.low, est.high, est.low_open, est.high_open = low, high, low_open, high_open
+    est.method, est.n_profile_fits = method, fits
+    return est

@@ -1,12 +1,29 @@
 """Exports of a fit: groups.csv, roughness.csv, readings.csv and pipes.geojson, all written atomically.
 
-- ``groups.csv``: one row per group - fitted C with its 95 % interval, pipes, prior, how informed, the
-  C of the fit with every reading (when readings were left out), whether C sits at a bound.
-- ``roughness.csv``: one row per pipe (``pipe_id, group, c_factor, c_low, c_high``), ready for a bulk
-  import into an office model; pipes in no group keep their C and have empty interval cells.
+- ``groups.csv``: one row per group (other programs read it: the column names are a contract):
+  ``group``; ``c_factor`` the fitted C, *empty* where the tests do not determine the group;
+  ``c_low, c_high`` the 95 % interval, or the one-sided limit the tests give (the other end empty: a C
+  bound is no limit); ``n_pipes``; ``length [ft]``; ``prior_c, prior_spread`` (empty without a prior);
+  ``informed`` share of the group's precision from the tests (empty without a prior); ``status``
+  (informed, weakly informed, undetermined); ``determined`` (true/false: false when undetermined or on
+  a C bound); ``at_bound`` (true whenever the fit's C sits on a C bound); ``interval_method``
+  (linearized, or profile likelihood where the linearized interval cannot be trusted);
+  ``interval_text`` (the interval or limit in words, e.g. "C at most 62 at 95 %"); ``c_all_readings``
+  (the fit with every reading, when readings were left out); ``model_c`` (the network's C before,
+  length-weighted).
+- ``roughness.csv``: one row per pipe (``pipe_id, group, c_factor, c_low, c_high, c_source``), ready for
+  a bulk import into an office model: ``c_factor`` is the calibrated C where the tests determine the
+  group and the model's own C where they do not or the pipe is in no group; ``c_source`` says which
+  ("calibrated", "model: not determined by the tests", "model: in no group").
 - ``readings.csv``: ``test_id, node, kind, observed, simulated, residual`` (observed minus simulated)
-  in the chosen pressure unit, the standardized residual, and ``flag`` (empty when the reading fits).
-- ``pipes.geojson``: the network with the calibrated C (``calib.network.io.write_network_geojson``),
+  in the chosen pressure unit, the standardized residual, ``used`` (in the final fit), ``flag`` (why
+  the reading is suspect: a face check or a gross error; empty when it is not), ``cook_distance``
+  (empty for a reading left out) and ``influence`` (why the fit leans on it: Cook's distance above 1,
+  a leave-one-out refit that moves a C; empty otherwise). Influence is a property of where the tests
+  were made, not of the reading's quality: an influential reading is often the only one that informs a
+  group. Filter on ``flag`` for suspects, never on ``influence``.
+- ``covariance.csv``: the covariance of the group C-factors (``group`` then one column per group).
+- ``pipes.geojson``: the network with the C of roughness.csv (``calib.network.io.write_network_geojson``),
   written when the network came with coordinates or pipe geometry.
 Text cells are neutralized against spreadsheet formulas by ``calib.fileio.write_csv``.
 """
@@ -22,20 +39,26 @@ from calib import fileio, units
 
 
 def groups_frame(result) -> pd.DataFrame:
-    """The groups table (C, interval, pipes, prior, informed share, status, first-fit C)."""
+    """The groups table (columns in the module docstring); undetermined groups carry no fitted C."""
     g = result.grouping
+    det = result.c_determined
+    low = np.where(result.c_low_open, np.nan, result.c_low)  # a bound is no limit the tests gave
+    high = np.where(result.c_high_open, np.nan, result.c_high)
     frame = pd.DataFrame({
         "group": g.names,
-        "c_factor": np.round(result.c, 2),
-        "c_low": np.round(result.c_low, 2),
-        "c_high": np.round(result.c_high, 2),
+        "c_factor": np.where(det, np.round(result.c, 2), np.nan),
+        "c_low": np.round(low, 2),
+        "c_high": np.round(high, 2),
         "n_pipes": g.n_pipes(),
         "length [ft]": np.round(g.lengths(result.network) / units.FT, 0),
         "prior_c": np.round(result.prior.c, 1) if result.prior is not None else np.nan,
         "prior_spread": np.round(result.prior.spread, 1) if result.prior is not None else np.nan,
         "informed": np.round(result.informed, 3),
         "status": result.status,
+        "determined": det,
         "at_bound": result.c_at_bound,
+        "interval_method": result.c_method,
+        "interval_text": [result.limit(i) for i in range(g.n_groups)],
     })
     if result.first is not None:
         frame["c_all_readings"] = np.round(result.first.x[result.c_cols], 2)
@@ -52,17 +75,35 @@ def other_parameters_frame(result) -> pd.DataFrame:
     return pd.DataFrame(rows, columns=["parameter", "value", "low", "high", "unit"])
 
 
+def covariance_frame(result) -> pd.DataFrame:
+    """Covariance of the group C-factors [C^2] (``estimate.py``), one row and column per group in
+    groups.csv order; blank where a group is undetermined (no finite variance). Read by
+    ``calib.fireflow`` to carry the C uncertainty into the fire flow."""
+    names = list(result.grouping.names)
+    cov = np.asarray(result.estimate.cov, float)[np.ix_(result.c_cols, result.c_cols)]
+    cov = np.where(np.isfinite(cov), cov, np.nan)
+    frame = pd.DataFrame(cov, columns=names)
+    frame.insert(0, "group", names)
+    return frame
+
+
 def roughness_frame(result) -> pd.DataFrame:
-    """One row per pipe with its calibrated C and its group's interval."""
+    """One row per pipe: the C to import (calibrated, or the model's where undetermined) and its source."""
     net, g = result.network, result.grouping
     idx = g.index
-    c = result.roughness()
-    low = np.where(idx >= 0, result.c_low[np.maximum(idx, 0)], np.nan)
-    high = np.where(idx >= 0, result.c_high[np.maximum(idx, 0)], np.nan)
+    gi = np.maximum(idx, 0)
+    det = np.where(idx >= 0, result.c_determined[gi], False)
+    low = np.where(result.c_low_open, np.nan, result.c_low)
+    high = np.where(result.c_high_open, np.nan, result.c_high)
+    source = np.where(idx < 0, "model: in no group",
+                      np.where(det, "calibrated", "model: not determined by the tests"))
     return pd.DataFrame({
         "pipe_id": net.pipe_ids.astype(str),
         "group": [g.names[i] if i >= 0 else "" for i in idx],
-        "c_factor": np.round(c, 2), "c_low": np.round(low, 2), "c_high": np.round(high, 2),
+        "c_factor": np.round(result.roughness_export(), 2),
+        "c_low": np.round(np.where(idx >= 0, low[gi], np.nan), 2),
+        "c_high": np.round(np.where(idx >= 0, high[gi], np.nan), 2),
+        "c_source": source,
     })
 
 
@@ -81,6 +122,8 @@ def readings_frame(result, system: str = "us") -> pd.DataFrame:
         "standardized": np.round(result.z, 2),
         "used": result.estimate.used,
         "flag": result.flag,
+        "cook_distance": np.round(result.cook, 3),
+        "influence": list(result.influence) or [""] * t.n_readings,
     })
 
 
@@ -95,12 +138,13 @@ def write_outputs(result, out, system: str = "us") -> list[Path]:
     out = Path(out)
     paths = [fileio.write_csv(out / "groups.csv", groups_frame(result)),
              fileio.write_csv(out / "roughness.csv", roughness_frame(result)),
-             fileio.write_csv(out / "readings.csv", readings_frame(result, system))]
+             fileio.write_csv(out / "readings.csv", readings_frame(result, system)),
+             fileio.write_csv(out / "covariance.csv", covariance_frame(result))]
     other = other_parameters_frame(result)
     if len(other):
         paths.append(fileio.write_csv(out / "parameters.csv", other))
     if has_geometry(result.network):
         from calib.network.io import write_network_geojson
-        calibrated = result.network.replace(roughness=result.roughness())
+        calibrated = result.network.replace(roughness=result.roughness_export())
         paths.append(write_network_geojson(calibrated, out / "pipes.geojson", units=system))
     return paths

@@ -26,7 +26,7 @@ from calib.calibration import criteria as _criteria
 from calib.calibration import flags as _flags
 from calib.calibration.groups import Grouping, make_groups
 from calib.calibration.priors import GroupPrior, group_prior
-from calib.calibration.estimate import Estimate, estimate
+from calib.calibration.estimate import PROFILE, Estimate, estimate, refine_intervals
 from calib.calibration.problem import CalibrationProblem
 from calib.errors import CalibrationError, InputError
 
@@ -51,11 +51,14 @@ class FitResult:
     simulated: np.ndarray  # per reading: simulated gauge pressure [Pa]
     z: np.ndarray  # per reading: standardized residual
     cook: np.ndarray  # per reading: Cook's distance (nan for readings left out)
-    flag: list  # per reading: "" or a short reason
+    flag: list  # per reading: "" or why the reading is suspect (face check, gross error)
     rmse: float  # [Pa] over readings used
     criteria: list
     max_headloss: float  # [m], largest head loss across the system in a static snapshot
     findings: list = field(default_factory=list)
+    # per reading: "" or how much it weighs on the fit (Cook's distance, leave-one-out shift): a
+    # property of the test layout, not of the reading's quality; never a flag
+    influence: list = field(default_factory=list)
     n_solves: int = 0
     options: dict = field(default_factory=dict)
     solutions: dict = field(default_factory=dict, repr=False)  # snapshot label -> SolveResult, final x
@@ -88,9 +91,38 @@ class FitResult:
     def c_sd(self) -> np.ndarray:
         return self.estimate.sd[self.c_cols]
 
+    @property
+    def c_determined(self) -> np.ndarray:
+        """Per group: True where the tests determine C (not undetermined, not on a bound)."""
+        return np.array([s != "undetermined" for s in self.status], dtype=bool)
+
+    @property
+    def c_method(self) -> list:
+        """Per group: how its interval was found ("linearized" or "profile likelihood")."""
+        return [self.estimate.method[i] for i in self.c_cols]
+
+    @property
+    def c_low_open(self) -> np.ndarray:
+        """Per group: the interval's low end is the C bound (the tests give no lower limit)."""
+        return self.estimate.low_open[self.c_cols]
+
+    @property
+    def c_high_open(self) -> np.ndarray:
+        return self.estimate.high_open[self.c_cols]
+
+    def limit(self, g: int) -> str:
+        """What the tests say about group ``g``'s C, in words (interval or one-sided limit)."""
+        return limit_text(self.estimate, int(self.c_cols[g]))
+
     def roughness(self) -> np.ndarray:
-        """Per-pipe calibrated C (pipes in no group keep the model's)."""
+        """Per-pipe C of the fit as solved (pipes in no group keep the model's)."""
         return self.grouping.per_pipe(self.c, self.network.roughness)
+
+    def roughness_export(self) -> np.ndarray:
+        """Per-pipe C for the office model: calibrated where the tests determine the group, else the model's."""
+        c = self.roughness()
+        keep = (self.grouping.index >= 0) & ~self.c_determined[np.maximum(self.grouping.index, 0)]
+        return np.where(keep, np.asarray(self.network.roughness, float), c)
 
     @property
     def residual(self) -> np.ndarray:
@@ -206,7 +238,7 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
             if best is None or ek.chi2 < best[2].chi2:
                 best = (k, pk, ek)
         k, pk, new_est = best
-        if est.chi2 - new_est.chi2 < threshold ** 2:
+        if (est.chi2 - new_est.chi2) / est.s2 < threshold ** 2:
             # leaving it out does not remove a gross misfit (a genuine outlier takes about z^2 of
             # S with it): keep it, flagged by its standardized residual only
             break
@@ -219,6 +251,10 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
         est = new_est
         z_used, cook_used = _diagnostics(est, prob)
 
+    # intervals that can be trusted: profile likelihood where the linearized one cannot stand
+    count["stage"] = "interval checks (profile likelihood where needed)"
+    est = refine_intervals(prob, est, prob.c_cols)
+
     # simulated values for every reading (left-out ones too) at the final parameters
     count["stage"] = "simulate every reading"
     full = make(np.ones(n, dtype=bool), x0=est.x)
@@ -226,7 +262,7 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
     results = full.solve(est.x)
     simulated = units.head_to_pressure(h_sim - tests.elevation - tests.gauge_height)
     # shown as observed minus simulated; for left-out readings it is the prediction error
-    z = (tests.hgl - h_sim) / tests.sigma_head
+    z = (tests.hgl - h_sim) / (tests.sigma_head * np.sqrt(est.s2))
     z[est.used] = -z_used
     cook = np.full(n, np.nan)
     cook[est.used] = cook_used
@@ -242,9 +278,9 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
     # influence: Cook's distance, then leave-one-out refits of the strongest candidates
     n_used = int(est.used.sum())
     used_idx = np.flatnonzero(est.used)
+    leaning = [""] * n  # the influence notes (``influence`` is the option)
     for i in used_idx[cook[used_idx] > 1.0]:
-        if not flag[i]:
-            flag[i] = f"influential: Cook's distance {cook[i]:.2f} > 1"
+        leaning[i] = f"Cook's distance {cook[i]:.2f} > 1"
     if influence and n_used > p + 1:
         cand = [i for i in used_idx[np.argsort(-cook[used_idx])][:2] if cook[i] > 4.0 / n_used]
         sd_c = est.sd[prob.c_cols]
@@ -263,9 +299,9 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
             rel = np.where(np.isfinite(sd_c) & (sd_c > 0), shift / np.where(sd_c > 0, sd_c, 1), 0.0)
             g = int(np.argmax(rel))
             if rel[g] > 1.0:
-                text = (f"influential: leaving it out moves C of {grouping.names[g]} by "
+                text = (f"leaving it out moves C of {grouping.names[g]} by "
                         f"{shift[g]:.1f} ({rel[g]:.1f} sd)")
-                flag[i] = flag[i] + "; " + text if flag[i] else text
+                leaning[i] = leaning[i] + "; " + text if leaning[i] else text
 
     # identifiability
     cov = est.cov
@@ -278,19 +314,27 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
     together = [(names[a], names[b], float(corr[a, b])) for a in range(p) for b in range(a + 1, p)
                 if np.isfinite(corr[a, b]) and abs(corr[a, b]) > 0.9]
     sd_c = est.sd[prob.c_cols]
+    cc = prob.c_cols
+    c_bound = est.at_bound[cc]
+    both_open = est.low_open[cc] & est.high_open[cc]
     if gp is not None:
         # share of each group's precision that comes from the tests: 1 - posterior var / prior var
-        post_var = sd_c ** 2 / est.s2
+        # (the readings' rows carry their scale s^2 already; the prior's rows their stated spread)
+        post_var = sd_c ** 2
         informed = np.clip(1.0 - post_var / gp.spread ** 2, 0.0, 1.0)
         informed[~np.isfinite(informed)] = 0.0
         status = ["informed" if s > 0.5 else "weakly informed" if s > 0.1 else "undetermined"
                   for s in informed]
     else:
-        # no prior to compare with: judge by the interval's half-width alone (share left undefined)
-        half = est.t * sd_c
+        # no prior to compare with: judge by the final interval's half-width (share left undefined)
+        half = (est.high[cc] - est.low[cc]) / 2.0
         informed = np.full(len(sd_c), np.nan)
         status = ["undetermined" if not np.isfinite(h) or h > 50 else
-                  "weakly informed" if h > 15 else "informed" for h in half]
+                  "weakly informed" if h > 15 or est.low_open[c] or est.high_open[c] else "informed"
+                  for h, c in zip(half, cc)]
+    # a C on a bound is not a fitted value, and an interval from bound to bound says nothing: the tests
+    # do not determine such a group (they may give a one-sided limit)
+    status = ["undetermined" if c_bound[g] or both_open[g] else st for g, st in enumerate(status)]
 
     # statistics and criteria over the readings used
     resid_pa = tests.pressure - simulated
@@ -306,30 +350,36 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
     crit = _criteria.wrc_1989(head_err, max_hl) + _criteria.awwa_ecac_1999(resid_pa[est.used])
 
     # findings in words
-    scale_text = (f"the weighted sum of squares {est.chi2:.1f} on {est.dof} degrees of freedom "
-                  f"(chi-square p = {est.chi2_p:.3g})")
-    if est.scaled:
-        findings.append(f"Intervals are scaled by the residual variance s^2 = {est.s2:.2f}: {scale_text} "
-                        "says the stated gauge sigma is too small for these readings.")
-    else:
-        findings.append(f"Intervals use the stated gauge sigma: {scale_text} does not reject it.")
+    findings.append(est.scale_note[0].upper() + est.scale_note[1:] + ".")
+    model_c = grouping.length_weighted(network, network.roughness)
     for g, name in enumerate(grouping.names):
         col = prob.c_cols[g]
+        limit = limit_text(est, col)
         if status[g] == "undetermined":
-            where = (f"stays near its prior {gp.c[g]:.0f} with the prior's width" if gp is not None
-                     else "has an infinite or very wide interval")
-            findings.append(f"Group {name}: no test determines it; its C {where}.")
+            if est.at_bound[col] and not (est.low_open[col] and est.high_open[col]):
+                why = (f"its C goes to the bound {est.x[col]:.0f} of {c_bounds[0]:g}-{c_bounds[1]:g}, "
+                       "which is no fitted value. Check the model (closed valves, diameters) there")
+            elif gp is not None:
+                why = f"its C stays near its prior {gp.c[g]:.0f} with the prior's width"
+            else:
+                why = "the readings hardly change with its C"
+            findings.append(f"Group {name}: the tests do not determine it ({limit}); {why}. The exports "
+                            f"keep the model's C ({model_c[g]:.0f}) for its pipes.")
+            lo, hi = est.low[col], est.high[col]
+            if not est.low_open[col] and model_c[g] < lo or not est.high_open[col] and model_c[g] > hi:
+                findings.append(f"Group {name}: the model's C {model_c[g]:.0f} is outside what the tests "
+                                f"allow ({limit}): review that group before using the model.")
         elif status[g] == "weakly informed":
             if gp is not None:
                 findings.append(f"Group {name}: the tests inform it weakly ({informed[g]:.0%} of its "
                                 "precision comes from them; its C leans on the prior).")
             else:
-                findings.append(f"Group {name}: the tests inform it weakly (95 % interval +/- "
-                                f"{est.t * sd_c[g]:.0f}).")
-        if est.at_bound[col]:
-            findings.append(f"Group {name}: C {est.x[col]:.1f} is at a bound of "
-                            f"{c_bounds[0]:g}-{c_bounds[1]:g}; its interval is not reliable. Check the "
-                            "model (closed valves, diameters) before trusting it.")
+                findings.append(f"Group {name}: the tests inform it weakly (95 % interval "
+                                f"{est.low[col]:.0f}-{est.high[col]:.0f}).")
+        if est.method[col] == PROFILE and status[g] != "undetermined":
+            findings.append(f"Group {name}: the linearized interval could not be trusted (at or past a C "
+                            "bound, or a sum of squares far from quadratic); its interval is the profile "
+                            "likelihood one (Venzon and Moolgavkar 1988; Bates and Watts 1988).")
     for a, b, r in together:
         findings.append(f"{a} and {b} move together (correlation {r:+.2f}): the tests determine a "
                         "combination of them better than each alone.")
@@ -353,9 +403,11 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
     for i, reason in face.items():
         findings.append(f"Reading {tests.test_ids[tests.test[i]]} / {network.node_ids[tests.node[i]]} "
                         f"({tests.kind[i]}) fails a face check: {reason}; left out.")
-    sig_m = float(np.median(tests.sigma_head))
+    sig_m = float(np.median(tests.sigma_head)) * (np.sqrt(est.s2) if not est.sigma_stated else 1.0)
     if sig_m > 0.5:
-        findings.append(f"The gauges' stated accuracy ({sig_m:.2f} m of head) is coarser than the "
+        what = ("The gauges' stated accuracy" if est.sigma_stated
+                else "The readings' scatter (no accuracy was stated)")
+        findings.append(f"{what} ({sig_m:.2f} m of head) is coarser than the "
                         "WRc 0.5 m tolerance: that criterion cannot be met by these gauges alone.")
     if loss != "linear":
         findings.append(f"Robust loss '{loss}' (f_scale {f_scale:g} standardized units): the intervals "
@@ -365,7 +417,7 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
     return FitResult(network=network, tests=tests, grouping=grouping, prior=gp, params=prob.params,
                      estimate=est, first=first, corr=corr, move_together=together, informed=informed,
                      status=status, simulated=simulated, z=z, cook=cook, flag=flag, rmse=rmse,
-                     criteria=crit, max_headloss=max_hl, findings=findings,
+                     criteria=crit, max_headloss=max_hl, findings=findings, influence=leaning,
                      n_solves=sum(pr.n_solves for pr in problems),
                      options=dict(group_by=group_by or "group column", prior=prior if isinstance(prior, str)
                                   else ("none" if prior is None else "given"), c_bounds=tuple(c_bounds),
@@ -406,4 +458,21 @@ def _diagnostics(est: Estimate, problem: CalibrationProblem):
     n = problem.n_readings
     h = _flags.leverage(est.jac, n)
     z = _flags.standardized(est.residual[:n], h)
-    return z, _flags.cooks_distance(z, h, problem.n_params)
+    cook = _flags.cooks_distance(z, h, problem.n_params)
+    if est.scaled:
+        # the scale came from these readings: judge each against the scale of the others
+        z = _flags.externally_studentized(z, est.dof)
+    return z, cook
+
+
+def limit_text(est: Estimate, col: int) -> str:
+    """What the tests say about parameter ``col`` in words: its 95 % interval or one-sided limit."""
+    lo, hi = est.low[col], est.high[col]
+    lo_open, hi_open = bool(est.low_open[col]), bool(est.high_open[col])
+    if lo_open and hi_open:
+        return f"no limit within the C bounds {lo:g}-{hi:g}"
+    if lo_open:
+        return f"C at most {hi:.0f} at 95 %"
+    if hi_open:
+        return f"C at least {lo:.0f} at 95 %"
+    return f"95 % interval {lo:.0f}-{hi:.0f}"

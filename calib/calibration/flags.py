@@ -5,8 +5,13 @@
 - Standardized residual: ``r_i / (sigma_i sqrt(1 - h_ii))`` with leverage ``h_ii`` the diagonal of the
   hat matrix of the weighted Jacobian (Belsley, Kuh and Welsch 1980, *Regression Diagnostics*; the
   internally studentized residual with the stated sigma).
+- Where the scale s comes from the readings' own scatter, a gross error inflates it; the screen then uses
+  the externally studentized residual ``t_i = z_i sqrt((nu - 1) / (nu - z_i^2))`` with nu = n - p, the
+  residual against the scale of the other readings (Belsley, Kuh and Welsch 1980, "RSTUDENT").
 - Cook's distance ``D_i = z_i^2 h_ii / (p (1 - h_ii))`` (Cook 1977, Technometrics 19(1)); the usual
-  screening rule flags D > 1, candidates for a leave-one-out refit above 4/n (common practice).
+  screening rule calls D > 1 influential, candidates for a leave-one-out refit above 4/n (common
+  practice). Influence says how much the fit leans on a reading (the test layout), not that the
+  reading is wrong: the fit reports it apart from the flags, which mark suspect readings only.
 """
 
 from __future__ import annotations
@@ -68,3 +73,11 @@ def cooks_distance(z: np.ndarray, h: np.ndarray, p: int) -> np.ndarray:
     """Cook's distance from standardized residuals ``z`` and leverages ``h`` for ``p`` parameters."""
     h = np.clip(h, 0.0, 1.0 - 1e-12)
     return z ** 2 * h / (max(p, 1) * (1.0 - h))
+
+
+def externally_studentized(z: np.ndarray, dof: float) -> np.ndarray:
+    """Externally studentized residuals from internally studentized ``z`` on ``dof`` = n - p (see module)."""
+    z = np.asarray(z, float)
+    if dof <= 1.0:
+        return z
+    return z * np.sqrt((dof - 1.0) / np.clip(dof - z ** 2, 1e-12, None))

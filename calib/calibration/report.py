@@ -2,7 +2,7 @@
 
 Sections, in the order a modeler reads them: the cautions; the result at a glance; the groups (table,
 and C with its interval against the prior, the model's C before and the C bounds); the flagged
-readings; the findings in words; the fit statistics and the calibration accuracy criteria; how well
+(suspect) readings; the influential readings, apart; the findings in words; the fit statistics and the calibration accuracy criteria; how well
 the readings fit (observed vs simulated, residuals by test); hydrant curves; parameter correlation;
 the tests; the method and its sources. matplotlib draws each figure once, through its Agg canvas
 (no pyplot, no display), laid out by its constrained layout during that one draw. The page is
@@ -182,11 +182,18 @@ def _plots(result, system: str, curves: bool = True) -> dict[str, str]:
     # outside the C bounds: shaded, so an interval that reaches a bound is seen as cut by it
     ax.axhspan(ylo, c_lo, color="grey", alpha=0.15, lw=0, label=f"outside C bounds {c_lo:g}-{c_hi:g}")
     ax.axhspan(c_hi, yhi, color="grey", alpha=0.15, lw=0)
-    ax.errorbar(g, result.c, yerr=[result.c - lo_c, hi_c - result.c], fmt="o", capsize=5, ms=7,
-                color="tab:blue", label="fitted C, 95 % interval")
+    det = result.c_determined
+    if det.any():
+        ax.errorbar(g[det], result.c[det], yerr=[(result.c - lo_c)[det], (hi_c - result.c)[det]],
+                    fmt="o", capsize=5, ms=7, color="tab:blue", label="fitted C, 95 % interval")
+    if (~det).any():
+        # no fitted value: only the range the tests leave open (up to the C bounds)
+        ax.vlines(g[~det], lo_c[~det], hi_c[~det], colors="tab:blue", linestyles=":", lw=2,
+                  label="undetermined: range the tests allow")
     for gi in g:
-        ax.annotate(f"{result.c[gi]:.0f}", (gi, hi_c[gi]), xytext=(0, 4),  # above its interval
-                    textcoords="offset points", ha="center", va="bottom", fontsize=8, color="tab:blue")
+        ax.annotate(f"{result.c[gi]:.0f}" if det[gi] else "undetermined", (gi, hi_c[gi]),
+                    xytext=(0, 4), textcoords="offset points", ha="center", va="bottom", fontsize=8,
+                    color="tab:blue")  # above its interval
     if result.prior is not None:
         ax.errorbar(g + 0.25, result.prior.c, yerr=1.96 * result.prior.spread, fmt="s", mfc="none",
                     capsize=3, color="grey", label="prior, +/-1.96 sd")
@@ -268,15 +275,18 @@ def _glance(result, pu: str) -> str:
     counts = {k: status.count(k) for k in ("informed", "weakly informed", "undetermined")}
     words = ", ".join(f"{n} {k}" for k, n in counts.items() if n)
     n_flag = sum(1 for f in result.flag if f)
+    n_lean = sum(1 for f in result.influence if f)
     n_out = int((~est.used).sum())
     rmse = units.from_si(result.rmse, "pressure", pu)
     at_bound = [name for name, b in zip(result.grouping.names, result.c_at_bound) if b]
     text = (f"{t.n_tests} tests, {t.n_readings} readings; {result.grouping.n_groups} pipe groups: "
-            f"{words}. {n_flag} reading(s) flagged"
+            f"{words}. {n_flag} suspect reading(s) flagged"
             + (f", {n_out} left out of the final fit" if n_out else "")
+            + (f"; {n_lean} influential reading(s), listed apart (not suspect)" if n_lean else "")
             + f". RMSE of pressures {rmse:.2f} {pu}.")
     if at_bound:
-        text += f" At a C bound (interval not reliable): {', '.join(at_bound)}."
+        text += (f" Fit goes to a C bound (no fitted value; the exports keep the model's C): "
+                 f"{', '.join(at_bound)}.")
     return text
 
 
@@ -332,10 +342,20 @@ def render(result, system: str = "us", curves: bool = True) -> str:
     gf = groups_frame(result)
     rows = []
     for i, r in gf.iterrows():
-        status = r["status"] + (f" ({result.informed[i]:.0%})" if result.prior is not None else "")
-        if bool(r["at_bound"]):
-            status += ", at a C bound"
-        rows.append([r["group"], _fmt(r["c_factor"]), f"{_fmt(r['c_low'])} - {_fmt(r['c_high'])}",
+        if result.c_determined[i]:
+            status = r["status"] + (f" ({result.informed[i]:.0%})" if result.prior is not None else "")
+            c_text = _fmt(r["c_factor"])
+            interval = (f"{_fmt(r['c_low'])} - {_fmt(r['c_high'])}"
+                        if np.isfinite(r["c_low"]) and np.isfinite(r["c_high"]) else r["interval_text"])
+        else:
+            limited = not (result.c_low_open[i] and result.c_high_open[i])
+            status = "undetermined" + (", fit goes to a C bound" if bool(r["at_bound"]) and limited
+                                       else "") \
+                + f"; the exports keep the model's C {r['model_c']:.0f}"
+            c_text, interval = "-", r["interval_text"]
+        if r["interval_method"] != "linearized":
+            interval += " (profile likelihood)"
+        rows.append([r["group"], c_text, interval,
                      "-" if result.prior is None else f"{r['prior_c']:.0f} +/- {r['prior_spread']:.0f}",
                      _fmt(r["model_c"]), int(r["n_pipes"]), status,
                      _fmt(r["c_all_readings"]) if "c_all_readings" in gf else "-"])
@@ -344,9 +364,13 @@ def render(result, system: str = "us", curves: bool = True) -> str:
                          "C with every reading kept"], rows))
     parts.append("<p class='note'>C is the Hazen-Williams coefficient [-]. The share says how much of "
                  "a group's precision comes from the readings rather than the prior: above 50 % "
-                 "informed, 10 - 50 % weakly informed, below undetermined. \"C with every reading "
-                 "kept\" is the fit before flagged readings were left out; it shows how much they "
-                 "pull.</p>")
+                 "informed, 10 - 50 % weakly informed, below undetermined. A group the tests do not "
+                 "determine (or whose fit goes to a C bound) shows no fitted C: only what the tests "
+                 "say (a one-sided limit, or nothing within the C bounds); roughness.csv and "
+                 "pipes.geojson keep the model's C for its pipes. Intervals are linearized where that "
+                 "can be trusted, else profile likelihood (Venzon and Moolgavkar 1988; Bates and Watts "
+                 "1988), never outside the C bounds. \"C with every reading kept\" is the fit before "
+                 "flagged readings were left out; it shows how much they pull.</p>")
     other = other_parameters_frame(result)
     if len(other):
         parts.append(_table(list(other.columns), other.values.tolist()))
@@ -354,7 +378,7 @@ def render(result, system: str = "us", curves: bool = True) -> str:
     if result.prior is not None:
         parts.append(f"<p class='note'>Prior: {e(result.prior.source)}.</p>")
     flagged = [i for i, f in enumerate(result.flag) if f]
-    parts.append("<h2>Flagged readings</h2>")
+    parts.append("<h2>Flagged readings (suspect)</h2>")
     if flagged:
         parts.append(_table(["test", "node", "kind", f"observed [{pu}]", f"simulated [{pu}]",
                              "left out", "standardized residual, final fit [-]", "reason"],
@@ -370,15 +394,22 @@ def render(result, system: str = "us", curves: bool = True) -> str:
                      "before discarding it.</p>")
     else:
         parts.append("<p>None.</p>")
+    leaning = [i for i, f in enumerate(result.influence) if f]
+    if leaning:
+        parts.append("<h2>Influential readings</h2>")
+        parts.append(_table(["test", "node", "kind", "Cook's distance [-]", "why the fit leans on it"],
+                            [[t.test_ids[t.test[i]], net.node_ids[t.node[i]], t.kind[i],
+                              _fmt(result.cook[i], 2), result.influence[i]] for i in leaning]))
+        parts.append("<p class='note'>Not suspect: these readings weigh much on the fit because of "
+                     "where the tests were made (often the only reading that loads a group). Keep "
+                     "them; a further test that loads the same groups would share their weight.</p>")
     parts.append("<h2>Findings</h2><ul>" + "".join(f"<li>{e(f)}</li>" for f in result.findings)
                  + "</ul>")
     rmse = units.from_si(result.rmse, "pressure", pu)
     parts.append(f"<h2>Fit statistics</h2><p>RMSE of pressures {rmse:.2f} {pu} over "
                  f"{int(est.used.sum())} readings used (of {t.n_readings}); weighted sum of squares "
-                 f"{est.chi2:.1f} on {est.dof} degrees of freedom; intervals "
-                 + (f"scaled by s<sup>2</sup> = {est.s2:.2f} (chi-square test rejects the stated sigma)"
-                    if est.scaled else "from the stated gauge sigma (chi-square test does not reject it)")
-                 + f"; t quantile {est.t:.3f}. Largest head loss across the system in a static "
+                 f"{est.chi2:.1f} on {est.dof:.1f} degrees of freedom. Scale of the readings: "
+                 + e(est.scale_note) + f"; quantile of the 95 % intervals {est.t:.3f}. Largest head loss across the system in a static "
                  f"snapshot {units.from_si(result.max_headloss, 'head', units.display_unit('head', system)):.1f} "
                  f"{units.display_unit('head', system)}.</p>")
     parts.append(_table(["criterion", "source", "required", "achieved", "met"],
@@ -405,6 +436,8 @@ def render(result, system: str = "us", curves: bool = True) -> str:
     if not t.info.empty:
         cols, rows = _info_rows(t.info)
         parts.append("<h2>Tests</h2>" + _table(cols, rows))
+    from calib.fireflow.fitsummary import html_section  # fire flow with the fitted C
+    parts.append(html_section(result, system))
     parts.append(
         "<h2>Method</h2><p>Each test gives a static snapshot (normal demand) and a residual snapshot "
         "(normal demand plus the test's flows); both kinds of reading are fitted (static readings "
@@ -413,8 +446,15 @@ def render(result, system: str = "us", curves: bool = True) -> str:
         "Hazen-Williams C per group by bounded weighted least squares (scipy.optimize.least_squares, "
         "trust-region reflective; after Lansey and Basnet 1991), the Jacobian by implicit "
         "differentiation of the Todini and Pilati (1988) global gradient equations at each converged "
-        "snapshot. Covariance s<sup>2</sup> (J<sup>T</sup>WJ)<sup>-1</sup> by an SVD pseudo-inverse "
-        "(Bard 1974); 95 % intervals with the t quantile. Flags: face checks, standardized residuals "
+        "snapshot. Covariance (J<sup>T</sup>WJ)<sup>-1</sup> by an SVD pseudo-inverse (Bard 1974), "
+        "the readings' rows weighted by their scale: the stated gauge sigma when a two-sided "
+        "chi-square test does not reject it (normal quantile), else s<sup>2</sup> = S/(n-p) from their "
+        "scatter (t quantile), which is also the case when no accuracy was stated; prior rows keep "
+        "their own spread. 95 % intervals: linearized where that can be trusted, else profile "
+        "likelihood - the other parameters refit with the C held fixed, the ends where the sum of "
+        "squares rises by the squared quantile (Venzon and Moolgavkar 1988, Applied Statistics 37(1); "
+        "Bates and Watts 1988, Nonlinear Regression Analysis and Its Applications) - never outside the "
+        "C bounds. Flags: face checks, standardized residuals "
         "with leverage, Cook's distance (Cook 1977) and leave-one-out refits; readings beyond the "
         "threshold are left out one at a time and the fit repeated. Accuracy criteria: WRc (1989) "
         "Network Analysis - A Code of Practice, and the AWWA ECAC (1999) calibration guidelines, "

@@ -27,13 +27,15 @@ import pandas as pd
 
 from calib import units
 from calib.errors import InputError, Problem
+from calib.network import tanks
 from calib.flowtest.pitot import OUTLET_COEFFICIENTS, pitot_discharge
 
 #: Unit assumed for a column whose header has no bracket (the trade's US units).
 DEFAULT_UNIT = {"flow": "gpm", "pitot": "psi", "outlet_diameter": "in", "static": "psi",
-                "residual": "psi", "gauge_height": "ft", "sigma": "psi", "head": "ft"}
+                "residual": "psi", "gauge_height": "ft", "sigma": "psi", "head": "ft", "level": "ft"}
 KIND = {"flow": "flow", "pitot": "pressure", "outlet_diameter": "diameter", "static": "pressure",
-        "residual": "pressure", "gauge_height": "length", "sigma": "pressure", "head": "head"}
+        "residual": "pressure", "gauge_height": "length", "sigma": "pressure", "head": "head",
+        "level": "head"}
 #: Plausible ranges in SI, with the text shown in messages (US units, as crews read them).
 RANGE = {
     "flow": (0.0, 10000 * units.GPM, "more than 0 and at most 10000 gpm"),
@@ -77,6 +79,10 @@ class TestSet:
     elevation: np.ndarray  # node elevation at each reading [m]
     pitot_tests: list[str] = field(default_factory=list)  # tests whose flows came as pitot readings
     notes: list[str] = field(default_factory=list)
+    # per reading: True where someone stated the gauge's accuracy (pressures.csv `sigma`, --sigma);
+    # where not, ``sigma`` holds the nominal 1 psi and the fit takes the scale from the scatter.
+    # None: stated everywhere
+    sigma_stated: np.ndarray | None = None
 
     @property
     def n_tests(self) -> int:
@@ -103,7 +109,9 @@ class TestSet:
                   ("test", "node", "kind", "pressure", "gauge_height", "sigma", "row", "elevation")}
         return TestSet(folder=self.folder, test_ids=self.test_ids, flows=self.flows,
                        source_head=self.source_head, day=self.day, days=self.days, info=self.info,
-                       pitot_tests=self.pitot_tests, notes=list(self.notes), **arrays)
+                       pitot_tests=self.pitot_tests, notes=list(self.notes),
+                       sigma_stated=None if self.sigma_stated is None else self.sigma_stated[keep],
+                       **arrays)
 
 
 # --- reading tables --------------------------------------------------------------------------
@@ -212,6 +220,33 @@ class _Table:
         return value
 
 
+def _boundary_grade(network, b: _Table, i: int, tid: str, s_idx, problems) -> float:
+    """A boundary.csv row's grade [m]: its head, or its level above the tank's floor."""
+    has_head = b.text(i, "head") != ""
+    if has_head or "level" not in b.columns:
+        head = b.number(i, "head", tid, required=True)
+        if math.isnan(head) or s_idx is None:
+            return head
+        try:
+            return tanks.check_grade(network, str(network.node_ids[s_idx]), head)
+        except InputError as exc:
+            p = exc.problems[0]
+            problems.append(Problem(p.message, file=b.name, row=i + 2, id=tid,
+                                    field=b.columns["head"], expected=p.expected))
+            return math.nan
+    level = b.number(i, "level", tid, required=True)
+    if math.isnan(level) or s_idx is None:
+        return math.nan
+    source = str(network.node_ids[s_idx])
+    try:
+        return tanks.grade_from_level(network, source, level)
+    except InputError as exc:
+        p = exc.problems[0]
+        problems.append(Problem(p.message, file=b.name, row=i + 2, id=tid,
+                                field=b.columns["level"], expected=p.expected))
+        return math.nan
+
+
 def _coefficient(table: _Table, i: int, row_id: str) -> float:
     """Outlet coefficient of row i: a number, an outlet shape (NFPA 291 outlet figure), 0.90 if blank."""
     raw = table.text(i, "coefficient").lower()
@@ -246,8 +281,11 @@ def _node(network, table: _Table, i: int, row_id: str, problems, junction_only=T
     return int(idx)
 
 
-def read_tests(folder, network, sigma: float = units.PSI) -> TestSet:
+def read_tests(folder, network, sigma: float | None = None) -> TestSet:
     """Read a tests folder against ``network``; ``sigma`` [Pa] is the gauge accuracy where none is given.
+
+    ``sigma=None``: nobody stated it; such readings get the nominal 1 psi as a relative weight and
+    ``sigma_stated`` False, and the fit takes their scale from the scatter.
 
     Raises ``InputError`` listing every problem (file, row, test id, field, plausible range).
     """
@@ -328,7 +366,7 @@ def read_tests(folder, network, sigma: float = units.PSI) -> TestSet:
             per[n_idx] = per.get(n_idx, 0.0) + q  # two outlets on one hydrant add up
 
     # pressures.csv
-    cols = {k: [] for k in ("test", "node", "kind", "pressure", "gauge_height", "sigma", "row")}
+    cols = {k: [] for k in ("test", "node", "kind", "pressure", "gauge_height", "sigma", "row", "stated")}
     pr = _Table(folder / "pressures.csv", problems, ("test_id", "node"))
     pr.require_any(("static", "residual"), "neither a static nor a residual column",
                    "'static [psi]' and 'residual [psi]'")
@@ -341,7 +379,8 @@ def read_tests(folder, network, sigma: float = units.PSI) -> TestSet:
             gh = pr.number(i, "gauge_height", tid)
             sg = pr.number(i, "sigma", tid)
             gh = 0.0 if math.isnan(gh) else gh
-            sg = sigma if math.isnan(sg) else sg
+            stated = not (math.isnan(sg) and sigma is None)
+            sg = (units.PSI if sigma is None else sigma) if math.isnan(sg) else sg
             values = {k: pr.number(i, k, tid) for k in ("static", "residual") if k in pr.columns}
             if all(math.isnan(v) for v in values.values()) and all(pr.text(i, k) == "" for k in values):
                 problems.append(Problem("no reading in the row", file="pressures.csv", row=i + 2,
@@ -365,18 +404,22 @@ def read_tests(folder, network, sigma: float = units.PSI) -> TestSet:
                 cols["pressure"].append(value)
                 cols["gauge_height"].append(gh)
                 cols["sigma"].append(sg)
+                cols["stated"].append(stated)
                 cols["row"].append(i + 2)
 
     # boundary.csv
     heads: dict[int, dict[int, float]] = {}
     if (folder / "boundary.csv").is_file():
-        b = _Table(folder / "boundary.csv", problems, ("test_id", "source", "head"))
+        b = _Table(folder / "boundary.csv", problems, ("test_id", "source"))
+        b.require_any(("head", "level"), "no 'head' or 'level' column",
+                      "'head [ft]' (the source's grade) or 'level [ft]' (a tank's water depth "
+                      "above its floor, as the operator gives it)")
         if b.ok:
             for i in range(len(b)):
                 tid = b.text(i, "test_id")
                 t_idx = test_index(tid, b, i)
                 s_idx = _node(network, b, i, tid, problems, junction_only=False)
-                h = b.number(i, "head", tid, required=True)
+                h = _boundary_grade(network, b, i, tid, s_idx, problems)
                 if t_idx is None or s_idx is None or math.isnan(h):
                     continue
                 heads.setdefault(t_idx, {})[s_idx] = h
@@ -412,4 +455,4 @@ def read_tests(folder, network, sigma: float = units.PSI) -> TestSet:
         kind=np.asarray(cols["kind"], dtype=object), pressure=np.asarray(cols["pressure"], float),
         gauge_height=np.asarray(cols["gauge_height"], float), sigma=np.asarray(cols["sigma"], float),
         row=np.asarray(cols["row"], dtype=np.int64), elevation=network.elevation[node].astype(float),
-        pitot_tests=sorted(pitot_tests), notes=notes)
+        pitot_tests=sorted(pitot_tests), notes=notes, sigma_stated=np.asarray(cols["stated"], bool))

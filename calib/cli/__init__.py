@@ -15,7 +15,7 @@ import sys
 from calib import __version__
 from calib.errors import CalibError, InputError
 
-COMMANDS = ("solve", "flowtest", "fit")
+COMMANDS = ("solve", "flowtest", "fit", "fireflow")
 
 
 def _chosen(argv: list[str] | None) -> str | None:

@@ -2,7 +2,7 @@
 
 Thin: read the network (``calib.network.io``) and the tests folder (``calib.calibration.read_tests``),
 fit (``calib.calibration.fit``), write the exports and the report into OUT, print a summary table.
-Progress on stderr after every solver call: a bar on a terminal, one line per phase elsewhere. Bad input exits 2 with every problem
+Progress on stderr after every solver call: a tqdm bar on a terminal, one line per phase elsewhere. Bad input exits 2 with every problem
 listed; a fit that cannot be carried out exits 1.
 """
 
@@ -37,8 +37,9 @@ def register(subparsers) -> None:
                         "diameter=8,12); default the group column of pipes.csv")
     p.add_argument("--prior", choices=("handbook", "none"), default="handbook",
                    help="regularizing prior on C by material and age (default handbook)")
-    p.add_argument("--sigma", default="1 psi", metavar="P",
-                   help="gauge accuracy where pressures.csv gives none (default 1 psi)")
+    p.add_argument("--sigma", default=None, metavar="P",
+                   help="gauge accuracy where pressures.csv gives none; a two-sided chi-square test "
+                        "checks it. Default: not stated, the readings' scale comes from their scatter")
     p.add_argument("--units", choices=("us", "si"), default="us", help="units of the outputs")
     p.add_argument("--loss", choices=("linear", "soft_l1", "huber"), default="linear",
                    help="least-squares loss (default linear; robust losses damp outliers)")
@@ -67,7 +68,9 @@ def _bounds(text: str) -> tuple[float, float]:
     return lo, hi
 
 
-def _sigma(text: str) -> float:
+def _sigma(text: str | None) -> float | None:
+    if text is None:
+        return None  # not stated: the fit takes the scale from the scatter
     try:
         value = units.to_si(text, "pressure", "psi")
     except ValueError as exc:
@@ -79,24 +82,25 @@ def _sigma(text: str) -> float:
 
 
 class ProgressBar:
-    """Progress on stderr: a bar redrawn in place on a terminal, one line per phase elsewhere.
+    """Progress on stderr: a tqdm bar on a terminal, one line per phase elsewhere.
 
     ``__call__(n, stage)`` is the fit's progress callback (``n`` solver calls so far; ``stage`` the
-    phase, with a detail after a colon, e.g. ``"leave-one-out: T04 J316"``). On a terminal the bar is
-    redrawn at most ten times a second with carriage returns. Off a terminal (CI, a log file, a pipe)
-    carriage returns would pile up into one long line, so each phase is written once, when it ends:
-    ``fit: 96 solves, 0.2 s``. ``tty`` overrides the stream's own ``isatty()``.
+    phase, with a detail after a colon, e.g. ``"leave-one-out: T04 J316"``). On a terminal a ``tqdm``
+    bar counts the solves (redrawn at most ten times a second), its total an estimate that grows when
+    the fit needs more, the phase beside it. Off a terminal (CI, a log file, a pipe) redraws would pile
+    up into one long line, so each phase is written once, when it ends: ``fit: 96 solves, 0.2 s``.
+    ``tty`` overrides the stream's own ``isatty()``.
     """
 
     def __init__(self, stream=None, width: int = 28, expected: int = 400, tty: bool | None = None):
         self.stream = stream or sys.stderr
         self.width, self.expected = width, max(expected, 1)
-        self.start = time.perf_counter()
         if tty is None:
             isatty = getattr(self.stream, "isatty", None)
             tty = bool(isatty()) if callable(isatty) else False
         self.tty = tty
-        self._stage, self._last = None, 0.0
+        self._bar = None
+        self._stage = None
         # off a terminal: the phase in progress, its first solve count, start time and details
         self._phase, self._phase_n0, self._phase_t0, self._details, self._n = None, 0, 0.0, [], 0
 
@@ -107,16 +111,18 @@ class ProgressBar:
             self._log(n, stage)
 
     def _draw(self, n: int, stage: str) -> None:
-        now = time.perf_counter()
-        # redraw at most ten times a second (or on a new stage) so that the bar costs nothing
-        if stage == self._stage and now - self._last < 0.1:
-            return
-        self._stage, self._last = stage, now
-        self.expected = max(self.expected, int(n * 1.15))
-        done = int(self.width * min(n / self.expected, 1.0))
-        bar = "#" * done + "." * (self.width - done)
-        self.stream.write(f"\r[{bar}] {n:5d} solves  {now - self.start:5.1f} s  {stage[:40]:<40s}")
-        self.stream.flush()
+        from tqdm import tqdm
+
+        if self._bar is None:
+            self._bar = tqdm(total=self.expected, file=self.stream, unit=" solves", mininterval=0.1,
+                             ncols=100, leave=True,
+                             bar_format="{percentage:3.0f}%|{bar}| {n_fmt} solves {elapsed}  {desc}")
+        if n > self._bar.total:
+            self._bar.total = int(n * 1.15)  # the fit needed more solves than estimated
+        if stage != self._stage:
+            self._stage = stage
+            self._bar.set_description_str(stage[:40], refresh=False)
+        self._bar.update(n - self._bar.n)
 
     def _log(self, n: int, stage: str) -> None:
         phase, _, detail = str(stage).partition(":")
@@ -144,38 +150,82 @@ class ProgressBar:
         self._phase = None
 
     def close(self) -> None:
-        if self.tty:
-            self.stream.write("\n")
-        else:
+        if self._bar is not None:
+            self._bar.close()  # leaves the bar on its line and ends it
+            self._bar = None
+        if not self.tty:
             self._end_phase()
         self.stream.flush()
 
 
+def scale_words(result, system: str = "us") -> str:
+    """One phrase: which scale the intervals use and why (stated sigma, or the readings' scatter)."""
+    import numpy as np
+
+    est = result.estimate
+    pu = units.display_unit("pressure", system)
+    sig = float(np.median(result.tests.sigma[est.used])) if est.used.any() else units.PSI
+    s = units.from_si(math.sqrt(est.s2) * sig, "pressure", pu)
+    if not est.sigma_stated:
+        if not est.scaled:
+            return "no gauge accuracy stated and no degrees of freedom left: nominal 1 psi used"
+        return (f"no gauge accuracy stated: scale from the readings' scatter, s = {s:.2f} {pu} "
+                f"(t quantile {est.t:.2f})")
+    if est.scaled:
+        return (f"stated gauge sigma rejected by a two-sided chi-square test (p = {est.chi2_p:.2g}): "
+                f"scale from the scatter, s = {s:.2f} {pu}")
+    return f"stated gauge sigma holds (two-sided chi-square p = {est.chi2_p:.2g})"
+
+
 def summary(result, system: str = "us") -> str:
-    """The table printed at the end: groups, C, interval, pipes, informed; then the flagged readings."""
+    """The table printed at the end: groups, C, interval, pipes, status; then suspect, then influential readings.
+
+    A group the tests do not determine shows no C (a dash), what the tests do say (a one-sided limit
+    or none) and the model's C that the exports keep.
+    """
     w = max(5, max(len(n) for n in result.grouping.names))
-    lines = [f"{'group':<{w}s} {'C':>6s} {'95% interval':>15s} {'pipes':>6s}  informed"]
+    lines = [f"{'group':<{w}s} {'C':>6s} {'95% interval':>15s} {'pipes':>6s}  status"]
+    model_c = result.grouping.length_weighted(result.network, result.network.roughness)
+    n_pipes = result.grouping.n_pipes()
     for g, name in enumerate(result.grouping.names):
         lo, hi = result.c_low[g], result.c_high[g]
-        interval = f"{lo:6.1f}-{hi:6.1f}" if math.isfinite(lo) and math.isfinite(hi) else "undetermined"
-        share = f" ({result.informed[g]:.0%} from the tests)" if result.prior is not None else ""
-        if result.c_at_bound[g]:
-            share += ", at a bound"
-        lines.append(f"{name:<{w}s} {result.c[g]:6.1f} {interval:>15s} "
-                     f"{int(result.grouping.n_pipes()[g]):6d}  {result.status[g]}{share}")
+        lo_open, hi_open = bool(result.c_low_open[g]), bool(result.c_high_open[g])
+        if result.c_determined[g]:
+            c_text = f"{result.c[g]:6.1f}"
+            # an end on a C bound is no limit: say the one side the fit bounds
+            interval = (f"at least {lo:.1f}" if hi_open else f"at most {hi:.1f}" if lo_open
+                        else f"{lo:6.1f}-{hi:6.1f}")
+            note = result.status[g]
+            if result.prior is not None:
+                note += f" ({result.informed[g]:.0%} from the tests)"
+            if result.c_method[g] != "linearized":
+                note += ", profile-likelihood interval"
+        else:
+            c_text = "-"
+            interval = ("no limit" if lo_open and hi_open else f"at most {hi:.0f}" if lo_open
+                        else f"at least {lo:.0f}" if hi_open else f"({lo:.0f}-{hi:.0f})")
+            note = "undetermined"
+            if result.c_at_bound[g] and not (lo_open and hi_open):
+                note += f", fit goes to the bound {result.c[g]:.0f}"
+            note += f"; model C {model_c[g]:.0f} kept"
+        lines.append(f"{name:<{w}s} {c_text:>6s} {interval:>15s} {int(n_pipes[g]):6d}  {note}")
     pu = units.display_unit("pressure", system)
     rmse = units.from_si(result.rmse, "pressure", pu)
     lines.append(f"RMSE of pressures {rmse:.2f} {pu} over {int(result.estimate.used.sum())} readings; "
-                 + ("intervals scaled by s^2 = %.2f" % result.estimate.s2 if result.estimate.scaled
-                    else "intervals from the stated sigma"))
+                 + scale_words(result, system))
+    t, net = result.tests, result.network
     flagged = [(i, f) for i, f in enumerate(result.flag) if f]
     if flagged:
-        lines.append("flagged readings:")
-        t, net = result.tests, result.network
+        lines.append("suspect readings (flag):")
         for i, f in flagged:
             lines.append(f"  {t.test_ids[t.test[i]]} {net.node_ids[t.node[i]]} {t.kind[i]}: {f}")
     else:
-        lines.append("no flagged readings")
+        lines.append("no suspect readings")
+    leaning = [(i, f) for i, f in enumerate(getattr(result, "influence", []) or []) if f]
+    if leaning:
+        lines.append("influential readings (the fit leans on them; not suspect, keep them):")
+        for i, f in leaning:
+            lines.append(f"  {t.test_ids[t.test[i]]} {net.node_ids[t.node[i]]} {t.kind[i]}: {f}")
     return "\n".join(lines)
 
 
@@ -195,7 +245,8 @@ def run(args) -> int:
                          expected="a folder for the outputs (created when missing)")
     network = read_network(args.network)
     tests = read_tests(args.tests, network, sigma=sigma)
-    bar = None if args.quiet else ProgressBar(expected=12 * 2 * tests.n_tests)
+    # about 100 solves a test on the demo day (fit, refits, interval checks, leave-one-out)
+    bar = None if args.quiet else ProgressBar(expected=100 * tests.n_tests)
     try:
         result = fit(network, tests, group_by=args.group_by, prior=args.prior, c_bounds=c_bounds,
                      loss=args.loss, demand_factor=args.demand_factor,

@@ -6,7 +6,7 @@ CAUTIONS = (
     "where required).",
     "Flowing can stir up discoloured water for customers and lowers fire protection while it lasts: "
     "notify the water utility and the fire service first.",
-    "Keep every residual pressure at or above 20 psi (140 kPa) during the test (NFPA 291).",
+    "Keep every residual pressure at or above 20 psi (138 kPa) during the test (NFPA 291).",
     "Record tank levels and pump and valve status at the time of the test.",
     "These figures support, never replace, fire-protection design by a licensed engineer under the "
     "local codes and the authority having jurisdiction.",

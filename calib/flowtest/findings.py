@@ -103,15 +103,16 @@ def check_drop(static: float, residual: float, system: str = "us") -> list[Findi
     out = []
     if drop < MIN_DROP * (1 - _SLACK):
         out.append(Finding("drop-below-10psi", "warning",
-                           f"The pressure dropped only {fmt_pressure(drop, system)}. Modelling practice asks "
-                           f"for at least {fmt_pressure(MIN_DROP, system)} so that gauge error does not "
-                           "swamp it (Walski 2000, JAWWA). Open another outlet or hydrant if it is safe.",
+                           f"The pressure dropped only {fmt_pressure(drop, system)}: open another outlet "
+                           f"or hydrant if it is safe, until it drops at least "
+                           f"{fmt_pressure(MIN_DROP, system)}, so that gauge error does not swamp it "
+                           "(modelling practice, Walski 2000, JAWWA).",
                            "Walski, Model calibration data: the good, the bad and the useless, JAWWA 2000"))
     if drop < MIN_DROP_FRACTION * static * (1 - _SLACK):
         out.append(Finding("drop-below-25pct", "warning",
-                           f"The pressure dropped {100 * drop / static:.0f} % of the static; NFPA 291 "
-                           "(2010 ed., 4.3.6) asks for at least 25 %, or a test at the flow needed for "
-                           "fire fighting. The rated flow is an extrapolation.",
+                           f"The pressure dropped only {100 * drop / static:.0f} % of the static: open "
+                           "another outlet or hydrant if it is safe, until it drops at least 25 %; "
+                           "otherwise the rated flow is an extrapolation (NFPA 291 (2010 ed., 4.3.6)).",
                            "NFPA 291 (2010 ed.), 4.3.6"))
     return out
 
@@ -123,8 +124,8 @@ def check_pitots(pitots, system: str = "us") -> list[Finding]:
         if p < PITOT_LOW * (1 - _SLACK):
             out.append(Finding("pitot-low", "warning",
                                f"Outlet {i}: the pitot reading ({fmt_pressure(p, system)}) is below "
-                               f"{fmt_pressure(PITOT_LOW, system)}; NFPA 291 advises against such low "
-                               "readings. Use a smaller outlet or fewer outlets.",
+                               f"{fmt_pressure(PITOT_LOW, system)}: use a smaller outlet or fewer "
+                               "outlets (NFPA 291 advises against such low readings).",
                                "NFPA 291 (from memory)"))
         elif p > PITOT_HIGH * (1 + _SLACK):
             out.append(Finding("pitot-high", "warning",
@@ -151,9 +152,9 @@ def check_residual_minimum(residual: float, system: str = "us") -> list[Finding]
         return []
     return [Finding("residual-below-20psi", "error",
                     f"The residual fell to {fmt_pressure(residual, system)}, below "
-                    f"{fmt_pressure(MIN_RESIDUAL, system)}. NFPA 291 keeps every residual at or above "
-                    "20 psi: lower pressure can pull in dirty water by back-siphonage. Close outlets "
-                    "slowly and report it.", "NFPA 291")]
+                    f"{fmt_pressure(MIN_RESIDUAL, system)}: close the outlets slowly now and report "
+                    "it; lower pressure can pull in dirty water by back-siphonage (NFPA 291 keeps "
+                    "every residual at or above 20 psi).", "NFPA 291")]
 
 
 def check_static_change(static: float, static_end: float | None, system: str = "us") -> list[Finding]:

@@ -60,8 +60,8 @@ class SchurPattern:
         self.indptr = np.searchsorted(col_of, np.arange(nj + 1)).astype(np.int32)
         self.nnz = len(uniq)
         self._contrib_pos = pos[:n_contrib]
-        self.diag_pos = np.empty(nj, dtype=np.int64)
-        self.diag_pos[self.perm] = pos[n_contrib:]  # diag_pos[old junction] -> data position
+        # the diagonal contributions were listed by old junction number 0..nj-1
+        self.diag_pos = pos[n_contrib:].astype(np.int64)  # diag_pos[old junction] -> data position
         self._factorizer = None if (dense or nj == 0) else _factor.factorizer(
             self.backend, sp.csc_matrix((np.ones(self.nnz), self.indices, self.indptr), shape=(nj, nj)))
 
@@ -88,6 +88,18 @@ class SchurPattern:
         if extra_diag is not None:
             data[self.diag_pos] += extra_diag
         return sp.csc_matrix((data, self.indices, self.indptr), shape=(self.n, self.n))
+
+    def hold(self, matrix: sp.csc_matrix, fixed: np.ndarray) -> sp.csc_matrix:
+        """Clear, in place, the off-diagonal entries of the rows and columns of ``fixed`` junctions
+        (old order, bool): a junction held at a fixed grade (or cut off) then keeps dH = 0 for a zero
+        right-hand side, as a source would, and the rest of S no longer sees its unknown."""
+        if fixed.any():
+            col = np.repeat(np.arange(self.n), np.diff(self.indptr))
+            held = fixed[self.perm]  # by new index
+            row = self.indices
+            off = (held[row] | held[col]) & (row != col)
+            matrix.data[off] = 0.0
+        return matrix
 
     def factorize(self, matrix: sp.csc_matrix) -> "SchurFactor":
         """Factor S once (the backend's sparse factorization of the pre-ordered matrix, or dense Cholesky)."""

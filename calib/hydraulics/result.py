@@ -35,6 +35,7 @@ class SolveResult:
     closed_links: list
     snapshot: Snapshot
     roughness: np.ndarray
+    held_flow: dict = field(default_factory=dict)  # {held junction id: draw [m3/s]} (Snapshot.held_head)
     _grad: np.ndarray = field(default=None, repr=False)
     _active: np.ndarray = field(default=None, repr=False)
     _isolated_mask: np.ndarray = field(default=None, repr=False)

@@ -22,6 +22,9 @@ class Snapshot:
     - ``extra_demand`` {junction id: m3/s}: added demands, e.g. the flowing hydrants of a test.
     - ``source_head`` {source id: m}: fixed grades that replace the network's, e.g. the tank level
       read at the time of the test.
+    - ``held_head`` {junction id: m}: junctions held at a fixed hydraulic grade (e.g. a hydrant at
+      its elevation plus 20 psi); their draw is then the unknown, returned in
+      ``SolveResult.held_flow`` (used by the fire-flow scan, ``calib.fireflow``).
     - ``label``: free text carried to the result (a test id, a scenario name).
     """
 
@@ -29,6 +32,7 @@ class Snapshot:
     extra_demand: dict = field(default_factory=dict)
     source_head: dict = field(default_factory=dict)
     label: str = ""
+    held_head: dict = field(default_factory=dict)
 
 
 @dataclass
@@ -38,6 +42,8 @@ class ResolvedSnapshot:
     demand: np.ndarray  # (n_junctions,) [m3/s]
     source_head: np.ndarray  # (n_sources,) [m]
     snapshot: Snapshot
+    held: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))  # junction numbers
+    held_head: np.ndarray = field(default_factory=lambda: np.zeros(0))  # [m]
 
 
 def resolve(snapshot: Snapshot | None, network) -> ResolvedSnapshot:
@@ -65,9 +71,13 @@ def resolve(snapshot: Snapshot | None, network) -> ResolvedSnapshot:
     heads = network.source_head.copy()
     for i, v in _named_values(snapshot.source_head, network, problems, sources=True):
         heads[i - nj] = v
+    held = list(_named_values(getattr(snapshot, "held_head", {}) or {}, network, problems,
+                              sources=False, name="held_head"))
     if problems:
         raise InputError(problems)
-    return ResolvedSnapshot(demand=demand + extra, source_head=heads, snapshot=snapshot)
+    return ResolvedSnapshot(demand=demand + extra, source_head=heads, snapshot=snapshot,
+                            held=np.array([i for i, _ in held], dtype=np.int64),
+                            held_head=np.array([v for _, v in held], dtype=float))
 
 
 # What each named mapping of a snapshot holds: (field, wrong kind of node, expected node, value, hint).
@@ -79,11 +89,15 @@ _FIELDS = {
 }
 
 
-def _named_values(mapping: dict, network, problems: list[Problem], sources: bool):
+def _named_values(mapping: dict, network, problems: list[Problem], sources: bool,
+                  name: str | None = None):
     """Yield (node number, float) for each entry of ``mapping`` that names the right kind of node
     (a source when ``sources``, else a junction) and holds a finite number; append a Problem for the
     others."""
-    name, wrong_kind, expected_node, bad_value, expected_value = _FIELDS[sources]
+    field_name, wrong_kind, expected_node, bad_value, expected_value = _FIELDS[sources]
+    name = name or field_name
+    if name == "held_head":
+        bad_value, expected_value = "held grade {!r} is not a finite number [m]", "a hydraulic grade in m"
     index, nj = network.node_index, network.n_junctions
     for node, value in mapping.items():
         i = index.get(str(node))

@@ -198,6 +198,11 @@ class NetworkSolver:
         flips = np.zeros(len(q), dtype=np.int64)
         isolated = self._reachable(active)
         self._check_isolated(isolated, demand)
+        # held junctions (Snapshot.held_head) keep a fixed grade like a source: their mass equation
+        # leaves the system (identity row, as for an isolated junction) and their draw is an output
+        held = np.zeros(nj, dtype=bool)
+        held[resolved.held] = True
+        H[resolved.held] = resolved.held_head
         dq_max = dh_max = np.inf
         self.trace = []  # per iteration: (flow change / q_ref, head change, energy, mass error)
         changed = False
@@ -210,7 +215,7 @@ class NetworkSolver:
             h, grad = self._laws(q, coef)
             F1 = np.where(active, h - (H[f] - H[t]), 0.0)
             F2 = pat.inflow(q)[:nj] - demand
-            F2[isolated] = 0.0
+            F2[isolated | held] = 0.0
             e1 = float(np.abs(F1).max(initial=0.0))
             e2 = float(np.abs(F2).max(initial=0.0))
             q_ref = max(total_demand, float(np.abs(q).max(initial=0.0)), self.q_eps)
@@ -220,7 +225,7 @@ class NetworkSolver:
                 self._check_frozen(q, H, active, dynamic, flips)
                 self._check_held(q, active, dynamic, demand)
                 return self._result(resolved, rough, coef, q, H, h, grad, active, isolated,
-                                    it, e1, e2)
+                                    it, e1, e2, held)
             if it == self.max_iterations:
                 break
             if it == 0 and secant:
@@ -232,9 +237,12 @@ class NetworkSolver:
                 grad = grad.copy()
                 grad[: self.np_][sec] = h[: self.np_][sec] / qp[sec]
             w = np.where(active, 1.0 / grad, 0.0)
-            S = pat.assemble(w, isolated.astype(float))
+            fixed = isolated | held
+            S = pat.assemble(w, fixed.astype(float))
+            if held.any():
+                pat.hold(S, fixed)
             rhs = F2 - pat.inflow(w * F1)[:nj]
-            rhs[isolated] = 0.0
+            rhs[fixed] = 0.0
             dH = self._linear_solve(S, rhs, w, isolated, mass_tol) if nj else np.zeros(0)
             dHn = np.concatenate([dH, np.zeros(net.n_sources)])
             dq = -w * (F1 - (dHn[f] - dHn[t]))
@@ -359,7 +367,8 @@ class NetworkSolver:
             f"long pipes there", iterations=iterations, worst_nodes=worst_nodes,
             worst_links=worst_links, max_mass_error=e2)
 
-    def _result(self, resolved, rough, coef, q, H, h, grad, active, isolated, it, e1, e2):
+    def _result(self, resolved, rough, coef, q, H, h, grad, active, isolated, it, e1, e2,
+                held=None):
         net, nj, np_ = self.network, self.nj, self.np_
         H = H.copy()
         H[:nj][isolated] = net.elevation[:nj][isolated]
@@ -379,7 +388,16 @@ class NetworkSolver:
             isolated=[str(i) for i in net.node_ids[:nj][isolated]],
             closed_links=[str(i) for i in self.link_ids[~active]],
             snapshot=resolved.snapshot, roughness=rough, _grad=grad, _active=active.copy(),
-            _isolated_mask=isolated.copy())
+            **{"_isolated_mask": isolated.copy(), **self._held_fields(resolved, q, held, isolated)})
+
+    def _held_fields(self, resolved, q, held, isolated) -> dict:
+        """Draw at each held junction (inflow minus its own demand) [m3/s]; held junctions count as
+        fixed in ``_isolated_mask`` so that ``sensitivities`` keeps their grade fixed too."""
+        if held is None or not held.any():
+            return {}
+        draw = self.pattern.inflow(q)[resolved.held] - resolved.demand[resolved.held]
+        return {"held_flow": dict(zip(self.network.node_ids[resolved.held].astype(str), draw)),
+                "_isolated_mask": isolated | held}
 
     # --- derivatives at a solution (see ``calib.hydraulics.sensitivity``) ---------------------
     def sensitivities(self, result: SolveResult, dF1_dp, dF2_dp):

@@ -239,7 +239,13 @@ def network_features(network: Network, units: str = "us", length_unit: str | Non
         "source_kind": network.source_kind.tolist(),
         f"head [{u['head']}]": _column(from_si(network.source_head, "head", u["head"])),
         f"elevation [{u['elevation']}]": _column(elevation[nj:]),
-        "zone": network.zone[nj:].tolist()})
+        "zone": network.zone[nj:].tolist(),
+        f"floor [{u['elevation']}]": _column(from_si(network.source_floor, "elevation",
+                                                     u["elevation"])),
+        f"level_max [{u['head']}]": _column(from_si(network.source_level_max, "head", u["head"]))})
+    for props in sources:  # a tank's floor and depth only where the network gives them
+        for key in [k for k, v in props.items() if k.startswith(("floor ", "level_max ")) and v is None]:
+            del props[key]
     points = _points(network, to_map)
     features = [_feature(g, p) for g, p in zip(points, junctions + sources)]
     features += _pipe_features(network, units, to_map)

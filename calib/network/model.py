@@ -71,6 +71,8 @@ class Network:
     material: np.ndarray = None  # (n_pipes,) "" when unknown
     installed: np.ndarray = None  # (n_pipes,) install year, nan when unknown
     source_kind: np.ndarray = None  # (n_sources,) "reservoir" or "tank"
+    source_floor: np.ndarray = None  # (n_sources,) grade of a tank's floor [m], nan when unknown
+    source_level_max: np.ndarray = None  # (n_sources,) greatest water depth [m], nan when unknown
     hydrant: np.ndarray = None  # (n_junctions,) True where a hydrant stands
     x: np.ndarray = None  # (n_nodes,) map coordinate, nan when unknown
     y: np.ndarray = None
@@ -87,6 +89,7 @@ class Network:
             "roughness_height": np.full(p, np.nan), "group": np.full(p, "", dtype=object),
             "material": np.full(p, "", dtype=object), "installed": np.full(p, np.nan),
             "source_kind": np.full(ns, "reservoir", dtype=object),
+            "source_floor": np.full(ns, np.nan), "source_level_max": np.full(ns, np.nan),
             "hydrant": np.zeros(self.n_junctions, dtype=bool),
             "x": np.full(n, np.nan), "y": np.full(n, np.nan), "zone": np.full(n, "", dtype=object),
         }
@@ -98,13 +101,14 @@ class Network:
         self.pipe_from = np.asarray(self.pipe_from, dtype=np.int64)
         self.pipe_to = np.asarray(self.pipe_to, dtype=np.int64)
         for name in ("elevation", "demand", "source_head", "length", "diameter", "roughness",
-                     "minor_loss", "roughness_height", "installed", "x", "y"):
+                     "minor_loss", "roughness_height", "installed", "x", "y", "source_floor",
+                     "source_level_max"):
             setattr(self, name, np.asarray(getattr(self, name), dtype=float))
         self.status = np.asarray(self.status, dtype=np.int8)
         sizes = {"elevation": n, "demand": self.n_junctions, "source_head": ns, "pipe_from": p,
                  "pipe_to": p, "length": p, "diameter": p, "roughness": p, "minor_loss": p,
                  "status": p, "roughness_height": p, "group": p, "material": p, "installed": p,
-                 "source_kind": ns, "hydrant": self.n_junctions, "x": n, "y": n, "zone": n}
+                 "source_kind": ns, "source_floor": ns, "source_level_max": ns, "hydrant": self.n_junctions, "x": n, "y": n, "zone": n}
         for name, size in sizes.items():
             if len(getattr(self, name)) != size:
                 raise ValueError(f"Network.{name} has {len(getattr(self, name))} entries, "

@@ -52,7 +52,10 @@ SCHEMA: dict[str, tuple[Column, ...]] = {
     "junctions": (Column("id", "id", True), Column("elevation", "elevation", True),
                   Column("demand", "flow", True), *_XY, Column("hydrant", "bool")),
     "sources": (Column("id", "id", True), Column("head", "head", True),
-                Column("kind", "source_kind"), Column("elevation", "elevation"), *_XY),
+                Column("kind", "source_kind"), Column("elevation", "elevation"), *_XY,
+                # A tank's floor (grade of its bottom) and greatest water depth: a level the
+                # operator gives then becomes a grade (calib.network.tanks).
+                Column("floor", "elevation"), Column("level_max", "head")),
     "pipes": (Column("id", "id", True), Column("from", "node", True), Column("to", "node", True),
               Column("length", "length", True), Column("diameter", "diameter", True),
               Column("roughness", "number", True), Column("group", "text"),

@@ -17,6 +17,7 @@ import scipy.sparse as sp
 from scipy.sparse.csgraph import connected_components
 
 from calib.errors import NetworkError, Problem
+from calib.units import FT as FT_M
 from calib.network import pump_curve
 from calib.network.model import Network, PipeStatus, Pumps
 from calib.network.tables import NetworkTables, ParsedTable
@@ -124,6 +125,22 @@ def _pump_curves(pumps: ParsedTable, problems: list[Problem]) -> np.ndarray:
     return curves
 
 
+def _check_tank_levels(s: ParsedTable, problems: list[Problem]) -> None:
+    """A tank's ``level_max`` is above zero and needs a ``floor``; its head lies in the tank."""
+    floor, level_max, head = s.get("floor"), s.get("level_max"), s.get("head")
+    for i in np.flatnonzero(np.isfinite(level_max) & (level_max <= 0)):
+        problems.append(_problem(s, i, "level_max must be above zero", field="level_max",
+                                 expected="the greatest water depth of the tank, e.g. 40 ft"))
+    for i in np.flatnonzero(np.isfinite(level_max) & ~np.isfinite(floor)):
+        problems.append(_problem(s, i, "level_max is given without a floor", field="floor",
+                                 expected="the elevation of the tank's floor (the grade at level 0)"))
+    full = floor + np.where(np.isfinite(level_max) & (level_max > 0), level_max, np.inf)
+    for i in np.flatnonzero(np.isfinite(floor) & np.isfinite(head) & ((head < floor) | (head > full))):
+        top = f" to {full[i] / FT_M:.1f} ft" if np.isfinite(full[i]) else " or more"
+        problems.append(_problem(s, i, "the head lies outside the tank", field="head",
+                                 expected=f"a grade from the floor {floor[i] / FT_M:.1f} ft{top}"))
+
+
 def _check_connectivity(tables: NetworkTables, n_junctions: int, n_nodes: int, links,
                         repeated: np.ndarray, problems: list[Problem]) -> None:
     """Each connected part (over open pipes and running pumps) needs a source; each source a link.
@@ -194,6 +211,7 @@ def assemble(tables: NetworkTables, problems: list[Problem], name: str = "networ
         pump_parts = (u_from, u_to, curves, speed)
         frm, to = np.concatenate([frm, u_from]), np.concatenate([to, u_to])
         active = np.concatenate([active, speed > 0])
+    _check_tank_levels(s, problems)
     if len(j) and len(s):
         _check_connectivity(tables, len(j), len(node_ids), (frm, to, active), repeated,
                             problems)
@@ -227,6 +245,7 @@ def _build(tables, node_ids, p_from, p_to, status, pump_parts, name, pipe_geomet
         group=p.get("group", "").astype(object), material=p.get("material", "").astype(object),
         installed=p.get("installed"),
         source_kind=s.get("kind", "reservoir").astype(object),
+        source_floor=s.get("floor"), source_level_max=s.get("level_max"),
         hydrant=np.asarray(j.get("hydrant", False), dtype=bool),
         x=np.concatenate([j.get("x"), s.get("x")]), y=np.concatenate([j.get("y"), s.get("y")]),
         zone=np.concatenate([j.get("zone", ""), s.get("zone", "")]).astype(object),

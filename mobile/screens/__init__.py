@@ -3,4 +3,4 @@
 ``SCREENS`` lists them in the order of the crew's workflow; ``mobile.app`` loads their kv files.
 """
 
-SCREENS = ("home", "checklist", "setup", "readings", "results", "check", "export", "settings")
+SCREENS = ("home", "checklist", "setup", "map", "readings", "results", "check", "export", "settings")

@@ -3,6 +3,7 @@
 from kivy.app import App
 from kivy.properties import BooleanProperty, StringProperty
 from kivy.uix.screenmanager import Screen
+from kivy.uix.scrollview import ScrollView
 
 
 class FieldScreen(Screen):
@@ -29,6 +30,14 @@ class FieldScreen(Screen):
     def on_pre_enter(self, *args):
         self.message = ""
         self.refresh()
+        self.to_top()
+
+    def to_top(self):
+        """Every list and scrolled column starts at its top: the headline and the buttons where
+        the crew last saw them, never an old scroll position."""
+        for w in self.walk(restrict=True):
+            if isinstance(w, ScrollView):
+                w.scroll_y = 1
 
     def refresh(self):
         """Pull what the screen shows from the service (override)."""

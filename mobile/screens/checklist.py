@@ -15,3 +15,7 @@ class ChecklistScreen(FieldScreen):
 
     def tick(self, key, ticked):
         self.show(self.service.tick(self.tid, key, ticked))
+
+    def all_done(self):
+        if self.show(self.service.tick_all(self.tid)):
+            self.app.go(self.app.setup_screen())

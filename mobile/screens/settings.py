@@ -3,7 +3,7 @@
 from kivy.properties import StringProperty
 
 from mobile.screens.base import FieldScreen
-from mobile.services import values
+from mobile.services import values, views
 
 
 class SettingsScreen(FieldScreen):
@@ -11,9 +11,11 @@ class SettingsScreen(FieldScreen):
     target = StringProperty("")
     data_dir = StringProperty("")
     area = StringProperty("")
+    note = StringProperty("")
 
     def refresh(self):
         self.system = self.service.system
+        self.note = views.target_note(self.system)
         self.target = values.fmt(self.service.target, "pressure", self.system)
         self.data_dir = str(self.app.data_dir)
         self.area = self.app.area_summary()

@@ -47,30 +47,54 @@ class Area:
             name = path.parent.name
         return cls.from_network(network, name=name.title(), source=str(path))
 
+    @property
+    def junctions(self) -> list[str]:
+        """Every junction id of the network, sorted (empty without a network)."""
+        if self.network is None:
+            return []
+        return sorted(str(i) for i in self.network.junction_ids)
+
     def search(self, text: str, limit: int = 50) -> list[str]:
-        """Hydrant ids containing ``text`` (any case), those starting with it first."""
+        """Hydrant ids containing ``text`` (any case), those starting with it first; then junctions
+        the model lists no hydrant at (a crew may test any junction)."""
         needle = (text or "").strip().lower()
         if not needle:
             return self.hydrants[:limit]
-        starts = [h for h in self.hydrants if h.lower().startswith(needle)]
-        inside = [h for h in self.hydrants if needle in h.lower() and h not in starts]
+        pool = self.hydrants + [j for j in self.junctions if j not in set(self.hydrants)]
+        starts = [h for h in pool if h.lower().startswith(needle)]
+        inside = [h for h in pool if needle in h.lower() and h not in starts]
         return (starts + inside)[:limit]
 
+    def is_hydrant(self, node_id: str) -> bool:
+        return self.network is None or node_id in self.hydrants
+
     def check_hydrant(self, hydrant_id: str, field_name: str = "hydrant") -> str:
-        """The id as stored in the network; raises ``InputError`` if the area does not have it."""
+        """The id as stored in the network (any junction); raises ``InputError`` when the area has
+        no junction of that id. See ``hydrant_note`` for a junction without a hydrant."""
         hid = (hydrant_id or "").strip()
         if not hid:
-            raise InputError(Problem("pick a hydrant from the list", field=field_name))
+            raise InputError(Problem("no hydrant picked yet: tap one in the list, or type its id",
+                                     field=field_name))
         if self.network is None:
             if len(hid) > 40 or any(c in hid for c in ",;\"\n"):
                 raise InputError(Problem(f"'{hid[:40]}' does not look like a hydrant id",
                                          field=field_name, expected="letters, digits, - or _"))
             return hid
-        if hid in self.hydrants:
+        ids = self.hydrants + self.junctions
+        if hid in ids:
             return hid
-        hit = [h for h in self.hydrants if h.lower() == hid.lower()]
+        hit = [h for h in ids if h.lower() == hid.lower()]
         if hit:
             return hit[0]
-        close = ", ".join(self.search(hid[:3], limit=5)) or "none"
-        raise InputError(Problem(f"hydrant '{hid}' is not in the area '{self.name}'", field=field_name,
-                                 expected=f"one of the area's hydrants, e.g. {close}"))
+        close = self.search(hid[:3], limit=5) or self.search(hid[:1], limit=5)
+        hint = (f"an id such as {', '.join(close)}" if close else
+                "the id painted on the hydrant as the office network spells it")
+        raise InputError(Problem(f"'{hid}' is not a junction of the area '{self.name}'",
+                                 field=field_name, expected=hint))
+
+    def hydrant_note(self, node_id: str) -> str:
+        """A note when the model lists no hydrant at ``node_id`` ('' when it does)."""
+        if self.is_hydrant(node_id):
+            return ""
+        return (f"Note: the model lists no hydrant at junction {node_id}; it is used as picked. "
+                "Tell the office if a hydrant stands there.")

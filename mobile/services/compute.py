@@ -87,7 +87,9 @@ def compute(header: dict, readings: dict, system: str = "us") -> Results:
     flowing = {o["hydrant"] for o in outlets}
     height = (header.get("gauge_height") or {}).get("si", 0.0)
     try:
+        end = readings.get(f"static_end@{res.gauge}")
         test = flowtest.FlowTest(res.static, res.residual, records, target=res.target,
+                                 static_end=None if end is None else end.si_value,
                                  gauge_height=height, residual_on_flowing=res.gauge in flowing,
                                  label=header.get("test_id", ""))
         out = flowtest.evaluate(test, system=system)

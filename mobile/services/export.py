@@ -24,7 +24,7 @@ import pandas as pd
 
 from calib import fileio, flowtest
 
-from mobile.services import checklist, values
+from mobile.services import checklist, timing, values, verdicts
 from mobile.services.compute import outlet_record
 
 TABLES = ("flows.csv", "pressures.csv", "boundary.csv", "tests.csv")
@@ -34,14 +34,50 @@ def _u(kind: str, system: str) -> str:
     return values.field_unit(kind, system)
 
 
-def test_record(service, tid: str, res=None) -> dict:
+def export_plan(service, include_drafts: bool = False) -> tuple[list, list]:
+    """Which revision of each test an export writes, and what it leaves out and why.
+
+    Returns ``(chosen, left_out)``: ``chosen`` holds ``(test_id, revision, note)`` oldest first (the
+    note says when a test under correction is exported as its last finished revision);
+    ``left_out`` holds ``(test_id, why)``. No test is ever dropped without a line here.
+    """
+    chosen, left_out = [], []
+    for t in reversed(service.store.tests()):  # oldest first
+        if t.status == "finished" or include_drafts:
+            note = "" if t.status == "finished" else "exported as an unfinished draft"
+            chosen.append((t.test_id, t.current_revision, note))
+            continue
+        done = service.store.last_finished_revision(t.test_id)
+        if done is not None:
+            chosen.append((t.test_id, done, f"exported as its finished revision {done}: the "
+                                             f"correction (revision {t.current_revision}) is not "
+                                             "finished yet"))
+        else:
+            left_out.append((t.test_id, "a draft never finished"))
+    return chosen, left_out
+
+
+def describe_plan(chosen: list, left_out: list) -> str:
+    """The plan in words for the export screen, before anything is written."""
+    lines = [f"{len(chosen)} test(s) to export."]
+    lines += [f"{tid}: {note}" for tid, _, note in chosen if note]
+    if left_out:
+        lines.append("Left out: " + "; ".join(f"{tid} ({why})" for tid, why in left_out)
+                     + ". Finish them, or tap 'Unfinished drafts' to export them as they are.")
+    return "\n".join(lines)
+
+
+def test_record(service, tid: str, res=None, revision: int | None = None) -> dict:
     """Everything recorded for one test, as a JSON-ready dict (SI values with the entered text).
 
-    ``res``: the test's ``Results`` when the caller has computed them already.
+    ``res``: the test's ``Results`` when the caller has computed them already; ``revision``: the
+    revision exported (default: the current one).
     """
     t = service.store.test(tid)
-    res = service.results(tid) if res is None else res
-    ticked = service.header(tid)["checklist"]
+    revision = revision or t.current_revision
+    res = service.results(tid, revision) if res is None else res
+    h = service.header(tid, revision)
+    ticked = h["checklist"]
     revisions = []
     for rev in service.store.revisions(tid):
         revisions.append({**rev, "header": service.header(tid, rev["revision"]),
@@ -51,8 +87,11 @@ def test_record(service, tid: str, res=None) -> dict:
         "format": "hydrant-calib field test, version 1",
         "units_note": "values '*_si' in m, m3/s and Pa (gauge); 'unit' and 'entered_text' as typed",
         "test_id": tid, "status": t.status, "area": t.area, "created_at": t.created_at,
-        "current_revision": t.current_revision,
+        "current_revision": t.current_revision, "exported_revision": revision,
+        "flow_timer": {"opened": h.get("flow_started_at"), "closed": h.get("flow_stopped_at"),
+                       "duration_s": timing.duration(h)},
         "revisions": revisions,
+        "model_checks": verdicts.all_checks(service, tid),
         "history": [asdict(r) for r in service.store.history(tid)],
         "checklist": {i.key: {"title": i.title, "ticked": bool(ticked.get(i.key))}
                       for i in checklist.ITEMS},
@@ -66,17 +105,18 @@ def test_record(service, tid: str, res=None) -> dict:
 
 
 def export_tests(service, folder, include_drafts: bool = False) -> dict:
-    """Write the tests folder into ``folder``; returns counts ``{"tests": n, "files": [...]}``."""
+    """Write the tests folder into ``folder``; returns ``{"tests": n, "files": [...], "folder",
+    "notes": [...], "left_out": [(test_id, why)]}`` (see ``export_plan``)."""
     folder = Path(folder)
     system = service.system
     uq, up, ud, ul = (_u(k, system) for k in ("flow", "pressure", "diameter", "length"))
     flows, pressures, boundary, tests, written = [], [], [], [], []
-    for t in reversed(service.store.tests()):  # oldest first
-        if t.status != "finished" and not include_drafts:
-            continue
-        h = service.header(t.test_id)
-        readings = service.readings(t.test_id)
-        res = service.results(t.test_id)
+    chosen, left_out = export_plan(service, include_drafts)
+    for tid, revision, note in chosen:
+        t = service.store.test(tid)
+        h = service.header(tid, revision)
+        readings = service.readings(tid, revision)
+        res = service.results(tid, revision)
         for o in h["outlets"]:
             rec = outlet_record(o, readings)
             if rec is None:
@@ -95,8 +135,11 @@ def export_tests(service, folder, include_drafts: bool = False) -> dict:
                 continue
             shown = {k: None if x is None else values.convert(x.si_value, "pressure", system)
                      for k, x in (("static", s), ("residual", r))}
+            end = readings.get(f"static_end@{g}")
             pressures.append({"test_id": t.test_id, "node": g, f"static [{up}]": shown["static"],
                               f"residual [{up}]": shown["residual"],
+                              f"static_end [{up}]": None if end is None else
+                              values.convert(end.si_value, "pressure", system),
                               f"gauge_height [{ul}]": values.convert(gh, "length", system)})
         for b in h.get("boundary", []):
             boundary.append({"test_id": t.test_id, "source": b["source"],
@@ -104,24 +147,46 @@ def export_tests(service, folder, include_drafts: bool = False) -> dict:
         started = h.get("started_at", "")
         tests.append({"test_id": t.test_id, "date": started[:10], "time": started[11:16],
                       "crew": h.get("crew", ""), "area": t.area, "weather": h.get("weather", ""),
-                      "notes": h.get("notes", ""), "revision": t.current_revision, "status": t.status,
+                      "notes": h.get("notes", ""), "revision": revision,
+                      "status": "finished" if revision != t.current_revision else t.status,
+                      "correction_open": "yes" if revision != t.current_revision else "no",
+                      "flow_opened": h.get("flow_started_at") or "",
+                      "flow_closed": h.get("flow_stopped_at") or "",
+                      "flow_duration [s]": timing.duration(h),
                       f"rated_flow [{uq}]": None if res.rated_flow is None else
                       values.convert(res.rated_flow, "flow", system),
                       f"target [{up}]": values.convert(res.target, "pressure", system),
                       "class": res.class_label})
         path = folder / f"{t.test_id}.json"
-        fileio.write_text(path, json.dumps(test_record(service, t.test_id, res), indent=1, default=str))
+        fileio.write_text(path, json.dumps(test_record(service, tid, res, revision), indent=1,
+                                           default=str))
         written.append(path.name)
     columns = {
         "flows.csv": ["test_id", "node", f"flow [{uq}]", f"pitot [{up}]", f"outlet_diameter [{ud}]",
                       "coefficient", "pumper_factor", "outlet", "read_by"],
         "pressures.csv": ["test_id", "node", f"static [{up}]", f"residual [{up}]",
-                          f"gauge_height [{ul}]"],
+                          f"gauge_height [{ul}]", f"static_end [{up}]"],
         "boundary.csv": ["test_id", "source", f"head [{ul}]"],
         "tests.csv": ["test_id", "date", "time", "crew", "area", "weather", "notes", "revision",
-                      "status", f"rated_flow [{uq}]", f"target [{up}]", "class"],
+                      "status", "correction_open", "flow_opened", "flow_closed",
+                      "flow_duration [s]", f"rated_flow [{uq}]", f"target [{up}]", "class"],
     }
     for name, rows in zip(TABLES, (flows, pressures, boundary, tests)):
         fileio.write_csv(folder / name, pd.DataFrame(rows, columns=columns[name]))
         written.append(name)
-    return {"tests": len(tests), "files": written, "folder": str(folder)}
+    return {"tests": len(tests), "files": written, "folder": str(folder),
+            "notes": [f"{tid}: {note}" for tid, _, note in chosen if note], "left_out": left_out}
+
+
+def done_message(done: dict) -> str:
+    """What an export wrote, with every test exported in another state and every one left out."""
+    lines = [f"Exported {done['tests']} test(s) to {done['folder']}"]
+    lines += done.get("notes", [])
+    if done.get("left_out"):
+        lines.append("Left out: " + "; ".join(f"{tid} ({why})" for tid, why in done["left_out"]))
+    return "\n".join(lines)
+
+
+def plan_text(service, include_drafts: bool = False) -> str:
+    """The export screen's preview: what EXPORT will write and what it leaves out, and why."""
+    return describe_plan(*export_plan(service, include_drafts))

@@ -14,7 +14,7 @@ from datetime import date, datetime
 from calib.errors import CalibError, InputError
 from calib.units import PSI
 
-from mobile.services import checklist, values
+from mobile.services import checklist, timing, values
 from mobile.services.area import Area
 from mobile.services.compute import Results, compute
 from mobile.store import Store, StoreError
@@ -37,11 +37,34 @@ class Outcome:
 def _first_message(exc: Exception) -> str:
     if isinstance(exc, InputError) and exc.problems:
         p = exc.problems[0]
-        text = p.message
+        text = p.message[0].upper() + p.message[1:]
+        same = [q for q in exc.problems if q.message == p.message and q.file]
+        if p.file and p.file not in text:  # e.g. which files of a network folder are missing
+            text = ", ".join(dict.fromkeys(q.file for q in same or [p])) + ": " + p.message
         if p.expected:
             text += f" (expected {p.expected})"
-        return text[0].upper() + text[1:]
+        more = len(exc.problems) - max(len(same), 1)
+        if more:
+            text += f"; and {more} more problem{'s' if more > 1 else ''}"
+        return text
     return str(exc)
+
+
+def field_of(slot: str) -> str:
+    """The field a reading slot is checked as: ``static_end@J1`` is a static."""
+    name = slot.split("@", 1)[0]
+    return "static" if name == "static_end" else name
+
+
+def slot_label(slot: str, header: dict) -> str:
+    """A reading's name in plain words: 'Static at J041', 'Pitot at J285, outlet 1'."""
+    name, _, where = slot.partition("@")
+    if name in ("static", "residual", "static_end"):
+        return {"static": "Static", "residual": "Residual",
+                "static_end": "Static after closing"}[name] + f" at {where}"
+    hydrant = next((o["hydrant"] for o in header.get("outlets", []) if o["uid"] == where), "?")
+    what = "Meter flow" if name == "flow" else "Pitot"
+    return f"{what} at {hydrant}, outlet {where.lstrip('o')}"
 
 
 class TestService:
@@ -90,9 +113,14 @@ class TestService:
             n += 1
         return f"{stem}{n:02d}"
 
-    def new_test(self, crew: str = "", area: str | None = None) -> str:
-        """Create a draft with id and time filled in; returns the id (raises ``StoreError``)."""
+    def new_test(self, crew: str | None = None, area: str | None = None) -> str:
+        """Create a draft with id and time filled in; returns the id (raises ``StoreError``).
+
+        Without ``crew`` the crew of the newest test is carried over (the same crew all day)."""
         tid = self.next_test_id()
+        if crew is None:
+            last = self.store.tests()
+            crew = self.store.header(last[0].test_id).get("crew", "") if last else ""
         header = {"test_id": tid, "started_at": datetime.now().astimezone().isoformat(timespec="minutes"),
                   "crew": crew[:TEXT_FIELDS["crew"]], "weather": "", "notes": "",
                   "area": area if area is not None else self.area.name, "gauges": [], "outlets": [],
@@ -131,6 +159,13 @@ class TestService:
             return Outcome(False, f"'{key}' is not a checklist item")
         return self._edit(tid, lambda h: h["checklist"].__setitem__(key, bool(ticked)), "Saved")
 
+    def tick_all(self, tid: str) -> Outcome:
+        """The crew says every required item is done: tick them all in one tap (optional ones,
+        which local rules decide, stay as they are)."""
+        keys = [i.key for i in checklist.ITEMS if i.required]
+        return self._edit(tid, lambda h: h["checklist"].update({k: True for k in keys}),
+                          f"{len(keys)} required items ticked")
+
     def checklist_keys(self) -> list[str]:
         return checklist.item_keys()
 
@@ -140,10 +175,13 @@ class TestService:
         except InputError as exc:
             return Outcome(False, _first_message(exc))
         return self._edit(tid, lambda h: h.__setitem__("gauges", list(dict.fromkeys(ids))),
-                          "Gauge hydrant: " + ", ".join(ids))
+                          "Gauge hydrant: " + ", ".join(ids) if ids else "No gauge hydrant now")
 
     def add_gauge(self, tid: str, hydrant_id: str) -> Outcome:
-        return self.set_gauges(tid, self.header(tid)["gauges"] + [hydrant_id])
+        out = self.set_gauges(tid, self.header(tid)["gauges"] + [hydrant_id])
+        if out.ok:
+            out.warnings = [n for n in [self.area.hydrant_note(hydrant_id.strip())] if n]
+        return out
 
     def remove_gauge(self, tid: str, hydrant_id: str) -> Outcome:
         return self.set_gauges(tid, [g for g in self.header(tid)["gauges"] if g != hydrant_id])
@@ -168,7 +206,10 @@ class TestService:
             h["outlets"].append({"uid": uid, "hydrant": hid, "kind": kind, "shape": shape,
                                  "pumper": bool(pumper), "diameter": dia, "diameter_unit": unit,
                                  "diameter_text": str(diameter_text)})
-        return self._edit(tid, change, f"Outlet added on {hid}")
+        out = self._edit(tid, change, f"Outlet added on {hid}")
+        if out.ok:
+            out.warnings = [n for n in [self.area.hydrant_note(hid)] if n]
+        return out
 
     def remove_outlet(self, tid: str, uid: str) -> Outcome:
         return self._edit(tid, lambda h: h.__setitem__(
@@ -190,23 +231,111 @@ class TestService:
     def sources(self) -> list[str]:
         """Ids of the area's fixed-grade sources (reservoirs, tanks); empty without a network."""
         net = self.area.network
-        return [] if net is None else [str(s) for s in net.source_ids]
+        if net is None:
+            return []
+        # Tanks first: their level is what an operator reports; a plant's grade rarely changes.
+        return [str(s) for _, s in sorted(zip(net.source_kind != "tank", net.source_ids),
+                                          key=lambda p: p[0])]
 
     def set_source_grade(self, tid: str, source: str, text: str) -> Outcome:
-        """Record a source's grade at the time of the test (e.g. the tank level from the operator)."""
+        """Record a source's grade (water surface elevation) at the time of the test."""
+        return self.set_source(tid, source, text, "grade")
+
+    def set_tank_level(self, tid: str, source: str, text: str) -> Outcome:
+        """Record a tank's water level (depth above its floor) as the operator gives it."""
+        return self.set_source(tid, source, text, "level")
+
+    def set_source(self, tid: str, source: str, text: str, what: str = "level") -> Outcome:
+        """Record a source's ``level`` or ``grade`` at the time of the test; the level becomes a grade
+        from the tank's floor in the network, and a value the tank cannot hold is refused."""
+        from calib.network import tanks  # the level <-> grade rule lives with the network
+
         if source not in self.sources():
             return Outcome(False, f"'{source}' is not a source of the area"
                                   + (f" (expected one of {', '.join(self.sources())})" if self.sources()
                                      else ": load the area's network first"))
+        if what not in ("level", "grade"):
+            return Outcome(False, "Enter a tank's level or its grade")
+        net, system = self.area.network, self.system
         try:
-            si, unit = values.parse_value(text, "source_grade", self.system)
+            si, unit = values.parse_value(text, "tank_level" if what == "level" else "source_grade",
+                                          system)
+            grade = tanks.grade_from_level(net, source, si, system) if what == "level" else \
+                tanks.check_grade(net, source, si, system)
         except InputError as exc:
             return Outcome(False, _first_message(exc))
 
         def change(h):
             kept = [b for b in h.get("boundary", []) if b["source"] != source]
-            h["boundary"] = kept + [{"source": source, "si": si, "unit": unit, "text": str(text)}]
-        return self._edit(tid, change, f"Grade of {source}: {values.fmt(si, 'length', self.system)}", si)
+            h["boundary"] = kept + [{"source": source, "si": grade, "entered": what,
+                                     "level": si if what == "level" else None,
+                                     "unit": unit, "text": str(text)}]
+        shown = values.fmt(grade, "length", system)
+        msg = (f"{source}: level {values.fmt(si, 'length', system)} = grade {shown}" if what == "level"
+               else f"{source}: grade {shown}")
+        return self._edit(tid, change, msg, grade)
+
+    def clear_source(self, tid: str, source: str) -> Outcome:
+        """Forget the level or grade noted for ``source`` (the model's own grade is used again)."""
+        def change(h):
+            h["boundary"] = [b for b in h.get("boundary", []) if b["source"] != source]
+        return self._edit(tid, change, f"{source}: cleared; the model's grade is used")
+
+    def tank_has_floor(self, source: str) -> bool:
+        """True when the network gives ``source`` a floor, so that a level can be typed."""
+        import math
+
+        from calib.network import tanks
+
+        return source in self.sources() and math.isfinite(tanks.tank_range(self.area.network, source)[0])
+
+    def tank_range(self, source: str) -> str:
+        """What the tank can hold, in words, for the set-up screen ('' without a network)."""
+        from calib.network import tanks
+
+        if source not in self.sources():
+            return ""
+        return tanks.describe_range(self.area.network, source, self.system)
+
+    # --- flow timer --------------------------------------------------------------------------
+    def start_flow(self, tid: str) -> Outcome:
+        """The flowing hydrant is open: the timer starts (a second tap restarts it)."""
+        at = timing.now()
+        return self._edit(tid, lambda h: h.update(flow_started_at=at, flow_stopped_at=None),
+                          f"Flow timer started at {at[11:19]} UTC")
+
+    def stop_flow(self, tid: str) -> Outcome:
+        """The flowing hydrant is closed: the timer stops and the duration is saved."""
+        h = self.header(tid)
+        if not timing.running(h):
+            return Outcome(False, "The flow timer is not running: tap START FLOW when the hydrant "
+                                  "is open")
+        at = timing.now()
+        h["flow_stopped_at"] = at
+        return self._edit(tid, lambda x: x.update(flow_stopped_at=at),
+                          f"Flowed {timing.clock(timing.duration(h))}: now re-read the static",
+                          timing.duration(h))
+
+    # --- outlets remembered per hydrant -------------------------------------------------------
+    def remembered_outlet(self, hydrant: str) -> dict:
+        """The outlet last used on ``hydrant`` (size as typed, shape, kind, large outlet), from the
+        newest test there; the standard 2.5 in smooth hose outlet read by pitot otherwise."""
+        from mobile.services import outlets
+
+        for t in self.store.tests():  # newest first
+            for o in reversed(self.store.header(t.test_id).get("outlets", [])):
+                if o["hydrant"] == hydrant:
+                    dia = "" if o.get("diameter") is None else \
+                        f"{values.convert(o['diameter'], 'diameter', self.system):.1f}".rstrip("0").rstrip(".")
+                    return {"diameter": dia or outlets.sizes(self.system)[0], "shape": o["shape"],
+                            "kind": o["kind"], "pumper": bool(o.get("pumper")), "remembered": True}
+        return {"diameter": outlets.sizes(self.system)[0], "shape": "smooth", "kind": "pitot",
+                "pumper": False, "remembered": False}
+
+    def add_remembered_outlet(self, tid: str, hydrant: str) -> Outcome:
+        """Add an outlet on ``hydrant`` as it was last set up there (one tap from the map)."""
+        o = self.remembered_outlet(hydrant.strip())
+        return self.add_outlet(tid, hydrant, o["diameter"], o["shape"], o["kind"], o["pumper"])
 
     # --- readings ----------------------------------------------------------------------------
     def slots(self, tid: str) -> list[tuple[str, str, str]]:
@@ -215,10 +344,11 @@ class TestService:
         out = [(f"static@{g}", "static", f"Static at {g}") for g in h["gauges"]]
         out += [(f"residual@{g}", "residual", f"Residual at {g}") for g in h["gauges"]]
         for o in h["outlets"]:
-            if o["kind"] == "meter":
-                out.append((f"flow@{o['uid']}", "flow", f"Meter flow, {o['hydrant']} ({o['uid']})"))
-            else:
-                out.append((f"pitot@{o['uid']}", "pitot", f"Pitot, {o['hydrant']} ({o['uid']})"))
+            name = "flow" if o["kind"] == "meter" else "pitot"
+            out.append((f"{name}@{o['uid']}", name, slot_label(f"{name}@{o['uid']}", h)))
+        # The static again once the hydrant is closed (optional; a change points at drift or a
+        # system that changed during the test).
+        out += [(f"static_end@{g}", "static", slot_label(f"static_end@{g}", h)) for g in h["gauges"][:1]]
         return out
 
     def enter(self, tid: str, slot: str, text: str) -> Outcome:
@@ -275,7 +405,7 @@ class TestService:
     def reading_texts(self, tid: str) -> dict[str, str]:
         """The readings in force, slot -> display text (one read of the store for all of them)."""
         system = self.system
-        return {slot: values.fmt(r.si_value, values.FIELDS[slot.split("@")[0]].kind, system)
+        return {slot: values.fmt(r.si_value, values.FIELDS[field_of(slot)].kind, system)
                 for slot, r in self.store.readings(tid).items()}
 
     def reading_text(self, tid: str, slot: str) -> str:
@@ -300,6 +430,20 @@ class TestService:
         if todo:
             return Outcome(False, "Still to do: " + "; ".join(todo))
         return self._guard(lambda: self.store.finish(tid), f"Test {tid} finished and saved")
+
+    def correction_question(self, tid: str, reason: str) -> Outcome:
+        """What to ask before a correction reopens ``tid`` (ok), or why it cannot be reopened."""
+        reason = (reason or "").strip()
+        t = self.store.test(tid)
+        if t.status != "finished":
+            return Outcome(False, f"Test {tid} is not finished: change its readings directly, no "
+                                  "correction is needed")
+        if not reason:
+            return Outcome(False, f"Type why test {tid} is corrected (e.g. 'residual re-read'): "
+                                  "the reason is kept with it")
+        return Outcome(True, f"Reopen test {tid} to correct it ({reason})? Its finished revision "
+                             f"{t.current_revision} stays as it is and is the one exported until "
+                             "you finish the correction.")
 
     def correct(self, tid: str, reason: str) -> Outcome:
         """Start a correction: a new revision; the previous one stays readable unchanged."""
@@ -334,5 +478,6 @@ class TestService:
                          "area": t.area, "started_at": h.get("started_at", ""),
                          "hydrants": hydrants, "crew": h.get("crew", ""),
                          "rated": values.fmt(res.rated_flow, "flow", system),
+                         "target": values.fmt(res.target, "pressure", system),
                          "class": res.class_label})
         return rows

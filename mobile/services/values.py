@@ -58,6 +58,8 @@ FIELDS = {
     "target": FieldSpec("target", "pressure", 5 * P, 100 * P, "target residual"),
     # A source's hydraulic grade (tank water level as an elevation), as the calibration reader takes it.
     "source_grade": FieldSpec("source_grade", "length", -500.0, 3000.0, "source grade"),
+    # A tank's water depth above its floor, as the operator reads it.
+    "tank_level": FieldSpec("tank_level", "length", 0.0, 100.0, "tank level"),
 }
 
 

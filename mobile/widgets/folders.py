@@ -2,7 +2,7 @@
 
 import os
 
-from kivy.properties import ListProperty, StringProperty
+from kivy.properties import BooleanProperty, ListProperty, StringProperty
 from kivy.uix.boxlayout import BoxLayout
 
 from mobile.services import folders
@@ -13,6 +13,8 @@ class FolderBrowser(BoxLayout):
     entries = ListProperty([])
     suffixes = ListProperty([])
     action = StringProperty("USE THIS FOLDER")
+    note = StringProperty("")  # why a new folder could not be made
+    can_make = BooleanProperty(False)  # offer NEW FOLDER (the export picker does)
 
     __events__ = ("on_choose",)
 
@@ -27,6 +29,11 @@ class FolderBrowser(BoxLayout):
             self.path = path
         else:
             self.dispatch("on_choose", path)
+
+    def make(self, name):
+        """NEW FOLDER: create ``name`` here and open it."""
+        ok, said = folders.make_folder(self.path, name)
+        self.note, self.path = ("", said) if ok else (said, self.path)
 
     def up(self):
         self.path = folders.parent(self.path)

@@ -17,6 +17,7 @@ AMBER = (1.0, 0.85, 0.3, 1.0)
 
 TOUCH = dp(64)  # default row and button height (>= 48 dp)
 TOUCH_MIN = dp(48)
+MESSAGE = dp(84)  # the space kept for a message: three lines, whether or not one shows
 TEXT = sp(20)
 TEXT_BIG = sp(26)
 FIGURE = sp(44)

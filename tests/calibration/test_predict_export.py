@@ -48,7 +48,9 @@ def test_csv_cells_that_look_like_formulas_are_neutralized(tmp_path):
     res = Fake()
     res.network, res.grouping = net, make_groups(net)
     res.c, res.c_low, res.c_high = np.array([90.0]), np.array([80.0]), np.array([100.0])
-    res.roughness = lambda: np.array([90.0])
+    res.roughness = res.roughness_export = lambda: np.array([90.0])
+    res.c_determined = np.array([True])
+    res.c_low_open = res.c_high_open = np.array([False])
     frame = export.roughness_frame(res)
     from calib import fileio
     fileio.write_csv(tmp_path / "roughness.csv", frame)

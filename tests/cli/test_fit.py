@@ -59,8 +59,42 @@ def test_demo_fit_recovers_the_demo_truth_and_flags_the_planted_reading(demo_run
     assert list(readings.columns[:6]) == ["test_id", "node", "kind", "observed [psi]",
                                           "simulated [psi]", "residual [psi]"]
     rough = pd.read_csv(out / "roughness.csv")
-    assert list(rough.columns) == ["pipe_id", "group", "c_factor", "c_low", "c_high"]
+    assert list(rough.columns) == ["pipe_id", "group", "c_factor", "c_low", "c_high", "c_source"]
     assert len(rough) == 531
+
+
+def test_flag_holds_suspects_only_and_influence_has_its_own_column(demo_run):
+    # the demo's planted gross error is the one suspect; the readings the fit leans on (Cook 1977;
+    # leave-one-out refits) are good readings and must not look suspect to a filter on `flag`
+    _, out, text, _ = demo_run
+    readings = pd.read_csv(out / "readings.csv", keep_default_na=False)
+    assert list(readings.columns[-4:]) == ["used", "flag", "cook_distance", "influence"]
+    flagged = readings[readings.flag != ""]
+    assert len(flagged) >= 1 and flagged.flag.str.startswith(("standardized residual", "residual ",
+                                                               "static grade")).all()
+    assert not readings.flag.str.contains("influen|Cook|leaving it out").any()
+    leaning = readings[readings.influence != ""]
+    assert len(leaning) >= 1 and (leaning.flag == "").all() and leaning.used.astype(str).eq("True").all()
+    assert leaning.influence.str.contains("Cook's distance|leaving it out moves C").all()
+    # the summary lists them under separate headings
+    suspects, _, rest = text.partition("suspect readings (flag):")
+    assert rest and "influential readings" in rest
+    flagged_part, _, influential_part = rest.partition("influential readings")
+    assert "standardized residual" in flagged_part and "leaving it out" not in flagged_part
+    assert "leaving it out" in influential_part or "Cook" in influential_part
+
+
+def test_demo_fit_outputs_get_the_mode_an_ordinary_write_gives(demo_run):
+    # POSIX open(2): a new file is 0666 less the umask (was 0600, the temporary file's mode)
+    import os
+    import stat
+    _, out, _, _ = demo_run
+    mask = os.umask(0o022)
+    os.umask(mask)
+    want = 0o666 & ~mask
+    files = sorted(p for p in out.iterdir() if p.is_file())
+    assert len(files) >= 5 and want & 0o044  # the test's own umask lets others read
+    assert {p.name: oct(stat.S_IMODE(os.stat(p).st_mode)) for p in files} == {p.name: oct(want) for p in files}
 
 
 def test_report_is_self_contained_with_cautions(demo_run):
@@ -179,8 +213,11 @@ def test_progress_counts_the_solves_of_each_phase():
         "fit: 5 solves", "refit: 3 solves", "leave-one-out (2 readings: T01 J1, T02 J2): 4 solves"]
 
 
-def test_progress_on_a_terminal_keeps_the_redrawn_bar():
+def test_progress_on_a_terminal_is_a_tqdm_bar_redrawn_in_place():
     import io
+    import re
+
+    import tqdm
 
     class Terminal(io.StringIO):
         def isatty(self):
@@ -190,7 +227,20 @@ def test_progress_on_a_terminal_keeps_the_redrawn_bar():
     bar = cli_fit.ProgressBar(stream, expected=10)
     for n in range(1, 6):
         bar(n, "fit" if n < 4 else "refit")
+    assert isinstance(bar._bar, tqdm.tqdm)  # the library's bar, not a hand-drawn one
+    bar(14, "refit")  # more solves than expected: the total grows, the bar never overflows
+    assert bar._bar.total >= 14
     bar.close()
     text = stream.getvalue()
-    assert bar.tty and text.count("\r[") >= 2 and "#" in text and text.endswith("\n")
-    assert "solves" in text and "\n" not in text[:-1]  # redrawn in place, one line
+    assert bar.tty and text.count("\r") >= 2 and text.endswith("\n")
+    assert "\n" not in text[:-1]  # redrawn in place, one line
+    last = text.rstrip("\n").split("\r")[-1]
+    assert re.search(r"\d+%\|.*\| 14 solves .*refit", last), last
+
+
+def test_tqdm_is_a_declared_dependency():
+    # the progress bar's library is installed with the package (pyproject.toml), not by chance
+    import tomllib
+    from pathlib import Path
+    meta = tomllib.loads((Path(__file__).resolve().parents[2] / "pyproject.toml").read_text())
+    assert any(d.split(">")[0].split("=")[0].strip() == "tqdm" for d in meta["project"]["dependencies"])

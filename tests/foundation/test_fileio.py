@@ -32,3 +32,34 @@ def test_csv_cells_that_would_run_as_formulas_are_quoted(tmp_path):
     back = pd.read_csv(path, dtype={"note": str})
     assert list(back["note"]) == ["'=HYPERLINK(1)", "'@SUM(A1)", "-3.5", "plain"]
     assert list(back["v"]) == [1.0, 2.0, 3.0, 4.0]
+
+
+@pytest.mark.parametrize("mask", [0o022, 0o002, 0o077])
+def test_atomic_write_gives_a_new_file_the_mode_of_an_ordinary_write(tmp_path, mask):
+    # POSIX open(2): a new file gets the mode asked (0666 for open(path, "w")) less the umask; the
+    # reference is Python's own ordinary write, made beside it under the same umask
+    import os
+    import stat
+    old = os.umask(mask)
+    try:
+        (tmp_path / "plain.csv").write_text("x\n")
+        fileio.write_text(tmp_path / "atomic.csv", "x\n")
+        fileio.write_csv(tmp_path / "frame.csv", pd.DataFrame({"a": [1]}))
+        fileio.write_bytes(tmp_path / "blob.png", b"\x89PNG")
+    finally:
+        os.umask(old)
+    want = stat.S_IMODE((tmp_path / "plain.csv").stat().st_mode)
+    assert want == 0o666 & ~mask
+    for name in ("atomic.csv", "frame.csv", "blob.png"):
+        assert stat.S_IMODE((tmp_path / name).stat().st_mode) == want, name
+
+
+def test_atomic_write_over_an_existing_file_keeps_its_mode(tmp_path):
+    # an ordinary write into an existing file keeps that file's permissions (POSIX open(2), O_TRUNC)
+    import os
+    import stat
+    target = tmp_path / "shared.csv"
+    target.write_text("old\n")
+    os.chmod(target, 0o640)
+    fileio.write_text(target, "new\n")
+    assert stat.S_IMODE(target.stat().st_mode) == 0o640 and target.read_text() == "new\n"

@@ -30,7 +30,7 @@ def test_missing_area_file_is_an_input_error(tmp_path):
 
 
 def test_unknown_hydrant_names_close_ones(area):
-    with pytest.raises(InputError, match="not in the area") as info:
+    with pytest.raises(InputError, match="not a junction of the area") as info:
         area.check_hydrant("TM-1")
     assert "TM-1" in str(info.value)
 

@@ -56,8 +56,12 @@ def test_history_lists_every_reading_as_typed(service):
     service.correct(tid, "gauge re-read")
     service.enter(tid, f"residual@{service.area.hydrants[0]}", "57.5")
     text = views.history_text(service, tid)
-    assert "Revision 2" in text and "gauge re-read" in text
-    assert "typed '58 psi'" in text and "typed '57.5 psi'" in text
+    assert "(revision 2)" in text and "gauge re-read" in text
+    assert "@" not in text  # plain words, not slot codes
+    h0 = service.area.hydrants[0]
+    assert f"Residual at {h0}: 58.0 psi\n" in text and f"Residual at {h0}: 57.5 psi" in text
+    service.set_units("si")  # a reading typed in another unit than shown says how it was typed
+    assert "(typed as 58 psi)" in views.history_text(service, tid)
 
 
 def test_keypad_goes_to_the_first_empty_reading_and_stays_on_a_chosen_one(service):
@@ -69,7 +73,7 @@ def test_keypad_goes_to_the_first_empty_reading_and_stays_on_a_chosen_one(servic
     service.add_outlet(tid, h[1], "2.5")
     service.enter(tid, f"static@{h[0]}", "72")
     rows = views.reading_rows(service, tid)
-    assert [r["value"] for r in rows] == ["72.0 psi", "-", "-"]
+    assert [r["value"] for r in rows] == ["72.0 psi", "-", "-", "-"]  # last: static after closing
     assert views.pick_slot(rows, "") == f"residual@{h[0]}"
     assert views.pick_slot(rows, "pitot@o1") == "pitot@o1"
     assert views.pick_slot(rows, "pitot@o9") == f"residual@{h[0]}"  # a removed outlet
@@ -78,7 +82,11 @@ def test_keypad_goes_to_the_first_empty_reading_and_stays_on_a_chosen_one(servic
     service.enter(tid, f"residual@{h[0]}", "58")
     service.enter(tid, "pitot@o1", "22")
     full = views.reading_rows(service, tid)
-    assert views.pick_slot(full, "pitot@o1", advance=True) == "pitot@o1"  # all entered: stay
+    # every needed reading entered: on to the static after closing (optional), then stay
+    assert views.pick_slot(full, "pitot@o1", advance=True) == f"static_end@{h[0]}"
+    service.enter(tid, f"static_end@{h[0]}", "71.5")
+    full = views.reading_rows(service, tid)
+    assert views.pick_slot(full, "pitot@o1", advance=True) == "pitot@o1"
 
 
 def test_the_curve_image_is_renamed_when_what_it_draws_changes(service, tmp_path):

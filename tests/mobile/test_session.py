@@ -174,7 +174,7 @@ def test_list_today_and_search_by_hydrant(service, area):
 def test_hydrants_come_from_the_area(service):
     tid = service.new_test(crew="X")
     out = service.set_gauges(tid, ["NOPE-1"])
-    assert not out.ok and "not in the area" in out.message
+    assert not out.ok and "not a junction of the area" in out.message
     assert service.header(tid)["gauges"] == []
 
 

@@ -23,6 +23,8 @@ def test_version_1_database_is_migrated_and_keeps_its_data(tmp_path):
     with s.transaction() as conn:
         conn.execute("DROP TABLE settings")
         conn.execute("DROP INDEX readings_by_test")
+        conn.execute("DROP TABLE checks")  # and of what migration 3 adds
+        conn.execute("ALTER TABLE revisions DROP COLUMN finished_at")
         conn.execute("UPDATE schema_version SET version = 1")
     s.close()
     s = Store.open(folder)
@@ -109,3 +111,21 @@ def test_full_disk_gives_a_clear_error_and_saved_data_stay(store):
     assert "intact" in str(info.value)
     assert store.readings("T1")["static@H1"].si_value == 1.0
     assert store.integrity_ok()
+
+
+def test_version_2_corrections_keep_their_finished_revision(tmp_path):
+    """Migration 3: a test under correction in an older file still has a finished revision."""
+    s = Store.open(tmp_path / "old")
+    s.create_test("T1", {})
+    s.finish("T1")
+    s.new_revision("T1", "re-read")
+    s.create_test("T2", {})
+    with s.transaction() as conn:
+        conn.execute("DROP TABLE checks")
+        conn.execute("ALTER TABLE revisions DROP COLUMN finished_at")
+        conn.execute("UPDATE schema_version SET version = 2")
+    s.close()
+    s = Store.open(tmp_path / "old")
+    assert s.last_finished_revision("T1") == 1
+    assert s.last_finished_revision("T2") is None
+    s.close()

@@ -1,10 +1,13 @@
 """Drive the real app window like a crew would, then print what the screen shows as JSON.
 
 ``python window_driver.py enter DATA_DIR OUT.json``: start the app (demo area), tap NEW TEST, tick
-the checklist, pick a gauge and a flow hydrant, enter static 72, residual 58 and pitot 22 on the
-keypad by key presses, read the discharge and rated-flow labels, finish the test.
-``python window_driver.py find DATA_DIR OUT.json``: start the app on the same data folder, read the
-home list and open the test there; then load the demo network as LOAD AREA does.
+the checklist, pick the gauge hydrant on the map and the flow hydrant from the nearest-first list
+(two outlets), enter static 72 and residual 58, start the flow timer, enter pitots 18 and 20, stop
+the timer, read the labels, finish the test - counting every tap.
+``python window_driver.py find DATA_DIR OUT.json TEST_ID``: start the app on the same data folder,
+find the test in the home list and open it, correct it (reason, CORRECT, confirm), check the reason
+box of another test, the export plan and a stale message; then load the demo network as LOAD AREA
+does.
 
 Taps are real touch events sent through the window (kivy.tests.common.UnitTestTouch), so a button
 that is hidden, covered or too small to hit would fail the run.
@@ -33,10 +36,17 @@ report = {"mode": mode, "steps": []}
 
 def tap(widget):
     x, y = widget.to_window(*widget.center)
+    tap_xy(x, y, f"{type(widget).__name__} {getattr(widget, 'text', '')[:30]!r}")
+
+
+def tap_xy(x, y, what=""):
+    """One touch down and up at window position (x, y); counted while ``report['counting']``."""
     touch = UnitTestTouch(x, y)
     touch.touch_down()
     touch.touch_up()
-    report["steps"].append(f"tap {type(widget).__name__} {getattr(widget, 'text', '')[:30]!r}")
+    report["steps"].append(f"tap {what} at {x:.0f},{y:.0f}")
+    if report.get("counting"):
+        report["taps"] = report.get("taps", 0) + 1
 
 
 def rows(rv):
@@ -92,6 +102,17 @@ def type_on(keypad, text):
         yield
 
 
+def enter_readings(readings, values):
+    """Type each value on the keypad and SAVE it, keeping the prompt and the message of each."""
+    pad = readings.ids.keypad
+    for value in values:
+        report.setdefault("prompts", []).append(readings.prompt)
+        yield from type_on(pad, value)
+        tap(pad.ids.enter)
+        yield
+        report.setdefault("messages", []).append(readings.message)
+
+
 def touch_sizes(app):
     """Smallest side [dp] of every visible tappable widget on every screen (a 48 dp target rule)."""
     from kivy.metrics import dp
@@ -116,64 +137,86 @@ def touch_sizes(app):
 
 
 def script_enter(app):
+    """A two-outlet test from NEW TEST to FINISH, as a crew taps it; every tap is counted."""
     yield from touch_sizes(app)
     home = app.root.get_screen("home")
+    report["counting"] = True
     tap(home.ids.new_test)
     yield from wait_for(lambda: app.root.current == "checklist")
     yield from settle()
     checklist = app.root.get_screen("checklist")
-    rv = checklist.ids.item_list
-    for item in [r["key"] for r in checklist.rows]:
-        row = [r for r in rows(rv) if r.key == item and visible(rv, r)]
-        if not row:  # scroll down to the rest of the list, as a crew would
-            rv.scroll_y = 0
-            yield
-            row = [r for r in rows(rv) if r.key == item and visible(rv, r)]
-        tap(row[0])
-        yield from wait_for(lambda: any(r["key"] == item and r["ticked"] for r in checklist.rows))
+    report["crew_carried_over"] = app.service.header(app.test_id)["crew"]
+    # every required item done: one tap ticks them and goes on to the map
+    tap(checklist.ids.all_done)
+    yield from wait_for(lambda: app.root.current == "map")
     report["unticked"] = [r["key"] for r in checklist.rows if not r["ticked"]]
-    tap(checklist.ids.to_setup)
-    yield from wait_for(lambda: app.root.current == "setup")
+    yield from settle(5)
+    # The map: zoom in once, tap the gauge hydrant where it is drawn, add it as gauge.
+    mp = app.root.get_screen("map")
+    netmap = mp.ids.netmap
+    tap(mp.ids.zoom_in)
     yield from settle()
-    setup = app.root.get_screen("setup")
-    setup.ids.crew.text = "Window Test Crew"
-    setup.ids.crew.dispatch("on_text_validate")
+    # the hydrant drawn nearest the middle of the map stays in view after the zoom
+    mid = netmap.view.to_map(*netmap.plane.to_local(*netmap.center))
+    gauge = netmap.data.nearest(*mid, hydrants_only=True)
+    x, y = netmap.to_window(*netmap.tap_at_node(gauge))
+    tap_xy(x, y, f"map at {gauge}")
+    yield from wait_for(lambda: mp.picked == gauge)
+    report["map_picked"] = mp.picked
+    tap(mp.ids.as_gauge)
+    yield from wait_for(lambda: mp.view["gauges"] == [gauge])
+    report["map_gauges"] = list(mp.view["gauges"])
     yield from settle()
-    hl = setup.ids.hydrant_list
-    first, second = (r.key for r in rows(hl)[:2])
-    yield from tap_until(lambda: next(r for r in rows(hl) if r.key == first),
-                         lambda: setup.picked == first)
-    tap(setup.ids.as_gauge)
-    yield from wait_for(lambda: setup.view["gauges"] == [first])
+    # The nearest-first list beside the map: the nearest hydrant to the gauge flows, two outlets.
+    near = mp.ids.near_list
+    report["nearby"] = [r["key"] for r in mp.nearby]
+    flow = mp.nearby[0]["key"]
+    yield from tap_until(lambda: next(r for r in rows(near) if r.key == flow),
+                         lambda: mp.picked == flow)
+    tap(mp.ids.as_outlet)
+    yield from wait_for(lambda: mp.view["flows"] == [flow])
+    tap(mp.ids.as_outlet)
+    yield from wait_for(lambda: len(app.service.outlets(app.test_id)) == 2)
+    report["map_message"] = mp.message
     yield from settle()
-    yield from tap_until(lambda: next(r for r in rows(hl) if r.key == second),
-                         lambda: setup.picked == second)
-    tap(setup.ids.as_outlet)
-    yield from wait_for(lambda: len(setup.view["outlets"]) == 1)
-    report["setup_message"] = setup.message
-    tap(setup.ids.to_readings)
+    tap(mp.ids.to_readings)
     yield from wait_for(lambda: app.root.current == "readings")
     yield from settle()
     readings = app.root.get_screen("readings")
-    pad = readings.ids.keypad
-    for value in ("72", "58", "22"):
-        report.setdefault("prompts", []).append(readings.prompt)
-        yield from type_on(pad, value)
-        tap(pad.ids.enter)
-        yield
-        report.setdefault("messages", []).append(readings.message)
+    yield from enter_readings(readings, ("72", "58"))  # static and residual
+    tap(readings.ids.timer_button)  # START FLOW: the hydrant is open
+    yield from wait_for(lambda: readings.flowing)
+    yield from enter_readings(readings, ("18", "20"))  # the two pitots
+    tap(readings.ids.timer_button)  # STOP FLOW: closed
+    yield from wait_for(lambda: not readings.flowing)
+    report["timer_text"] = readings.timer
+    report["row_details"] = [r["when"] for r in readings.rows]
     report["flow_label"] = readings.ids.flow.text
     report["rated_label"] = readings.ids.rated.text
-    tap(readings.ids.to_results)
+    tap(readings.ids.finish)  # FINISH TEST on the readings screen, then the results show
     yield from wait_for(lambda: app.root.current == "results")
+    report["counting"] = False
+    report["finish_message"] = readings.message
     yield from settle()
     results = app.root.get_screen("results")
+    report["results_scroll_top"] = results.ids.details.scroll_y == 1
+    report["finished_button"] = results.ids.finish.text
     yield from wait_for(lambda: not results.drawing, frames=100)  # the curve comes from a worker
     report["curve_drawn"] = bool(results.curve) and os.path.exists(results.curve)
-    tap(results.ids.finish)
-    yield from wait_for(lambda: results.message)
-    report["finish_message"] = results.message
     report["test_id"] = app.test_id
+    report["duration"] = app.service.header(app.test_id).get("flow_stopped_at") is not None
+
+
+def popup_button(text):
+    """The button labelled ``text`` of the popup now open on the window."""
+    from kivy.core.window import Window
+    from kivy.uix.button import Button
+
+    for child in Window.children:
+        for w in child.walk():
+            if isinstance(w, Button) and w.text == text:
+                return w
+    raise LookupError(f"no open popup with a button {text!r}")
 
 
 def script_find(app):
@@ -188,8 +231,57 @@ def script_find(app):
     yield
     report["screen"] = app.root.current
     results = app.root.get_screen("results")
+    # scrolled down, left, opened again: the results open at their top (headline, FINISH in place)
+    results.ids.details.scroll_y = 0
+    app.go("home")
+    yield from settle()
+    app.open_test(sys.argv[4])
+    yield from settle()
+    report["reopened_at_top"] = results.ids.details.scroll_y == 1
     report["rated_label"] = results.ids.rated.text
     report["status"] = app.test_status(app.test_id)
+    # A correction: a reason, CORRECT, the question, YES.
+    results.ids.reason.text = "residual re-read"
+    yield from tap_until(lambda: results.ids.correct, lambda: results.asking is not None)
+    yield from settle()
+    report["asked"] = results.asking.question if results.asking else ""
+    report["status_while_asked"] = app.test_status(app.test_id)
+    tap(popup_button("YES, REOPEN"))
+    yield from wait_for(lambda: "revision 2" in app.test_status(app.test_id))
+    report["status_after"] = app.test_status(app.test_id)
+    report["reason_after"] = results.ids.reason.text
+    # A refused reading shows its message in a place kept for it: the keypad does not move.
+    app.go("readings")
+    yield from settle()
+    readings = app.root.get_screen("readings")
+    pad = readings.ids.keypad
+    before = pad.ids.enter.to_window(*pad.ids.enter.pos)
+    yield from type_on(pad, "999")
+    tap(pad.ids.enter)
+    yield from wait_for(lambda: readings.bad and readings.message)
+    yield from settle()
+    report["refused_reading"] = readings.message
+    report["keypad_moved"] = pad.ids.enter.to_window(*pad.ids.enter.pos) != before
+    app.go("results")
+    yield from settle()
+    # Another test: its reason box is empty.
+    results.ids.reason.text = "typed for the first test"
+    other = next(t.test_id for t in app.store.tests() if t.test_id != app.test_id)
+    app.open_test(other)
+    yield from settle()
+    report["other_reason"] = results.ids.reason.text
+    # The export screen says what it will do with the test under correction.
+    app.go("export")
+    yield from settle()
+    report["export_plan"] = app.root.get_screen("export").plan
+    # LOAD AREA's dialog has a visible cancel that closes it.
+    app.go("home")
+    yield from settle()
+    popup = app.pick_area()
+    yield from settle()
+    tap(popup_button("CANCEL: KEEP THE AREA LOADED NOW"))
+    yield from settle()
+    report["area_dialog_closed"] = popup.parent is None
     # LOAD AREA's load runs in a worker; the home screen says so, then shows the outcome.
     from mobile.services import demo
     app.load_area(demo.TALLOWMERE)
@@ -197,6 +289,21 @@ def script_find(app):
     yield from wait_for(lambda: not home.message.startswith("Loading"), frames=100)
     report["load_message"] = home.message
     report["area_summary"] = app.area_summary()
+    # A stale message: refused id, then a pick clears it.
+    app.open_test(sys.argv[4])
+    app.go("setup")
+    yield from settle()
+    setup = app.root.get_screen("setup")
+    setup.ids.hsearch.text = "QQ-9"
+    yield from settle()
+    tap(setup.ids.as_gauge)
+    yield from wait_for(lambda: setup.bad and setup.message)
+    report["refused"] = setup.message
+    setup.ids.hsearch.text = ""
+    yield from settle()
+    yield from tap_until(lambda: rows(setup.ids.hydrant_list)[0],
+                         lambda: setup.picked == rows(setup.ids.hydrant_list)[0].key)
+    report["after_pick"] = setup.message
 
 
 class DrivenApp(FieldApp):

@@ -1,0 +1,57 @@
+"""The fire-flow summary in a fit's report: available flow with the fitted C, and its interval, at the
+hydrants the tests flowed (where the fit knows the mains best), and how to scan every hydrant."""
+
+from __future__ import annotations
+
+import html
+
+import numpy as np
+
+from calib import units
+from calib.errors import CalibError
+from calib.fireflow.scan import FireFlowScan, GroupCovariance
+
+
+def covariance_of(result) -> GroupCovariance:
+    """The group C covariance of a ``FitResult`` (as covariance.csv holds it)."""
+    cols = result.c_cols
+    cov = np.asarray(result.estimate.cov, float)[np.ix_(cols, cols)]
+    undetermined = np.asarray(result.estimate.undetermined, bool)[cols]
+    cov = np.where(np.isfinite(cov), cov, 0.0)
+    return GroupCovariance(names=list(result.grouping.names), cov=cov,
+                           pipe_group=np.asarray(result.grouping.index, np.int64),
+                           undetermined=undetermined, c=result.c)
+
+
+def flowed_hydrants(result) -> list[str]:
+    """Junctions flowed by the tests, in test order, each once."""
+    ids = result.network.node_ids
+    return list(dict.fromkeys(str(ids[i]) for flows in result.tests.flows for i in flows))
+
+
+def html_section(result, system: str = "us", limit: int = 12) -> str:
+    """``<h2>Fire flow ...</h2>`` with a table for the flowed hydrants (at most ``limit``)."""
+    e = html.escape
+    fu, pu = units.display_unit("flow", system), units.display_unit("pressure", system)
+    nodes = flowed_hydrants(result)[:limit]
+    head = ("<h2>Fire flow with the fitted C</h2><p>Model estimate of the flow available at 20 psi "
+            "residual (and 20 psi elsewhere in the zone), average-day demand, at the hydrants the "
+            "tests flowed; 95 % interval from the C covariance (first order). For every hydrant, "
+            "with a map: <code>python -m calib fireflow NETWORK --fit THIS_FOLDER --out "
+            "THIS_FOLDER/fireflow.csv</code>. An estimate: it does not replace flow tests, local "
+            "codes, the authority having jurisdiction or a licensed engineer.</p>")
+    try:
+        scan = FireFlowScan(result.network, roughness=result.roughness(),
+                            covariance=covariance_of(result))
+        flows = [scan.hydrant(n) for n in nodes]
+    except CalibError as exc:
+        return head + f"<p>Not computed: {e(str(exc))}</p>"
+    q = lambda v: f"{units.from_si(v, 'flow', fu):.0f}" if np.isfinite(v) else "-"  # noqa: E731
+    rows = "".join(
+        f"<tr><td>{e(f.node)}</td><td>{units.from_si(f.static, 'pressure', pu):.1f}</td>"
+        f"<td>{q(f.available)}</td><td>{q(f.low)} - {q(f.high)}</td>"
+        f"<td>{e(f.limiting_node if f.available == f.flow_system else 'own residual')}</td>"
+        f"<td>{e(f.hydrant_class)}</td><td>{e(f.note)}</td></tr>" for f in flows)
+    return (head + f"<table><tr><th>hydrant</th><th>static [{pu}]</th><th>available [{fu}]</th>"
+            f"<th>95 % interval [{fu}]</th><th>limited by</th><th>NFPA 291 class</th><th>note</th>"
+            f"</tr>{rows}</table>")
