@@ -105,3 +105,86 @@ def write_csv(path, frame: pd.DataFrame, float_format: str | None = "%.6g") -> P
     buf = io.StringIO()
     frame.to_csv(buf, index=False, float_format=float_format, lineterminator="\n")
     return write_text(path, buf.getvalue())
+
+
+# --- outputs of a command: never over an input, a folder all or nothing ---------------------------
+
+def _same_file(a: Path, b: Path) -> bool:
+    try:
+        if a.exists() and b.exists():
+            return os.path.samefile(a, b)
+    except OSError:
+        pass
+    return a.resolve() == b.resolve()
+
+
+def input_files(*paths) -> list[Path]:
+    """The files a command reads: each path given, or the files directly in a folder given."""
+    found: list[Path] = []
+    for path in paths:
+        path = Path(path)
+        if path.is_dir():
+            found += [p for p in sorted(path.iterdir()) if p.is_file()]
+        elif path.exists():
+            found.append(path)
+    return found
+
+
+def check_outputs(outputs: dict, inputs) -> None:
+    """Refuse outputs that would overwrite an input or each other, before anything is computed.
+
+    ``outputs`` maps an option name (``--out``) to a path or a list of paths it would write;
+    ``inputs`` lists the files read (``input_files``). Raises ``InputError`` naming the option.
+    """
+    from calib.errors import InputError, Problem  # errors is tiny; imported here to keep fileio first
+
+    problems: list[Problem] = []
+    seen: list[tuple[str, Path]] = []
+    for option, paths in outputs.items():
+        if paths is None:
+            continue
+        for path in [paths] if isinstance(paths, (str, os.PathLike)) else paths:
+            path = Path(path)
+            for source in inputs:
+                if _same_file(path, Path(source)):
+                    problems.append(Problem(f"'{path}' is an input of this run and would be "
+                                            "overwritten", field=option,
+                                            expected="an output path outside the input files"))
+            for other, earlier in seen:
+                if _same_file(path, earlier):
+                    problems.append(Problem(f"'{path}' is also the {other} output; one would "
+                                            "overwrite the other", field=option,
+                                            expected=f"a path other than {other}'s"))
+            seen.append((option, path))
+    if problems:
+        raise InputError(problems)
+
+
+@contextlib.contextmanager
+def output_folder(out, known: tuple[str, ...]):
+    """Write a command's outputs into folder ``out`` all or nothing, leaving no stale file of ours.
+
+    Yields a temporary sibling folder to write into. On success each file written there is moved
+    into ``out`` (``os.replace``, atomic per file), then every file named in ``known`` (the names the
+    command can write) that this run did not write is removed from ``out``, so that no output of an
+    earlier run can pass for this run's (e.g. an old ``report.html`` after ``--no-report``). Other
+    files in ``out`` are left alone. On any error the staging folder is removed and ``out`` is as it
+    was. Only a crash between two of the final renames (milliseconds) can leave a mix.
+    """
+    import shutil
+
+    out = Path(out)
+    out.parent.mkdir(parents=True, exist_ok=True)
+    stage = Path(tempfile.mkdtemp(prefix=f".{out.name}.", suffix=".partial", dir=out.parent))
+    try:
+        yield stage
+        out.mkdir(parents=True, exist_ok=True)
+        written = [p for p in sorted(stage.iterdir()) if p.is_file()]
+        for path in written:
+            os.replace(path, out / path.name)
+        names = {p.name for p in written}
+        for name in known:
+            if name not in names and (out / name).is_file():
+                (out / name).unlink()
+    finally:
+        shutil.rmtree(stage, ignore_errors=True)

@@ -14,6 +14,7 @@ Conventions (printed in reports and outputs):
 
 from __future__ import annotations
 
+import functools
 import re
 
 import pint
@@ -64,12 +65,14 @@ def parse_header(header: str) -> tuple[str, str | None]:
     return m.group("name").strip().lower(), (unit.strip() if unit is not None else None)
 
 
+@functools.lru_cache(maxsize=512)  # a few units are asked for again and again; pint is slow
 def unit_factor(unit: str, kind: str) -> float:
     """Factor that turns a magnitude in ``unit`` into SI for a physical ``kind`` (see ``SI_UNIT``).
 
     Raises ``ValueError`` with the unit and the expected dimension when pint does not know the unit or
     it has the wrong dimension. Temperature-like offsets are not supported (none of our kinds has one).
     """
+    check_unit_text(unit)
     try:
         q = ureg.Quantity(1.0, unit)
     except (pint.errors.UndefinedUnitError, pint.errors.DefinitionSyntaxError, AttributeError,
@@ -84,28 +87,104 @@ def unit_factor(unit: str, kind: str) -> float:
 def to_si(value, kind: str, default_unit: str | None = None) -> float:
     """Turn a Quantity, a string such as ``"72 psi"`` or a bare number (in ``default_unit``) into SI.
 
-    A bare number with no ``default_unit`` is taken as already SI. Raises ``ValueError`` naming what
-    is wrong (not a number, unknown unit, wrong dimension).
+    A bare number with no ``default_unit`` is taken as already SI. A string is a number and an
+    optional unit, read by ``parse_value_text`` (never evaluated as an expression). Raises
+    ``ValueError`` naming what is wrong (not a number, unknown unit, wrong dimension, too large).
+    NaN and infinity pass through: the caller's range check (``calib.limits``) refuses them.
     """
     if isinstance(value, pint.Quantity):
         if value.dimensionality != _DIMENSION[kind]:
             raise ValueError(f"'{value:~}' is not {_article(kind)} {kind} (expected a unit such as "
                              f"{DISPLAY['us'][kind]} or {DISPLAY['si'][kind]})")
-        return float(value.to(SI_UNIT[kind]).magnitude)
-    if isinstance(value, str):
-        text = value.strip()
         try:
-            q = ureg.Quantity(text)
-        except Exception as exc:  # pint raises many types on junk text
-            raise ValueError(f"'{value}' is not a number with a unit") from exc
-        if not isinstance(q, pint.Quantity) or q.dimensionless:
-            magnitude = float(q.magnitude if isinstance(q, pint.Quantity) else q)
+            return float(value.to(SI_UNIT[kind]).magnitude)
+        except (OverflowError, TypeError) as exc:
+            raise ValueError(f"'{value:~}' is not a number of a plausible size") from exc
+    if isinstance(value, str):
+        magnitude, unit = parse_value_text(value)
+        if unit is None:
             return to_si(magnitude, kind, default_unit)
-        return to_si(q, kind)
-    magnitude = float(value)
+        return magnitude * unit_factor(unit, kind)
+    if isinstance(value, bool):
+        raise ValueError(f"{value!r} is not a number")
+    try:
+        magnitude = float(value)
+    except OverflowError:
+        raise ValueError("the number is too large to be a reading") from None
     if default_unit is None:
         return magnitude
     return magnitude * unit_factor(default_unit, kind)
+
+
+# --- a value typed or given as text: a number, then a unit ----------------------------------------
+# A value is a number and a unit, never an expression: pint would evaluate "9**9**9 psi" (hanging)
+# or "2**10" (1024) or read "72,5" as 725. The number is parsed here by a strict pattern (ASCII digits,
+# at most 15 of them before and after the point, an exponent of at most 3 digits); only the unit
+# text, itself checked by a strict pattern (names, one small power, at most four of them joined by
+# * or /), is handed to pint.
+_NUMBER_TEXT = r"[+-]?(?:[0-9]{1,15}(?:\.[0-9]{0,15})?|\.[0-9]{1,15})(?:[eE][+-]?[0-9]{1,3})?"
+_NOT_FINITE = r"[+-]?(?:nan|inf|infinity)"
+_UNIT_WORD = r"[A-Za-z_][A-Za-z0-9_]{0,19}(?:(?:\*\*|\^)[1-3])?"
+_UNIT_TEXT = rf"{_UNIT_WORD}(?:\s*[*/]\s*{_UNIT_WORD}){{0,3}}"
+_VALUE = re.compile(rf"^\s*(?P<num>{_NUMBER_TEXT}|{_NOT_FINITE})\s*(?P<unit>{_UNIT_TEXT})?\s*$",
+                    re.ASCII | re.IGNORECASE)
+_UNIT_ONLY = re.compile(rf"^\s*{_UNIT_TEXT}\s*$", re.ASCII)
+#: Longest text looked at; a reading or a unit is never longer.
+MAX_TEXT = 60
+
+
+def _shown(text: str) -> str:
+    text = str(text).strip()
+    return text if len(text) <= 24 else text[:21] + "..."
+
+
+def check_unit_text(unit) -> None:
+    """Raise ``ValueError`` unless ``unit`` looks like a unit (names, small powers, * and /).
+
+    Keeps what reaches pint's parser small and free of numbers to evaluate (``9**9**9``).
+    """
+    if not isinstance(unit, str) or len(unit) > MAX_TEXT or not _UNIT_ONLY.match(unit):
+        raise ValueError(f"unknown unit '{_shown(unit)}' (a unit is a name such as psi, kPa, "
+                         "gpm, L/s, ft or m**3/s)")
+
+
+def parse_number(text: str) -> float:
+    """A plain number written as text (a table cell, a bare option): ``parse_value_text`` without
+    a unit. Raises ``ValueError`` saying why (a comma, an expression, a unit, junk)."""
+    magnitude, unit = parse_value_text(text)
+    if unit is not None:
+        raise ValueError(f"'{_shown(text)}' is not a number (the unit belongs in the column header "
+                         "or is not wanted here)")
+    return magnitude
+
+
+def parse_value_text(text: str) -> tuple[float, str | None]:
+    """Split a typed value ``"72.5 psi"`` into ``(72.5, "psi")``; ``"72"`` gives ``(72.0, None)``.
+
+    Strict: ASCII digits with an optional point and exponent, then an optional unit. Refused with a
+    ``ValueError`` saying why: a comma (decimal or thousands: never guessed), an expression
+    (``2**10``), a percent or degree sign, brackets, a doubled sign, more than 15 digits, junk.
+    The magnitude may be NaN or infinite ("nan", "inf", "1e999"): range checks refuse it later.
+    """
+    raw = str(text)
+    shown = _shown(raw)
+    if len(raw) > MAX_TEXT:
+        raise ValueError(f"'{shown}' is too long to be a reading ({len(raw)} characters)")
+    m = _VALUE.match(raw)
+    if not m:
+        why = "is not a number with a unit"
+        if "," in raw:
+            why += ": a comma is not read (type a point for decimals, 72.5, and no thousands separator)"
+        elif any(ch in raw for ch in "*^()[]%;"):
+            why += ": a value is a number and a unit, not an expression or a list"
+        elif any(not ch.isascii() for ch in raw):
+            why += ": only the digits 0-9, a point, a sign and a unit name are read"
+        elif re.search(r"[0-9]{16}", raw):
+            why += ": more than 15 digits"
+        raise ValueError(f"'{shown}' {why}")
+    num = m.group("num")
+    magnitude = float(num)  # a checked pattern: float() of it never raises
+    return magnitude, m.group("unit")
 
 
 def from_si(value, kind: str, unit: str):

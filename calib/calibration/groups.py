@@ -13,7 +13,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from calib import units
+from calib import limits, units
 from calib.errors import CalibrationError, InputError, Problem
 
 RULE_KEYS = ("group", "material", "decade", "diameter")
@@ -64,6 +64,14 @@ def _band_labels(edges_in: tuple[float, ...]) -> list[str]:
     return labels
 
 
+def _edge(value: float, text: str) -> float:
+    """A diameter band edge [in], inside the plausible pipe diameters (``calib.limits``)."""
+    if limits.PIPE_DIAMETER.refuses(value * units.INCH):
+        raise InputError(f"band edge '{text}' is not a plausible pipe diameter", field="--group-by",
+                         expected=f"edges in inches within {limits.PIPE_DIAMETER.expected()}")
+    return value
+
+
 def parse_rule(rule: str | None) -> list[tuple[str, tuple[float, ...] | None]]:
     """``"material,decade,diameter=8,12"`` -> [("material", None), ("decade", None), ("diameter", (8, 12))].
 
@@ -74,10 +82,11 @@ def parse_rule(rule: str | None) -> list[tuple[str, tuple[float, ...] | None]]:
     parts: list[tuple[str, tuple[float, ...] | None]] = []
     for token in [t.strip().lower() for t in str(rule).split(",") if t.strip()]:
         try:
-            edge = float(token)
+            edge = units.parse_number(token)
         except ValueError:
             edge = None
         if edge is not None:
+            edge = _edge(edge, token)
             if not parts or parts[-1][0] != "diameter":
                 raise InputError(f"band edge {token} does not follow 'diameter='", field="--group-by",
                                  expected="e.g. material,diameter=8,12")
@@ -89,10 +98,11 @@ def parse_rule(rule: str | None) -> list[tuple[str, tuple[float, ...] | None]]:
                              expected="a comma list of " + ", ".join(RULE_KEYS))
         if key == "diameter":
             try:
-                parts.append((key, (float(first),) if first else ()))
+                edges = (units.parse_number(first),) if first else ()
             except ValueError:
                 raise InputError(f"band edge '{first}' is not a number", field="--group-by",
                                  expected="diameter band edges in inches, e.g. diameter=8,12") from None
+            parts.append((key, tuple(_edge(e, first) for e in edges)))
         else:
             parts.append((key, None))
     out = []

@@ -25,7 +25,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from calib import units
+from calib import limits, units
 from calib.errors import InputError, Problem
 from calib.network import tanks
 from calib.flowtest.pitot import OUTLET_COEFFICIENTS, pitot_discharge
@@ -37,16 +37,18 @@ KIND = {"flow": "flow", "pitot": "pressure", "outlet_diameter": "diameter", "sta
         "residual": "pressure", "gauge_height": "length", "sigma": "pressure", "head": "head",
         "level": "head"}
 #: Plausible ranges in SI, with the text shown in messages (US units, as crews read them).
+#: Each is stated once, in ``calib.limits``; messages give the SI range beside.
 RANGE = {
-    "flow": (0.0, 10000 * units.GPM, "more than 0 and at most 10000 gpm"),
-    "pitot": (0.0, 200 * units.PSI, "more than 0 and at most 200 psi (NFPA 291 asks for about 10-30)"),
-    "outlet_diameter": (0.5 * units.INCH, 8 * units.INCH, "0.5 to 8 in (hose 2.5 in, pumper 4-4.5 in)"),
-    "coefficient": (0.5, 1.0, "0.5 to 1.0, or smooth (0.90), square (0.80), projecting (0.70) (NFPA 291)"),
-    "static": (0.0, 300 * units.PSI, "0 to 300 psi"),
-    "residual": (0.0, 300 * units.PSI, "0 to 300 psi"),
-    "gauge_height": (-20 * units.FT, 30 * units.FT, "-20 to 30 ft above the node elevation"),
-    "sigma": (0.0, 20 * units.PSI, "more than 0 and at most 20 psi"),
-    "head": (-500.0, 3000.0, "a hydraulic grade between -1640 and 9842 ft (-500 and 3000 m)"),
+    "flow": limits.FLOW,
+    "pitot": limits.PITOT,
+    "outlet_diameter": limits.OUTLET_DIAMETER,
+    "coefficient": limits.COEFFICIENT,
+    "static": limits.PRESSURE,
+    "residual": limits.PRESSURE,
+    "gauge_height": limits.GAUGE_HEIGHT,
+    "sigma": limits.SIGMA,
+    "head": limits.HEAD,
+    "level": limits.TANK_LEVEL,  # a tank's level above its floor, where boundary.csv gives one
 }
 DEFAULT_COEFFICIENT = 0.90  # NFPA 291 outlet figure: smooth, well-rounded outlet
 
@@ -192,31 +194,33 @@ class _Table:
         return str(self.frame.at[i, self.columns[name]]).strip()  # .at: no row Series per cell
 
     def number(self, i: int, name: str, row_id: str | None, required: bool = False) -> float:
-        """The SI value in row i, column ``name``; nan when blank (a problem if ``required``)."""
+        """The SI value in row i, column ``name``; nan when blank (a problem if ``required``).
+
+        A cell is a plain number (``units.parse_number``: ASCII digits, no comma, no expression);
+        the value must lie in the column's range (``RANGE``, from ``calib.limits``).
+        """
         raw = self.text(i, name)
         where = dict(file=self.name, row=i + 2, id=row_id, field=self.columns.get(name, name))
+        if raw == "" and not required:
+            return math.nan
+        expected = _expected(name)
         if raw == "":
             if required:
-                self.problems.append(Problem("value is missing", **where,
-                                             expected=RANGE[name][2] if name in RANGE else None))
+                self.problems.append(Problem("value is missing", **where, expected=expected))
             return math.nan
         try:
-            value = float(raw)
-        except ValueError:
-            self.problems.append(Problem(f"'{raw}' is not a number", **where,
-                                         expected=RANGE[name][2] if name in RANGE else None))
+            value = units.parse_number(raw)
+        except ValueError as exc:
+            self.problems.append(Problem(str(exc), **where, expected=expected))
             return math.nan
         if not math.isfinite(value):
             self.problems.append(Problem(f"'{raw}' is not a finite number", **where))
             return math.nan
         value *= self.factor.get(name, 1.0)
-        if name in RANGE:
-            low, high, text = RANGE[name]
-            strict_low = name in ("flow", "pitot", "sigma")
-            if value > high or value < low or (strict_low and value <= low):
-                self.problems.append(Problem(f"{raw} is outside the plausible range", **where,
-                                             expected=text))
-                return math.nan
+        if name in RANGE and RANGE[name].refuses(value):
+            self.problems.append(Problem(f"{raw} is outside the plausible range", **where,
+                                         expected=expected))
+            return math.nan
         return value
 
 
@@ -257,6 +261,52 @@ def _coefficient(table: _Table, i: int, row_id: str) -> float:
     return table.number(i, "coefficient", row_id)  # range and message as for every other number
 
 
+def _expected(name: str) -> str | None:
+    """The plausible range of column ``name`` in words (None for a column without one)."""
+    if name not in RANGE:
+        return None
+    text = RANGE[name].expected()
+    if name == "coefficient":
+        text += "; or smooth (0.90), square (0.80), projecting (0.70) (NFPA 291)"
+    if name == "gauge_height":
+        text += " above the node elevation"
+    return text
+
+
+#: A flow given beside the pitot reading it came from (the field app writes both) must agree with
+#: the pitot formula within this fraction (rounding of the written flow; common practice).
+FLOW_PITOT_AGREEMENT = 0.01
+
+
+def _flow_matches_pitot(table: _Table, i: int, row_id: str, flow: float, problems) -> bool:
+    """A row giving both a flow and a pitot reading: True when they agree (the flow is then used);
+    else a problem naming both, never one of them silently ignored."""
+    where = dict(file=table.name, row=i + 2, id=row_id, field="pitot")
+    n_before = len(problems)
+    p = table.number(i, "pitot", row_id)
+    d = table.number(i, "outlet_diameter", row_id, required=True)
+    c = _coefficient(table, i, row_id)
+    factor_text = table.text(i, "pumper_factor")
+    try:
+        factor = 1.0 if factor_text == "" else units.parse_number(factor_text)
+    except ValueError:
+        factor = math.nan
+    if len(problems) > n_before or math.isnan(flow):
+        return False
+    if not (math.isfinite(factor) and 0.5 <= factor <= 1.5):
+        problems.append(Problem(f"pumper_factor '{factor_text}' is not a plausible factor",
+                                **{**where, "field": "pumper_factor"}, expected="about 0.8 to 1.0"))
+        return False
+    from_pitot = factor * float(pitot_discharge(p, d, c))
+    if abs(from_pitot - flow) > FLOW_PITOT_AGREEMENT * max(flow, from_pitot):
+        problems.append(Problem(
+            f"both a flow ({flow / units.GPM:.1f} gpm) and a pitot reading are given and they "
+            f"disagree: the pitot gives {from_pitot / units.GPM:.1f} gpm", **where,
+            expected="one of them per row, or a flow that is the pitot's (within 1 %)"))
+        return False
+    return True
+
+
 def _node(network, table: _Table, i: int, row_id: str, problems, junction_only=True) -> int | None:
     raw = table.text(i, "node" if "node" in table.columns else "source")
     fld = "node" if "node" in table.columns else "source"
@@ -294,9 +344,13 @@ def read_tests(folder, network, sigma: float | None = None) -> TestSet:
     if not folder.is_dir():
         raise InputError(f"tests folder '{folder}' does not exist", file=str(folder),
                          expected="a folder with flows.csv and pressures.csv")
-    for name in ("flows.csv", "pressures.csv"):
-        if not (folder / name).is_file():
-            problems.append(Problem(f"{name} is missing", file=str(folder / name),
+    for name in ("flows.csv", "pressures.csv", "boundary.csv", "tests.csv"):
+        path = folder / name
+        if path.exists() and not path.is_file():  # a folder: never skipped without a word
+            problems.append(Problem("is a folder, not a file", file=str(path),
+                                    expected=f"{name} as a CSV file with a header row"))
+        elif not path.exists() and name in ("flows.csv", "pressures.csv"):
+            problems.append(Problem(f"{name} is missing", file=str(path),
                                     expected="flows.csv and pressures.csv in the tests folder"))
     if problems:
         raise InputError(problems)
@@ -347,6 +401,12 @@ def read_tests(folder, network, sigma: float | None = None) -> TestSet:
             t_idx = test_index(tid, f, i)
             n_idx = _node(network, f, i, tid, problems)
             q = f.number(i, "flow", tid) if "flow" in f.columns else math.nan
+            if f.text(i, "flow") != "" and f.text(i, "pitot") != "":
+                if not _flow_matches_pitot(f, i, tid, q, problems):
+                    continue
+            elif f.text(i, "flow") != "":  # unused beside a measured flow, yet never junk
+                _coefficient(f, i, tid)
+                f.number(i, "outlet_diameter", tid)
             if math.isnan(q) and f.text(i, "flow") == "":
                 if "pitot" not in f.columns or f.text(i, "pitot") == "":
                     problems.append(Problem("neither flow nor pitot is given", file="flows.csv",
@@ -370,6 +430,10 @@ def read_tests(folder, network, sigma: float | None = None) -> TestSet:
     pr = _Table(folder / "pressures.csv", problems, ("test_id", "node"))
     pr.require_any(("static", "residual"), "neither a static nor a residual column",
                    "'static [psi]' and 'residual [psi]'")
+    if pr.ok and len(pr) == 0:
+        problems.append(Problem("has a header but no readings", file=pr.name,
+                                expected="one row per gauge and test: test_id, node, static, "
+                                "residual"))
     if pr.ok:
         seen_gauges: dict[tuple[int, int], int] = {}
         for i in range(len(pr)):
@@ -415,6 +479,7 @@ def read_tests(folder, network, sigma: float | None = None) -> TestSet:
                       "'head [ft]' (the source's grade) or 'level [ft]' (a tank's water depth "
                       "above its floor, as the operator gives it)")
         if b.ok:
+            seen_sources: dict[tuple[int, int], int] = {}
             for i in range(len(b)):
                 tid = b.text(i, "test_id")
                 t_idx = test_index(tid, b, i)
@@ -422,7 +487,15 @@ def read_tests(folder, network, sigma: float | None = None) -> TestSet:
                 h = _boundary_grade(network, b, i, tid, s_idx, problems)
                 if t_idx is None or s_idx is None or math.isnan(h):
                     continue
-                heads.setdefault(t_idx, {})[s_idx] = h
+                given = heads.setdefault(t_idx, {})
+                if s_idx in given:
+                    problems.append(Problem(f"source '{network.node_ids[s_idx]}' already has a "
+                                            f"grade for this test (row {seen_sources[(t_idx, s_idx)]})",
+                                            file=b.name, row=i + 2, id=tid, field="source",
+                                            expected="one row per source and test"))
+                    continue
+                seen_sources[(t_idx, s_idx)] = i + 2
+                given[s_idx] = h
 
     if problems:
         raise InputError(problems)

@@ -13,7 +13,7 @@ import math
 import sys
 from pathlib import Path
 
-from calib import units
+from calib import fileio, limits, units
 from calib.errors import InputError
 
 CAUTION = ("Model estimates: they do not replace flow tests, local codes, the authority having "
@@ -60,20 +60,21 @@ def _pressure(text: str, option: str) -> float:
         value = units.to_si(text, "pressure", "psi")
     except ValueError as exc:
         raise InputError(str(exc), field=option, expected="a pressure such as 20psi or 140kPa") from None
-    if not (math.isfinite(value) and 0 <= value <= 200 * units.PSI):
+    if limits.PRESSURE.refuses(value):
         raise InputError(f"'{text}' is not a plausible pressure", field=option,
-                         expected="0 to 200 psi (0 to 1379 kPa), usually 20 psi")
+                         expected=limits.PRESSURE.expected() + "; 20 psi for fire flow")
     return value
 
 
 def _factor(text: str) -> float:
     try:
-        value = float(text)
+        value = units.parse_number(text)  # a plain number: no comma, no expression
     except ValueError:
         value = math.nan
-    if not (math.isfinite(value) and 0 <= value <= 10):
+    if limits.DEMAND_FACTOR.refuses(value):
         raise InputError(f"demand factor '{text}' is not plausible", field="--demand-factor",
-                         expected="a number from 0 to 10, e.g. 1.0 (average day) or 1.5 (peak)")
+                         expected=limits.DEMAND_FACTOR.expected() + ", e.g. 1.0 (average day) or "
+                         "1.5 (peak)")
     return value
 
 
@@ -95,6 +96,9 @@ def run(args) -> int:
     out = Path(args.out)
     if out.is_dir():
         raise InputError(f"'{out}' is a folder", field="--out", expected="a .csv file to write")
+    fileio.check_outputs({"--out": [out, out.with_suffix(".geojson"), out.with_suffix(".html")]},
+                         fileio.input_files(*(p for p in (args.network, args.fit, args.roughness)
+                                              if p)))
     network = read_network(args.network)
     nodes = hydrant_nodes(network, args.nodes)
     fit = read_fit(args.fit, args.roughness, network)

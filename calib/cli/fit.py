@@ -13,7 +13,7 @@ import sys
 import time
 from pathlib import Path
 
-from calib import units
+from calib import fileio, limits, units
 from calib.errors import InputError
 
 CAUTION = ("A calibrated model supports, never replaces, field verification and review by a licensed "
@@ -56,15 +56,25 @@ def register(subparsers) -> None:
     p.set_defaults(func=run)
 
 
+#: Every file ``fit`` can write into OUT. A run replaces them all: a file of this list that the run
+#: does not write (report.html with --no-report, parameters.csv, pipes.geojson) is removed, so no
+#: file of an earlier run can pass for this run's (``calib.fileio.output_folder``).
+OUTPUTS = ("groups.csv", "roughness.csv", "readings.csv", "parameters.csv", "covariance.csv",
+           "pipes.geojson", "report.html")
+
+
 def _bounds(text: str) -> tuple[float, float]:
     parts = [s.strip() for s in str(text).split(",")]
     try:
-        lo, hi = (float(parts[0]), float(parts[1])) if len(parts) == 2 else (math.nan, math.nan)
+        lo, hi = (units.parse_number(parts[0]), units.parse_number(parts[1])) \
+            if len(parts) == 2 else (math.nan, math.nan)
     except ValueError:
         lo = hi = math.nan
-    if not (math.isfinite(lo) and math.isfinite(hi) and 0 < lo < hi <= 200):
+    c = limits.C_FACTOR
+    if not (math.isfinite(lo) and math.isfinite(hi) and c.low <= lo < hi <= c.high):
         raise InputError(f"'{text}' is not a C range", field="--c-bounds",
-                         expected="two numbers LO,HI with 0 < LO < HI <= 200, e.g. 40,160")
+                         expected=f"two numbers LO,HI with {c.low:g} <= LO < HI <= {c.high:g}, "
+                         "e.g. 40,160")
     return lo, hi
 
 
@@ -75,9 +85,9 @@ def _sigma(text: str | None) -> float | None:
         value = units.to_si(text, "pressure", "psi")
     except ValueError as exc:
         raise InputError(str(exc), field="--sigma", expected="a pressure such as 1psi or 7kPa") from None
-    if not (math.isfinite(value) and 0 < value <= 20 * units.PSI):
+    if limits.SIGMA.refuses(value):
         raise InputError(f"'{text}' is not a plausible gauge accuracy", field="--sigma",
-                         expected="more than 0 and at most 20 psi")
+                         expected=limits.SIGMA.expected())
     return value
 
 
@@ -243,6 +253,8 @@ def run(args) -> int:
         # checked before the fit, not after minutes of solving
         raise InputError(f"'{out}' is a file, not a folder", field="--out",
                          expected="a folder for the outputs (created when missing)")
+    fileio.check_outputs({"--out": [out / name for name in OUTPUTS]},
+                         fileio.input_files(args.network, args.tests))
     network = read_network(args.network)
     tests = read_tests(args.tests, network, sigma=sigma)
     # about 100 solves a test on the demo day (fit, refits, interval checks, leave-one-out)
@@ -254,10 +266,12 @@ def run(args) -> int:
     finally:
         if bar is not None:
             bar.close()
-    paths = export.write_outputs(result, args.out, args.units)
-    if not args.no_report:
-        from calib.calibration.report import write_report
-        paths.append(write_report(result, args.out, args.units))
+    with fileio.output_folder(out, OUTPUTS) as stage:  # all or none, no stale file of ours
+        paths = export.write_outputs(result, stage, args.units)
+        if not args.no_report:
+            from calib.calibration.report import write_report
+            paths.append(write_report(result, stage, args.units))
+    paths = [out / Path(p).name for p in paths]
     print(summary(result, args.units))
     print("wrote " + ", ".join(str(p) for p in paths))
     print(CAUTION)

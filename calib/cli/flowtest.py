@@ -10,29 +10,31 @@ from __future__ import annotations
 import argparse
 import json
 import math
+import sys
 
+from calib import limits
 from calib.errors import FlowTestError, Problem
 from calib.flowtest import CAUTIONS, DEFAULT_TARGET, FlowTest, Outlet, evaluate
 from calib.flowtest.findings import fmt_pressure
 from calib.flowtest.pitot import OUTLET_COEFFICIENTS
-from calib.units import DISPLAY, from_si, to_si
+from calib.units import DISPLAY, from_si, parse_value_text, to_si
 
 #: Default unit of a bare number, by option kind and unit system.
 _BARE = {"us": {"pressure": "psi", "diameter": "in", "flow": "gpm", "elevation": "ft", "length": "ft"},
          "si": {"pressure": "kPa", "diameter": "mm", "flow": "L/s", "elevation": "m", "length": "m"}}
-#: Plausible ranges shown in messages.
+#: The plausible range of each option, stated once in ``calib.limits``.
+_LIMIT = {
+    "--static": limits.PRESSURE, "--static-end": limits.PRESSURE, "--residual": limits.PRESSURE,
+    "--target": limits.PRESSURE, "--pitot": limits.PITOT, "--outlet": limits.OUTLET_DIAMETER,
+    "--flow": limits.FLOW, "--coefficient": limits.COEFFICIENT, "--elevation": limits.ELEVATION,
+    "--gauge-height": limits.GAUGE_HEIGHT,
+}
+#: Options whose unusual values are warned about here (the flow-test findings cover the others).
+_WARN_HERE = ("--outlet", "--coefficient", "--gauge-height")
 _RANGE = {
-    "--static": "10 - 200 psi (70 - 1400 kPa)",
-    "--static-end": "10 - 200 psi (70 - 1400 kPa)",
     "--residual": "20 psi (140 kPa) up to the static",
     "--target": "0 up to the static, usually 20 psi (140 kPa)",
-    "--pitot": "10 - 30 psi (70 - 210 kPa) for a good reading",
-    "--outlet": "1.5 - 6 in (38 - 150 mm), usually 2.5 in or 4.5 in",
-    "--flow": "a measured flow such as 800 gpm or 50 L/s",
-    "--coefficient": "0.70 - 0.90 (NFPA 291 outlet figure)",
     "--outlet-shape": "smooth (0.90), square (0.80) or projecting (0.70)",
-    "--elevation": "an elevation such as 120 ft or 35 m",
-    "--gauge-height": "0 - 3 ft (0 - 1 m)",
 }
 
 
@@ -64,16 +66,33 @@ def register(subparsers) -> None:
     p.set_defaults(func=run)
 
 
-def _value(text, kind: str, option: str, units: str) -> float:
+def _expected(option: str, units: str) -> str | None:
+    if option in _LIMIT:
+        return _LIMIT[option].expected(units)
+    return _RANGE.get(option)
+
+
+def _value(text, kind: str, option: str, units: str, warnings: list[str] | None = None) -> float:
+    """The SI value of an option: a number and a unit (never an expression), inside its range."""
     try:
-        return to_si(text, kind, _BARE[units][kind])
+        value = to_si(text, kind, _BARE[units][kind])
     except (ValueError, TypeError) as exc:
         message = str(exc).split(" (expected")[0]  # the plausible range below says it better
-        raise FlowTestError(Problem(message, field=option, expected=_RANGE.get(option))) from exc
+        raise FlowTestError(Problem(message, field=option, expected=_expected(option, units))) from exc
+    limit = _LIMIT.get(option)
+    if limit is not None:
+        if not math.isfinite(value):
+            _bad(option, f"'{text}' is not a finite number", units)
+        if limit.refuses(value):
+            _bad(option, f"{limit.name} {limit.show(value, units)} {limit.why_refused(value)} "
+                 f"(given '{text}')", units)
+        if warnings is not None and option in _WARN_HERE and limit.unusual(value):
+            warnings.append(limit.warning(value, option, units))
+    return value
 
 
-def _bad(option: str, message: str):
-    raise FlowTestError(Problem(message, field=option, expected=_RANGE.get(option)))
+def _bad(option: str, message: str, units: str = "us"):
+    raise FlowTestError(Problem(message, field=option, expected=_expected(option, units)))
 
 
 def _per_outlet(values: list, n: int, option: str) -> list:
@@ -86,60 +105,65 @@ def _per_outlet(values: list, n: int, option: str) -> list:
     return values
 
 
-def build_test(args) -> FlowTest:
-    """The ``FlowTest`` an argument namespace describes; raises ``FlowTestError`` naming the option."""
+def build_test(args, warnings: list[str] | None = None) -> FlowTest:
+    """The ``FlowTest`` an argument namespace describes; raises ``FlowTestError`` naming the option.
+
+    Unusual but possible values are appended to ``warnings`` (one sentence each, naming the option).
+    """
     u = args.units
     static = _value(args.static, "pressure", "--static", u)
     residual = _value(args.residual, "pressure", "--residual", u)
     target = _value(args.target if args.target is not None else "20 psi", "pressure", "--target", u)
     static_end = None if args.static_end is None else _value(args.static_end, "pressure", "--static-end", u)
-    for option, value in (("--static", static), ("--residual", residual), ("--target", target),
-                          ("--static-end", static_end)):
-        if value is not None and (not math.isfinite(value) or value < 0):
-            _bad(option, "a gauge pressure must be a finite number" if not math.isfinite(value)
-                 else f"a gauge pressure cannot be below zero ({fmt_pressure(value, u)})")
     if residual >= static:
         _bad("--residual", f"the residual ({fmt_pressure(residual, u)}) must be below the static "
-             f"({fmt_pressure(static, u)}); re-read both gauges")
+             f"({fmt_pressure(static, u)}); re-read both gauges", u)
     if target >= static:
         _bad("--target", f"the target ({fmt_pressure(target, u)}) must be below the static "
-             f"({fmt_pressure(static, u)})")
+             f"({fmt_pressure(static, u)})", u)
     if len(args.pitot) != len(args.outlet):
         _bad("--outlet", f"{len(args.pitot)} --pitot and {len(args.outlet)} --outlet given: give them "
-             "in pairs, one --outlet diameter per --pitot reading")
+             "in pairs, one --outlet diameter per --pitot reading", u)
     n = len(args.pitot)
     if n == 0 and not args.flow:
-        _bad("--pitot", "give at least one --pitot/--outlet pair or a --flow")
+        _bad("--pitot", "give at least one --pitot/--outlet pair or a --flow", u)
+    # a coefficient or shape is checked even when no pitot outlet uses it, and then refused: given
+    # with --flow alone it would be ignored without a word
+    coefficient_values = [_coefficient(text, u) for text in args.coefficient]
+    if n == 0 and (args.coefficient or args.outlet_shape):
+        option = "--coefficient" if args.coefficient else "--outlet-shape"
+        _bad(option, f"{option} applies to outlets read by pitot, and no --pitot is given (a "
+             "--flow is taken as measured)", u)
     shapes = _per_outlet(args.outlet_shape, n, "--outlet-shape") if n else []
-    coefficients = _per_outlet(args.coefficient, n, "--coefficient") if n else []
+    coefficients = _per_outlet(coefficient_values, n, "--coefficient") if n else []
     outlets = []
     for i in range(n):
-        pitot = _value(args.pitot[i], "pressure", "--pitot", u)
-        diameter = _value(args.outlet[i], "diameter", "--outlet", u)
-        if not math.isfinite(pitot) or pitot < 0:
-            _bad("--pitot", f"pitot reading {args.pitot[i]} "
-                 + ("is not a finite number" if not math.isfinite(pitot) else "is below zero"))
-        if not math.isfinite(diameter) or diameter <= 0:
-            _bad("--outlet", f"outlet diameter {args.outlet[i]} must be a finite number more than zero")
-        coefficient = None
-        if coefficients[i] is not None:
-            try:
-                coefficient = float(coefficients[i])
-            except ValueError:
-                _bad("--coefficient", f"'{coefficients[i]}' is not a number")
-            if not 0 < coefficient <= 1:
-                _bad("--coefficient", f"outlet coefficient {coefficient} is out of range")
-        outlets.append(Outlet(diameter=diameter, coefficient=coefficient, shape=shapes[i] or "smooth",
-                              pitot=pitot, pumper=args.pumper))
+        pitot = _value(args.pitot[i], "pressure", "--pitot", u, warnings)
+        diameter = _value(args.outlet[i], "diameter", "--outlet", u, warnings)
+        outlets.append(Outlet(diameter=diameter, coefficient=coefficients[i],
+                              shape=shapes[i] or "smooth", pitot=pitot, pumper=args.pumper))
     for text in args.flow:
-        flow = _value(text, "flow", "--flow", u)
-        if not math.isfinite(flow) or flow <= 0:
-            _bad("--flow", f"a measured flow must be a finite number more than zero, not {text}")
-        outlets.append(Outlet(flow=flow))
-    elevation = None if args.elevation is None else _value(args.elevation, "elevation", "--elevation", u)
-    gauge_height = _value(args.gauge_height, "length", "--gauge-height", u)
+        outlets.append(Outlet(flow=_value(text, "flow", "--flow", u, warnings)))
+    elevation = None if args.elevation is None else \
+        _value(args.elevation, "elevation", "--elevation", u, warnings)
+    gauge_height = _value(args.gauge_height, "length", "--gauge-height", u, warnings)
     return FlowTest(static=static, residual=residual, outlets=outlets, target=target,
                     static_end=static_end, elevation=elevation, gauge_height=gauge_height)
+
+
+def _coefficient(text: str, units: str) -> float:
+    """An outlet coefficient: a plain number (no unit, never an expression) inside its range."""
+    try:
+        value, unit = parse_value_text(text)
+    except ValueError as exc:
+        _bad("--coefficient", str(exc), units)
+    if unit is not None:
+        _bad("--coefficient", f"'{text}' is not a number (a coefficient has no unit)", units)
+    if not math.isfinite(value):
+        _bad("--coefficient", f"'{text}' is not a finite number", units)
+    if limits.COEFFICIENT.refuses(value):
+        _bad("--coefficient", f"outlet coefficient {value:g} is out of range", units)
+    return value
 
 
 def format_text(result, system: str) -> str:
@@ -182,7 +206,10 @@ def format_text(result, system: str) -> str:
 
 
 def run(args: argparse.Namespace) -> int:
-    test = build_test(args)
+    warnings: list[str] = []
+    test = build_test(args, warnings)
+    for text in warnings:
+        print(f"warning: {text}", file=sys.stderr)
     result = evaluate(test, system=args.units)
     if args.json:
         doc = {"command": "flowtest", **result.to_dict(args.units), "cautions": list(CAUTIONS)}

@@ -11,11 +11,12 @@ from __future__ import annotations
 
 import argparse
 import math
+import sys
 
 import numpy as np
 import pandas as pd
 
-from calib import fileio
+from calib import fileio, limits, units
 from calib.errors import InputError
 from calib.units import DISPLAY, from_si
 
@@ -45,13 +46,15 @@ def register(subparsers) -> None:
 
 def _demand_factor(text: str) -> float:
     try:
-        value = float(text)
+        value = units.parse_number(text)
     except ValueError:
         value = math.nan
-    if not math.isfinite(value) or value < 0:
-        raise InputError(f"demand factor '{text}' is not a number of zero or more",
-                         field="--demand-factor", expected="e.g. 1.0 for base demand, 2.5 for a "
-                         "peak hour")
+    if limits.DEMAND_FACTOR.refuses(value):
+        raise InputError(f"demand factor '{text}' is not a number in the plausible range",
+                         field="--demand-factor", expected=f"{limits.DEMAND_FACTOR.expected()}: "
+                         "e.g. 1.0 for base demand, 2.5 for a peak hour")
+    if limits.DEMAND_FACTOR.unusual(value):
+        print(f"warning: {limits.DEMAND_FACTOR.warning(value, '--demand-factor')}", file=sys.stderr)
     return value
 
 
@@ -107,6 +110,8 @@ def run(args: argparse.Namespace) -> int:
     from calib.network.io import read_network
 
     factor = _demand_factor(args.demand_factor)
+    fileio.check_outputs({"--out": args.out, "--pipes": args.pipes},
+                         fileio.input_files(args.network))
     network = read_network(args.network)
     solver = NetworkSolver(network, headloss=args.headloss)
     result = solver.solve(Snapshot(demand_factor=factor, label="solve"))

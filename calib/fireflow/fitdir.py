@@ -15,6 +15,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from calib import units
 from calib.errors import InputError, Problem
 from calib.fireflow.scan import GroupCovariance
 
@@ -41,8 +42,8 @@ def _read(path: Path, required: tuple[str, ...]) -> pd.DataFrame:
 
 
 def _number(text: str) -> float:
-    try:
-        return float(text) if str(text).strip() else np.nan
+    try:  # a plain number (calib.units): "1_000", fullwidth digits or a comma are not read
+        return units.parse_number(str(text)) if str(text).strip() else np.nan
     except ValueError:
         return np.nan
 

@@ -12,6 +12,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from calib import limits
 from calib.units import PSI
 
 SEVERITIES = ("info", "warning", "error")
@@ -22,10 +23,9 @@ MIN_DROP_FRACTION = 0.25
 #: Modelling practice: at least 10 psi of drop so that it dwarfs gauge error (Walski, "Model
 #: calibration data: the good, the bad and the useless", JAWWA 2000).
 MIN_DROP = 10.0 * PSI
-#: NFPA 291 (from memory): avoid pitot readings below about 10 psi.
-PITOT_LOW = 10.0 * PSI
-#: Upper end of the reliable pitot range, about 30 psi (from memory, low confidence).
-PITOT_HIGH = 30.0 * PSI
+#: NFPA 291 (from memory): avoid pitot readings below about 10 psi; the upper end of the reliable
+#: pitot range is about 30 psi (from memory, low confidence). Stated in ``calib.limits.PITOT``.
+PITOT_LOW, PITOT_HIGH = limits.PITOT.usual
 #: Common practice (our choice): warn when the rated flow is more than twice the flow tested. At a
 #: ratio of 2 the extrapolated drop is 2^1.852 = 3.6 times the drop measured, so a 1 psi gauge error
 #: becomes about 3.6 psi at the target and the curve leaves the range it was measured in.
@@ -34,8 +34,7 @@ MAX_EXTRAPOLATION = 2.0
 MIN_RESIDUAL = 20.0 * PSI
 #: Common practice: a static outside 10 - 200 psi is implausible for a distribution main; check the
 #: gauge, its range and the units.
-STATIC_LOW = 10.0 * PSI
-STATIC_HIGH = 200.0 * PSI
+STATIC_LOW, STATIC_HIGH = limits.PRESSURE.usual  # stated in calib.limits
 #: Common practice: a static that moved more than 2 psi between the start and the end of the test
 #: points to gauge drift or a system that changed (pump, tank, valve) during the test.
 STATIC_CHANGE = 2.0 * PSI

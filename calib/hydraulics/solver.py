@@ -278,7 +278,12 @@ class NetworkSolver:
                 dH = self.pattern.pcg(S, fac[0], rhs, 0.1 * mass_tol, cap)
                 if dH is not None:
                     return dH
-        factor = self.pattern.factorize(S)
+        try:
+            factor = self.pattern.factorize(S)
+        except (RuntimeError, ValueError, np.linalg.LinAlgError) as exc:  # e.g. singular LU
+            raise ConvergenceError(
+                f"network '{self.network.name}': the linear system is singular ({exc}); a pipe of "
+                "extreme diameter, length or C is the usual cause") from None
         self.factorizations += 1
         self._factor = (factor, w, isolated.copy())
         return factor(rhs)

@@ -22,7 +22,7 @@ from pathlib import Path
 
 import numpy as np
 
-from calib import fileio
+from calib import fileio, limits
 from calib.errors import NetworkError, Problem
 from calib.network import pump_curve, validate
 from calib.network.model import Network
@@ -75,6 +75,17 @@ def _positions(geometry, want: str):
     return array[:, :2]
 
 
+def _lon_lat(vertices: np.ndarray) -> bool:
+    """True when every vertex can be WGS84 longitude, latitude (RFC 7946) [degrees]."""
+    lon, lat = vertices[:, 0], vertices[:, 1]
+    return bool(np.all(np.abs(lon) <= limits.LONGITUDE.high) and
+                np.all(np.abs(lat) <= limits.LATITUDE.high))
+
+
+def _article(word: str) -> str:
+    return "an" if word[:1] in "aeiou" else "a"
+
+
 class _Collector:
     """The features of one table (row number, properties), turned into raw columns at the end."""
 
@@ -104,12 +115,25 @@ def read_geojson(path) -> Network:
         data = json.loads(path.read_text(encoding="utf-8-sig"))
     except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
         raise NetworkError(Problem(f"cannot be read as GeoJSON: {exc}", file=file)) from None
+    except RecursionError:
+        raise NetworkError(Problem("cannot be read as GeoJSON: it is nested too deeply", file=file,
+                                   expected="a FeatureCollection of features with flat "
+                                   "properties")) from None
+    try:
+        return _read_collection(path, file, data)
+    except RecursionError:  # a property value nested very deep, met when it is turned into text
+        raise NetworkError(Problem("a property is nested too deeply", file=file,
+                                   expected="properties holding numbers and text")) from None
+
+
+def _read_collection(path: Path, file: str, data) -> Network:
     if not isinstance(data, dict) or data.get("type") != "FeatureCollection" or \
             not isinstance(data.get("features"), list):
         raise NetworkError(Problem("is not a GeoJSON FeatureCollection", file=file,
                                    expected='{"type": "FeatureCollection", "features": [...]}'))
     problems: list[Problem] = []
     scale = None  # metres per coordinate unit; None = longitude/latitude
+    outside: list[int] = []  # features whose coordinates are no longitude/latitude
     if data.get("length_unit") is not None:
         try:
             scale = unit_factor(str(data["length_unit"]), "length")
@@ -120,7 +144,15 @@ def read_geojson(path) -> Network:
     tables = {name: _Collector() for name in ("junctions", "sources", "pipes", "pumps")}
     geometry = {"pipes": [], "pumps": []}
     for row, feature in enumerate(data["features"], start=1):
-        _read_feature(file, row, feature, scale, tables, geometry, problems)
+        _read_feature(file, row, feature, scale, tables, geometry, problems, outside)
+    if outside:
+        shown = ", ".join(map(str, outside[:5])) + (", ..." if len(outside) > 5 else "")
+        problems.append(Problem(
+            f"{len(outside)} feature(s) (rows {shown}) have coordinates outside longitude "
+            f"-180..180 / latitude -90..90, and the file gives no length_unit", file=file,
+            field="length_unit", expected='a top-level "length_unit": "ft" (or "m") for a file '
+            "in map-grid coordinates, or WGS84 longitude/latitude (RFC 7946)"))
+        raise NetworkError(problems)  # lengths measured on such coordinates would only add noise
     parsed = {name: c.parse(file, name, problems) for name, c in tables.items()
               if name != "pumps" or c.rows}
     network_tables = NetworkTables(parsed["junctions"], parsed["sources"], parsed["pipes"],
@@ -130,12 +162,21 @@ def read_geojson(path) -> Network:
                              pipe_geometry=geometry["pipes"])
 
 
-def _read_feature(file, row, feature, scale, tables, geometry, problems) -> None:
-    """Sort one feature into its table, with its coordinates (nodes) or vertices and length (links)."""
+def _read_feature(file, row, feature, scale, tables, geometry, problems, outside) -> None:
+    """Sort one feature into its table, with its coordinates (nodes) or vertices and length (links).
+
+    ``outside`` collects the rows of features whose coordinates cannot be longitude/latitude.
+    """
     if not isinstance(feature, dict) or feature.get("type") != "Feature":
         problems.append(Problem("is not a GeoJSON Feature", file=file, row=row))
         return
-    props = dict(feature.get("properties") or {})
+    raw = feature.get("properties")
+    if raw is not None and not isinstance(raw, dict):
+        problems.append(Problem(f"the properties are {_article(type(raw).__name__)} "
+                                f"{type(raw).__name__}, not an object", file=file, row=row,
+                                field="properties", expected='an object {"id": ..., ...}'))
+        return
+    props = dict(raw or {})
     kind = str(props.pop("kind", "") or "").strip().lower()
     shape = (feature.get("geometry") or {}).get("type") if isinstance(
         feature.get("geometry"), dict) else None
@@ -154,6 +195,8 @@ def _read_feature(file, row, feature, scale, tables, geometry, problems) -> None
         problems.append(Problem(str(exc), file=file, row=row, id=ident, field="geometry",
                                 expected=f"a {want} geometry"))
         vertices = None
+    if scale is None and vertices is not None and not _lon_lat(vertices):
+        outside.append(row)  # one problem for the file, after the features (read on as they are)
     factor = 1.0 if scale is None else scale
     if kind in NODE_KINDS:
         if kind != "junction":

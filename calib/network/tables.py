@@ -21,7 +21,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from calib import fileio
+from calib import fileio, limits
 from calib.errors import Problem
 from calib.network import pump_curve
 from calib.network.model import Network, PipeStatus
@@ -77,7 +77,7 @@ STATUS_WORDS = {"open": PipeStatus.OPEN, "": PipeStatus.OPEN, "closed": PipeStat
                 "check": PipeStatus.CHECK_VALVE, "check valve": PipeStatus.CHECK_VALVE,
                 "cv": PipeStatus.CHECK_VALVE}
 SOURCE_KINDS = ("reservoir", "tank")
-YEAR_RANGE = (1800, 2100)
+YEAR_RANGE = (limits.INSTALL_YEAR.low, limits.INSTALL_YEAR.high)  # stated in calib.limits
 
 
 @dataclass
@@ -296,7 +296,11 @@ def read_csv_table(path: Path, table: str, problems: list[Problem]) -> ParsedTab
         header, header_line, records, lines = _csv_records(path, problems)
     except FileNotFoundError:
         return None
-    except (csv.Error, UnicodeDecodeError) as exc:
+    except IsADirectoryError:
+        problems.append(Problem("is a folder, not a file", file=path.name,
+                                expected="a CSV file with a header row"))
+        return None
+    except (csv.Error, UnicodeDecodeError, OSError) as exc:
         problems.append(Problem(f"cannot be read as CSV: {exc}", file=path.name,
                                 expected="comma-separated text in UTF-8"))
         return None

@@ -16,18 +16,20 @@ import numpy as np
 import scipy.sparse as sp
 from scipy.sparse.csgraph import connected_components
 
+from calib import limits
 from calib.errors import NetworkError, Problem
 from calib.units import FT as FT_M
 from calib.network import pump_curve
 from calib.network.model import Network, PipeStatus, Pumps
 from calib.network.tables import NetworkTables, ParsedTable
+from calib.network.ranges import check_ranges
 
 #: Plausible Hazen-Williams C: new smooth pipe is about 150, badly tuberculated mains go below 40.
-C_RANGE = (1.0, 200.0)
+C_RANGE = (limits.C_FACTOR.low, limits.C_FACTOR.high)  # stated in calib.limits
 #: Plausible Darcy-Weisbach absolute roughness [m]: drawn tubing about 0.0015 mm, new cast iron
 #: 0.26 mm, riveted steel up to 9 mm (Moody 1944, "Friction factors for pipe flow", Trans. ASME 66,
 #: roughness chart; from memory). Above 10 mm a value in the wrong unit is the likely cause.
-ROUGHNESS_HEIGHT_MAX = 0.010
+ROUGHNESS_HEIGHT_MAX = limits.ROUGHNESS_HEIGHT.high  # stated in calib.limits
 #: How many junction ids to name for a part of the network with no source.
 NAMED_IDS = 5
 
@@ -199,6 +201,7 @@ def assemble(tables: NetworkTables, problems: list[Problem], name: str = "networ
     repeated = np.array([index.get(str(k), -1) != i for i, k in enumerate(node_ids)], dtype=bool)
     p_from, p_to = _link_ends(p, index, problems)
     _check_pipe_values(p, problems)
+    check_ranges(tables, problems)  # plausibility of every number (calib.limits)
     status = p.get("status", 0) if "status" in p.values else np.zeros(len(p), np.int8)
     status = np.asarray(status, dtype=np.int8)
     frm, to, active = p_from, p_to, status != PipeStatus.CLOSED

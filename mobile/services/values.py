@@ -15,7 +15,7 @@ import math
 import re
 from dataclasses import dataclass
 
-from calib import units
+from calib import limits, units
 from calib.errors import InputError, Problem
 
 #: Units a crew may type, by kind (lower-cased spelling -> pint spelling).
@@ -32,7 +32,12 @@ FIELD_UNIT = {
     "si": {"pressure": "kPa", "flow": "L/s", "diameter": "mm", "length": "m"},
 }
 
-_NUMBER = re.compile(r"^\s*(?P<num>[+-]?(\d{1,9}([.,]\d{0,9})?|[.,]\d{1,9}))\s*(?P<unit>[A-Za-z0-9/]{0,8})\s*$")
+# ASCII digits only (re.ASCII: a fullwidth or Arabic-Indic digit is not read as a number) and a point
+# for decimals: a comma is refused, never guessed (1,004 may be a thousand and four or one).
+_NUMBER = re.compile(r"^\s*(?P<num>[+-]?(\d{1,9}(\.\d{0,9})?|\.\d{1,9}))\s*(?P<unit>[A-Za-z0-9/]{0,8})\s*$",
+                     re.ASCII)
+COMMA_REASON = ("a comma is not read: type a point for decimals (72.5) and no thousands separator "
+                "(1004)")
 
 
 @dataclass(frozen=True)
@@ -46,20 +51,25 @@ class FieldSpec:
     label: str
 
 
-P, G, IN, FT = units.PSI, units.GPM, units.INCH, units.FT
-#: Plausible ranges (common practice for hydrant flow tests on municipal systems).
+def _spec(name: str, kind: str, limit: limits.Limit, label: str) -> FieldSpec:
+    """A field whose range is ``limit``'s (a range open at its low end keeps that end out)."""
+    low = math.nextafter(limit.low, math.inf) if limit.low_open else limit.low
+    return FieldSpec(name, kind, low, limit.high, label)
+
+
+#: Plausible ranges: the same as the calibration reader's and the command line's (``calib.limits``).
 FIELDS = {
-    "static": FieldSpec("static", "pressure", 5 * P, 250 * P, "static pressure"),
-    "residual": FieldSpec("residual", "pressure", 0.0, 250 * P, "residual pressure"),
-    "pitot": FieldSpec("pitot", "pressure", 0.5 * P, 150 * P, "pitot pressure"),
-    "flow": FieldSpec("flow", "flow", 10 * G, 6000 * G, "metered flow"),
-    "diameter": FieldSpec("diameter", "diameter", 1.0 * IN, 8.0 * IN, "outlet diameter"),
-    "gauge_height": FieldSpec("gauge_height", "length", -20 * FT, 30 * FT, "gauge height"),
-    "target": FieldSpec("target", "pressure", 5 * P, 100 * P, "target residual"),
+    "static": _spec("static", "pressure", limits.PRESSURE, "static pressure"),
+    "residual": _spec("residual", "pressure", limits.PRESSURE, "residual pressure"),
+    "pitot": _spec("pitot", "pressure", limits.PITOT, "pitot pressure"),
+    "flow": _spec("flow", "flow", limits.FLOW, "metered flow"),
+    "diameter": _spec("diameter", "diameter", limits.OUTLET_DIAMETER, "outlet diameter"),
+    "gauge_height": _spec("gauge_height", "length", limits.GAUGE_HEIGHT, "gauge height"),
+    "target": _spec("target", "pressure", limits.PRESSURE, "target residual"),
     # A source's hydraulic grade (tank water level as an elevation), as the calibration reader takes it.
-    "source_grade": FieldSpec("source_grade", "length", -500.0, 3000.0, "source grade"),
+    "source_grade": _spec("source_grade", "length", limits.HEAD, "source grade"),
     # A tank's water depth above its floor, as the operator reads it.
-    "tank_level": FieldSpec("tank_level", "length", 0.0, 100.0, "tank level"),
+    "tank_level": _spec("tank_level", "length", limits.TANK_LEVEL, "tank level"),
 }
 
 
@@ -84,6 +94,13 @@ def parse_value(text, field: str, system: str = "us") -> tuple[float, str]:
     expected = f"{fmt(spec.low, spec.kind, system, bare=True)} to " \
                f"{fmt(spec.high, spec.kind, system)}"
     text = "" if text is None else str(text)
+    if "," in text:  # a decimal comma or a thousands separator: which one is never guessed
+        raise InputError(Problem(f"'{text.strip()[:20]}': {COMMA_REASON}", field=spec.label,
+                                 expected=f"a number such as 72.5, in {default_unit}"))
+    if any(ch.isdigit() and not ch.isascii() for ch in text):
+        raise InputError(Problem(f"'{text.strip()[:20]}' has digits other than 0-9",
+                                 field=spec.label, expected=f"a number such as 72.5 typed with "
+                                 f"the digits 0-9, in {default_unit}"))
     m = _NUMBER.match(text)
     if not m:
         raise InputError(Problem(f"'{text.strip()[:20]}' is not a number", field=spec.label,
@@ -97,7 +114,7 @@ def parse_value(text, field: str, system: str = "us") -> tuple[float, str]:
                                      field=spec.label, expected=known))
     else:
         unit = default_unit
-    magnitude = float(m.group("num").replace(",", "."))
+    magnitude = float(m.group("num"))
     si = _to_si(magnitude, unit, spec.kind)
     if not math.isfinite(si) or not (spec.low <= si <= spec.high):
         raise InputError(Problem(f"{magnitude:g} {unit} is outside the plausible range",

@@ -131,7 +131,7 @@ def test_bad_demand_factor_exits_2(tmp_path, capsys):
     code, _, err = run(capsys, "solve", one_pipe(tmp_path / "net"), "--out", tmp_path / "n.csv",
                        "--demand-factor", "lots")
     assert code == 2
-    assert "field '--demand-factor': demand factor 'lots' is not a number of zero or more" in err
+    assert "field '--demand-factor': demand factor 'lots' is not a number in the plausible range" in err
     assert not (tmp_path / "n.csv").exists()
 
 
