@@ -132,6 +132,10 @@ class CholmodFactorizer(Factorizer):
             # a zero pivot (rounding in a badly scaled S): LU without pivoting, as before this
             # backend existed, still gives the step
             return self._fallback.factor(matrix)
+        if not np.all(f.D() > 0):
+            # S is positive definite in exact arithmetic: a pivot <= 0 means rounding has made it
+            # singular (e.g. a pipe of absurd diameter); said as SuperLU says an exact zero pivot
+            raise RuntimeError("matrix is numerically singular (a pivot of its L D L^T <= 0)")
         if self.work_ratio is None:
             L, _ = f.L_D()  # the simplicial factor is L D L^T (no square roots)
             self.work_ratio = self._ratio(np.diff(L.indptr), 2 * L.nnz, matrix.nnz)

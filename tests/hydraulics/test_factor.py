@@ -69,13 +69,16 @@ def test_solver_same_answer_with_each_backend(backend, monkeypatch):
 
 
 @cholmod
-def test_cholmod_solves_an_indefinite_matrix_too():
-    # an indefinite but regular symmetric matrix (rounding can make S look so): the L D L^T factor,
-    # or the LU fallback on a zero pivot, still solves it; reference numpy.linalg.solve
+def test_cholmod_says_singular_for_a_matrix_that_is_not_positive_definite():
+    # S is positive definite in exact arithmetic; a pivot <= 0 (an indefinite matrix here, rounding
+    # with an absurd pipe in a network) is reported as SuperLU reports an exact zero pivot
     A = sp.csc_matrix(np.array([[2.0, 3.0, 0.0], [3.0, 2.0, 1.0], [0.0, 1.0, 4.0]]))
-    f = factor.factorizer("cholmod", A)
+    with pytest.raises(RuntimeError, match="singular"):
+        factor.factorizer("cholmod", A).factor(A)
+    B = sp.csc_matrix(np.array([[4.0, 1.0, 0.0], [1.0, 3.0, 1.0], [0.0, 1.0, 2.0]]))
     b = np.array([1.0, 2.0, 3.0])
-    np.testing.assert_allclose(f.factor(A)(b), np.linalg.solve(A.toarray(), b), rtol=1e-12)
+    np.testing.assert_allclose(factor.factorizer("cholmod", B).factor(B)(b),
+                               np.linalg.solve(B.toarray(), b), rtol=1e-12)
 
 
 def test_backend_choice_errors_name_the_setting(monkeypatch):
