@@ -173,6 +173,41 @@ class HydrantFieldApp(App):
         popup.open()
         return popup
 
+    def pick_plan(self) -> None:
+        """Pick an office plan.csv (python -m calib plan) and offer its tests as the day's list."""
+        start = self.store.get_setting("plan_path") or self.store.get_setting("area_path") or str(Path.home())
+        browser = FolderBrowser(path=str(Path(start).parent) if Path(start).exists() else str(Path.home()),
+                                suffixes=[".csv"], action="USE plan.csv IN THIS FOLDER")
+        popup = Popup(title="Tap the plan.csv from the office", title_size="20sp", content=browser,
+                      size_hint=(0.95, 0.95))
+        browser.bind(on_choose=lambda _, path: (popup.dismiss(), self.show_plan(path)))
+        popup.open()
+
+    def show_plan(self, path) -> None:
+        """The plan's tests in order, each a button that starts it (plain service calls)."""
+        from kivy.uix.boxlayout import BoxLayout
+        from mobile.services import plan as plans
+        from mobile.widgets.common import BigButton
+        if Path(path).is_dir():
+            path = Path(path) / "plan.csv"
+        try:
+            planned = plans.read_plan(path, self.service.area)
+        except CalibError as exc:
+            self.root.get_screen("home").show(Outcome(False, "Could not load the plan: " + _first_message(exc)))
+            return
+        self.store.set_setting("plan_path", str(path))
+        box = BoxLayout(orientation="vertical", spacing=8)
+        popup = Popup(title=f"Today's plan: {len(planned)} tests", title_size="20sp", content=box,
+                      size_hint=(0.95, 0.95))
+        for row, p in zip(plans.day_rows(self.service, planned), planned):
+            done = f"  [{row['test_id']}]" if row["test_id"] else ""
+            button = BigButton(text=f"{row['order']}. {p.test_id}: flow {', '.join(p.flow_nodes)} "
+                                    f"{row['flow']}; gauges {', '.join(p.gauge_nodes)}{done}")
+            button.bind(on_release=lambda _, p=p: (popup.dismiss(),
+                                                    self.open_test(plans.start_planned(self.service, p))))
+            box.add_widget(button)
+        popup.open()
+
     def load_area(self, path):
         """Read the network in a worker (a large one takes a while); the home screen shows the outcome."""
         self.root.get_screen("home").show(Outcome(True, f"Loading {Path(path).name} ..."))

@@ -15,7 +15,7 @@ import sys
 from calib import __version__
 from calib.errors import CalibError, InputError
 
-COMMANDS = ("solve", "flowtest", "fit", "fireflow")
+COMMANDS = ("solve", "flowtest", "fit", "fireflow", "check", "closures", "plan")
 
 
 def _chosen(argv: list[str] | None) -> str | None:

@@ -81,7 +81,12 @@ def check_rows(result, system: str) -> list[str]:
     for g in result.gauges:
         lines = [f"{g.node}:  static {f(g.observed_static)} observed / {f(g.predicted_static)} model;"
                  f"  residual {f(g.observed_residual)} / {f(g.predicted_residual)}"]
-        lines += [f"   -> {a}" for a in g.advice] or ["   -> agrees with the model"]
+        for kind, (lo, hi) in getattr(g, "ranges", {}).items():
+            lines.append(f"   {kind} plausible {f(lo)} to {f(hi)}")
+        lines += [f"   -> {a}" for a in g.advice] or [f"   -> {n}" for n in getattr(g, "notes", [])] \
+            or ["   -> agrees with the model"]
+        if getattr(g, "closures", None):
+            lines.append("   pipes whose closing would explain it: " + "; ".join(g.closures))
         rows.append("\n".join(lines))
     return rows
 

@@ -30,11 +30,15 @@ def test_advice_rules(obs, pred, expect):
         assert advice and expect in " ".join(advice)
 
 
-def _readings_from_model(service, area, offset=0.0, height_ft=0.0):
+def _readings_from_model(service, area, offset=0.0, height_ft=0.0, note_grade=True):
     """A test whose gauge readings are what the model predicts (+ offset), read with the gauge
-    ``height_ft`` above the node (it then reads gamma * height less; 60 F water, calib.units)."""
+    ``height_ft`` above the node (it then reads gamma * height less; 60 F water, calib.units).
+    ``note_grade``: the crew notes the source's grade (the model's), as the check's tank level."""
     h = area.hydrants
     tid = service.new_test(crew="X")
+    if note_grade:
+        assert service.set_source_grade(tid, service.sources()[0],
+                                        f"{area.network.source_head[0] / FT:.6f}").ok
     service.set_gauges(tid, [h[0]])
     service.add_outlet(tid, h[5], "2.5")
     service.set_gauge_height(tid, f"{height_ft}")
@@ -53,7 +57,20 @@ def test_readings_equal_to_the_model_agree_even_with_a_gauge_height(service, are
     result = check.check_test(service, tid)
     assert result.ok and not result.gauges[0].suspect
     g = result.gauges[0]
-    assert g.observed_static == pytest.approx(g.predicted_static, abs=0.001 * PSI)
+    p, = predict_test(area.network, flows={area.hydrants[5]: pitot_discharge(20 * PSI, 2.5 * INCH, 0.90)},
+                      gauges=[area.hydrants[0]])
+    assert g.observed_static == pytest.approx(p.static, abs=0.001 * PSI)  # the gauge height taken out
+    assert g.notes and all(n.startswith("consistent") for n in g.notes)
+    lo, hi = g.ranges["residual"]
+    assert lo < g.observed_residual < hi
+
+
+def test_an_offset_a_tank_level_could_explain_is_not_suspect_when_no_level_is_noted(service, area):
+    """10 psi on both readings is 23 ft of grade: inside the stated sd of 10 ft for a source whose
+    grade was not noted (3.29 sd), so no reading is suspect - the check says what it assumed."""
+    tid = _readings_from_model(service, area, offset=10.0, note_grade=False)
+    result = check.check_test(service, tid)
+    assert result.ok and not result.gauges[0].suspect
 
 
 def test_a_planted_offset_is_called_a_gauge_height_problem(service, area):
@@ -111,3 +128,61 @@ def test_check_rows_show_each_gauge_with_its_advice(service, area):
     assert len(rows) == 1 and rows[0].startswith(f"{g.node}:")
     assert f"{g.predicted_static / PSI:.1f} psi model" in rows[0]
     assert all(a in rows[0] for a in g.advice) and g.advice
+
+
+def test_the_app_judges_the_demo_day_as_the_command_line_does():
+    """The app's worker job and ``python -m calib check`` share calib.loop.check: the demo's T05 with
+    T01-T04 as the day's earlier tests flags the planted residual at J299 (truth.json) and only it, and
+    lists the pipes whose closing would best explain the test beside it."""
+    from pathlib import Path
+
+    import numpy as np
+
+    from calib.calibration import read_tests
+    from calib.network.io import read_network
+    demo = Path(__file__).resolve().parents[2] / "field_samples" / "tallowmere"
+    net = read_network(demo / "network")
+    ts = read_tests(demo / "tests", net)
+    ids = net.node_ids
+
+    def one(t):
+        sel = np.flatnonzero(ts.test == t)
+        observed = {}
+        for j in sel:
+            at_node = ts.pressure[j] + GAMMA_WATER * ts.gauge_height[j]
+            observed.setdefault(str(ids[ts.node[j]]), {})[ts.kind[j]] = at_node
+        return ({str(ids[n]): q for n, q in ts.flows[t].items()},
+                {g: (v["static"], v["residual"]) for g, v in observed.items()},
+                {str(ids[s]): h for s, h in ts.source_head[t].items()})
+
+    flows, observed, grades = one(4)
+    job = check.CheckJob(net, flows, list(observed), observed, "us", check.TOLERANCE, grades,
+                         earlier=[one(t) for t in range(4)])
+    result = check.run_job(job)
+    assert result.ok and "4 earlier test(s)" in result.message
+    bad = [g for g in result.gauges if g.suspect]
+    assert [g.node for g in bad] == ["J299"]
+    assert "residual at J299 misread" in " ".join(bad[0].advice)
+    assert len(bad[0].closures) == 3 and bad[0].closures[0].startswith("P")
+
+
+def test_the_days_earlier_tests_feed_the_check(service, area):
+    first = _readings_from_model(service, area)
+    second = _readings_from_model(service, area)
+    assert check.prepare(service, first).earlier == []
+    job = check.prepare(service, second)
+    assert len(job.earlier) == 1 and set(job.earlier[0][1]) == {area.hydrants[0]}
+    assert "1 earlier test(s)" in check.run_job(job).message
+
+
+def test_closures_for_a_test_in_the_app(service, area):
+    """A residual 9 psi below the model (a bigger drop, as a closed valve gives): the service ranks
+    pipes best first, each lowering the test's misfit."""
+    tid = _readings_from_model(service, area)
+    g = area.hydrants[0]
+    low = service.readings(tid)[f"residual@{g}"].si_value / PSI - 9.0
+    assert service.enter(tid, f"residual@{g}", f"{low:.2f}").ok
+    ranked = check.closures_for(service, tid, top=3)
+    assert 1 <= len(ranked) <= 3
+    assert all(c.misfit_after < c.misfit_before for c in ranked)
+    assert [c.misfit_after for c in ranked] == sorted(c.misfit_after for c in ranked)

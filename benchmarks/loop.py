@@ -1,0 +1,115 @@
+"""Benchmarks of the check and the closure finder (run by hand; figures in benchmarks/README.md).
+
+    python benchmarks/loop.py check            # the check on the demo day: time, verdict counts
+    python benchmarks/loop.py check-days N     # N generated older-town days: false suspects, planted found
+    python benchmarks/loop.py closures N       # N generated days with a closed pipe: rank of the closed pipe
+    python benchmarks/loop.py closures-8k      # one ranking on a grid of about 8,000 pipes
+
+All data invented (calib.loop.trials, the demo town Tallowmere). Records ``uptime`` with the figures.
+"""
+
+from __future__ import annotations
+
+import os
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))
+
+from calib.calibration import make_groups, read_tests  # noqa: E402
+from calib.loop.check import check_tests  # noqa: E402
+from calib.loop.closures import ClosureFinder  # noqa: E402
+from calib.loop.linear import split_tests  # noqa: E402
+from calib.loop.state import handbook_state, initial_state  # noqa: E402
+from calib.network.io import read_network  # noqa: E402
+
+
+def load() -> str:
+    return f"load average {os.getloadavg()[0]:.2f} (1 min) on {os.cpu_count()} cores"
+
+
+def bench_check() -> None:
+    demo = ROOT / "field_samples" / "tallowmere"
+    net = read_network(demo / "network")
+    tests = read_tests(demo / "tests", net)
+    g = make_groups(net)
+    finder = ClosureFinder(net, g)
+    times = []
+    for _ in range(3):
+        t0 = time.perf_counter()
+        v = check_tests(net, tests, initial_state(net, g, "handbook", tests=tests), g,
+                        closures=finder.best_for_check)
+        times.append(time.perf_counter() - t0)
+    print(f"demo day: {len(v)} readings, {sum(x.suspect for x in v)} suspect; "
+          f"check of the whole day {min(times):.2f} s (best of 3), per test {min(times) / tests.n_tests:.3f} s; {load()}")
+
+
+def bench_check_days(n: int) -> None:
+    from calib.loop.trials import TEST_YEAR, older_town_day
+    false = found = readings = 0
+    for seed in range(n):
+        d = older_town_day(seed)
+        v = check_tests(d.network, d.tests, handbook_state(d.network, d.grouping, TEST_YEAR), d.grouping)
+        sus = [x.row for x in v if x.suspect]
+        false += sum(r != d.planted for r in sus)
+        found += d.planted in sus
+        readings += len(v)
+    print(f"{n} generated days ({readings} readings): planted found {found}/{n}, good readings suspect "
+          f"{false}; {load()}")
+
+
+def bench_closures(n: int) -> None:
+    from calib.loop.trials import closure_trial
+    ranks, none, times = [], 0, []
+    for seed in range(n):
+        tr = closure_trial(seed)
+        if tr is None:
+            none += 1
+            continue
+        g = make_groups(tr.network)
+        f = ClosureFinder(tr.network, g)
+        test = next(t for t in split_tests(tr.tests) if t.test_id == tr.tests.test_ids[tr.test])
+        state = f.lin.nominal(g.length_weighted(tr.network, tr.network.roughness), test)
+        t0 = time.perf_counter()
+        ranked = f.rank(test, state)
+        times.append(time.perf_counter() - t0)
+        chains = f._series_chains(test)
+        hits = [i + 1 for i, c in enumerate(ranked) if chains[c.pipe] == chains[tr.closed]]
+        r = hits[0] if hits else 99
+        ranks.append(r)
+        if r != 1:
+            true_after = next((c.misfit_after for c in ranked if c.pipe == tr.closed), float("nan"))
+            print(f"  seed {seed}: closed {tr.network.pipe_ids[tr.closed]} ranks {r if r < 99 else '>10'}; "
+                  f"first {ranked[0].pipe_id} misfit {ranked[0].misfit_after:.1f}, the closed pipe's "
+                  f"{true_after:.1f}, before {tr.misfit:.1f}")
+    ranks = np.array(ranks)
+    print(f"{len(ranks)} trials with a visible closure ({none} seeds with none in 20 draws): first "
+          f"{np.mean(ranks == 1):.0%}, top 3 {np.mean(ranks <= 3):.0%}, worst rank "
+          f"{'>10' if ranks.max() == 99 else ranks.max()}; median ranking time {np.median(times):.2f} s; {load()}")
+
+
+def bench_closures_8k() -> None:
+    from calib.calibration import synthetic
+    from calib.hydraulics import NetworkSolver
+    net = synthetic.grid_network(64, 64, n_groups=3, seed=1, source_head=90.0)
+    g = make_groups(net)
+    plan = synthetic.plan_tests(net, 1, seed=2, n_gauges=3)
+    truth = net.roughness.copy()
+    tests = synthetic.synthetic_tests(net, truth * 0.9, plan, seed=3)
+    f = ClosureFinder(net, g, solver=NetworkSolver(net, headloss="hazen-williams"))
+    test = split_tests(tests)[0]
+    state = f.lin.nominal(g.length_weighted(net, net.roughness), test)
+    t0 = time.perf_counter()
+    f.rank(test, state)
+    print(f"{net.n_pipes} pipes, {net.n_junctions} junctions: ranking {time.perf_counter() - t0:.1f} s; {load()}")
+
+
+if __name__ == "__main__":
+    what = sys.argv[1] if len(sys.argv) > 1 else "check"
+    n = int(sys.argv[2]) if len(sys.argv) > 2 else 40
+    {"check": lambda: bench_check(), "check-days": lambda: bench_check_days(n),
+     "closures": lambda: bench_closures(n), "closures-8k": lambda: bench_closures_8k()}[what]()

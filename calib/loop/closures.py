@@ -1,0 +1,221 @@
+"""Which closed (or throttled) pipe would best explain a test's readings.
+
+A valve closed in the street but open in the model is the most common cause of a test that no C-factor
+explains (Walski 1983, J. Water Resour. Plann. Manage. 109(4); Walski et al. 2003, *Advanced Water
+Distribution Modeling and Management*, calibration chapter). Method:
+
+1. Screen every open pipe with the analytic sensitivities: for ``p_k = ln(r_k)`` (the log of pipe k's
+   resistance), ``dF1_k/dp_k = h_k`` (its friction loss), so ``dH_g/dp_k = a_g[k] h_k`` where ``a_g`` is
+   the flow response to a unit demand at gauge node g - one adjoint solve per gauge node, because the
+   global gradient system ``[[D, A12], [A12^T, 0]]`` is symmetric (Todini and Pilati 1988). Closing
+   pipe k removes its conductance ``g_k = 1/D_k`` from the linearized network; by the Sherman-Morrison
+   formula that scales the first-order change by ``beta_k = 1 / (1 - g_k R_k)``, with ``R_k`` the
+   effective resistance between the pipe's ends (``(e_i - e_j)^T S^-1 (e_i - e_j)`` for the Schur
+   complement S; exact for up to ``EXACT_NODES`` junctions, else estimated with ``JL_VECTORS`` random
+   projections, Spielman and Srivastava 2011, SIAM J. Comput. 40(6)). A pipe scores the misfit
+   ``|r + delta s_k|^2`` left at the best ``delta`` in ``[0, beta_k]`` (open to closed), with
+   ``r = (h - y) / sigma``.
+2. Confirm the best screened ones with exact solves: the pipe's resistance multiplied by 10, 100 and
+   ``CLOSED`` (its C scaled by ``m^(-1/1.852)``, Hazen-Williams), keeping the best; misfit after =
+   the weighted sum of squares at that setting.
+3. Pipes in series (through junctions with two pipes and no gauge or flow of the test) carry the same
+   flow: no test there can tell them apart; the note says so.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.sparse as sp
+
+from calib.errors import ConvergenceError
+from calib.hydraulics.headloss import HW_FLOW_EXPONENT
+from calib.loop.linear import Linearizer, TestReadings
+
+CLOSED = 1.0e8  # resistance multiplier taken as closed (flow about 5e-5 of open at the same loss)
+THROTTLES = (10.0, 100.0)  # partly closed settings tried besides closed
+THROTTLE_BEST = 8  # the partly closed settings are tried on this many of the best closed
+TIE = 3.84  # misfits closer than the chi-square 95 % point on 1 degree of freedom: the data cannot tell
+EXACT_NODES = 1500  # effective resistances exactly (a dense inverse) up to this many junctions
+JL_VECTORS = 64  # random projections for the effective resistances of larger networks
+
+
+@dataclass
+class Closure:
+    """One candidate: pipe index and id, its ends, misfits (weighted sums of squares) and a note."""
+
+    pipe: int
+    pipe_id: str
+    start: str
+    end: str
+    misfit_before: float
+    misfit_after: float
+    multiplier: float
+    note: str = ""
+    screen: float = np.nan
+
+
+class ClosureFinder:
+    """Ranks pipes whose closing or throttling best explains one test (``rank``)."""
+
+    def __init__(self, network, grouping, solver=None, linearizer: Linearizer | None = None):
+        self.network = network
+        self.lin = linearizer or Linearizer(network, grouping, solver)
+        nj = network.n_junctions
+        degree = np.bincount(np.concatenate([network.pipe_from, network.pipe_to]), minlength=network.n_nodes)
+        self._degree2 = np.flatnonzero(degree[:nj] == 2)
+        self._open = np.flatnonzero(np.asarray(network.status) == 0) if hasattr(network, "status") \
+            else np.arange(network.n_pipes)
+
+    # --- pieces --------------------------------------------------------------------------------
+    def misfit(self, test: TestReadings, state, roughness=None, warm=None) -> float:
+        h = self.lin.at(state, test, roughness=roughness, jacobian=False, warm=warm)
+        r = (h - test.hgl) / test.sigma_head
+        return float(r @ r)
+
+    def screen(self, test: TestReadings, state) -> np.ndarray:
+        """Per pipe: the linearized misfit left after its best resistance increase (inf: cannot help)."""
+        net, lin = self.network, self.lin
+        n_links = lin.n_links
+        r_all = np.zeros(len(test.node))
+        S = np.zeros((len(test.node), net.n_pipes))
+        rough = lin.roughness(np.asarray(state)[: lin.G])
+        beta = None
+        for kind in ("static", "residual"):
+            rows = np.flatnonzero(test.kind == kind)
+            if rows.size == 0:
+                continue
+            res = lin.solve(state, test, kind)
+            r_all[rows] = (np.asarray(res.head)[test.node[rows]] - test.hgl[rows]) / test.sigma_head[rows]
+            nodes = np.unique(test.node[rows])
+            nodes = nodes[nodes < net.n_junctions]
+            if nodes.size == 0:
+                continue
+            unit = sp.csc_matrix((np.ones(len(nodes)), (nodes, np.arange(len(nodes)))),
+                                 shape=(net.n_junctions, len(nodes)))
+            _, a = lin.solver.sensitivities(res, sp.csc_matrix((n_links, len(nodes))), unit)
+            a = a.toarray() if sp.issparse(a) else np.asarray(a)
+            # dh_k/dp_k for p_k = ln r_k: the friction loss, from dh/dC = -1.852 h / C
+            dhdp = -np.asarray(lin.solver.dheadloss_droughness(res), float) * rough / HW_FLOW_EXPONENT
+            col = {int(n): c for c, n in enumerate(nodes)}
+            for i in rows:
+                S[i] = a[: net.n_pipes, col[int(test.node[i])]] * dhdp / test.sigma_head[i]
+            if kind == "residual" or beta is None:
+                beta = self._beta(res)
+        sr = r_all @ S
+        ss = np.einsum("ij,ij->j", S, S)
+        # misfit left at the best amplitude between open (0) and closed (beta) in the linear network
+        delta = np.clip(-np.divide(sr, ss, out=np.zeros_like(sr), where=ss > 0), 0.0, beta)
+        left = np.einsum("ij,ij->j", r_all[:, None] + S * delta, r_all[:, None] + S * delta)
+        left[(ss <= 0) | (delta <= 0)] = np.inf
+        return left
+
+    def _beta(self, res) -> np.ndarray:
+        """Per pipe: 1 / (1 - g_k R_k), the Sherman-Morrison factor of closing it in the linear network."""
+        net, lin = self.network, self.lin
+        nj, n_links = net.n_junctions, lin.n_links
+        active = np.asarray(res._active, bool)
+        g = np.where(active, 1.0 / res._grad, 0.0)[: net.n_pipes]
+        frm, to = net.pipe_from, net.pipe_to
+        zeros = lambda p: sp.csc_matrix((n_links, p))  # noqa: E731
+        if nj <= EXACT_NODES:
+            dH, _ = lin.solver.sensitivities(res, zeros(nj), sp.identity(nj, format="csc"))
+            Sinv = np.vstack([np.asarray(dH.toarray() if sp.issparse(dH) else dH), np.zeros((net.n_sources, nj))])
+            Sinv = np.hstack([Sinv, np.zeros((Sinv.shape[0], net.n_sources))])
+            R = Sinv[frm, frm] + Sinv[to, to] - 2.0 * Sinv[frm, to]
+        else:
+            rng = np.random.default_rng(0)
+            wl = np.where(active, 1.0 / res._grad, 0.0)
+            lf, lt = lin.solver.link_from, lin.solver.link_to
+            Q = rng.choice([-1.0, 1.0], size=(JL_VECTORS, n_links)) / np.sqrt(JL_VECTORS)
+            Y = np.zeros((JL_VECTORS, net.n_nodes))  # Q W^1/2 B, B the link-node incidence
+            np.add.at(Y.T, lf, (Q * np.sqrt(wl)).T)
+            np.add.at(Y.T, lt, -(Q * np.sqrt(wl)).T)
+            dH, _ = lin.solver.sensitivities(res, zeros(JL_VECTORS), Y[:, :nj].T)
+            Z = np.vstack([np.asarray(dH.toarray() if sp.issparse(dH) else dH), np.zeros((net.n_sources, JL_VECTORS))])
+            R = np.sum((Z[frm] - Z[to]) ** 2, axis=1)
+        gr = np.clip(g * np.abs(R), 0.0, 0.999)  # 1: a bridge, whose closing cuts the network apart
+        return 1.0 / (1.0 - gr)
+
+    def _series_chains(self, test: TestReadings) -> np.ndarray:
+        """Chain label per pipe: pipes joined through degree-2 junctions outside the test share one."""
+        net = self.network
+        parent = np.arange(net.n_pipes)
+
+        def find(k):
+            while parent[k] != k:
+                parent[k] = parent[parent[k]]
+                k = parent[k]
+            return k
+        busy = set(int(n) for n in test.node) | set(int(n) for n in test.flows)
+        inc = {}
+        for k, (a, b) in enumerate(zip(net.pipe_from, net.pipe_to)):
+            inc.setdefault(int(a), []).append(k)
+            inc.setdefault(int(b), []).append(k)
+        for node in self._degree2:
+            if int(node) in busy:
+                continue
+            k1, k2 = inc[int(node)]
+            parent[find(k1)] = find(k2)
+        return np.array([find(k) for k in range(net.n_pipes)])
+
+    # --- the ranking -----------------------------------------------------------------------------
+    def rank(self, test: TestReadings, state, top: int = 10, confirm: int = 25) -> list[Closure]:
+        """The ``top`` pipes whose closing or throttling best explains ``test``, best first."""
+        net, lin = self.network, self.lin
+        state = np.asarray(state, float)
+        before = self.misfit(test, state)
+        left = self.screen(test, state)
+        cand = [int(k) for k in np.argsort(left, kind="stable")[:confirm] if np.isfinite(left[k])]
+        base = lin.roughness(state[: lin.G])
+        # every candidate starts from the open network's solution: one pipe changed is a local change
+        opened = {kind: lin.solve(state, test, kind) for kind in set(test.kind.tolist())}
+
+        def tried(k, mult):
+            rough = base.copy()
+            rough[k] = base[k] * mult ** (-1.0 / HW_FLOW_EXPONENT)
+            try:
+                return self.misfit(test, state, roughness=rough, warm=opened)
+            except ConvergenceError:
+                return np.inf
+        # closed first for every screened pipe; the partly closed settings for the best of those
+        # (and for any that closing overshoots: worse closed than open)
+        best = {k: (tried(k, CLOSED), CLOSED) for k in cand}
+        order = sorted(best, key=lambda k: best[k][0])
+        for k in set(order[:THROTTLE_BEST]) | {k for k in cand if best[k][0] > before}:
+            for mult in THROTTLES:
+                m = tried(k, mult)
+                if m < best[k][0] - 1e-9:
+                    best[k] = (m, mult)
+        out = []
+        for k in cand:
+            misfit, mult = best[k]
+            if not np.isfinite(misfit):
+                continue
+            note = "closed" if mult == CLOSED else f"partly closed (about {mult:g} x its resistance)"
+            out.append(Closure(k, str(net.pipe_ids[k]), str(net.node_ids[net.pipe_from[k]]),
+                               str(net.node_ids[net.pipe_to[k]]), before, misfit, mult, note,
+                               float(left[k])))
+        out = [c for c in out if c.misfit_after < c.misfit_before]  # a closure that fits worse explains nothing
+        out.sort(key=lambda c: c.misfit_after)
+        chains = self._series_chains(test)
+        first = {}
+        for c in out:
+            ch = chains[c.pipe]
+            if ch in first:
+                c.note += f"; in series with {first[ch]}: no test here can tell them apart"
+            else:
+                first[ch] = c.pipe_id
+        for c in out[1:]:
+            if out and c.misfit_after - out[0].misfit_after <= TIE:
+                c.note += "; fits as well as rank 1 within the gauges' noise"
+        for c in out:
+            if c.misfit_after > 0.8 * c.misfit_before:
+                c.note += "; explains little of the misfit"
+        return out[:top]
+
+    def best_for_check(self, test: TestReadings, state):
+        """(pipe id, misfit after) of the best candidate, for the check's ranking of causes."""
+        ranked = self.rank(test, state, top=1, confirm=3)
+        return (ranked[0].pipe_id, ranked[0].misfit_after) if ranked else None
