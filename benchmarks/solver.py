@@ -1,13 +1,16 @@
 """Benchmark of the network solver on generated square grids (run by hand, never in the test suite).
 
-    python benchmarks/solver.py [--sizes 23,71,159] [--repeats 5]
+    python benchmarks/solver.py [--sizes 23,71,159] [--repeats 5] [--code DIR] [--no-many]
 
 For each grid of m x m junctions (about 2 m^2 pipes): random C, diameters, lengths, elevations and
 demands, two fixed-grade sources on opposite corners feeding a lattice of larger mains. Prints the
 median solve time, iterations, the floor measured in the same run (iterations x one sparse assemble +
-factorize + solve of the converged matrix, best of three, timed right after each solve so both see
-the same load) and the median of the per-repeat ratios, then the time of solve_many on
-20 snapshots (demand factors and a flowing hydrant). The data are invented; no real network.
+factorize + solve of the converged matrix with the best factorization available here - SuperLU on
+the solver's ordering, or CHOLMOD with a METIS ordering and its analysis kept when scikit-sparse is
+installed - best of three, timed right after each solve so both see the same load) and the median of
+the per-repeat ratios, then the time of solve_many on 20 snapshots (demand factors and a flowing
+hydrant). ``--code DIR`` times the solver of another checkout (e.g. main) with this same script.
+The data are invented; no real network.
 """
 
 from __future__ import annotations
@@ -22,7 +25,8 @@ from pathlib import Path
 
 import numpy as np
 
-sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+_code = sys.argv[sys.argv.index("--code") + 1] if "--code" in sys.argv else None
+sys.path.insert(0, str(Path(_code).resolve() if _code else Path(__file__).resolve().parents[1]))
 
 from calib.hydraulics import NetworkSolver, Snapshot  # noqa: E402
 from calib.network.model import Network  # noqa: E402
@@ -55,18 +59,39 @@ def square_grid(m: int, seed: int = 0) -> Network:
         name=f"grid-{m}")
 
 
-def floor_time(solver: NetworkSolver, result) -> float:
-    """Time of one assemble + factorize + solve of the converged system [s] (best of three)."""
+def _floors(solver: NetworkSolver, result):
+    """Factor-and-solve functions of the converged matrix, one per backend available here."""
+    import scipy.sparse.linalg as spla
     pat = solver.pattern
     w = np.where(result._active, 1.0 / result._grad, 0.0)
-    rhs = np.random.default_rng(1).standard_normal(solver.nj)
     extra = result._isolated_mask.astype(float)
+    S = pat.assemble(w, extra)
+    out = {"superlu": lambda S: spla.splu(S, permc_spec="NATURAL", diag_pivot_thresh=0.0,
+                                          options=dict(SymmetricMode=True)).solve}
+    try:
+        import warnings
+        from sksparse.cholmod import analyze
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            symbolic = analyze(S, mode="simplicial", ordering_method="metis")
+        out["cholmod"] = lambda S: symbolic.cholesky(S).solve_A
+    except ImportError:
+        pass
+    return pat, w, extra, out
+
+
+def floor_time(solver: NetworkSolver, result) -> float:
+    """Time of one assemble + factorize + solve of the converged system [s] with the fastest
+    factorization available (best of three each)."""
+    pat, w, extra, backends = _floors(solver, result)
+    rhs = np.random.default_rng(1).standard_normal(solver.nj)
     times = []
-    for _ in range(3):
-        t0 = time.perf_counter()
-        S = pat.assemble(w, extra)
-        pat.factorize(S)(rhs)
-        times.append(time.perf_counter() - t0)
+    for factorize in backends.values():
+        for _ in range(3):
+            t0 = time.perf_counter()
+            S = pat.assemble(w, extra)
+            factorize(S)(rhs)
+            times.append(time.perf_counter() - t0)
     return min(times)
 
 
@@ -81,7 +106,7 @@ def timed_solves(solver: NetworkSolver, repeats: int):
     return solves, floors, result
 
 
-def run(m: int, repeats: int) -> dict:
+def run(m: int, repeats: int, many: bool = True, plain: bool = True) -> dict:
     net = square_grid(m)
     # small grids solve in milliseconds: more repeats so the medians stand out of the noise
     repeats = max(repeats, 50_000 // net.n_pipes)
@@ -90,15 +115,16 @@ def run(m: int, repeats: int) -> dict:
     setup = time.perf_counter() - t0
     solves, floors, result = timed_solves(solver, repeats)
     # the same solve with a factorization at every iteration (no CG reuse): the overhead alone
-    plain_solves, plain_floors, _ = timed_solves(NetworkSolver(net, reuse_factor=False), repeats)
+    plain_solves, plain_floors, _ = (timed_solves(NetworkSolver(net, reuse_factor=False), repeats)
+                                     if plain else ([np.nan], [1.0], None))
     rng = np.random.default_rng(2)
     hydrants = rng.choice(net.n_junctions, 20)
     snaps = [Snapshot(demand_factor=0.8 + 0.02 * i,
                       extra_demand={str(net.node_ids[h]): 0.063}, label=f"s{i}")
              for i, h in enumerate(hydrants)]  # 0.063 m3/s ~ 1000 gpm at one hydrant
     t0 = time.perf_counter()
-    many = solver.solve_many(snaps)
-    t_many = time.perf_counter() - t0
+    many = solver.solve_many(snaps) if many else [result]
+    t_many = time.perf_counter() - t0 if many else np.nan
     median = statistics.median
     return dict(pipes=net.n_pipes, junctions=net.n_junctions, setup=setup, solve=median(solves),
                 iterations=result.iterations, factorizations=result.factorizations,
@@ -113,17 +139,23 @@ def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--sizes", default="23,71,159", help="grid sides m (junctions m x m)")
     parser.add_argument("--repeats", type=int, default=5)
+    parser.add_argument("--code", default=None, help="checkout whose calib is timed (default this one)")
+    parser.add_argument("--no-many", action="store_true", help="skip solve_many")
+    parser.add_argument("--no-plain", action="store_true", help="skip the factor-every-iteration solve")
     args = parser.parse_args(argv)
+    import calib
+    backend = getattr(NetworkSolver(square_grid(3)).pattern, "backend", "superlu")
     stamp = time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime())
     print(f"# {stamp}, {platform.processor() or platform.machine()}, {os.cpu_count()} cores, "
-          f"Python {platform.python_version()}, load {os.getloadavg()[0]:.2f}")
+          f"Python {platform.python_version()}, load {os.getloadavg()[0]:.2f}; "
+          f"code {Path(calib.__file__).parents[1]}, backend {backend}")
     print("| pipes | junctions | set-up s | solve s (median) | iterations | factorizations "
           "| one assemble+factor+solve s | floor s | ratio | solve s, factor every iteration "
           "| its ratio | solve_many 20 s "
           "| mean iterations (many) | max mass error m3/s |")
     print("|---|---|---|---|---|---|---|---|---|---|---|---|---|---|")
     for m in (int(v) for v in args.sizes.split(",")):
-        r = run(m, args.repeats)
+        r = run(m, args.repeats, many=not args.no_many, plain=not args.no_plain)
         print(f"| {r['pipes']} | {r['junctions']} | {r['setup']:.3f} | {r['solve']:.3f} | "
               f"{r['iterations']} | {r['factorizations']} | {r['one']:.4f} | {r['floor']:.3f} | "
               f"{r['ratio']:.2f} | {r['plain']:.3f} | {r['plain_ratio']:.2f} | "

@@ -43,17 +43,20 @@ class CalibrationProblem:
 
     ``solver`` follows the ``calib.hydraulics.NetworkSolver`` contract; it is built here when None.
     ``prior`` is a ``priors.GroupPrior`` or None. ``progress(n_solves)`` is called after every solve.
+    ``warm``: last solution per snapshot label, shared between problems over the same tests (a refit
+    on a subset starts each snapshot from its own last state, not from another test's).
     """
 
     def __init__(self, network, tests, grouping, prior=None, c_bounds=(40.0, 160.0),
                  demand_factor: bool = False, source_offsets: bool = False, solver=None,
-                 progress=None, x0=None):
+                 progress=None, x0=None, warm: dict | None = None):
         if solver is None:
             from calib.hydraulics import NetworkSolver
             solver = NetworkSolver(network, headloss="hazen-williams")
         self.network, self.tests, self.grouping, self.prior = network, tests, grouping, prior
         self.solver = solver
         self.progress = progress
+        self.warm = {} if warm is None else warm
         self.n_solves = 0
         lo, hi = float(c_bounds[0]), float(c_bounds[1])
         if not 0 < lo < hi:
@@ -183,7 +186,8 @@ class CalibrationProblem:
         # the previous snapshot (a few iterations instead of many)
         previous = self._cache
         for i, snap in enumerate(snaps):
-            warm = previous[i] if previous is not None else (results[-1] if results else None)
+            warm = (previous[i] if previous is not None else self.warm.get(snap.label)
+                    or (results[-1] if results else None))
             try:
                 res = self.solver.solve(snap, roughness=roughness, warm_start=warm)
             except ConvergenceError as exc:
@@ -192,6 +196,7 @@ class CalibrationProblem:
                     f"the solver did not converge for snapshot '{snap.label}' at {values}: {exc}. "
                     "Check the network (closed valves, isolated areas) or narrow --c-bounds.") from exc
             results.append(res)
+            self.warm[snap.label] = res
             self.n_solves += 1
             if self.progress is not None:
                 self.progress(self.n_solves)

@@ -4,7 +4,8 @@ Sections, in the order a modeler reads them: the cautions; the result at a glanc
 and C with its interval against the prior, the model's C before and the C bounds); the flagged
 (suspect) readings; the influential readings, apart; the findings in words; the fit statistics and the calibration accuracy criteria; how well
 the readings fit (observed vs simulated, residuals by test); hydrant curves; parameter correlation;
-the tests; the method and its sources. matplotlib runs with the Agg backend (no display). The page is
+the tests; the method and its sources. matplotlib draws each figure once, through its Agg canvas
+(no pyplot, no display), laid out by its constrained layout during that one draw. The page is
 written atomically through ``calib.fileio``.
 """
 
@@ -52,19 +53,71 @@ def _flow_ticks(q_max: float, most: int = 4) -> np.ndarray:
     return np.arange(step, q_max * (1 + 1e-9), step)
 
 
+# the hydrant curve's points: the fewest that draw it within this share of its drop (about two
+# pixels of a panel at 100 dpi), found by halving where a midpoint misses the straight line between
+# two points on the N^1.85 axis, on which matplotlib draws each segment straight. Near zero flow the
+# curve is steep on that axis (the base demand's losses grow linearly there), hence a point at 0.2.
+CURVE_TOLERANCE = 0.01
+CURVE_SCALES = (0.0, 0.2, 1.0, 1.6)  # shares of the test's flow always solved; 0 and 1 the fit's
+
+
+def _same_loading(a, b) -> bool:
+    """Two snapshots load the network alike (labels and zero extra demands aside)."""
+    extra = lambda s: {k: v for k, v in s.extra_demand.items() if v != 0}  # noqa: E731
+    return (a.demand_factor == b.demand_factor and a.source_head == b.source_head
+            and extra(a) == extra(b))
+
+
+def _curve(solver, rough, flows, heads, gauge, known=(), start=None):
+    """Pressure at ``gauge`` [Pa] as the test's ``flows`` are scaled: (scales, pressures).
+
+    ``known``: the fit's converged solutions; one with the same loading as a point of the curve is
+    that point. Every other point is solved warm-started from the nearest point solved (first from
+    ``start``, the fit's solution of this test)."""
+    from calib.hydraulics import Snapshot
+
+    solved = {}
+
+    def at(s):
+        snap = Snapshot(extra_demand={n: q * s for n, q in flows.items()}, source_head=heads)
+        same = [r for r in known if _same_loading(r.snapshot, snap)]
+        if same:
+            solved[s] = same[0]
+        else:
+            warm = solved[min(solved, key=lambda v: abs(v - s))] if solved else start
+            solved[s] = solver.solve(snap, roughness=rough, warm_start=warm)
+        return float(solved[s].pressure[gauge])
+
+    p = {s: at(s) for s in sorted(CURVE_SCALES, reverse=True)}
+    tol = CURVE_TOLERANCE * max(abs(p[CURVE_SCALES[0]] - p[CURVE_SCALES[-1]]), 1e-3 * units.PSI)
+    todo = list(zip(CURVE_SCALES[:-1], CURVE_SCALES[1:]))
+    while todo and len(p) < 33:
+        a, b = todo.pop()
+        m = ((a ** 1.85 + b ** 1.85) / 2.0) ** (1.0 / 1.85)  # midpoint on the N^1.85 axis
+        p[m] = at(m)
+        if abs(p[m] - (p[a] + p[b]) / 2.0) > tol:
+            todo += [(a, m), (m, b)]
+    scales = np.array(sorted(p))
+    return scales, np.array([p[s] for s in scales])
+
+
 def _png(fig) -> str:
     buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=100, bbox_inches="tight")
-    import matplotlib.pyplot as plt
-    plt.close(fig)
+    fig.savefig(buf, format="png", dpi=100)  # one draw: the layout is made during it
     return base64.b64encode(buf.getvalue()).decode("ascii")
 
 
-def _plots(result, system: str, curves: bool = True) -> dict[str, str]:
-    import matplotlib
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
+def _figure(figsize, rows: int = 1, cols: int = 1, margins: dict | None = None, **kw):
+    """A figure outside pyplot (nothing kept in a global registry): constrained layout, or fixed
+    ``margins`` (``subplots_adjust``) where that layout costs more than the draw (many panels)."""
+    from matplotlib.figure import Figure
+    fig = Figure(figsize=figsize, layout=None if margins else "constrained")
+    if margins:
+        fig.subplots_adjust(**margins)
+    return fig, fig.subplots(rows, cols, **kw)
 
+
+def _plots(result, system: str, curves: bool = True) -> dict[str, str]:
     t, net = result.tests, result.network
     pu = units.display_unit("pressure", system)
     conv = lambda v: units.from_si(np.asarray(v, float), "pressure", pu)  # noqa: E731
@@ -72,7 +125,7 @@ def _plots(result, system: str, curves: bool = True) -> dict[str, str]:
     flagged = np.array([bool(f) for f in result.flag])
     out = {}
 
-    fig, ax = plt.subplots(figsize=(5.6, 5.2))
+    fig, ax = _figure((5.6, 5.2))
     for kind, marker in (("static", "s"), ("residual", "o")):
         sel = (t.kind == kind) & ~flagged
         ax.scatter(sim[sel], obs[sel], marker=marker, s=28, label=f"{kind} reading", alpha=0.8)
@@ -94,7 +147,7 @@ def _plots(result, system: str, curves: bool = True) -> dict[str, str]:
     ax.legend(fontsize=8, loc="upper left")
     out["observed vs simulated"] = _png(fig)
 
-    fig, ax = plt.subplots(figsize=(7.4, 4.0))
+    fig, ax = _figure((7.4, 4.0))
     xs = t.test + np.where(t.kind == "static", -0.12, 0.12)
     ax.axhline(0, color="grey", lw=1)
     thr = result.options.get("threshold", 3.0)
@@ -114,7 +167,7 @@ def _plots(result, system: str, curves: bool = True) -> dict[str, str]:
     ax.legend(fontsize=7, ncol=4, loc="upper center", bbox_to_anchor=(0.5, -0.16), frameon=False)
     out["residuals by test"] = _png(fig)
 
-    fig, ax = plt.subplots(figsize=(8.6, 4.4))
+    fig, ax = _figure((8.6, 4.4))
     g = np.arange(result.grouping.n_groups)
     c_lo, c_hi = result.options.get("c_bounds", (40.0, 160.0))
     lo_c = np.where(np.isfinite(result.c_low), result.c_low, c_lo)
@@ -155,12 +208,15 @@ def _plots(result, system: str, curves: bool = True) -> dict[str, str]:
     out["C by group"] = _png(fig)
 
     if curves and t.n_tests:
-        from calib.hydraulics import NetworkSolver, Snapshot
+        from calib.hydraulics import NetworkSolver
         solver = NetworkSolver(net, headloss="hazen-williams")  # one set-up for every curve point
         n_show = min(t.n_tests, 12)
         cols = 4
         rows = int(np.ceil(n_show / cols))
-        fig, axes = plt.subplots(rows, cols, figsize=(11, 2.9 * rows), squeeze=False)
+        height = 2.9 * rows
+        fig, axes = _figure((11, height), rows, cols, squeeze=False, margins=dict(
+            left=0.06, right=0.99, bottom=0.5 / height, top=1 - 0.7 / height, wspace=0.35,
+            hspace=0.45))
         rough = result.roughness()
         fu = units.display_unit("flow", system)
         for k in range(n_show):
@@ -173,11 +229,9 @@ def _plots(result, system: str, curves: bool = True) -> dict[str, str]:
             gauge = int(t.node[sel[0]])
             heads = {str(net.node_ids[s]): h for s, h in t.source_head[k].items()}
             total = sum(flows.values())
-            scales = np.linspace(0.0, 1.6, 7)
-            # the loaded snapshots only (predict_test would solve the unchanged static beside each)
-            loads = [Snapshot(extra_demand={n: q * s for n, q in flows.items()}, source_head=heads)
-                     for s in scales]
-            p = [r.pressure[gauge] for r in solver.solve_many(loads, roughness=rough)]
+            known = list(getattr(result, "solutions", {}).values())
+            start = getattr(result, "solutions", {}).get(f"{t.test_ids[k]} residual")
+            scales, p = _curve(solver, rough, flows, heads, gauge, known, start)
             gh = units.head_to_pressure(t.gauge_height[sel[0]])
             ax.plot(units.from_si(total * scales, "flow", fu), conv(np.array(p) - gh), color="tab:blue")
             for i in sel[t.node[sel] == gauge]:
@@ -199,7 +253,6 @@ def _plots(result, system: str, curves: bool = True) -> dict[str, str]:
             axes[k // cols][k % cols].set_axis_off()
         fig.suptitle("Hydrant curves at each test's first gauge: calibrated model (line), static and "
                      "residual readings (dots; x flagged), flow tested (dotted)", fontsize=10)
-        fig.tight_layout()
         out["hydrant curves"] = _png(fig)
     return out
 

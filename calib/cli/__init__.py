@@ -18,14 +18,24 @@ from calib.errors import CalibError, InputError
 COMMANDS = ("solve", "flowtest", "fit", "fireflow", "check", "closures", "plan")
 
 
-def build_parser() -> argparse.ArgumentParser:
+def _chosen(argv: list[str] | None) -> str | None:
+    """The command named first on the command line, if it is one of ``COMMANDS`` (else None)."""
+    words = [a for a in (argv or []) if not a.startswith("-")]
+    return words[0] if words and words[0] in COMMANDS else None
+
+
+def build_parser(argv: list[str] | None = None) -> argparse.ArgumentParser:
+    """The parser; given ``argv`` naming a command, only that command's module is imported (a
+    command loads what it needs, not what the others need); otherwise every command's."""
+    chosen = _chosen(argv)
     parser = argparse.ArgumentParser(
         prog="python -m calib",
         description="Hydrant flow tests and Hazen-Williams C-factor calibration.")
     parser.add_argument("--version", action="version", version=f"%(prog)s {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     for name in COMMANDS:
-        importlib.import_module(f"calib.cli.{name}").register(sub)
+        if chosen is None or name == chosen:
+            importlib.import_module(f"calib.cli.{name}").register(sub)
     return parser
 
 
@@ -33,7 +43,7 @@ def build_parser() -> argparse.ArgumentParser:
 
 def main(argv: list[str] | None = None) -> int:
     """Run the command line; returns the exit code (0 ok, 1 computation failed, 2 bad input)."""
-    parser = build_parser()
+    parser = build_parser(sys.argv[1:] if argv is None else argv)
     try:
         args = parser.parse_args(argv)
     except SystemExit as exc:  # argparse exits 2 on bad usage, 0 on --help

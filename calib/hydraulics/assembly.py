@@ -5,7 +5,8 @@ link), symmetric positive definite while every junction is joined to a fixed-gra
 with w > 0. Its sparsity pattern depends only on which nodes the links join, so it is built once per
 network: the CSC index arrays, the position in the CSC data array of each link's four contributions,
 and a fill-reducing ordering. Assembly is then one ``np.bincount`` per iteration, and the
-factorization is a no-reordering sparse LU in symmetric mode.
+factorization (``factor``: CHOLMOD's Cholesky with its symbolic analysis kept, or SuperLU) works on
+the pre-ordered matrix.
 
 Not here: the head-loss laws (``headloss``) and the iteration itself (``solver``).
 """
@@ -15,24 +16,26 @@ from __future__ import annotations
 import numpy as np
 import scipy.linalg
 import scipy.sparse as sp
-import scipy.sparse.linalg as spla
+
+from calib.hydraulics import factor as _factor
 
 
 class SchurPattern:
     """Fixed structure of ``A21 diag(w) A12`` for links ``link_from -> link_to`` over ``n_junctions``.
 
     Nodes numbered ``>= n_junctions`` are fixed-grade sources and do not appear in the matrix.
-    ``dense=True`` factors with a dense Cholesky instead (for checks on small networks).
+    ``dense=True`` factors with a dense Cholesky instead (for checks on small networks); ``backend``:
+    ``"cholmod"``, ``"superlu"`` or None (``factor.choose``: ``$CALIB_FACTOR``, else CHOLMOD if there).
     """
 
     def __init__(self, n_junctions: int, link_from: np.ndarray, link_to: np.ndarray,
-                 n_nodes: int, dense: bool = False):
+                 n_nodes: int, dense: bool = False, backend: str | None = None):
         self.n = int(n_junctions)
         self.n_nodes = int(n_nodes)
         self.link_from = np.asarray(link_from, dtype=np.int64)
         self.link_to = np.asarray(link_to, dtype=np.int64)
         self.dense = dense
-        self.work_ratio: float | None = None  # set by the first sparse factorization
+        self.backend = "dense" if dense else _factor.choose(backend)
         f, t = self.link_from, self.link_to
         nj = self.n
         k = np.arange(len(f))
@@ -59,20 +62,23 @@ class SchurPattern:
         self._contrib_pos = pos[:n_contrib]
         # the diagonal contributions were listed by old junction number 0..nj-1
         self.diag_pos = pos[n_contrib:].astype(np.int64)  # diag_pos[old junction] -> data position
+        self._factorizer = None if (dense or nj == 0) else _factor.factorizer(
+            self.backend, sp.csc_matrix((np.ones(self.nnz), self.indices, self.indptr), shape=(nj, nj)))
+
+    @property
+    def work_ratio(self) -> float | None:
+        """Flops of a factorization over those of one CG step; set by the first sparse factorization."""
+        return None if self._factorizer is None else self._factorizer.work_ratio
 
     def _ordering(self, rows, cols) -> np.ndarray:
-        """Fill-reducing ordering of the pattern, computed once: SuperLU's minimum degree on A^T+A."""
+        """Fill-reducing ordering of the pattern, computed once (``factor.ordering``)."""
         nj = self.n
         if nj == 0:
             return np.zeros(0, dtype=np.int64)
         if self.dense or nj < 3:
             return np.arange(nj)
         pattern = sp.csc_matrix((np.ones(len(rows)), (rows, cols)), shape=(nj, nj))
-        pattern = pattern + sp.identity(nj, format="csc") * (abs(pattern).sum(axis=0).max() + 1.0)
-        lu = spla.splu(pattern, permc_spec="MMD_AT_PLUS_A",
-                       options=dict(SymmetricMode=True), diag_pivot_thresh=0.0)
-        # splu: Pr A Pc = L U with Pc[i, perm_c[i]] = 1, i.e. old column i moves to perm_c[i]
-        return np.argsort(lu.perm_c).astype(np.int64)
+        return _factor.ordering(self.backend, pattern)
 
     # --- per iteration -----------------------------------------------------------------------
     def assemble(self, w: np.ndarray, extra_diag: np.ndarray | None = None) -> sp.csc_matrix:
@@ -96,19 +102,11 @@ class SchurPattern:
         return matrix
 
     def factorize(self, matrix: sp.csc_matrix) -> "SchurFactor":
-        """Factor S once (sparse LU in symmetric mode on the pre-ordered matrix, or dense Cholesky)."""
+        """Factor S once (the backend's sparse factorization of the pre-ordered matrix, or dense Cholesky)."""
         if self.dense:
             factor = scipy.linalg.cho_factor(matrix.toarray())
             return SchurFactor(self, matrix, lambda b: scipy.linalg.cho_solve(factor, b))
-        lu = spla.splu(matrix, permc_spec="NATURAL", diag_pivot_thresh=0.0,
-                       options=dict(SymmetricMode=True))
-        if self.work_ratio is None:
-            # flops of a factorization (sum of squared column counts of L) over those of one CG
-            # step (two triangular solves and a product with S); fixed, since nothing pivots
-            counts = np.diff(lu.L.tocsc().indptr).astype(float)
-            step = 2.0 * (lu.L.nnz + lu.U.nnz) + 2.0 * matrix.nnz
-            self.work_ratio = float((counts ** 2).sum() / step)
-        return SchurFactor(self, matrix, lu.solve)
+        return SchurFactor(self, matrix, self._factorizer.factor(matrix))
 
     def pcg(self, matrix: sp.csc_matrix, factor: "SchurFactor", b: np.ndarray, tol: float,
             max_iterations: int) -> np.ndarray | None:

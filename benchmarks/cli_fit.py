@@ -1,0 +1,94 @@
+"""Wall time of ``python -m calib fit`` with its report, as a user runs it (run by hand, never in tests).
+
+    python benchmarks/cli_fit.py [--code DIR ...] [--repeats 3] [--quick]
+
+Cases: the demo town (field_samples/tallowmere) and a generated 64 x 63 grid (7,938 pipes, 5 groups,
+20 tests with two gauges each, handbook prior; base demand 0.03 L/s per junction, source 90 m), written once as a network folder and a tests folder.
+Each ``--code`` tree (default: this checkout) runs the same command in a fresh process with
+PYTHONPATH set to it, in turn, so that trees compared in one run see the same load. Prints the
+median wall time per tree and case, and the import time alone (``python -c "import calib.cli"`` is
+not enough: ``--help`` of the fit command is timed, which loads what the command line loads).
+The grid is invented (calib.calibration.synthetic); no real network.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+HERE = Path(__file__).resolve().parents[1]
+
+
+def write_grid_case(folder: Path, nx: int = 64, ny: int = 63, n_tests: int = 20) -> tuple[Path, Path]:
+    sys.path.insert(0, str(HERE))
+    from calib.calibration.groups import make_groups
+    from calib.calibration.synthetic import (grid_network, plan_tests, synthetic_tests,
+                                             write_tests_folder)
+    from calib.network.io import write_network_tables
+
+    # a lighter base demand and a higher source than the in-memory benchmark's, so every
+    # reading is a plausible gauge pressure (47-108 psi) that the tests reader accepts
+    net = grid_network(nx, ny, n_groups=5, seed=5, demand=0.03e-3, source_head=90.0)
+    grp = make_groups(net)
+    truth = np.array([65.0, 85.0, 105.0, 125.0, 140.0])[grp.index]
+    plan = plan_tests(net, n_tests, seed=6, flow_gpm=(1000.0, 1500.0))
+    tests = synthetic_tests(net, truth, plan, seed=7)
+    write_network_tables(net, folder / "network")
+    write_tests_folder(tests, net, folder / "tests")
+    return folder / "network", folder / "tests"
+
+
+def wall(code: Path, args: list[str]) -> float:
+    env = dict(os.environ, PYTHONPATH=str(code))
+    t0 = time.perf_counter()
+    done = subprocess.run([sys.executable, "-m", "calib", *args], env=env, cwd=str(code),
+                          capture_output=True, text=True)
+    elapsed = time.perf_counter() - t0
+    if done.returncode != 0:
+        raise SystemExit(f"{code}: calib {' '.join(args)} exited {done.returncode}:\n{done.stderr}")
+    return elapsed
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--code", action="append", default=None, help="code tree(s) to compare")
+    ap.add_argument("--repeats", type=int, default=3)
+    ap.add_argument("--quick", action="store_true", help="a 20 x 20 grid with 6 tests")
+    args = ap.parse_args(argv)
+    trees = [Path(c).resolve() for c in (args.code or [str(HERE)])]
+    print(f"# {time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime())}, load "
+          f"{' '.join(f'{v:.2f}' for v in os.getloadavg())}")
+    with tempfile.TemporaryDirectory() as tmp:
+        tmp = Path(tmp)
+        grid_net, grid_tests = (write_grid_case(tmp, 20, 20, 6) if args.quick
+                                else write_grid_case(tmp))
+        demo = HERE / "field_samples" / "tallowmere"
+        cases = {"imports (fit --help)": ["fit", "--help"],
+                 "demo town fit + report": [str(demo / "network"), str(demo / "tests")],
+                 "grid fit + report": [str(grid_net), str(grid_tests)]}
+        print("| case | " + " | ".join(str(t) for t in trees) + " |")
+        print("|---|" + "---|" * len(trees))
+        for name, case in cases.items():
+            times = {t: [] for t in trees}
+            for r in range(args.repeats):
+                for t in trees:  # interleaved: each tree sees the same load
+                    extra = [] if case[0] == "fit" else ["--out", str(tmp / f"out{r}"), "--quiet"]
+                    cmd = case if case[0] == "fit" else ["fit", *case, *extra]
+                    times[t].append(wall(t, cmd))
+            print(f"| {name} | " + " | ".join(f"{statistics.median(times[t]):.2f} s "
+                                               f"({min(times[t]):.2f}-{max(times[t]):.2f})"
+                                               for t in trees) + " |", flush=True)
+    print(f"# load at the end {' '.join(f'{v:.2f}' for v in os.getloadavg())}")
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())

@@ -1,0 +1,147 @@
+"""Sparse factorizations of the solver's Schur complement ``S = A21 diag(w) A12`` (symmetric positive
+definite), behind one small interface so the solver does not care which library does the work.
+
+Backends:
+- ``"cholmod"``: the sparse Cholesky factorization ``S = L L^T`` of CHOLMOD (SuiteSparse; Chen, Davis,
+  Hager and Rajamanickam (2008), ACM TOMS 35(3), article 22) through scikit-sparse, the optional extra
+  ``pip install "hydrant-calib[cholmod]"`` (needs SuiteSparse's headers: ``libsuitesparse-dev`` on
+  Debian). The symbolic analysis (ordering, elimination tree, column counts) is made once per network
+  and kept; each factorization is then numeric only, simplicial ``L D L^T`` (no BLAS needed).
+- ``"superlu"``: scipy's SuperLU in symmetric mode without pivoting on the pre-ordered matrix. Always
+  there (also in the Android build); the fallback.
+
+The backend is chosen once per solver: ``CALIB_FACTOR=cholmod|superlu`` in the environment forces one,
+``auto`` (the default) takes CHOLMOD when it imports. Both give the same answers within the solver's
+tolerances (the reference tests run with each); only the time differs.
+
+Fill-reducing orderings, chosen by measurement on grids of 10k-200k pipes (benchmarks/README.md):
+METIS nested dissection (Karypis and Kumar (1998), SIAM J. Sci. Comput. 20(1)) through CHOLMOD's
+analysis when it is there; else SuperLU's multiple minimum degree on A^T + A (Liu (1985), ACM TOMS
+11(2)). Both are computed once per network by ``ordering``.
+"""
+
+from __future__ import annotations
+
+import os
+import warnings
+
+import numpy as np
+import scipy.sparse as sp
+import scipy.sparse.linalg as spla
+
+from calib.errors import InputError
+
+BACKENDS = ("cholmod", "superlu")
+ENV = "CALIB_FACTOR"
+CHOLMOD_ORDERING = "metis"  # measured best over amd and nesdis from 10k pipes up (benchmarks/README.md)
+
+
+def cholmod_available() -> bool:
+    """True when scikit-sparse's CHOLMOD binding imports."""
+    try:
+        import sksparse.cholmod  # noqa: F401
+    except Exception:  # ImportError, or a binding built against another SuiteSparse
+        return False
+    return True
+
+
+def choose(name: str | None = None) -> str:
+    """The backend to use: ``name``, else ``$CALIB_FACTOR``, else ``auto`` (CHOLMOD when it imports)."""
+    name = (name or os.environ.get(ENV) or "auto").strip().lower()
+    if name == "auto":
+        return "cholmod" if cholmod_available() else "superlu"
+    if name not in BACKENDS:
+        raise InputError(f"unknown factorization backend '{name}'", field=ENV,
+                         expected="cholmod, superlu or auto")
+    if name == "cholmod" and not cholmod_available():
+        raise InputError("the CHOLMOD backend was asked for but scikit-sparse is not installed",
+                         field=ENV, expected="superlu or auto, or install the extra: pip install "
+                         "'hydrant-calib[cholmod]' (needs libsuitesparse-dev)")
+    return name
+
+
+def ordering(backend: str, pattern: sp.csc_matrix) -> np.ndarray:
+    """Fill-reducing ordering of a symmetric pattern (old order), computed once: ``perm[new] = old``."""
+    n = pattern.shape[0]
+    if backend == "cholmod":
+        from sksparse.cholmod import analyze
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")  # CHOLMOD's notes on index types are not for users
+            return np.asarray(analyze(pattern, mode="simplicial",
+                                      ordering_method=CHOLMOD_ORDERING).P(), dtype=np.int64)
+    # SuperLU's minimum degree on A^T + A of a diagonally dominant matrix with this pattern
+    a = abs(pattern)
+    a = a + sp.identity(n, format="csc") * (a.sum(axis=0).max() + 1.0)
+    lu = spla.splu(a.tocsc(), permc_spec="MMD_AT_PLUS_A", options=dict(SymmetricMode=True),
+                   diag_pivot_thresh=0.0)
+    # splu: Pr A Pc = L U with Pc[i, perm_c[i]] = 1, i.e. old column i moves to perm_c[i]
+    return np.argsort(lu.perm_c).astype(np.int64)
+
+
+class Factorizer:
+    """Factors matrices of one fixed, pre-ordered sparsity pattern; ``factor(S)`` returns a solve
+    function ``b -> S^-1 b`` (b of shape (n,) or (n, p)). ``work_ratio``: flops of a factorization
+    over those of one preconditioned CG step (two triangular solves and a product with S), set by
+    the first factorization; the solver caps its CG steps with it."""
+
+    name = ""
+
+    def __init__(self, template: sp.csc_matrix):
+        self.n = template.shape[0]
+        self.work_ratio: float | None = None
+
+    @staticmethod
+    def _ratio(l_counts: np.ndarray, triangles_nnz: int, s_nnz: int) -> float:
+        """Sum of squared column counts of L over 2 (nnz of both triangles + nnz of S)."""
+        return float((l_counts.astype(float) ** 2).sum() / (2.0 * triangles_nnz + 2.0 * s_nnz))
+
+
+class SuperLUFactorizer(Factorizer):
+    name = "superlu"
+
+    def factor(self, matrix: sp.csc_matrix):
+        lu = spla.splu(matrix, permc_spec="NATURAL", diag_pivot_thresh=0.0,
+                       options=dict(SymmetricMode=True))
+        if self.work_ratio is None:
+            self.work_ratio = self._ratio(np.diff(lu.L.tocsc().indptr), lu.L.nnz + lu.U.nnz,
+                                          matrix.nnz)
+        return lu.solve
+
+
+class CholmodFactorizer(Factorizer):
+    """CHOLMOD with the symbolic analysis of the (pre-ordered) pattern made once and kept."""
+
+    name = "cholmod"
+
+    def __init__(self, template: sp.csc_matrix):
+        super().__init__(template)
+        from sksparse.cholmod import CholmodNotPositiveDefiniteError, analyze
+        self._not_pd = CholmodNotPositiveDefiniteError
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            # the pattern is already in the fill-reducing order (``ordering``): no new permutation
+            self._symbolic = analyze(template, mode="simplicial", ordering_method="natural")
+        self._fallback = SuperLUFactorizer(template)
+
+    def factor(self, matrix: sp.csc_matrix):
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                f = self._symbolic.cholesky(matrix)
+        except self._not_pd:
+            # a zero pivot (rounding in a badly scaled S): LU without pivoting, as before this
+            # backend existed, still gives the step
+            return self._fallback.factor(matrix)
+        if not np.all(f.D() > 0):
+            # S is positive definite in exact arithmetic: a pivot <= 0 means rounding has made it
+            # singular (e.g. a pipe of absurd diameter); said as SuperLU says an exact zero pivot
+            raise RuntimeError("matrix is numerically singular (a pivot of its L D L^T <= 0)")
+        if self.work_ratio is None:
+            L, _ = f.L_D()  # the simplicial factor is L D L^T (no square roots)
+            self.work_ratio = self._ratio(np.diff(L.indptr), 2 * L.nnz, matrix.nnz)
+        return f.solve_A
+
+
+def factorizer(backend: str, template: sp.csc_matrix) -> Factorizer:
+    """The factorizer of ``backend`` for matrices with the pattern of ``template`` (pre-ordered)."""
+    return CholmodFactorizer(template) if backend == "cholmod" else SuperLUFactorizer(template)
