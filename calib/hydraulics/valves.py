@@ -402,12 +402,12 @@ def annotate(valves: ValveLinks, result, q, H, state, notes, link_active, isolat
 
 def sensitivity_solve(solver, result, w, b1, b2, pat, iso):
     """Sensitivities with active valves: the solver's system (stiff one-sided links, lagged far
-    side) iterated to its fixed point, one factorization for all columns.
+    side) at its fixed point, one factorization for all columns.
 
     The valve rows are exact at the fixed point (``dH = -dF1/dp`` at the controlled node, as
     ``H_node = H_set`` asks), by the same proximal term as in the solver. Returns (dH, dQ) as
-    ``sensitivity.sensitivities``; converged to 1e-13 relative in the flows of active valves
-    (a few passes of triangular solves, at most 100)."""
+    ``sensitivity.sensitivities``. The fixed point is solved exactly: the valve rows' misfit is
+    affine in the valves' flow changes, so three passes of triangular solves give it."""
     valves: ValveLinks = solver.valves
     state = result._valve_state
     s = valves.slots()
@@ -438,8 +438,13 @@ def sensitivity_solve(solver, result, w, b1, b2, pat, iso):
     far = np.where(valves.kind == PSV, valves.to, valves.frm)  # the lagged end
     far_sign = -ctrl_sign  # A21 entry at that end
     lag = press & (far < nj)
-    for _ in range(100):
-        rhs = base.copy()
+    prv = act & (valves.kind == PRV)
+    psv = act & (valves.kind == PSV)
+
+    def sweep(dq_v, rhs, b1s):
+        """One pass of the lagged system: (dH, dH with sources, g) with g = the valve rows' misfit, affine in
+        (dq_v, rhs, b1s); the fixed point of the lagged iteration is g = 0."""
+        rhs = rhs.copy()
         # the last flow change of each valve: at its far end as a lagged demand or supply, at
         # its controlled end as the proximal term that makes dH there exact at the fixed point
         np.add.at(rhs, far[lag], far_sign[lag, None] * dq_v[lag])
@@ -447,15 +452,26 @@ def sensitivity_solve(solver, result, w, b1, b2, pat, iso):
         rhs[iso] = 0.0
         dH = factor(rhs)
         dHn = np.vstack([dH, np.zeros((solver.network.n_sources, dH.shape[1]))])
-        dQ = -(wb1 - w[:, None] * (dHn[solver.link_from] - dHn[solver.link_to]))
-        new = dq_v.copy()
-        prv = act & (valves.kind == PRV)
-        psv = act & (valves.kind == PSV)
-        new[prv] -= w_s[prv, None] * (b1[s][prv] + dHn[valves.to[prv]])
-        new[psv] -= w_s[psv, None] * (b1[s][psv] - dHn[valves.frm[psv]])
-        step = np.abs(new - dq_v).max(initial=0.0)
-        dq_v = new
-        if step <= 1e-13 * max(np.abs(new).max(initial=0.0), 1e-30):
-            break
+        g = np.zeros_like(dq_v)
+        g[prv] = -w_s[prv, None] * (b1s[prv] + dHn[valves.to[prv]])
+        g[psv] = -w_s[psv, None] * (b1s[psv] - dHn[valves.frm[psv]])
+        return dH, dHn, g
+
+    # g is affine in dq_v and the same linear map acts on every column: solve g(dq_v) = 0 exactly
+    # with one sweep for the constant part and one with a unit flow change per active pressure
+    # valve (instead of iterating the lagged sweep to its fixed point)
+    idx = np.flatnonzero(press)
+    if idx.size:
+        _, _, g0 = sweep(dq_v, base, b1[s])
+        unit = np.zeros((valves.n, idx.size))
+        unit[idx, np.arange(idx.size)] = 1.0
+        _, _, gu = sweep(unit, np.zeros((base.shape[0], idx.size)), np.zeros((valves.n, idx.size)))
+        A = gu[idx]
+        try:
+            dq_v[idx] = np.linalg.solve(A, -g0[idx])
+        except np.linalg.LinAlgError:
+            dq_v[idx] = np.linalg.lstsq(A, -g0[idx], rcond=None)[0]
+    dH, dHn, _ = sweep(dq_v, base, b1[s])
+    dQ = -(wb1 - w[:, None] * (dHn[solver.link_from] - dHn[solver.link_to]))
     dQ[s] = np.where(act[:, None], dq_v, dQ[s])
     return dH, dQ
