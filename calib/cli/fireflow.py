@@ -117,6 +117,8 @@ def run(args) -> int:
         "system minimum": show(options.system_minimum) + " at any other junction of the hydrant's "
         "zone (the junctions' zone column; the whole network for a junction without one)",
         "demand factor": f"{options.demand_factor:g} x base demand",
+        "system search": ("every hydrant" if options.system_search == "always" else
+                          "only where it can limit the available flow (flow_system empty elsewhere)"),
         "interval": ("95 %, normal, first-order; from the fitted C-factors' uncertainty only "
                      "(not demands, valve positions or tank levels)")
         if fit.covariance is not None else "none",
