@@ -23,7 +23,7 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-from calib.fireflow import FireFlowScan, distribute  # noqa: E402
+from calib.fireflow import FireFlowScan, ScanOptions, distribute  # noqa: E402
 from solver import square_grid  # noqa: E402
 
 
@@ -37,9 +37,9 @@ def sample(net, n: int, seed: int = 1) -> list[str]:
     return [str(i) for i in rng.choice(ids, size=min(n, len(ids)), replace=False)]
 
 
-def serial_rate(net, nodes) -> dict:
+def serial_rate(net, nodes, options=None) -> dict:
     t0 = time.perf_counter()
-    scan = FireFlowScan(net)
+    scan = FireFlowScan(net, options=options)
     setup = time.perf_counter() - t0
     t0 = time.perf_counter()
     for node in nodes:
@@ -50,13 +50,13 @@ def serial_rate(net, nodes) -> dict:
                 solves=(scan.solves - 1) / len(nodes))
 
 
-def dask_rate(net, nodes, workers: int) -> dict:
+def dask_rate(net, nodes, workers: int, options=None) -> dict:
     from dask.distributed import Client, LocalCluster
     t0 = time.perf_counter()
     with LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
                       dashboard_address=None, silence_logs=logging.CRITICAL) as lc, Client(lc) as c:
         startup = time.perf_counter() - t0
-        res = distribute.run(net, nodes, client=c, progress=False)
+        res = distribute.run(net, nodes, options=options, client=c, progress=False)
     assert not res.failures, res.failures
     return dict(workers=workers, hydrants=len(nodes), startup=startup, seconds=res.seconds,
                 rate=len(nodes) / res.seconds)
@@ -68,12 +68,16 @@ def main(argv=None) -> int:
     p.add_argument("--sample50k", type=int, default=16)
     p.add_argument("--dask", type=int, default=240, help="hydrants for the 1 vs 2 worker runs")
     p.add_argument("--full", action="store_true", help="all 5,041 junctions of the 10k grid, 2 workers")
+    p.add_argument("--system-search", choices=("always", "binding"), default="always",
+                   help="ScanOptions.system_search (binding: skip the search where it cannot limit)")
     args = p.parse_args(argv)
+    opts = ScanOptions(system_search=args.system_search)
+    print(f"system search: {args.system_search}")
     print(f"start: {load()}, {os.cpu_count()} cores")
     grids = {"10k": square_grid(71), "50k": square_grid(159)}
     rates = {}
     for name, n in (("10k", args.sample10k), ("50k", args.sample50k)):
-        r = serial_rate(grids[name], sample(grids[name], n))
+        r = serial_rate(grids[name], sample(grids[name], n), opts)
         rates[name] = r["rate"]
         print(f"{name} grid ({r['pipes']} pipes), one process: {r['hydrants']} hydrants in "
               f"{r['seconds']:.1f} s = {r['rate']:.2f} hydrants/s per core "
@@ -82,7 +86,7 @@ def main(argv=None) -> int:
     nodes = sample(grids["10k"], args.dask, seed=2)
     scaling = {}
     for w in (1, 2):
-        r = dask_rate(grids["10k"], nodes, w)
+        r = dask_rate(grids["10k"], nodes, w, opts)
         scaling[w] = r["rate"]
         print(f"10k grid, Dask {w} worker(s): {r['hydrants']} hydrants in {r['seconds']:.1f} s = "
               f"{r['rate']:.2f} hydrants/s (cluster start {r['startup']:.1f} s), {load()}")
@@ -98,7 +102,7 @@ def main(argv=None) -> int:
     if args.full:
         net = grids["10k"]
         allnodes = [str(i) for i in net.node_ids[: net.n_junctions]]
-        r = dask_rate(net, allnodes, 2)
+        r = dask_rate(net, allnodes, 2, opts)
         print(f"full 10k grid, every junction ({len(allnodes)}), 2 workers: {r['seconds']:.0f} s "
               f"(+ {r['startup']:.1f} s cluster start), {load()}")
     print(f"end: {load()}")

@@ -39,6 +39,9 @@ def register(subparsers) -> None:
                    help="lowest pressure allowed elsewhere in the hydrant's zone (default 20 psi)")
     p.add_argument("--demand-factor", default="1", metavar="F",
                    help="multiply every base demand by F during the fire (default 1)")
+    p.add_argument("--system-search", choices=("always", "binding"), default="always",
+                   help="always: find the system-limited flow at every hydrant; binding: only where "
+                        "it can limit the available flow (faster; flow_system left empty elsewhere)")
     p.add_argument("--nodes", default="hydrants", metavar="WHICH",
                    help="hydrants (default: junctions marked as hydrants), all, or ids J1,J2,...")
     run_on = p.add_mutually_exclusive_group()
@@ -86,7 +89,8 @@ def run(args) -> int:
 
     options = ScanOptions(residual=_pressure(args.residual, "--residual"),
                           system_minimum=_pressure(args.system_minimum, "--system-minimum"),
-                          demand_factor=_factor(args.demand_factor))
+                          demand_factor=_factor(args.demand_factor),
+                          system_search=args.system_search)
     if args.workers is not None and args.workers < 0:
         raise InputError(f"--workers {args.workers} is negative", field="--workers",
                          expected="0 (no Dask) or a number of processes")
@@ -113,6 +117,8 @@ def run(args) -> int:
         "system minimum": show(options.system_minimum) + " at any other junction of the hydrant's "
         "zone (the junctions' zone column; the whole network for a junction without one)",
         "demand factor": f"{options.demand_factor:g} x base demand",
+        "system search": ("every hydrant" if options.system_search == "always" else
+                          "only where it can limit the available flow (flow_system empty elsewhere)"),
         "interval": ("95 %, normal, first-order; from the fitted C-factors' uncertainty only "
                      "(not demands, valve positions or tank levels)")
         if fit.covariance is not None else "none",

@@ -59,6 +59,7 @@ class SchurPattern:
         col_of = uniq // nj
         self.indptr = np.searchsorted(col_of, np.arange(nj + 1)).astype(np.int32)
         self.nnz = len(uniq)
+        self._col = col_of.astype(np.int64)  # column (new order) of each stored entry, for hold()
         self._contrib_pos = pos[:n_contrib]
         # the diagonal contributions were listed by old junction number 0..nj-1
         self.diag_pos = pos[n_contrib:].astype(np.int64)  # diag_pos[old junction] -> data position
@@ -94,9 +95,8 @@ class SchurPattern:
         (old order, bool): a junction held at a fixed grade (or cut off) then keeps dH = 0 for a zero
         right-hand side, as a source would, and the rest of S no longer sees its unknown."""
         if fixed.any():
-            col = np.repeat(np.arange(self.n), np.diff(self.indptr))
             held = fixed[self.perm]  # by new index
-            row = self.indices
+            row, col = self.indices, self._col
             off = (held[row] | held[col]) & (row != col)
             matrix.data[off] = 0.0
         return matrix

@@ -69,3 +69,20 @@ def test_map_bands_are_contiguous_and_named():
         if k:
             assert band(lower - 0.01)[1] == BANDS[k - 1][1]
     assert band(1e9)[0].endswith("or more")
+
+
+def test_binding_system_search_keeps_the_available_flow(tmp_path, fit_dir, capsys):
+    # the same hydrants with the full search and with --system-search binding: same available
+    # flow, interval and class; flow_system empty only where it was not searched
+    tables = {}
+    for mode in ("always", "binding"):
+        out = tmp_path / f"{mode}.csv"
+        assert main(["fireflow", str(NETWORK), "--fit", str(fit_dir), "--out", str(out),
+                     "--workers", "0", "--nodes", "J017,J113", "--quiet",
+                     "--system-search", mode]) == 0
+        tables[mode] = pd.read_csv(out, keep_default_na=False)
+    a, b = tables["always"], tables["binding"]
+    for col in ("available [gpm]", "low [gpm]", "high [gpm]", "class"):
+        assert a[col].tolist() == b[col].tolist()
+    assert (b["flow_system [gpm]"] == "").any()
+    assert "only where it can limit" in capsys.readouterr().out

@@ -102,3 +102,32 @@ def test_low_static_and_bad_nodes_are_named(town):
     assert len(hydrant_nodes(town)) == int(town.hydrant.sum())
     with pytest.raises(InputError):
         ScanOptions(residual=-1.0).check()
+
+
+@pytest.mark.parametrize("minimum_psi", [20, 45])
+def test_binding_system_search_gives_the_same_available_flow(fitted, minimum_psi):
+    # ScanOptions(system_search="binding") skips the system search when the held solve shows the
+    # zone above the minimum; the available flow must not change, whichever figure limits it.
+    # The full search is itself checked against scipy.optimize.brentq above.
+    _, inputs = fitted
+    town = fitted[0].network
+    kw = dict(residual=20 * PSI, system_minimum=minimum_psi * PSI)
+    full = FireFlowScan(town, roughness=inputs.roughness, options=ScanOptions(**kw))
+    quick = FireFlowScan(town, roughness=inputs.roughness,
+                         options=ScanOptions(system_search="binding", **kw))
+    skipped = 0
+    for node in ["J017", "J113", "J005", "J060", "J090"]:
+        a, b = full.hydrant(node), quick.hydrant(node)
+        assert b.available == pytest.approx(a.available, rel=1e-5)
+        assert b.hydrant_class == a.hydrant_class
+        if np.isnan(b.flow_system):
+            skipped += 1
+            assert a.flow_system > a.flow_at_residual  # skipped only where it cannot limit
+            assert "not searched" in b.note
+        else:
+            assert b.flow_system == pytest.approx(a.flow_system, rel=1e-3)
+            assert b.limiting_node == a.limiting_node
+    if minimum_psi == 20:
+        assert skipped > 0 and quick.solves < full.solves
+    with pytest.raises(InputError):
+        ScanOptions(system_search="sometimes").check()
