@@ -53,8 +53,23 @@ RANGE = {
 DEFAULT_COEFFICIENT = 0.90  # NFPA 291 outlet figure: smooth, well-rounded outlet
 
 
+class GaugeGrades:
+    """Grades of gauge readings, for any record with ``pressure``, ``elevation``, ``gauge_height``
+    and ``sigma`` arrays (SI)."""
+
+    @property
+    def hgl(self) -> np.ndarray:
+        """Observed hydraulic grade at each gauge's node [m]: HGL = p / gamma + elevation + gauge height."""
+        return units.pressure_to_head(self.pressure) + self.elevation + self.gauge_height
+
+    @property
+    def sigma_head(self) -> np.ndarray:
+        """Stated accuracy as head [m of water]."""
+        return units.pressure_to_head(self.sigma)
+
+
 @dataclass
-class TestSet:
+class TestSet(GaugeGrades):
     """A season of flow tests in SI, indexed against one network's node numbers.
 
     Readings are a structure of arrays, one entry per gauge reading (a pressures.csv row gives a
@@ -93,16 +108,6 @@ class TestSet:
     @property
     def n_readings(self) -> int:
         return len(self.node)
-
-    @property
-    def hgl(self) -> np.ndarray:
-        """Observed hydraulic grade at each gauge's node [m]: HGL = p / gamma + elevation + gauge height."""
-        return units.pressure_to_head(self.pressure) + self.elevation + self.gauge_height
-
-    @property
-    def sigma_head(self) -> np.ndarray:
-        """Stated accuracy as head [m of water]."""
-        return units.pressure_to_head(self.sigma)
 
     def subset(self, keep: np.ndarray) -> "TestSet":
         """The same tests with only the readings where ``keep`` is True."""

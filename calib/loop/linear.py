@@ -19,10 +19,11 @@ import numpy as np
 import scipy.sparse as sp
 
 from calib import units
+from calib.calibration.tests_io import GaugeGrades
 
 
 @dataclass
-class TestReadings:
+class TestReadings(GaugeGrades):
     """One test: flows, noted source grades, and readings (structure of arrays, SI)."""
 
     __test__ = False  # not a pytest class
@@ -38,15 +39,6 @@ class TestReadings:
     elevation: np.ndarray  # (n,) node elevation [m]
     date: str = ""
     rows: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))  # in the TestSet
-
-    @property
-    def hgl(self) -> np.ndarray:
-        """Observed grade [m]: p / gamma + elevation + gauge height."""
-        return units.pressure_to_head(self.pressure) + self.elevation + self.gauge_height
-
-    @property
-    def sigma_head(self) -> np.ndarray:
-        return units.pressure_to_head(self.sigma)
 
     def head_to_gauge(self, head) -> np.ndarray:
         """Grade [m] at each reading's node -> what its gauge reads [Pa]."""
