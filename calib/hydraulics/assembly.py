@@ -19,6 +19,10 @@ import scipy.sparse as sp
 
 from calib.hydraulics import factor as _factor
 
+#: Time of a low-rank update per unit of its estimated work, over that of a factorization: measured
+#: 0.85-1.7 on grids of 10k-200k pipes (CHOLMOD simplicial, 200 links updated at once).
+UPDATE_TIME_PER_WORK = 1.5
+
 
 class SchurPattern:
     """Fixed structure of ``A21 diag(w) A12`` for links ``link_from -> link_to`` over ``n_junctions``.
@@ -70,6 +74,44 @@ class SchurPattern:
     def work_ratio(self) -> float | None:
         """Flops of a factorization over those of one CG step; set by the first sparse factorization."""
         return None if self._factorizer is None else self._factorizer.work_ratio
+
+    def update_work(self, links: np.ndarray, nodes: np.ndarray) -> float:
+        """Work of low-rank updates for ``links`` and diagonal changes at junctions ``nodes`` (old
+        order), over the work of one factorization; inf where the backend cannot update."""
+        cost = getattr(self._factorizer, "update_cost", None)
+        if cost is None:
+            return np.inf
+        f, t = self.link_from[links], self.link_to[links]
+        # a link's update starts at the first of its junction ends in the factor's order
+        first = np.minimum(np.where(f < self.n, self.inv[np.minimum(f, self.n - 1)], self.n),
+                           np.where(t < self.n, self.inv[np.minimum(t, self.n - 1)], self.n))
+        first = first[first < self.n]
+        work = float(cost[first].sum() + cost[self.inv[nodes]].sum()) / self._factorizer.factor_work
+        return UPDATE_TIME_PER_WORK * work
+
+    def low_rank(self, links: np.ndarray, dw: np.ndarray, nodes: np.ndarray, dd: np.ndarray,
+                 fixed: np.ndarray):
+        """``(U, V)``, sparse columns in the factor's order with ``U U^T - V V^T`` = the change of S
+        when link k's weight changes by ``dw[k]`` and junction i's extra diagonal by ``dd[i]``; the
+        rows of ``fixed`` junctions are left out (``hold`` keeps them apart from the rest)."""
+        nj = self.n
+        f, t = self.link_from[links], self.link_to[links]
+        k = np.arange(len(links))
+        rows = np.concatenate([f, t, nodes])
+        cols = np.concatenate([k, k, len(links) + np.arange(len(nodes))])
+        mag = np.sqrt(np.abs(np.concatenate([dw, dd])))
+        vals = np.concatenate([mag[:len(links)], -mag[:len(links)], mag[len(links):]])
+        sign = np.concatenate([dw, dd]) > 0
+        keep = rows < nj
+        keep[keep] = ~fixed[rows[keep]]
+        rows, cols, vals = rows[keep], cols[keep], vals[keep]
+        out = []
+        for want in (True, False):
+            pick = sign[cols] == want
+            used, c = np.unique(cols[pick], return_inverse=True)
+            out.append(sp.csc_matrix((vals[pick], (self.inv[rows[pick]], c)),
+                                     shape=(nj, len(used))) if len(used) else None)
+        return tuple(out)
 
     def _ordering(self, rows, cols) -> np.ndarray:
         """Fill-reducing ordering of the pattern, computed once (``factor.ordering``)."""
@@ -175,6 +217,15 @@ class SchurFactor:
         self.pattern = pattern
         self.matrix = matrix
         self.solve_permuted = solve_permuted
+
+    @property
+    def can_update(self) -> bool:
+        """True when the factor can be changed in place by low-rank updates (CHOLMOD)."""
+        return hasattr(self.solve_permuted, "update")
+
+    def update(self, up, down) -> bool:
+        """Change the factor in place to that of ``S + U U^T - V V^T`` (``SchurPattern.low_rank``)."""
+        return self.solve_permuted.update(up, down)
 
     def __call__(self, b: np.ndarray) -> np.ndarray:
         """Solve S x = b for b (n_junctions,) or (n_junctions, p), both in junction order."""

@@ -38,6 +38,14 @@ from calib.units import FT, GAMMA_WATER
 HEADLOSS_MODELS = ("hazen-williams", "darcy-weisbach")
 
 
+class _KeptFactor:
+    """The last factorization with the link weights, extra diagonal and fixed junctions of the
+    matrix it now factors (updated in place by ``NetworkSolver._reuse``)."""
+
+    def __init__(self, factor, w, extra, fixed):
+        self.factor, self.w, self.extra, self.fixed = factor, w, extra, fixed
+
+
 class NetworkSolver:
     """Solve snapshots of one network; the sparsity pattern and ordering are built once here.
     A solver keeps state between solves (last factorization, trace): use one per thread.
@@ -65,7 +73,8 @@ class NetworkSolver:
                  energy_tol: float = 1e-6, mass_tol: float = 1e-8, mass_tol_abs: float = 1e-9,
                  max_status_changes: int = 8, viscosity: float = hl.NU_WATER_60F,
                  dense: bool = False, reuse_factor: bool = True, reuse_max_changed: int = 20,
-                 cg_max_iterations: int = 25):
+                 cg_max_iterations: int = 25, update_ratio: float = 1.5,
+                 update_budget: float = 0.25):
         if headloss not in HEADLOSS_MODELS:
             raise InputError(f"unknown head-loss model '{headloss}'", field="headloss",
                              expected=" or ".join(HEADLOSS_MODELS))
@@ -81,6 +90,7 @@ class NetworkSolver:
         self._reach_cache = None
         self._factor = None
         self.reuse_max_changed, self.cg_max_iterations = reuse_max_changed, cg_max_iterations
+        self.update_ratio, self.update_budget = float(update_ratio), float(update_budget)
         self.nj, self.np_, self.nu = net.n_junctions, net.n_pipes, len(net.pumps)
         self.nv = len(net.valves)  # valves: links after the pumps
         self.link_from = np.concatenate([net.pipe_from, np.asarray(net.pumps.from_node, np.int64),
@@ -237,7 +247,7 @@ class NetworkSolver:
         dH = np.zeros(nj)
         if secant:  # cold start; a warm start may precondition with the last solve's factor
             self._factor = None
-        self.factorizations = 0
+        self.factorizations = self.updates = 0
         for it in range(self.max_iterations + 1):
             h, grad = self._laws(q, coef)
             F1 = np.where(active, h - (H[f] - H[t]), 0.0)
@@ -281,7 +291,8 @@ class NetworkSolver:
             if self.nv:
                 rhs += rhs_v
             rhs[fixed] = 0.0
-            dH = self._linear_solve(S, rhs, w, isolated, mass_tol) if nj else np.zeros(0)
+            dH = (self._linear_solve(S, rhs, w, extra, fixed, mass_tol) if nj
+                  else np.zeros(0))
             dHn = np.concatenate([dH, np.zeros(net.n_sources)])
             dq = -w * (F1 - (dHn[f] - dHn[t]))
             if self.nv:
@@ -314,21 +325,14 @@ class NetworkSolver:
         self._fail(f"no convergence in {self.max_iterations} iterations", self.max_iterations,
                    F2, dH, dq, e2)
 
-    def _linear_solve(self, S, rhs, w, isolated, mass_tol):
-        """dH from S dH = rhs: by conjugate gradients preconditioned with the last factorization
-        when few links changed their 1/D by more than a factor 2 since then (each such link is a
-        rank-one change, which CG absorbs in about one step), else by a new factorization."""
-        fac = self._factor
-        if self.reuse_factor and fac is not None and np.array_equal(isolated, fac[2]):
-            w_f = fac[1]
-            far = np.count_nonzero((w > 2.0 * w_f) | (w < 0.5 * w_f))
-            # CG steps allowed: about the cost of one factorization (2.5 x the flop ratio, the
-            # factor measured on grids of 1k-50k pipes where Python overhead weighs on CG steps)
-            cap = min(self.cg_max_iterations, int(2.5 * (self.pattern.work_ratio or 0.0)))
-            if far <= self.reuse_max_changed and cap >= 1:
-                dH = self.pattern.pcg(S, fac[0], rhs, 0.1 * mass_tol, cap)
-                if dH is not None:
-                    return dH
+    def _linear_solve(self, S, rhs, w, extra, fixed, mass_tol):
+        """dH from S dH = rhs: with the last factorization where S changed little since it was made
+        (``_reuse``), else by a new factorization, which is kept with the weights it was made of."""
+        kept = self._factor
+        if self.reuse_factor and kept is not None and np.array_equal(fixed, kept.fixed):
+            dH = self._reuse(kept, S, rhs, w, extra, fixed, mass_tol)
+            if dH is not None:
+                return dH
         try:
             factor = self.pattern.factorize(S)
         except (RuntimeError, ValueError, np.linalg.LinAlgError) as exc:  # e.g. singular LU
@@ -336,8 +340,45 @@ class NetworkSolver:
                 f"network '{self.network.name}': the linear system is singular ({exc}); a pipe of "
                 "extreme diameter, length or C is the usual cause") from None
         self.factorizations += 1
-        self._factor = (factor, w, isolated.copy())
+        self._factor = _KeptFactor(factor, w.copy(), extra.copy(), fixed.copy())
         return factor(rhs)
+
+    def _reuse(self, kept, S, rhs, w, extra, fixed, mass_tol):
+        """Solve with the kept factorization, or None when that would cost more than a new one.
+
+        Each link whose 1/D changed since the factor was made is a rank-one change of S. Where the
+        factor can be updated in place (CHOLMOD), the links changed by more than ``update_ratio``
+        (and changed extra diagonal terms) are updated into it when that costs at most
+        ``update_budget`` of a factorization; conjugate gradients preconditioned with the factor then
+        absorb the smaller changes in a few steps. Otherwise (SuperLU) CG alone is tried when at most
+        ``reuse_max_changed`` links changed by more than a factor 2 (each such change costs CG about
+        one step). CG is stopped past the cost of about one factorization (2.5 x the flop ratio,
+        measured on grids of 1k-50k pipes where Python overhead weighs on CG steps)."""
+        pat, factor = self.pattern, kept.factor
+        cap = min(self.cg_max_iterations, int(2.5 * (pat.work_ratio or 0.0)))
+        if cap < 1:
+            return None
+        tol = 0.1 * mass_tol
+        if factor.can_update:
+            rho = self.update_ratio
+            links = np.flatnonzero((w > rho * kept.w) | (rho * w < kept.w))
+            nodes = np.flatnonzero((extra != kept.extra) & ~fixed)
+            if len(links) or len(nodes):
+                if pat.update_work(links, nodes) > self.update_budget:
+                    return None
+                up, down = pat.low_rank(links, w[links] - kept.w[links], nodes,
+                                        extra[nodes] - kept.extra[nodes], fixed)
+                if not factor.update(up, down):
+                    self._factor = None  # rounding made a pivot <= 0: factor anew
+                    return None
+                kept.w[links] = w[links]
+                kept.extra[nodes] = extra[nodes]
+                self.updates += 1
+            return pat.pcg(S, factor, rhs, tol, cap)
+        far = np.count_nonzero((w > 2.0 * kept.w) | (w < 0.5 * kept.w))
+        if far <= self.reuse_max_changed:
+            return pat.pcg(S, factor, rhs, tol, cap)
+        return None
 
     def _update_status(self, q, H, active, dynamic, flips, demand):
         """Check valves close on reverse flow and reopen when the head would drive forward flow;
