@@ -65,7 +65,10 @@ class NetworkSolver:
     - ``reuse_factor``: solve an iteration's system by conjugate gradients preconditioned with the
       last factorization when at most ``reuse_max_changed`` links changed 1/D by more than a factor
       2 since it was made; fall back to a new factorization when CG needs more than
-      ``cg_max_iterations`` steps. The step is then as exact as the mass tolerance asks.
+      ``cg_max_iterations`` steps. The step is then as exact as the mass tolerance asks. With
+      CHOLMOD the links whose 1/D changed by more than ``update_ratio`` are first updated into the
+      kept factor (low-rank updates) when that costs at most ``update_budget`` of a factorization,
+      so far more of the iterations near the solution need no new factorization (``_reuse``).
     """
 
     def __init__(self, network, headloss: str = "hazen-williams", *, q_eps: float = hl.HW_Q_EPS,
