@@ -65,6 +65,9 @@ class SchurPattern:
         self.nnz = len(uniq)
         self._col = col_of.astype(np.int64)  # column (new order) of each stored entry, for hold()
         self._contrib_pos = pos[:n_contrib]
+        # data of S = this fixed (nnz x links) matrix times w: one sparse product per assembly
+        self._gather = sp.csr_matrix((self._contrib_sign, (self._contrib_pos, self._contrib_link)),
+                                     shape=(len(uniq), len(f)))
         # the diagonal contributions were listed by old junction number 0..nj-1
         self.diag_pos = pos[n_contrib:].astype(np.int64)  # diag_pos[old junction] -> data position
         self._factorizer = None if (dense or nj == 0) else _factor.factorizer(
@@ -126,9 +129,8 @@ class SchurPattern:
     # --- per iteration -----------------------------------------------------------------------
     def assemble(self, w: np.ndarray, extra_diag: np.ndarray | None = None) -> sp.csc_matrix:
         """``S = A21 diag(w) A12`` in the permuted order, plus ``extra_diag`` (old order) on the diagonal."""
-        data = np.bincount(self._contrib_pos, weights=w[self._contrib_link] * self._contrib_sign,
-                           minlength=self.nnz).astype(float, copy=False)
-        if extra_diag is not None:
+        data = self._gather @ np.asarray(w, dtype=float)
+        if extra_diag is not None and extra_diag.any():
             data[self.diag_pos] += extra_diag
         return sp.csc_matrix((data, self.indices, self.indptr), shape=(self.n, self.n))
 

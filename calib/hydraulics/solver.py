@@ -109,6 +109,7 @@ class NetworkSolver:
         self.pattern = SchurPattern(self.nj, self.link_from, self.link_to, net.n_nodes, dense=dense)
         self.area = np.pi * net.diameter ** 2 / 4.0
         self.minor = hl.minor_loss_coefficient(net.minor_loss, net.diameter)
+        self._has_minor = bool(np.any(self.minor))
         self.is_cv = net.status == PipeStatus.CHECK_VALVE
         self.pipe_closed = net.status == PipeStatus.CLOSED
         pumps = net.pumps
@@ -128,9 +129,10 @@ class NetworkSolver:
         else:
             h, g, _ = hl.darcy_weisbach_law(qp, self.network.length, self.network.diameter, coef,
                                             self.viscosity)
-        aq = np.abs(qp)
-        h = h + self.minor * aq * qp
-        g = g + 2.0 * self.minor * aq
+        if self._has_minor:
+            aq = np.abs(qp)
+            h = h + self.minor * aq * qp
+            g = g + 2.0 * self.minor * aq
         if self.nu:
             hu, gu = self._pump_law(q[self.np_:self.np_ + self.nu])
             h, g = np.concatenate([h, hu]), np.concatenate([g, gu])
