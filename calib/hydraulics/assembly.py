@@ -171,10 +171,10 @@ class SchurPattern:
             return x[inv]
         z = factor.solve_permuted(r)
         p = z.copy()
-        rz = r @ z
+        rz = _dot(r, z)
         for k in range(1, max_iterations + 1):
             sp_ = matrix @ p
-            alpha = rz / (p @ sp_)
+            alpha = rz / _dot(p, sp_)
             x += alpha * p
             r -= alpha * sp_
             rk = np.abs(r).max()
@@ -186,7 +186,7 @@ class SchurPattern:
                 if rate >= 1.0 or k + np.log(tol / rk) / np.log(rate) > max_iterations:
                     return None
             z = factor.solve_permuted(r)
-            rz_new = r @ z
+            rz_new = _dot(r, z)
             p = z + (rz_new / rz) * p
             rz = rz_new
         return None
@@ -210,6 +210,12 @@ class SchurPattern:
     def across(self, head: np.ndarray) -> np.ndarray:
         """Head difference ``H[from] - H[to]`` per link, for heads over all nodes."""
         return head[self.link_from] - head[self.link_to]
+
+
+def _dot(a: np.ndarray, b: np.ndarray) -> float:
+    """Inner product of two vectors without BLAS: on a busy machine a threaded BLAS dot product of
+    25k entries was measured at 16-20 ms (its threads wait for cores) against 0.02 ms for this."""
+    return float(np.einsum("i,i->", a, b))
 
 
 class SchurFactor:
