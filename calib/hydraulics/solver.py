@@ -76,7 +76,7 @@ class NetworkSolver:
                  energy_tol: float = 1e-6, mass_tol: float = 1e-8, mass_tol_abs: float = 1e-9,
                  max_status_changes: int = 8, viscosity: float = hl.NU_WATER_60F,
                  dense: bool = False, reuse_factor: bool = True, reuse_max_changed: int = 20,
-                 cg_max_iterations: int = 25, update_ratio: float = 1.5,
+                 cg_max_iterations: int = 25, update_ratio: float = 2.0,
                  update_budget: float = 0.25):
         if headloss not in HEADLOSS_MODELS:
             raise InputError(f"unknown head-loss model '{headloss}'", field="headloss",
