@@ -486,9 +486,9 @@ class NetworkSolver:
             velocity=flow / self.area, headloss=headloss, iterations=it,
             factorizations=self.factorizations,
             max_mass_error=e2, max_energy_error=e1, converged=True,
-            negative_pressure=[str(net.node_ids[i]) for i in neg],
-            isolated=[str(i) for i in net.node_ids[:nj][isolated]],
-            closed_links=[str(i) for i in self.link_ids[~active]],
+            negative_pressure=list(map(str, net.node_ids[neg])),
+            isolated=list(map(str, net.node_ids[:nj][isolated])),
+            closed_links=list(map(str, self.link_ids[~active])),
             snapshot=resolved.snapshot, roughness=rough, _grad=grad, _active=active.copy(),
             **{"_isolated_mask": isolated.copy(), **self._held_fields(resolved, q, held, isolated)})
 
