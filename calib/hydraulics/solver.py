@@ -351,39 +351,38 @@ class NetworkSolver:
     def _reuse(self, kept, S, rhs, w, extra, fixed, mass_tol):
         """Solve with the kept factorization, or None when that would cost more than a new one.
 
-        Each link whose 1/D changed since the factor was made is a rank-one change of S. Where the
+        Each link whose 1/D changed since the factor was made is a rank-one change of S. When at
+        most ``reuse_max_changed`` links changed by more than a factor 2, conjugate gradients
+        preconditioned with the factor absorb them (about one step each). With more, where the
         factor can be updated in place (CHOLMOD), the links changed by more than ``update_ratio``
-        (and changed extra diagonal terms) are updated into it when that costs at most
-        ``update_budget`` of a factorization; conjugate gradients preconditioned with the factor then
-        absorb the smaller changes in a few steps. Otherwise (SuperLU) CG alone is tried when at most
-        ``reuse_max_changed`` links changed by more than a factor 2 (each such change costs CG about
-        one step). CG is stopped past the cost of about one factorization (2.5 x the flop ratio,
-        measured on grids of 1k-50k pipes where Python overhead weighs on CG steps)."""
+        (and changed extra diagonal terms) are first updated into it when that costs at most
+        ``update_budget`` of a factorization; CG then absorbs the smaller changes in a few steps.
+        CG is stopped past the cost of about one factorization (2.5 x the flop ratio, measured on
+        grids of 1k-50k pipes where Python overhead weighs on CG steps)."""
         pat, factor = self.pattern, kept.factor
         cap = min(self.cg_max_iterations, int(2.5 * (pat.work_ratio or 0.0)))
         if cap < 1:
             return None
         tol = 0.1 * mass_tol
-        if factor.can_update:
-            rho = self.update_ratio
-            links = np.flatnonzero((w > rho * kept.w) | (rho * w < kept.w))
-            nodes = np.flatnonzero((extra != kept.extra) & ~fixed)
-            if len(links) or len(nodes):
-                if pat.update_work(links, nodes) > self.update_budget:
-                    return None
-                up, down = pat.low_rank(links, w[links] - kept.w[links], nodes,
-                                        extra[nodes] - kept.extra[nodes], fixed)
-                if not factor.update(up, down):
-                    self._factor = None  # rounding made a pivot <= 0: factor anew
-                    return None
-                kept.w[links] = w[links]
-                kept.extra[nodes] = extra[nodes]
-                self.updates += 1
+        far = (w > 2.0 * kept.w) | (w < 0.5 * kept.w)
+        if np.count_nonzero(far) <= self.reuse_max_changed:
             return pat.pcg(S, factor, rhs, tol, cap)
-        far = np.count_nonzero((w > 2.0 * kept.w) | (w < 0.5 * kept.w))
-        if far <= self.reuse_max_changed:
-            return pat.pcg(S, factor, rhs, tol, cap)
-        return None
+        if not factor.can_update:
+            return None
+        rho = self.update_ratio
+        links = np.flatnonzero(far if rho == 2.0 else (w > rho * kept.w) | (rho * w < kept.w))
+        nodes = np.flatnonzero((extra != kept.extra) & ~fixed)
+        if pat.update_work(links, nodes) > self.update_budget:
+            return None
+        up, down = pat.low_rank(links, w[links] - kept.w[links], nodes,
+                                extra[nodes] - kept.extra[nodes], fixed)
+        if not factor.update(up, down):
+            self._factor = None  # rounding made a pivot <= 0: factor anew
+            return None
+        kept.w[links] = w[links]
+        kept.extra[nodes] = extra[nodes]
+        self.updates += 1
+        return pat.pcg(S, factor, rhs, tol, cap)
 
     def _update_status(self, q, H, active, dynamic, flips, demand):
         """Check valves close on reverse flow and reopen when the head would drive forward flow;
