@@ -7,7 +7,8 @@ demands, two fixed-grade sources on opposite corners feeding a lattice of larger
 median solve time, iterations, the floor measured in the same run (iterations x one sparse assemble +
 factorize + solve of the converged matrix with the best factorization available here - SuperLU on
 the solver's ordering, or CHOLMOD with a METIS ordering and its analysis kept when scikit-sparse is
-installed - best of three, timed right after each solve so both see the same load) and the median of
+installed, refactored in place - best of three, timed right after each solve so both see the
+same load) and the median of
 the per-repeat ratios, then the time of solve_many on 20 snapshots (demand factors and a flowing
 hydrant). ``--code DIR`` times the solver of another checkout (e.g. main) with this same script.
 The data are invented; no real network.
@@ -74,7 +75,12 @@ def _floors(solver: NetworkSolver, result):
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             symbolic = analyze(S, mode="simplicial", ordering_method="metis")
-        out["cholmod"] = lambda S: symbolic.cholesky(S).solve_A
+            numeric = symbolic.cholesky(S)
+
+        def cholmod(S):  # refactored in place: no new factor allocated
+            numeric.cholesky_inplace(S)
+            return numeric.solve_A
+        out["cholmod"] = cholmod
     except ImportError:
         pass
     return pat, w, extra, out

@@ -231,6 +231,14 @@ class SchurFactor:
         """True when the factor can be changed in place by low-rank updates (CHOLMOD)."""
         return hasattr(self.solve_permuted, "update")
 
+    def refactor(self, matrix) -> bool:
+        """Factor ``matrix`` (same pattern) in place where the backend can (CHOLMOD); False if not
+        done, and then this factor must not be used."""
+        if not hasattr(self.solve_permuted, "refactor") or not self.solve_permuted.refactor(matrix):
+            return False
+        self.matrix = matrix
+        return True
+
     def update(self, up, down) -> bool:
         """Change the factor in place to that of ``S + U U^T - V V^T`` (``SchurPattern.low_rank``)."""
         return self.solve_permuted.update(up, down)

@@ -163,6 +163,18 @@ class CholmodSolve:
     def __call__(self, b):
         return self._f.solve_A(b)
 
+    def refactor(self, matrix: sp.csc_matrix) -> bool:
+        """Factor ``matrix`` (same pattern) into this factor's memory, which saves allocating a new
+        one (5-7 % of a factorization at 50k-200k pipes). False when CHOLMOD finds it not
+        positive definite: the caller then factors anew (``CholmodFactorizer.factor`` says why)."""
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                self._f.cholesky_inplace(matrix)
+        except Exception:  # CholmodNotPositiveDefiniteError; the factor is then not usable
+            return False
+        return bool(np.all(self._f.D() > 0))
+
     def update(self, up: sp.csc_matrix | None, down: sp.csc_matrix | None) -> bool:
         """Make the factor that of ``S + U U^T - V V^T`` (columns of ``up`` = U, ``down`` = V, rows
         in the factor's order). False when a pivot is no longer > 0 (the factor is then unusable:

@@ -44,6 +44,7 @@ class _KeptFactor:
 
     def __init__(self, factor, w, extra, fixed):
         self.factor, self.w, self.extra, self.fixed = factor, w, extra, fixed
+        self.stale = False
 
 
 class NetworkSolver:
@@ -250,8 +251,10 @@ class NetworkSolver:
         changed = False
         dq = np.zeros(len(q))
         dH = np.zeros(nj)
-        if secant:  # cold start; a warm start may precondition with the last solve's factor
-            self._factor = None
+        if secant and self._factor is not None:
+            # cold start: the last solve's factor is not a preconditioner here (a warm start may
+            # use it), only memory for the next factorization
+            self._factor.stale = True
         self.factorizations = self.updates = 0
         for it in range(self.max_iterations + 1):
             h, grad = self._laws(q, coef)
@@ -334,16 +337,21 @@ class NetworkSolver:
         """dH from S dH = rhs: with the last factorization where S changed little since it was made
         (``_reuse``), else by a new factorization, which is kept with the weights it was made of."""
         kept = self._factor
-        if self.reuse_factor and kept is not None and np.array_equal(fixed, kept.fixed):
+        if (self.reuse_factor and kept is not None and not kept.stale
+                and np.array_equal(fixed, kept.fixed)):
             dH = self._reuse(kept, S, rhs, w, extra, fixed, mass_tol)
             if dH is not None:
                 return dH
-        try:
-            factor = self.pattern.factorize(S)
-        except (RuntimeError, ValueError, np.linalg.LinAlgError) as exc:  # e.g. singular LU
-            raise ConvergenceError(
-                f"network '{self.network.name}': the linear system is singular ({exc}); a pipe of "
-                "extreme diameter, length or C is the usual cause") from None
+        self._factor = None
+        if kept is not None and kept.factor.refactor(S):  # into the kept factor's memory
+            factor = kept.factor
+        else:
+            try:
+                factor = self.pattern.factorize(S)
+            except (RuntimeError, ValueError, np.linalg.LinAlgError) as exc:  # e.g. singular LU
+                raise ConvergenceError(
+                    f"network '{self.network.name}': the linear system is singular ({exc}); a pipe "
+                    "of extreme diameter, length or C is the usual cause") from None
         self.factorizations += 1
         self._factor = _KeptFactor(factor, w.copy(), extra.copy(), fixed.copy())
         return factor(rhs)
