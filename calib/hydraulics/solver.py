@@ -361,8 +361,9 @@ class NetworkSolver:
 
         Each link whose 1/D changed since the factor was made is a rank-one change of S. When at
         most ``reuse_max_changed`` links changed by more than a factor 2, conjugate gradients
-        preconditioned with the factor absorb them (about one step each). With more, where the
-        factor can be updated in place (CHOLMOD), the links changed by more than ``update_ratio``
+        preconditioned with the factor absorb them (about one step each). With more, or when CG
+        stops early, where the factor can be updated in place (CHOLMOD), the links changed by more
+        than ``update_ratio``
         (and changed extra diagonal terms) are first updated into it when that costs at most
         ``update_budget`` of a factorization; CG then absorbs the smaller changes in a few steps.
         CG is stopped past the cost of about one factorization (2.5 x the flop ratio, measured on
@@ -374,14 +375,16 @@ class NetworkSolver:
         tol = 0.1 * mass_tol
         far = (w > 2.0 * kept.w) | (w < 0.5 * kept.w)
         if np.count_nonzero(far) <= self.reuse_max_changed:
-            return pat.pcg(S, factor, rhs, tol, cap)
-        if not factor.can_update:
+            dH = pat.pcg(S, factor, rhs, tol, cap)
+            if dH is not None or not factor.can_update:
+                return dH
+        elif not factor.can_update:
             return None
         rho = self.update_ratio
         links = np.flatnonzero(far if rho == 2.0 else (w > rho * kept.w) | (rho * w < kept.w))
         nodes = np.flatnonzero((extra != kept.extra) & ~fixed)
-        if pat.update_work(links, nodes) > self.update_budget:
-            return None
+        if not (len(links) or len(nodes)) or pat.update_work(links, nodes) > self.update_budget:
+            return None  # nothing to update (CG failed on the small changes) or too costly
         up, down = pat.low_rank(links, w[links] - kept.w[links], nodes,
                                 extra[nodes] - kept.extra[nodes], fixed)
         if not factor.update(up, down):
