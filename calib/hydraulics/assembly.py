@@ -22,6 +22,10 @@ from calib.hydraulics import factor as _factor
 #: Time of a low-rank update per unit of its estimated work, over that of a factorization: measured
 #: 0.85-1.7 on grids of 10k-200k pipes (CHOLMOD simplicial, 200 links updated at once).
 UPDATE_TIME_PER_WORK = 1.5
+#: Below this work of a factorization (sum of squared column counts of L; 3.7e6 on the 10k-pipe
+#: grid, whose factorization takes about 3 ms) a new factorization costs less than the Python work
+#: around a low-rank update, so none is made.
+UPDATE_MIN_WORK = 1e6
 
 
 class SchurPattern:
@@ -80,9 +84,10 @@ class SchurPattern:
 
     def update_work(self, links: np.ndarray, nodes: np.ndarray) -> float:
         """Work of low-rank updates for ``links`` and diagonal changes at junctions ``nodes`` (old
-        order), over the work of one factorization; inf where the backend cannot update."""
+        order), over the work of one factorization; inf where the backend cannot update or the
+        factorization is too cheap to be worth it (``UPDATE_MIN_WORK``)."""
         cost = getattr(self._factorizer, "update_cost", None)
-        if cost is None:
+        if cost is None or self._factorizer.factor_work < UPDATE_MIN_WORK:
             return np.inf
         f, t = self.link_from[links], self.link_to[links]
         # a link's update starts at the first of its junction ends in the factor's order

@@ -9,7 +9,7 @@ import scipy.sparse as sp
 
 from calib.errors import InputError
 from calib.hydraulics import NetworkSolver
-from calib.hydraulics import factor
+from calib.hydraulics import assembly, factor
 from calib.hydraulics.assembly import SchurPattern
 
 from .conftest import random_looped
@@ -93,7 +93,7 @@ def test_backend_choice_errors_name_the_setting(monkeypatch):
 
 
 @cholmod
-def test_low_rank_update_gives_the_factor_of_the_changed_matrix():
+def test_low_rank_update_gives_the_factor_of_the_changed_matrix(monkeypatch):
     # reference: scipy.linalg.cho_solve on the changed matrix, factored from scratch (LAPACK potrf);
     # links whose weight rose are updates, those whose weight fell downdates, one junction's
     # extra diagonal term changes, and a fixed junction's row stays out of the change
@@ -118,7 +118,10 @@ def test_low_rank_update_gives_the_factor_of_the_changed_matrix():
     ref = scipy.linalg.cho_solve(scipy.linalg.cho_factor(S2.toarray()), b)
     np.testing.assert_allclose(F.solve_permuted(b), ref, rtol=1e-8,
                                atol=1e-10 * np.abs(ref).max())
-    # the work estimate grows with the links updated and is below a factorization for a few
+    # the work estimate grows with the links updated and is below a factorization for a few; on
+    # a network this small no update is worth its Python work (infinite cost) unless allowed
+    assert pat.update_work(links, np.array([3])) == np.inf
+    monkeypatch.setattr(assembly, "UPDATE_MIN_WORK", 0.0)
     assert 0 < pat.update_work(links[:1], np.array([], int)) < pat.update_work(links, np.array([3]))
     assert pat.update_work(links, np.array([3])) < 1.0
 
@@ -145,6 +148,7 @@ def test_factor_reuse_with_updates_matches_a_factorization_every_iteration(backe
     # with reuse the steps are solved by CG (after low-rank updates with CHOLMOD) to the mass
     # tolerance, so the answers agree within the solver's tolerances
     monkeypatch.setenv(factor.ENV, backend)
+    monkeypatch.setattr(assembly, "UPDATE_MIN_WORK", 0.0)  # updates on a network this small too
     net = random_looped(1500, seed=11, n_sources=2)
     reuse = NetworkSolver(net)
     got = reuse.solve()
