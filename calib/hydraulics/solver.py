@@ -363,9 +363,9 @@ class NetworkSolver:
         most ``reuse_max_changed`` links changed by more than a factor 2, conjugate gradients
         preconditioned with the factor absorb them (about one step each). With more, or when CG
         stops early, where the factor can be updated in place (CHOLMOD), the links changed by more
-        than ``update_ratio``
-        (and changed extra diagonal terms) are first updated into it when that costs at most
-        ``update_budget`` of a factorization; CG then absorbs the smaller changes in a few steps.
+        than ``update_ratio`` (and changed extra diagonal terms) are first updated into it when
+        that costs at most ``update_budget`` of a factorization (``SchurPattern.update_work``);
+        CG then absorbs the smaller changes in a few steps.
         CG is stopped past the cost of about one factorization (2.5 x the flop ratio, measured on
         grids of 1k-50k pipes where Python overhead weighs on CG steps)."""
         pat, factor = self.pattern, kept.factor
