@@ -1,6 +1,6 @@
 """Wall time of ``python -m calib fit`` with its report, as a user runs it (run by hand, never in tests).
 
-    python benchmarks/cli_fit.py [--code DIR ...] [--repeats 3] [--quick]
+    python benchmarks/cli_fit.py [--code DIR ...] [--repeats 3] [--quick] [--cases help,demo,grid]
 
 Cases: the demo town (field_samples/tallowmere) and a generated 64 x 63 grid (7,938 pipes, 5 groups,
 20 tests with two gauges each, handbook prior; base demand 0.03 L/s per junction, source 90 m), written once as a network folder and a tests folder.
@@ -62,6 +62,8 @@ def main(argv=None) -> int:
     ap.add_argument("--code", action="append", default=None, help="code tree(s) to compare")
     ap.add_argument("--repeats", type=int, default=3)
     ap.add_argument("--quick", action="store_true", help="a 20 x 20 grid with 6 tests")
+    ap.add_argument("--cases", default="help,demo,grid",
+                    help="which cases, comma-separated: help, demo, grid (default all three)")
     args = ap.parse_args(argv)
     trees = [Path(c).resolve() for c in (args.code or [str(HERE)])]
     print(f"# {time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime())}, load "
@@ -74,6 +76,9 @@ def main(argv=None) -> int:
         cases = {"imports (fit --help)": ["fit", "--help"],
                  "demo town fit + report": [str(demo / "network"), str(demo / "tests")],
                  "grid fit + report": [str(grid_net), str(grid_tests)]}
+        wanted = {w.strip() for w in args.cases.split(",")}
+        cases = {name: case for (name, case), key in zip(cases.items(), ("help", "demo", "grid"))
+                 if key in wanted}
         print("| case | " + " | ".join(str(t) for t in trees) + " |")
         print("|---|" + "---|" * len(trees))
         for name, case in cases.items():
