@@ -37,12 +37,12 @@ from scipy import optimize, special
 #: linearized profile trace, outside this share of the expected q^2 (the half-width off by about a
 #: quarter or more). A project choice, not a published threshold.
 QUADRATIC_RANGE = (0.64, 1.56)
-#: Stopping tolerances of the least-squares fits (scipy's xtol, ftol, gtol). Tighter ones chase the
-#: solver's own noise: its heads converge to 1e-6 m (``NetworkSolver`` head_tol), about 1.5e-6 of a
-#: 1 psi reading's sigma, so a sum of squares near 50 moves by ~1e-4 (2e-6 of it) between solves of
-#: the same point. At 1e-6 instead of 1e-8 the demo town's fit needs 19 % fewer solves and moves no
-#: C or interval end by more than 0.003 (groups.csv prints 0.01).
-LSQ_TOL = 1e-6
+#: Stopping tolerances of the least-squares fits (scipy's xtol, ftol, gtol). Measured: at 1e-7
+#: groups.csv is the one of 1e-8 to its last digit on the demo town and the 7,938-pipe grid, with
+#: 10 % and 1 % fewer solves; at 1e-6 the fit stops early along a weakly determined direction (a C
+#: with sd 6 moved by 0.03 on the grid). Below that the sum of squares' change between steps nears
+#: what the solver's own tolerance (heads to 1e-6 m) moves it by.
+LSQ_TOL = 1e-7
 LINEARIZED = "linearized"
 PROFILE = "profile likelihood"
 
