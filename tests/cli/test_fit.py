@@ -162,7 +162,8 @@ def test_a_failed_fit_ends_the_figure_worker_at_once(tmp_path, capsys, monkeypat
     # the report's worker starts before the fit; bad input ends the command, and the worker with it
     from calib.calibration.figures import FigureWorker
     started, real = [], FigureWorker.start
-    monkeypatch.setattr(FigureWorker, "start", classmethod(lambda cls: started.append(real()) or started[-1]))
+    monkeypatch.setattr(FigureWorker, "start",
+                        classmethod(lambda cls: started.append(real()) or started[-1]))
     folder = tmp_path / "tests"
     folder.mkdir()
     (folder / "flows.csv").write_text("test_id,node,flow [gpm]\nX1,NOPE,1000\n")
