@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import argparse
 import os
+import resource
 import statistics
 import subprocess
 import sys
@@ -46,15 +47,19 @@ def write_grid_case(folder: Path, nx: int = 64, ny: int = 63, n_tests: int = 20)
     return folder / "network", folder / "tests"
 
 
-def wall(code: Path, args: list[str]) -> float:
+def wall(code: Path, args: list[str]) -> tuple[float, float]:
+    """(wall time, CPU time of the process and its children such as the report's figure worker) [s]."""
     env = dict(os.environ, PYTHONPATH=str(code))
+    before = resource.getrusage(resource.RUSAGE_CHILDREN)
     t0 = time.perf_counter()
     done = subprocess.run([sys.executable, "-m", "calib", *args], env=env, cwd=str(code),
                           capture_output=True, text=True)
     elapsed = time.perf_counter() - t0
+    after = resource.getrusage(resource.RUSAGE_CHILDREN)
     if done.returncode != 0:
         raise SystemExit(f"{code}: calib {' '.join(args)} exited {done.returncode}:\n{done.stderr}")
-    return elapsed
+    cpu = (after.ru_utime - before.ru_utime) + (after.ru_stime - before.ru_stime)
+    return elapsed, cpu
 
 
 def main(argv=None) -> int:
@@ -83,13 +88,19 @@ def main(argv=None) -> int:
         print("|---|" + "---|" * len(trees))
         for name, case in cases.items():
             times = {t: [] for t in trees}
+            cpus = {t: [] for t in trees}
             for r in range(args.repeats):
                 for t in trees:  # interleaved: each tree sees the same load
                     extra = [] if case[0] == "fit" else ["--out", str(tmp / f"out{r}"), "--quiet"]
                     cmd = case if case[0] == "fit" else ["fit", *case, *extra]
-                    times[t].append(wall(t, cmd))
+                    w, c = wall(t, cmd)
+                    times[t].append(w)
+                    cpus[t].append(c)
+            # wall: median (range); CPU of the process and its children, median: on a shared
+            # machine a command with a worker process also gets a larger share of the cores
             print(f"| {name} | " + " | ".join(f"{statistics.median(times[t]):.2f} s "
-                                               f"({min(times[t]):.2f}-{max(times[t]):.2f})"
+                                               f"({min(times[t]):.2f}-{max(times[t]):.2f}), "
+                                               f"CPU {statistics.median(cpus[t]):.2f} s"
                                                for t in trees) + " |", flush=True)
     print(f"# load at the end {' '.join(f'{v:.2f}' for v in os.getloadavg())}")
     return 0
