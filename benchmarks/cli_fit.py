@@ -6,7 +6,8 @@ Cases: the demo town (field_samples/tallowmere) and a generated 64 x 63 grid (7,
 20 tests with two gauges each, handbook prior; base demand 0.03 L/s per junction, source 90 m), written once as a network folder and a tests folder.
 Each ``--code`` tree (default: this checkout) runs the same command in a fresh process with
 PYTHONPATH set to it, in turn, so that trees compared in one run see the same load. Prints the
-median wall time per tree and case, and the import time alone (``python -c "import calib.cli"`` is
+median wall time (and CPU time of the command with its children) per tree and case, and the
+import time alone (``python -c "import calib.cli"`` is
 not enough: ``--help`` of the fit command is timed, which loads what the command line loads).
 The grid is invented (calib.calibration.synthetic); no real network.
 """
