@@ -27,7 +27,7 @@ from calib.calibration import flags as _flags
 from calib.calibration import zones
 from calib.calibration.groups import Grouping, make_groups
 from calib.calibration.priors import GroupPrior, group_prior
-from calib.calibration.estimate import PROFILE, Estimate, estimate, refine_intervals
+from calib.calibration.estimate import LSQ_TOL, PROFILE, Estimate, estimate, refine_intervals
 from calib.calibration.problem import CalibrationProblem
 from calib.errors import CalibrationError, InputError
 
@@ -295,7 +295,8 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
             loo_prob = make(mask, x0=est.x)
             loo = optimize.least_squares(loo_prob.residuals, est.x, jac=loo_prob.jacobian,
                                          bounds=(loo_prob.lower, loo_prob.upper), method="trf",
-                                         loss=loss, f_scale=f_scale, x_scale="jac", max_nfev=10)
+                                         loss=loss, f_scale=f_scale, x_scale="jac", max_nfev=10,
+                                         xtol=LSQ_TOL, ftol=LSQ_TOL, gtol=LSQ_TOL)
             shift = np.abs(loo.x[prob.c_cols] - est.x[prob.c_cols])
             rel = np.where(np.isfinite(sd_c) & (sd_c > 0), shift / np.where(sd_c > 0, sd_c, 1), 0.0)
             g = int(np.argmax(rel))

@@ -240,9 +240,6 @@ def summary(result, system: str = "us") -> str:
 
 
 def run(args) -> int:
-    from calib.calibration import export, fit, read_tests
-    from calib.network.io import read_network
-
     c_bounds = _bounds(args.c_bounds)
     sigma = _sigma(args.sigma)
     if not (math.isfinite(args.threshold) and args.threshold > 0):
@@ -255,6 +252,22 @@ def run(args) -> int:
                          expected="a folder for the outputs (created when missing)")
     fileio.check_outputs({"--out": [out / name for name in OUTPUTS]},
                          fileio.input_files(args.network, args.tests))
+    worker = None
+    if not args.no_report:
+        # a process that loads matplotlib now and draws the report's figures later, beside the fit
+        from calib.calibration.figures import FigureWorker
+        worker = FigureWorker.start()
+    try:
+        return _run(args, out, c_bounds, sigma, worker)
+    finally:
+        if worker is not None:
+            worker.close()
+
+
+def _run(args, out, c_bounds, sigma, worker) -> int:
+    from calib.calibration import export, fit, read_tests
+    from calib.network.io import read_network
+
     network = read_network(args.network)
     tests = read_tests(args.tests, network, sigma=sigma)
     # about 100 solves a test on the demo day (fit, refits, interval checks, leave-one-out)
@@ -270,7 +283,7 @@ def run(args) -> int:
         paths = export.write_outputs(result, stage, args.units)
         if not args.no_report:
             from calib.calibration.report import write_report
-            paths.append(write_report(result, stage, args.units))
+            paths.append(write_report(result, stage, args.units, worker=worker))
     paths = [out / Path(p).name for p in paths]
     print(summary(result, args.units))
     print("wrote " + ", ".join(str(p) for p in paths))

@@ -158,6 +158,24 @@ def test_bad_tests_folder_exits_2_naming_file_and_row(tmp_path, capsys):
     assert not (tmp_path / "o").exists()  # nothing written on bad input
 
 
+def test_a_failed_fit_ends_the_figure_worker_at_once(tmp_path, capsys, monkeypatch):
+    # the report's worker starts before the fit; bad input ends the command, and the worker with it
+    from calib.calibration.figures import FigureWorker
+    started, real = [], FigureWorker.start
+    monkeypatch.setattr(FigureWorker, "start",
+                        classmethod(lambda cls: started.append(real()) or started[-1]))
+    folder = tmp_path / "tests"
+    folder.mkdir()
+    (folder / "flows.csv").write_text("test_id,node,flow [gpm]\nX1,NOPE,1000\n")
+    (folder / "pressures.csv").write_text("test_id,node,static [psi]\nX1,J010,80\n")
+    assert main(["fit", str(NETWORK), str(folder), "--out", str(tmp_path / "o"), "--quiet"]) == 2
+    assert len(started) == 1 and started[0] is not None
+    assert started[0]._proc.poll() is not None  # ended, not left running
+    assert main(["fit", str(NETWORK), str(folder), "--out", str(tmp_path / "o"), "--quiet",
+                 "--no-report"]) == 2
+    assert len(started) == 1  # no report, no worker
+
+
 def test_demo_day_keeps_the_field_limits_of_a_flow_test():
     # each gauge of the demo day read as one NFPA 291 flow test (calib.flowtest.evaluate): no
     # residual below 20 psi (NFPA 291), no pitot outside about 10-30 psi (NFPA 291, from memory), no
