@@ -153,7 +153,7 @@ def _plots(result, system: str, curves: bool = True) -> dict[str, str]:
     thr = result.options.get("threshold", 3.0)
     for sgn in (-1, 1):
         ax.axhline(sgn * thr, color="grey", lw=0.8, ls="--",
-                   label=f"flag threshold +/-{thr:g}" if sgn > 0 else None)
+                   label=f"flag cut-off +/-{thr:.2f}" if sgn > 0 else None)
     for kind, colour in (("static", "tab:blue"), ("residual", "tab:orange")):
         sel = (t.kind == kind) & ~flagged
         ax.scatter(xs[sel], result.z[sel], s=26, color=colour, label=f"{kind} reading")
@@ -455,8 +455,9 @@ def render(result, system: str = "us", curves: bool = True) -> str:
         "squares rises by the squared quantile (Venzon and Moolgavkar 1988, Applied Statistics 37(1); "
         "Bates and Watts 1988, Nonlinear Regression Analysis and Its Applications) - never outside the "
         "C bounds. Flags: face checks, standardized residuals "
-        "with leverage, Cook's distance (Cook 1977) and leave-one-out refits; readings beyond the "
-        "threshold are left out one at a time and the fit repeated. Accuracy criteria: WRc (1989) "
+        "with leverage beyond the Bonferroni outlier cut-off at the stated family-wise level (Cook and "
+        "Weisberg 1982), Cook's distance (Cook 1977) and leave-one-out refits; readings beyond the "
+        "cut-off are left out one at a time and the fit repeated. Accuracy criteria: WRc (1989) "
         "Network Analysis - A Code of Practice, and the AWWA ECAC (1999) calibration guidelines, "
         "both quoted from memory.</p>")
     parts.append("<div class='caution'><b>Before using these C-factors.</b> "

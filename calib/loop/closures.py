@@ -16,8 +16,15 @@ Distribution Modeling and Management*, calibration chapter). Method:
    ``|r + delta s_k|^2`` left at the best ``delta`` in ``[0, beta_k]`` (open to closed), with
    ``r = (h - y) / sigma``.
 2. Confirm the best screened ones with exact solves: the pipe's resistance multiplied by 10, 100 and
-   ``CLOSED`` (its C scaled by ``m^(-1/1.852)``, Hazen-Williams), keeping the best; misfit after =
-   the weighted sum of squares at that setting.
+   ``CLOSED`` (its C scaled by ``m^(-1/1.852)``, Hazen-Williams), keeping the best. A valve shut in
+   the street is shut for every test of the day, so each is solved for the day's other tests too
+   (``rank(others=...)``; a test whose readings the closure moves by less than ``SKIP`` sigma to first
+   order keeps its first-order values) and scored on all their readings: the weighted sum of squares,
+   with the C's uncertainty when its covariance is given (generalized least squares), plus
+   ``SETTING_PENALTY`` for a partly closed setting, one fitted unknown (Akaike 1974, IEEE Trans.
+   Autom. Control 19(6)). Measured on generated days (benchmarks/README.md): scored on one test's few
+   readings a partly closed neighbour or another closure often fits them better than the truth; the
+   other tests tell them apart.
 3. Pipes in series (through junctions with two pipes and no gauge or flow of the test) carry the same
    flow: no test there can tell them apart; the note says so.
 """
@@ -120,9 +127,9 @@ class ClosureFinder:
     def screen(self, test: TestReadings, state, others=()) -> np.ndarray:
         """Per pipe: the linearized misfit left after its best resistance increase (inf: cannot help).
 
-        ``others``: ``(TestReadings, state)`` of the day's other tests; their readings are stacked
-        with ``test``'s (one closure amplitude per pipe for all of them; the Sherman-Morrison factor
-        from ``test``'s flowing snapshot).
+        ``others``: ``(TestReadings, state)`` of the day's other tests: their first-order changes
+        are kept (``_linear``) for ``rank`` to skip the solves a closure cannot move; the screen itself
+        stands on ``test``'s readings (the Sherman-Morrison factor from its flowing snapshot).
         """
         net, lin = self.network, self.lin
         n_links = lin.n_links
@@ -158,7 +165,9 @@ class ClosureFinder:
         if beta is None:
             beta = np.ones(net.n_pipes)
         self._linear = (r_parts, S_parts, beta)  # per test: for ``rank`` to skip solves a closure cannot move
-        r_all, S = np.concatenate(r_parts), np.vstack(S_parts)
+        # the screen ranks by ``test``'s readings alone: the other tests' linearization at one shared
+        # amplitude missed closures that flip a control valve (demo town, a pipe by a reducing valve)
+        r_all, S = r_parts[0], S_parts[0]
         sr = r_all @ S
         ss = np.einsum("ij,ij->j", S, S)
         # misfit left at the best amplitude between open (0) and closed (beta) in the linear network

@@ -119,7 +119,7 @@ def demo_closure_trial(seed: int, min_misfit: float = 30.0, tries: int = 20):
 
 def _closed_pipe_day(model, plan, candidates, rng, seed, min_misfit, tries):
     """Draw a pipe of ``candidates`` to close in the truth until a test of ``plan`` sees it."""
-    from calib.hydraulics import NetworkSolver
+    from calib.hydraulics import NetworkSolver, Snapshot
     from calib.network.model import PipeStatus
     solver = NetworkSolver(model, headloss="hazen-williams")
     sim = synthetic.synthetic_tests(model, model.roughness, plan, sigma=1e-9, seed=0, solver=solver)
@@ -129,9 +129,13 @@ def _closed_pipe_day(model, plan, candidates, rng, seed, min_misfit, tries):
         status[k] = PipeStatus.CLOSED
         truth = model.replace(status=status)
         try:
+            # a closure that cuts a junction off (even one without demand, e.g. a reducing valve's
+            # inlet) is not a state a crew finds: draw another
+            if NetworkSolver(truth, headloss="hazen-williams").solve(Snapshot()).isolated:
+                continue
             tests = synthetic.synthetic_tests(truth, truth.roughness, plan, sigma=units.PSI,
                                               seed=seed + 1, round_to=0.5 * units.PSI)
-        except Exception:  # the closure cut a junction off: draw another  # noqa: BLE001
+        except Exception:  # the closure cut a junction with demand off: draw another  # noqa: BLE001
             continue
         r = (sim.pressure - tests.pressure) / tests.sigma
         per_test = np.bincount(tests.test, weights=r ** 2, minlength=len(plan))
