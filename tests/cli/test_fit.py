@@ -269,3 +269,9 @@ def test_demo_fit_flags_only_the_planted_readings_at_the_stated_level(demo_run):
     assert 3.2 < cut < 4.0  # t(1 - 0.05 / (2 n), n - p - 1) for n about 55 (scipy.stats.t)
     assert by_residual.flag.str.contains(r"beyond \+/-3\.[2-9]").all()
     assert "Bonferroni outlier cut-off" in (out / "report.html").read_text()
+
+
+@pytest.mark.parametrize("level", ["0", "1.5", "nan"])
+def test_flag_level_out_of_range_is_refused_before_the_fit(level, tmp_path, capsys):
+    assert main(["fit", str(NETWORK), str(TESTS), "--out", str(tmp_path / "o"), "--flag-level", level]) == 2
+    assert "--flag-level" in capsys.readouterr().err
