@@ -96,7 +96,7 @@ def _residuals_by_test(d):
     ax.axhline(0, color="grey", lw=1)
     for sgn in (-1, 1):
         ax.axhline(sgn * thr, color="grey", lw=0.8, ls="--",
-                   label=f"flag threshold +/-{thr:g}" if sgn > 0 else None)
+                   label=f"flag cut-off +/-{thr:.2f}" if sgn > 0 else None)
     for k, colour in (("static", "tab:blue"), ("residual", "tab:orange")):
         sel = (kind == k) & ~flagged
         ax.scatter(xs[sel], z[sel], s=26, color=colour, label=f"{k} reading")

@@ -363,8 +363,9 @@ def render(result, system: str = "us", curves: bool = True, worker=None) -> str:
         "squares rises by the squared quantile (Venzon and Moolgavkar 1988, Applied Statistics 37(1); "
         "Bates and Watts 1988, Nonlinear Regression Analysis and Its Applications) - never outside the "
         "C bounds. Flags: face checks, standardized residuals "
-        "with leverage, Cook's distance (Cook 1977) and leave-one-out refits; readings beyond the "
-        "threshold are left out one at a time and the fit repeated. Accuracy criteria: WRc (1989) "
+        "with leverage beyond the Bonferroni outlier cut-off at the stated family-wise level (Cook and "
+        "Weisberg 1982), Cook's distance (Cook 1977) and leave-one-out refits; readings beyond the "
+        "cut-off are left out one at a time and the fit repeated. Accuracy criteria: WRc (1989) "
         "Network Analysis - A Code of Practice, and the AWWA ECAC (1999) calibration guidelines, "
         "both quoted from memory.</p>")
     parts.append("<div class='caution'><b>Before using these C-factors.</b> "

@@ -264,3 +264,32 @@ def test_tqdm_is_a_declared_dependency():
     from pathlib import Path
     meta = tomllib.loads((Path(__file__).resolve().parents[2] / "pyproject.toml").read_text())
     assert any(d.split(">")[0].split("=")[0].strip() == "tqdm" for d in meta["project"]["dependencies"])
+
+
+def _planted(truth) -> set:
+    """(test_id, node, kind) of every reading truth.json says was planted wrong (one or a list)."""
+    p = truth.get("planted") or []
+    return {(q["test_id"], q["node"], q["kind"]) for q in (p if isinstance(p, list) else [p])}
+
+
+def test_demo_fit_flags_only_the_planted_readings_at_the_stated_level(demo_run):
+    # the suspect-reading cut-off is the Bonferroni outlier test over the day's readings (Cook and
+    # Weisberg 1982, sec. 2.2.3): a fixed +/-3 flagged two genuine readings of this day besides the
+    # planted one; the level and the cut are stated in the summary, readings.csv and the findings
+    _, out, text, _ = demo_run
+    truth = json.loads((TESTS / "truth.json").read_text())
+    readings = pd.read_csv(out / "readings.csv", keep_default_na=False)
+    by_residual = readings[readings.flag.str.startswith("standardized residual")]
+    assert set(zip(by_residual.test_id, by_residual.node, by_residual.kind)) == _planted(truth)
+    line = next(x for x in text.splitlines() if x.startswith("suspect-reading flag:"))
+    assert "Bonferroni" in line and "family-wise level 0.05" in line
+    cut = float(line.split("+/-")[1].split()[0])
+    assert 3.2 < cut < 4.0  # t(1 - 0.05 / (2 n), n - p - 1) for n about 55 (scipy.stats.t)
+    assert by_residual.flag.str.contains(r"beyond \+/-3\.[2-9]").all()
+    assert "Bonferroni outlier cut-off" in (out / "report.html").read_text()
+
+
+@pytest.mark.parametrize("level", ["0", "1.5", "nan"])
+def test_flag_level_out_of_range_is_refused_before_the_fit(level, tmp_path, capsys):
+    assert main(["fit", str(NETWORK), str(TESTS), "--out", str(tmp_path / "o"), "--flag-level", level]) == 2
+    assert "--flag-level" in capsys.readouterr().err
