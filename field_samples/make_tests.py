@@ -80,7 +80,8 @@ CREWS = ("Ines Oakhurst, Tobias Wren", "Marta Feldgrave, Juno Pell")
 def _outlets(t, net):
     """One planned test's outlets as the crew reads them: [(node, pitot psi or nan, flow m3/s, d in)].
 
-    Hose outlets: the pitot that gives the planned share, read to 0.5 psi, and the flow from that
+    Hose outlets: the pitot that gives the planned share, read to 0.5 psi (rounded down, so the test
+    stays within the planned flow), and the flow from that
     reading (NFPA 291 pitot formula); a pumper outlet: the flow meter read to 10 gpm.
     """
     out = []
@@ -89,7 +90,7 @@ def _outlets(t, net):
     for node, share in zip(t.flow_nodes, t.flow_split):
         i = net.node_index[node]
         if n_hose:
-            pitot = round((share / units.GPM / hose_flow_gpm(1.0, n_hose)) ** 2 * 2) / 2
+            pitot = np.floor((share / units.GPM / hose_flow_gpm(1.0, n_hose)) ** 2 * 2) / 2  # never above the plan
             q = float(pitot_discharge(pitot * units.PSI, HOSE_IN * units.INCH, HOSE_C))
             out += [(i, pitot, q, HOSE_IN)] * n_hose
         else:
