@@ -75,6 +75,7 @@ class TestService:
     def __init__(self, store: Store, area: Area | None = None):
         self.store = store
         self.area = area or Area("No area loaded")
+        self.plan: list = []  # the day's plan from the office (mobile.services.plan.load), in order
 
     # --- settings ----------------------------------------------------------------------------
     @property

@@ -103,3 +103,37 @@ def test_snapshot_mode_writes_a_png_of_every_main_screen(tmp_path):
     assert shots == [f"{i + 1:02d}-{name}.png" for i, name in enumerate(SCREENS)]
     for p in (tmp_path / "shots").glob("*.png"):
         assert p.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+def test_an_office_plan_shows_on_the_map_numbered_in_order(tmp_path):
+    """A plan from ``python -m calib plan`` on the demo town, loaded in the app and shown on the map:
+    every planned hydrant is marked with its test's number, and the mark is drawn where the hydrant is
+    (the screenshot's pixel at a flowing hydrant has the plan's colour)."""
+    import matplotlib.image as mpimg
+    import pandas as pd
+
+    from calib.cli import main
+    from mobile.widgets.style import PLAN
+    plan = tmp_path / "plan.csv"
+    assert main(["plan", str(REPO / "field_samples" / "tallowmere" / "network"), "--tests", "3",
+                 "--year", "2026", "--out", str(plan)]) == 0
+    table = pd.read_csv(plan, dtype=str)
+    shown = _drive(tmp_path, "plan", str(plan))
+    assert shown["map_title"] == "today's plan: 3 tests" and "today's plan in order" in shown["legend"]
+    assert shown["as_gauge_disabled"]  # no test open: the plan's map cannot change a test
+    expected = {}
+    for order, row in enumerate(table.itertuples(), start=1):
+        for n in row.flow_nodes.split(";"):
+            expected[n] = ("flow", str(order))
+        for n in row.gauge_nodes.split(";"):
+            expected[n] = ("gauge", str(order))
+    assert {m["node"]: (m["role"], m["label"]) for m in shown["marks"]} == expected
+    image = mpimg.imread(shown["screenshot"])  # rows from the top, RGB(A) in 0-1
+    h = image.shape[0]
+    assert image.shape[1] == shown["window_size"][0] and h == shown["window_size"][1]
+    for m in shown["marks"]:
+        if m["role"] != "flow":
+            continue
+        x, y = (int(round(v)) for v in m["window"])
+        pixel = image[h - 1 - y, x, :3]
+        assert pixel == pytest.approx(PLAN[:3], abs=0.06), (m["node"], pixel)

@@ -4,6 +4,8 @@
 the checklist, pick the gauge hydrant on the map and the flow hydrant from the nearest-first list
 (two outlets), enter static 72 and residual 58, start the flow timer, enter pitots 18 and 20, stop
 the timer, read the labels, finish the test - counting every tap.
+``python window_driver.py plan DATA_DIR OUT.json PLAN.csv``: start the app (demo area), load the
+plan, show it on the map, report the marks and where they are drawn, and take a screenshot.
 ``python window_driver.py find DATA_DIR OUT.json TEST_ID``: start the app on the same data folder,
 find the test in the home list and open it, correct it (reason, CORRECT, confirm), check the reason
 box of another test, the export plan and a stale message; then load the demo network as LOAD AREA
@@ -306,9 +308,36 @@ def script_find(app):
     report["after_pick"] = setup.message
 
 
+def script_plan(app):
+    """Load an office plan (as the PLAN button's file browser hands it over), tap SHOW THE PLAN ON
+    THE MAP, and keep what the map shows: the marks, where each is drawn, and a screenshot."""
+    from kivy.core.window import Window
+
+    home = app.root.get_screen("home")
+    yield from settle()
+    popup = app.show_plan(sys.argv[4])
+    yield from settle()
+    report["plan_message"] = home.message
+    report["plan_buttons"] = [w.text for w in popup.walk() if hasattr(w, "tone")]
+    tap(popup_button("SHOW THE PLAN ON THE MAP"))
+    yield from wait_for(lambda: app.root.current == "map")
+    yield from settle(8)
+    mp = app.root.get_screen("map")
+    netmap = mp.ids.netmap
+    report["map_title"] = mp.view["title"]
+    report["legend"] = mp.view["legend"]
+    report["as_gauge_disabled"] = mp.ids.as_gauge.disabled
+    report["marks"] = [dict(m, window=list(netmap.to_window(*netmap.tap_at_node(m["node"]))))
+                       for m in mp.view["planned"]]
+    report["window_size"] = list(Window.size)
+    yield
+    report["screenshot"] = Window.screenshot(name=os.path.join(os.path.dirname(out_path), "plan-map.png"))
+    yield
+
+
 class DrivenApp(FieldApp):
     def on_start(self):
-        steps = (script_enter if mode == "enter" else script_find)(self)
+        steps = {"enter": script_enter, "find": script_find, "plan": script_plan}[mode](self)
 
         def step(dt):
             try:
@@ -325,7 +354,7 @@ class DrivenApp(FieldApp):
 
 
 try:
-    DrivenApp(data_dir=data_dir, demo_mode=(mode == "enter")).run()
+    DrivenApp(data_dir=data_dir, demo_mode=(mode in ("enter", "plan"))).run()
 except Exception:  # noqa: BLE001
     report["error"] = traceback.format_exc()
 with open(out_path, "w") as fh:
