@@ -122,7 +122,8 @@ def _boundary_text(b: dict, system: str) -> str:
 
 def checklist_rows(service, tid: str) -> list[dict]:
     ticked = service.header(tid)["checklist"]
-    return [{"key": i.key, "title": i.title + ("" if i.required else "  (if local rules ask)"),
+    return [{"key": i.key, "title": ("SAFETY: " if i.safety else "") + i.title
+             + ("" if i.required else "  (if local rules ask)"), "safety": i.safety,
              "detail": i.detail, "ticked": bool(ticked.get(i.key))} for i in checklist.ITEMS]
 
 

@@ -1,7 +1,7 @@
 """Drive the real app window like a crew would, then print what the screen shows as JSON.
 
-``python window_driver.py enter DATA_DIR OUT.json``: start the app (demo area), tap NEW TEST, tick
-the checklist, pick the gauge hydrant on the map and the flow hydrant from the nearest-first list
+``python window_driver.py enter DATA_DIR OUT.json``: start the app (demo area), tap NEW TEST, tap
+each safety item of the checklist and ALL DONE, pick the gauge hydrant on the map and the flow hydrant from the nearest-first list
 (two outlets), enter static 72 and residual 58, start the flow timer, enter pitots 18 and 20, stop
 the timer, read the labels, finish the test - counting every tap.
 ``python window_driver.py plan DATA_DIR OUT.json PLAN.csv``: start the app (demo area), load the
@@ -148,7 +148,20 @@ def script_enter(app):
     yield from settle()
     checklist = app.root.get_screen("checklist")
     report["crew_carried_over"] = app.service.header(app.test_id)["crew"]
-    # every required item done: one tap ticks them and goes on to the map
+    # ALL DONE before the safety items (a tap a crew might make; not counted): refused, named, stays
+    report["counting"] = False
+    tap(checklist.ids.all_done)
+    yield from wait_for(lambda: checklist.bad and checklist.message)
+    report["all_done_first"] = checklist.message
+    report["screen_after_all_done_first"] = app.root.current
+    report["counting"] = True
+    # each safety item confirmed by its own tap, then ALL DONE ticks the rest and goes on to the map
+    from mobile.services.checklist import ITEMS
+    for item in [i for i in ITEMS if i.safety]:
+        yield from tap_until(lambda: next(r for r in rows(checklist.ids.item_list) if r.key == item.key),
+                             lambda: app.service.header(app.test_id)["checklist"][item.key], tries=1)
+    report["safety_ticked_by_taps"] = [i.key for i in ITEMS if i.safety
+                                       and app.service.header(app.test_id)["checklist"][i.key]]
     tap(checklist.ids.all_done)
     yield from wait_for(lambda: app.root.current == "map")
     report["unticked"] = [r["key"] for r in checklist.rows if not r["ticked"]]
