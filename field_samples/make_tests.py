@@ -12,9 +12,9 @@ the demo truth: the handbook prior for the year of the tests (``handbook_state``
 D-optimal design (Bush and Uber 1998; Atkinson, Donev and Tobias 2007) of ``N_TESTS`` tests over every
 hydrant of the town, one flowing hydrant or two neighbouring ones, standard outlets, gauges that drop
 4 psi or more (10 psi preferred, Walski), no hydrant in two tests. The margin above NFPA 291's 20 psi
-is ``MARGIN_PSI`` = 10 psi, not the command's default 5: the office model's cast iron (C 64.5 by the
-handbook) is rougher in the demo truth (58), and with 5 psi two planned tests would take a junction of
-the true town below 20 psi (seen when this generator was switched to the planner). The generator
+is ``MARGIN_PSI`` = 10 psi, not the command's default 5: the handbook's cast iron (C 64.5 in 2026)
+is smoother than the demo truth of the 1930s mains (58), and with 5 psi two planned tests would take a
+junction of the true town below 20 psi (seen when this generator was switched to the planner). The generator
 checks the plan against the truth and stops if any limit breaks there: every junction at 20 psi or
 more, each pitot 10-30 psi. Where the true street has less pressure at a flowing hydrant than the model
 promised, its outlets give less: the pitot is read lower (0.5 psi steps) until it stays 5 psi below
@@ -32,8 +32,8 @@ flags to find; truth.json lists it. Where it is planted is a demo choice, made o
 of a group (e.g. T05, the day's first on CI-1930s) the on-site check cannot call +8 psi suspect, since
 the handbook's wide spread of C explains it; on T13, after T05 has narrowed the CI-1930s C, it can (seen
 when this generator was switched to the planner: planted on T07, T09, T10 or T12 the check let it pass,
-on T13 or T14 it called it suspect). The tank levels and the noise have separate seeds. The noise seed is a demo choice, made openly
-(``NOISE_SEED = 1``, the first seed tried on this plan; the coverage of the intervals over many draws is
+on T13 or T14 it called it suspect). The tank levels and the noise have separate seeds. The noise
+seed is a demo choice, made openly (``NOISE_SEED = 1``, the first seed tried on this plan; the coverage of the intervals over many draws is
 checked on synthetic networks in ``tests/calibration``, not here).
 
 Flowing hydrants in a real town: open and close them slowly (water hammer), mind traffic, the path
