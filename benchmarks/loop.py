@@ -6,6 +6,7 @@
     python benchmarks/loop.py closures-alone N # the same, each closure scored on the one test alone
     python benchmarks/loop.py closures-demo N  # the demo town's day with a pipe closed in the truth
     python benchmarks/loop.py closures-8k      # one ranking on a grid of about 8,000 pipes
+    python benchmarks/loop.py device [REPEAT]  # the app's on-site check as a tablet runs it (see below)
 
 All data invented (calib.loop.trials, the demo town Tallowmere). Records ``uptime`` with the figures.
 """
@@ -122,6 +123,64 @@ def bench_closures_8k() -> None:
               f"wall, {time.process_time() - c0:.1f} s CPU; {load()}")
 
 
+def _app_job(net, tests, k: int):
+    """The field app's CheckJob for the demo day's test number ``k`` (0-based), the tests before it
+    as the day's earlier ones: what mobile.services.check hands its worker on site."""
+    from calib.units import GAMMA_WATER
+    from mobile.services.check import TOLERANCE, CheckJob
+    ids = net.node_ids
+
+    def one(t):
+        observed = {}
+        for j in np.flatnonzero(tests.test == t):
+            at_node = tests.pressure[j] + GAMMA_WATER * tests.gauge_height[j]
+            observed.setdefault(str(ids[tests.node[j]]), {})[tests.kind[j]] = at_node
+        return ({str(ids[n]): q for n, q in tests.flows[t].items()},
+                {g: (v["static"], v["residual"]) for g, v in observed.items()},
+                {str(ids[s]): h for s, h in tests.source_head[t].items()})
+
+    flows, observed, grades = one(k)
+    return CheckJob(net, flows, list(observed), observed, "us", TOLERANCE, grades,
+                    earlier=[one(t) for t in range(k)])
+
+
+def bench_device(repeat: int) -> None:
+    """The on-site check exactly as the app's worker runs it (``mobile.services.check.run_job``; no
+    Kivy needed), on the demo day: the first test (no earlier tests), the test with the planted
+    reading (its closure ranking included) and the last test (every earlier test re-judged: the
+    slowest check of the day). Prints the device facts to record beside the times."""
+    import json
+    import platform
+
+    import scipy
+
+    t0 = time.perf_counter()
+    from mobile.services.check import run_job
+    import calib.loop.check  # noqa: F401 - imported by the first check in the app
+    imports = time.perf_counter() - t0
+    demo = ROOT / "field_samples" / "tallowmere"
+    net = read_network(demo / "network")
+    tests = read_tests(demo / "tests", net)
+    planted = json.loads((demo / "tests" / "truth.json").read_text())["planted"]["test_id"]
+    cases = [("first test", 0), (f"{planted} (planted reading, closures ranked)", tests.test_ids.index(planted)),
+             ("last test", tests.n_tests - 1)]
+    affinity = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else "?"
+    print(f"device: {platform.machine()} {platform.platform()}; Python {platform.python_version()}, "
+          f"numpy {np.__version__}, scipy {scipy.__version__}; {os.cpu_count()} cores, {affinity} usable "
+          f"by this process; {load()}")
+    print(f"imports of the check (beyond the network and tests readers): {imports:.2f} s")
+    for name, k in cases:
+        times, result = [], None
+        for _ in range(repeat):
+            job = _app_job(net, tests, k)
+            t1 = time.perf_counter()
+            result = run_job(job)
+            times.append(time.perf_counter() - t1)
+        bad = sum(g.suspect for g in result.gauges)
+        print(f"{name}: {tests.test_ids[k]} with {k} earlier test(s): first {times[0]:.2f} s, best of "
+              f"{repeat} {min(times):.2f} s; {len(result.gauges)} gauges, {bad} suspect")
+
+
 if __name__ == "__main__":
     what = sys.argv[1] if len(sys.argv) > 1 else "check"
     n = int(sys.argv[2]) if len(sys.argv) > 2 else 40
@@ -130,4 +189,5 @@ if __name__ == "__main__":
      "closures": lambda: bench_closures(n, first_seed=seed0),
      "closures-alone": lambda: bench_closures(n, alone=True, first_seed=seed0),
      "closures-demo": lambda: bench_closures(n, town="demo", first_seed=seed0),
-     "closures-8k": lambda: bench_closures_8k()}[what]()
+     "closures-8k": lambda: bench_closures_8k(),
+     "device": lambda: bench_device(int(sys.argv[2]) if len(sys.argv) > 2 else 3)}[what]()
