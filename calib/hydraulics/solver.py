@@ -240,6 +240,7 @@ class NetworkSolver:
         flips = np.zeros(len(q), dtype=np.int64)
         vstate, vflips, vheld = self._vstate, np.zeros(self.nv, np.int64), np.zeros(self.nv, bool)
         isolated = self._isolated(active, vstate)
+        isolated, vstate, active, q = self._shut_dead_valves(isolated, vstate, active, q)
         self._check_isolated(isolated, demand)
         # held junctions (Snapshot.held_head) keep a fixed grade like a source: their mass equation
         # leaves the system (identity row, as for an isolated junction) and their draw is an output
@@ -318,6 +319,7 @@ class NetworkSolver:
                                                               demand)
                 if iso is not None:
                     isolated = iso | self.valves.cut_off(active, vstate) if self.nv else iso
+                    isolated, vstate, active, q = self._shut_dead_valves(isolated, vstate, active, q)
                     self._check_isolated(isolated, demand)
             if self.nv and dq_max <= STATE_CHECK_FLOW * q_ref:  # valves: states near a solution
                 vchanged, vstate, q, vhold = self.valves.update(q, H, vstate, vflips, demand,
@@ -329,6 +331,8 @@ class NetworkSolver:
                     active[self.np_ + self.nu:] = (vstate != VALVE_CLOSED) & \
                         ~fixed_closed[self.np_ + self.nu:]
                     isolated = self._isolated(active, vstate)
+                    isolated, vstate, active, q = self._shut_dead_valves(isolated, vstate, active,
+                                                                         q)
                     self._check_isolated(isolated, demand)
         self._fail(f"no convergence in {self.max_iterations} iterations", self.max_iterations,
                    F2, dH, dq, e2)
@@ -455,6 +459,29 @@ class NetworkSolver:
                 f"check valve / pump status kept flipping and was frozen inconsistent with the "
                 f"solution at link(s) {', '.join(ids)}; check their direction and settings",
                 iterations=int(flips.max()), worst_links=ids)
+
+    def _shut_dead_valves(self, isolated, vstate, active, q):
+        """A control valve whose inlet junction is cut off from every source carries nothing: it is
+        closed for this solve and kept closed (``ValveLinks.shut``). Left active, a reducing valve
+        would feed its outlet from the dead inlet's stale grade: water made from nothing, since
+        the dead junction's mass balance is out of the system."""
+        if not self.nv:
+            return isolated, vstate, active, q
+        v, s = self.valves, slice(self.np_ + self.nu, self.np_ + self.nu + self.nv)
+        inlet = v.frm < self.nj
+        for _ in range(self.nv):  # closing one may cut off the inlet of another
+            shut = np.zeros(self.nv, dtype=bool)
+            shut[inlet] = isolated[v.frm[inlet]]
+            v.shut = shut
+            dead = shut & (vstate != VALVE_CLOSED)
+            if not dead.any():
+                break
+            vstate, active, q = vstate.copy(), active.copy(), q.copy()
+            vstate[dead] = VALVE_CLOSED
+            active[s] &= ~dead
+            q[s][dead] = 0.0
+            isolated = self._isolated(active, vstate)
+        return isolated, vstate, active, q
 
     def _check_isolated(self, isolated, demand):
         bad = isolated & (np.abs(demand) > 0)

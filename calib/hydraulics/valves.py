@@ -128,6 +128,9 @@ class ValveLinks:
                            if n else np.zeros(0, dtype=np.int64)).astype(np.int64)
         self._cut_cache = None
         self._zone_cache = None
+        #: valves whose inlet is cut off from every source: closed whatever the rules say (set by
+        #: the solver, ``NetworkSolver._shut_dead_valves``)
+        self.shut = np.zeros(n, dtype=bool)
         self.start()
 
     def _all_links(self, net):
@@ -247,6 +250,7 @@ class ValveLinks:
         new[o & rev] = CLOSED
         new[a & (hf - ht < h_at_set - tol)] = OPEN
         new[c & (hf > ht + tol)] = OPEN
+        new[self.shut] = CLOSED  # a dead inlet feeds nothing
         return new
 
     def update(self, q, H, state, flips, demand, settled=True):

@@ -98,3 +98,30 @@ def test_extra_diagonal_lands_on_its_junction_in_a_reordered_pattern():
                       shape=(8, 7)).toarray()[:7]  # A21 over junctions: +1 at to, -1 at from
     dense = A @ np.diag(w) @ A.T + np.diag(extra)  # A21 diag(w) A12 + extra, written out
     np.testing.assert_allclose(S, dense[np.ix_(pat.perm, pat.perm)], atol=1e-12)
+
+
+def test_a_reducing_valve_whose_inlet_is_cut_off_carries_nothing():
+    # V2's inlet D hangs on U3 by one pipe, closed: D is dead. Left active, the valve fed Z4 from
+    # D's stale start grade (water from nothing; seen on the demo town with P280 shut). Continuity
+    # (common practice): the zone's whole demand, 0.010 m3/s, comes through V1, the one live inlet,
+    # and every head equals that of the same network with V2 held closed.
+    from calib.network.model import PipeStatus
+    junctions = UP_J + ZONE_J + [("D", 20.0, 0.0)]
+    pipes = UP_P + ZONE_P + [("C1", "U3", "D", 50.0, 0.2, 100.0)]
+    status = np.zeros(len(pipes), dtype=np.int8)
+    status[-1] = PipeStatus.CLOSED
+    base = build(junctions, [("R", 100.0)], pipes, status=status)
+
+    def rows(mode_v2):
+        return [("V1", "U3", "Z1", D_V, ValveType.REDUCING, 30.0 * GAMMA_WATER, ValveMode.ACTIVE,
+                 2.0),
+                ("V2", "D", "Z4", D_V, ValveType.REDUCING, 40.0 * GAMMA_WATER, mode_v2, 2.0)]
+
+    res = NetworkSolver(with_valves(base, rows(ValveMode.ACTIVE))).solve()
+    assert res.isolated == ["D"]
+    assert res.valve_state[1] == "closed" and res.valve_flow[1] == 0.0
+    assert res.valve_flow[0] == pytest.approx(0.010, rel=1e-6)
+    held = NetworkSolver(with_valves(base, rows(ValveMode.CLOSED))).solve()
+    live = np.array([i != "D" for i in base.junction_ids])
+    nj = base.n_junctions
+    np.testing.assert_allclose(res.head[:nj][live], held.head[:nj][live], atol=1e-6)
