@@ -39,9 +39,10 @@ def register(subparsers) -> None:
                    help="lowest pressure allowed elsewhere in the hydrant's zone (default 20 psi)")
     p.add_argument("--demand-factor", default="1", metavar="F",
                    help="multiply every base demand by F during the fire (default 1)")
-    p.add_argument("--system-search", choices=("always", "binding"), default="always",
-                   help="always: find the system-limited flow at every hydrant; binding: only where "
-                        "it can limit the available flow (faster; flow_system left empty elsewhere)")
+    p.add_argument("--system-search", choices=("binding", "always"), default="binding",
+                   help="binding (default): find the system-limited flow only where it can limit "
+                        "the available flow (same available flow; flow_system left empty "
+                        "elsewhere); always: at every hydrant (slower)")
     p.add_argument("--nodes", default="hydrants", metavar="WHICH",
                    help="hydrants (default: junctions marked as hydrants), all, or ids J1,J2,...")
     run_on = p.add_mutually_exclusive_group()
@@ -118,7 +119,8 @@ def run(args) -> int:
         "zone (the junctions' zone column; the whole network for a junction without one)",
         "demand factor": f"{options.demand_factor:g} x base demand",
         "system search": ("every hydrant" if options.system_search == "always" else
-                          "only where it can limit the available flow (flow_system empty elsewhere)"),
+                          "only where it can limit the available flow (flow_system empty elsewhere: "
+                          "there it is larger than the flow at residual)"),
         "interval": ("95 %, normal, first-order; from the fitted C-factors' uncertainty only "
                      "(not demands, valve positions or tank levels)")
         if fit.covariance is not None else "none",

@@ -196,7 +196,10 @@ def render(network, flows, settings: dict, system: str = "us", failures=()) -> s
               "draw. System flow: the draw at which the lowest pressure at any other junction of "
               "its zone reaches the system minimum, found by a short search extrapolating each "
               "junction's pressure drop as Q^1.852 (Hazen-Williams), and the junction that limits "
-              "it. Available: the smaller. Interval: the C covariance of the fit propagated to "
+              "it; unless the run's settings say 'every hydrant', it is searched only where it can "
+              "limit: where the held solve shows every other junction of the zone above the "
+              "minimum, pressures being higher still at any smaller draw, the system flow is "
+              "larger and is left empty. Available: the smaller. Interval: the C covariance of the fit propagated to "
               "first order through the analytic sensitivities (JCGM 100:2008, 5.1.2), "
               "+/- 1.96 sd.</p>",
               f"<p>Written {_dt.datetime.now(_dt.timezone.utc):%Y-%m-%d %H:%M} UTC.</p>",

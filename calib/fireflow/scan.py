@@ -12,6 +12,8 @@ For a hydrant at junction i (SI inside: Pa gauge, m3/s):
   Hazen-Williams flow exponent, the same law as the 0.54 rating formula of NFPA 291), the smallest
   flow that brings one of them to the minimum is solved, and the extrapolation repeated from that
   solution until the lowest pressure is within ``pressure_tol`` of the minimum (2-3 solves).
+  By default (``ScanOptions.system_search="binding"``) the search runs only where it can decide the
+  available flow; see "When the search is skipped" below.
 - ``available`` = the smaller of the two; its NFPA 291 class (``calib.flowtest.hydrant_class``).
 
 With a C covariance (``GroupCovariance``), each flow also carries its gradient with respect to the
@@ -19,6 +21,26 @@ group C-factors by implicit differentiation at the converged state (``NetworkSol
 d(draw)/dC at the held solve; for the system flow ``dQ/dC = -(dH_j/dC) / (dH_j/dQ)`` at the limiting
 junction j. The interval of the available flow is ``Q +/- z sqrt(g^T Cov g)`` (first-order
 propagation of the covariance, e.g. JCGM 100:2008 (GUM), section 5.1.2).
+
+When the search is skipped (the default, ``system_search="binding"``), and why that is exact:
+every link of the model passes a flow from -> to that does not fall when the grade at its inlet
+rises and does not rise when the grade at its outlet rises: pipes and minor losses (h(Q) increasing),
+pumps on falling curves, check valves, and the control valves (a reducing valve's outlet grade is the
+lower of its setting and what the inlet gives; a sustaining valve passes more as its inlet rises; a
+flow-limiting valve caps the flow; a throttle is a fixed loss). The junctions' mass balance is then an
+M-function of their heads, whose solution is antitone in the demands (Rheinboldt, W. C. (1970), "On
+M-functions and their application to nonlinear Gauss-Seidel iterations and to network flows",
+J. Math. Anal. Appl. 32, 274-307; from memory): a larger draw at the hydrant lowers no junction's
+grade. The held solve *is* the state at the draw ``flow_at_residual`` = Q_r. So if there every other
+junction of the zone is above the system minimum by more than ``pressure_tol``, it is higher still at
+every draw below Q_r: the system-limited flow exceeds Q_r, the available flow is Q_r, its gradient
+(interval) and class are those of the residual, and the hydrant limits itself. ``flow_system`` and
+``limiting_node`` are then left empty, with a note. The full search (the same as
+``system_search="always"``) runs in every other case: a junction of the zone at or within
+``pressure_tol`` of the minimum at the held solve (the system limit binds, or nearly; its flow and
+junction are then the full search's), or no held solve (static at or below the residual). The
+checks in tests/fireflow/test_scan.py compare both modes on every hydrant of the demo town and of a
+generated grid, the full search itself against scipy's brentq.
 """
 
 from __future__ import annotations
@@ -55,11 +77,12 @@ class ScanOptions:
     ``pressure_tol`` [Pa] of the minimum or the next flow step is below ``flow_rtol`` (relative),
     after at most ``max_search`` solves.
 
-    ``system_search``: ``"always"`` (default) searches the system-limited flow for every hydrant;
-    ``"binding"`` skips the search when the held solve already shows every other junction of the
-    zone above the system minimum: the system flow is then larger than the flow at the residual
-    (pressures fall as the draw grows), so ``available``, its interval and class are the same, and
-    ``flow_system`` is left empty (nan) with a note saying so. Saves 1-3 solves per hydrant."""
+    ``system_search``: ``"binding"`` (default) searches the system-limited flow only where it can
+    limit the available flow: it is skipped when the held solve already shows every other junction
+    of the zone above the system minimum (exact: see the module's "When the search is skipped");
+    ``available``, its interval, class and what limits it are the same as with ``"always"``, which
+    searches at every hydrant and so also fills ``flow_system`` where it is larger than the flow at
+    the residual. Binding saves 1-3 solves per hydrant where the search is skipped."""
 
     residual: float = 20 * PSI
     system_minimum: float = 20 * PSI
@@ -67,7 +90,7 @@ class ScanOptions:
     pressure_tol: float = 0.02 * PSI
     flow_rtol: float = 2e-4
     max_search: int = 12
-    system_search: str = "always"
+    system_search: str = "binding"
 
     def check(self) -> None:
         if self.system_search not in ("always", "binding"):
@@ -235,7 +258,7 @@ class FireFlowScan:
         if (opt.system_search == "binding" and held is not None and out.flow_at_residual > 0
                 and held.pressure[zone].min() > target + opt.pressure_tol):
             out.notes.append("system limit not searched: every other junction of the zone stays "
-                             "above the system minimum at the flow at residual")
+                             "above the system minimum at the flow at residual, so it is larger")
             return
         # first point: the held solve when there is one, else a 1000 gpm draw
         if held is not None and out.flow_at_residual > 0:

@@ -72,7 +72,7 @@ def test_map_bands_are_contiguous_and_named():
 
 
 def test_binding_system_search_keeps_the_available_flow(tmp_path, fit_dir, capsys):
-    # the same hydrants with the full search and with --system-search binding: same available
+    # the same hydrants with --system-search always and binding (the default): same available
     # flow, interval and class; flow_system empty only where it was not searched
     tables = {}
     for mode in ("always", "binding"):
