@@ -2,11 +2,15 @@
 20k hydrants would take on N workers (run by hand, never in the tests).
 
     python benchmarks/fireflow.py [--sample10k 120] [--sample50k 16] [--dask 240] [--full]
+                                  [--full-only] [--tree PATH] [--system-search always|binding]
 
 Grids: ``benchmarks/solver.py``'s square grids (71 x 71 junctions, 9,942 pipes; 159 x 159, 50,246
 pipes; invented data). Every junction counts as a hydrant. ``--full`` also scans all 5,041 junctions
 of the 10k grid on a local cluster of 2 workers (the issue's target: under 2 minutes here).
-The machine's load (``os.getloadavg``) is printed with the figures: it is shared.
+``--full-only`` runs only that scan; ``--tree PATH`` imports ``calib`` from another checkout (e.g. a
+pristine main) for a same-run comparison, with that checkout's default options unless
+``--system-search`` is given. The machine's load (``os.getloadavg``) is printed with the figures: it
+is shared.
 """
 
 from __future__ import annotations
@@ -20,7 +24,10 @@ from pathlib import Path
 
 import numpy as np
 
-sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+# --tree PATH: calib from that checkout (read before the imports below)
+_TREE = (sys.argv[sys.argv.index("--tree") + 1] if "--tree" in sys.argv[:-1]
+         else str(Path(__file__).resolve().parents[1]))
+sys.path.insert(0, _TREE)
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 from calib.fireflow import FireFlowScan, ScanOptions, distribute  # noqa: E402
@@ -59,7 +66,7 @@ def dask_rate(net, nodes, workers: int, options=None) -> dict:
         res = distribute.run(net, nodes, options=options, client=c, progress=False)
     assert not res.failures, res.failures
     return dict(workers=workers, hydrants=len(nodes), startup=startup, seconds=res.seconds,
-                rate=len(nodes) / res.seconds)
+                rate=len(nodes) / res.seconds, solves=res.solves)
 
 
 def main(argv=None) -> int:
@@ -68,12 +75,18 @@ def main(argv=None) -> int:
     p.add_argument("--sample50k", type=int, default=16)
     p.add_argument("--dask", type=int, default=240, help="hydrants for the 1 vs 2 worker runs")
     p.add_argument("--full", action="store_true", help="all 5,041 junctions of the 10k grid, 2 workers")
-    p.add_argument("--system-search", choices=("always", "binding"), default="always",
-                   help="ScanOptions.system_search (binding: skip the search where it cannot limit)")
+    p.add_argument("--full-only", action="store_true", help="only the --full scan")
+    p.add_argument("--tree", default=_TREE, help="checkout to import calib from (default: this one)")
+    p.add_argument("--system-search", choices=("always", "binding"), default=None,
+                   help="ScanOptions.system_search (default: the checkout's default)")
     args = p.parse_args(argv)
-    opts = ScanOptions(system_search=args.system_search)
-    print(f"system search: {args.system_search}")
+    opts = (ScanOptions(system_search=args.system_search) if args.system_search
+            else ScanOptions())
+    import calib
+    print(f"calib from {Path(calib.__file__).parent}; system search: {opts.system_search}")
     print(f"start: {load()}, {os.cpu_count()} cores")
+    if args.full_only:
+        return full_scan(opts)
     grids = {"10k": square_grid(71), "50k": square_grid(159)}
     rates = {}
     for name, n in (("10k", args.sample10k), ("50k", args.sample50k)):
@@ -100,12 +113,19 @@ def main(argv=None) -> int:
                         for n in (1, 2, 8, 32, 128))
         print(f"20k hydrants on the {name} grid at this per-core rate, linear in workers: {est}")
     if args.full:
-        net = grids["10k"]
-        allnodes = [str(i) for i in net.node_ids[: net.n_junctions]]
-        r = dask_rate(net, allnodes, 2, opts)
-        print(f"full 10k grid, every junction ({len(allnodes)}), 2 workers: {r['seconds']:.0f} s "
-              f"(+ {r['startup']:.1f} s cluster start), {load()}")
+        full_scan(opts)
     print(f"end: {load()}")
+    return 0
+
+
+def full_scan(opts) -> int:
+    """Every junction of the 10k grid on a local Dask cluster of 2 workers (the issue's target)."""
+    net = square_grid(71)
+    allnodes = [str(i) for i in net.node_ids[: net.n_junctions]]
+    r = dask_rate(net, allnodes, 2, opts)
+    print(f"full 10k grid, every junction ({len(allnodes)}), 2 workers: {r['seconds']:.1f} s "
+          f"(+ {r['startup']:.1f} s cluster start) = {r['rate']:.1f} hydrants/s, "
+          f"{r['rate'] / 2:.1f} per core; {r['solves'] / len(allnodes):.2f} solves each; {load()}")
     return 0
 
 

@@ -43,6 +43,10 @@ def register(subparsers) -> None:
                    help="binding (default): find the system-limited flow only where it can limit "
                         "the available flow (same available flow; flow_system left empty "
                         "elsewhere); always: at every hydrant (slower)")
+    p.add_argument("--zones", choices=("hydraulic", "column"), default="hydraulic",
+                   help="where a hydrant's zone for the system minimum comes from: hydraulic "
+                        "(default: the model's pressure zones, split at active reducing, "
+                        "sustaining and flow-limiting valves) or column (junctions.csv zone)")
     p.add_argument("--nodes", default="hydrants", metavar="WHICH",
                    help="hydrants (default: junctions marked as hydrants), all, or ids J1,J2,...")
     run_on = p.add_mutually_exclusive_group()
@@ -84,6 +88,7 @@ def _factor(text: str) -> float:
 
 def run(args) -> int:
     from calib.fireflow import ScanOptions, hydrant_nodes
+    from calib.fireflow.scan import ZONE_SOURCES
     from calib.fireflow import distribute, outputs
     from calib.fireflow.fitdir import read_fit
     from calib.network.io import read_network
@@ -91,7 +96,7 @@ def run(args) -> int:
     options = ScanOptions(residual=_pressure(args.residual, "--residual"),
                           system_minimum=_pressure(args.system_minimum, "--system-minimum"),
                           demand_factor=_factor(args.demand_factor),
-                          system_search=args.system_search)
+                          system_search=args.system_search, zones=args.zones)
     if args.workers is not None and args.workers < 0:
         raise InputError(f"--workers {args.workers} is negative", field="--workers",
                          expected="0 (no Dask) or a number of processes")
@@ -116,7 +121,7 @@ def run(args) -> int:
     settings = {
         "network": args.network, "C-factors": fit.note, "target residual": show(options.residual),
         "system minimum": show(options.system_minimum) + " at any other junction of the hydrant's "
-        "zone (the junctions' zone column; the whole network for a junction without one)",
+        f"zone ({options.zones}: {ZONE_SOURCES[options.zones]})",
         "demand factor": f"{options.demand_factor:g} x base demand",
         "system search": ("every hydrant" if options.system_search == "always" else
                           "only where it can limit the available flow (flow_system empty elsewhere: "

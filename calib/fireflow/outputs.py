@@ -54,6 +54,7 @@ def frame(flows, system: str = "us") -> pd.DataFrame:
         f"flow_at_residual [{fu}]": q([f.flow_at_residual for f in flows]),
         f"flow_system [{fu}]": q([f.flow_system for f in flows]),
         "limiting_node": [f.limiting_node for f in flows],
+        "zone": [f.zone for f in flows],
         f"available [{fu}]": q([f.available for f in flows]),
         f"low [{fu}]": q([f.low for f in flows]),
         f"high [{fu}]": q([f.high for f in flows]),
@@ -137,6 +138,7 @@ def _svg(network, flows, system: str) -> str:
                + (f" (95 % {row[f'low [{fu}]']} - {row[f'high [{fu}]']})" if row[f"low [{fu}]"] != "" else "")
                + f", static {row[f'static [{pu}]']} {pu}, limited by "
                + (row["limiting_node"] if fl.available == fl.flow_system else "its own residual")
+               + (f", zone {row['zone']}" if row["zone"] else "")
                + (f"; {row['note']}" if row["note"] else ""))
         parts.append(f"<circle cx='{px(x[i]):.1f}' cy='{py(y[i]):.1f}' r='6' fill='{colour}' "
                      f"stroke='#222' stroke-width='0.8'><title>{html.escape(tip)}</title></circle>")

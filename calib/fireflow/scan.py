@@ -6,8 +6,11 @@ For a hydrant at junction i (SI inside: Pa gauge, m3/s):
   is held at a fixed grade, elevation + residual / gamma (``Snapshot.held_head``), and one solve gives
   the draw: the node's inflow minus its own demand.
 - ``flow_system``: the draw at which the lowest pressure at any *other* junction of its zone falls to
-  the system minimum, and which junction that is (``limiting``). The zone is the junction's ``zone``
-  column; a junction without one is checked against the whole network. Found by a short search:
+  the system minimum, and which junction that is (``limiting``). The zone (``ScanOptions.zones``)
+  is by default the hydraulic zone of the static solution (``SolveResult.zone``: the part of the
+  network fed by the same sources, split at active pressure-reducing, sustaining and flow-limiting
+  valves, which hold the grade or flow beyond them); with ``zones="column"`` the junctions.csv
+  ``zone`` column (a junction without one is checked against the whole network). Found by a short search:
   every junction's pressure drop is extrapolated from the static point as ``a_j Q^1.852`` (the
   Hazen-Williams flow exponent, the same law as the 0.54 rating formula of NFPA 291), the smallest
   flow that brings one of them to the minimum is solved, and the extrapolation repeated from that
@@ -70,6 +73,14 @@ Z95 = 1.959964
 SCAN_TOLERANCES = dict(head_tol=1e-4, flow_tol=1e-6, energy_tol=1e-4)
 
 
+#: Where a hydrant's zone comes from (``ScanOptions.zones``), in words for the outputs.
+ZONE_SOURCES = {
+    "hydraulic": "hydraulic zones of the static solution (fed by the same sources; split at active "
+                 "pressure-reducing, sustaining and flow-limiting valves)",
+    "column": "the junctions' zone column (the whole network for a junction without one)",
+}
+
+
 @dataclass(frozen=True)
 class ScanOptions:
     """What a scan asks (SI): target residual at the hydrant and minimum anywhere else in its zone
@@ -82,7 +93,10 @@ class ScanOptions:
     of the zone above the system minimum (exact: see the module's "When the search is skipped");
     ``available``, its interval, class and what limits it are the same as with ``"always"``, which
     searches at every hydrant and so also fills ``flow_system`` where it is larger than the flow at
-    the residual. Binding saves 1-3 solves per hydrant where the search is skipped."""
+    the residual. Binding saves 1-3 solves per hydrant where the search is skipped.
+
+    ``zones``: ``"hydraulic"`` (default: the static solution's pressure zones, split by control
+    valves) or ``"column"`` (the junctions' ``zone`` column as given in junctions.csv)."""
 
     residual: float = 20 * PSI
     system_minimum: float = 20 * PSI
@@ -91,8 +105,12 @@ class ScanOptions:
     flow_rtol: float = 2e-4
     max_search: int = 12
     system_search: str = "binding"
+    zones: str = "hydraulic"
 
     def check(self) -> None:
+        if self.zones not in ZONE_SOURCES:
+            raise InputError(f"zones '{self.zones}' is not known", field="--zones",
+                             expected=" or ".join(ZONE_SOURCES))
         if self.system_search not in ("always", "binding"):
             raise InputError(f"system search '{self.system_search}' is not known",
                              field="--system-search", expected="always or binding")
@@ -140,6 +158,7 @@ class HydrantFlow:
     low: float = math.nan
     high: float = math.nan
     note: str = ""
+    zone: str = ""  # the zone checked against the system minimum ('' : the whole network)
     solves: int = 0
     notes: list = field(default_factory=list)
 
@@ -167,7 +186,11 @@ class FireFlowScan:
         nj = net.n_junctions
         self.p0 = self.static.pressure[:nj]
         self.iso = self.static._isolated_mask[:nj].copy()
-        zone = np.asarray(net.zone[:nj]).astype(str)
+        if self.options.zones == "hydraulic" and self.static.zone is not None:
+            zone = np.asarray(self.static.zone[:nj]).astype(str)  # '' where cut off
+        else:
+            zone = np.asarray(net.zone[:nj]).astype(str)
+        self.zone_source = ZONE_SOURCES[self.options.zones]
         self._zone = zone
         self._zone_members = {z: np.flatnonzero((zone == z) & ~self.iso) for z in set(zone) if z}
         self._all = np.flatnonzero(~self.iso)
@@ -188,6 +211,10 @@ class FireFlowScan:
                                                   covariance.n_groups))
 
     # --- per hydrant -------------------------------------------------------------------------
+    def zone_name(self, i: int) -> str:
+        """The zone of junction i as the scan uses it ('' for none: the whole network)."""
+        return str(self._zone[i])
+
     def zone_of(self, i: int) -> np.ndarray:
         """Junctions checked against the system minimum for hydrant i (its zone, itself excluded)."""
         z = self._zone[i]
@@ -202,7 +229,8 @@ class FireFlowScan:
             raise InputError(f"'{node}' is not a junction of the network", id=str(node),
                              field="--nodes", expected="junction ids")
         out = HydrantFlow(node=str(node), static=float(self.p0[i]), flow_at_residual=math.nan,
-                          flow_system=math.nan, limiting_node="", available=math.nan)
+                          flow_system=math.nan, limiting_node="", available=math.nan,
+                          zone=self.zone_name(i))
         if self.iso[i]:
             out.note = "cut off from every source by closed pipes: no fire flow"
             out.flow_at_residual = out.flow_system = out.available = 0.0
