@@ -294,22 +294,20 @@ class FireFlowScan:
         else:
             q = 0.0631
             res = self._solve(self._draw(i, q), self.static)
-        last = None  # (Q^1.852, pressure) at the limiting junction of the previous solve
+        # Each junction's drop from its static pressure as a power law a_j Q^n_j: first with the
+        # Hazen-Williams n = 1.852 through the first solve, then with a_j and n_j through the last
+        # two solves (a secant in log Q, log drop). The smallest Q at which one of them reaches
+        # the minimum is the next draw. Every junction's law, not only the one lowest now: the
+        # limit often passes between far junctions as the draw grows.
+        last = None  # (Q, drops) of the previous solve
         for _ in range(opt.max_search):
             p = res.pressure[zone]
             k = int(np.argmin(p))
             if abs(p[k] - target) <= opt.pressure_tol:
                 break
             drop = np.maximum(p0 - p, 1e-9 * PSI)
-            # Q at which each junction's drop a_j Q^1.852 reaches p0_j - target; the smallest binds
-            q_new = float(np.min(q * ((p0 - target) / drop) ** (1.0 / DROP_EXPONENT)))
-            x = q ** DROP_EXPONENT
-            if last is not None and last[2] == k and last[0] != x and last[1] != p[k]:
-                # same junction limits twice: secant on p(Q^1.852) through the last two solves
-                x_new = x + (target - p[k]) * (x - last[0]) / (p[k] - last[1])
-                if x_new > 0:
-                    q_new = x_new ** (1.0 / DROP_EXPONENT)
-            last = (x, p[k], k)
+            q_new = self._next_draw(q, drop, last, p0 - target)
+            last = (q, drop)
             if abs(q_new - q) <= opt.flow_rtol * q:
                 break
             res = self._solve(self._draw(i, q_new), self._scaled(res, q, q_new))
@@ -324,6 +322,19 @@ class FireFlowScan:
             dH, _ = self._sensitivity(res, extra_demand_at=i)
             dHdq = dH[j, -1]
             out.grad_system = -dH[j, :-1] / dHdq if dHdq != 0 else np.full(dH.shape[1] - 1, np.nan)
+
+    @staticmethod
+    def _next_draw(q, drop, last, room):
+        """Smallest draw at which a junction's drop ``a Q^n`` reaches its ``room`` (static minus
+        the minimum) [Pa]: n = 1.852 through (q, drop), or n from the two solves (last, this) when
+        both moved the junction (n kept within 1-3 where the two points are too close to say)."""
+        n = np.full(len(drop), DROP_EXPONENT)
+        if last is not None and last[0] != q:
+            q0, d0 = last
+            with np.errstate(divide="ignore", invalid="ignore"):
+                fitted = np.log(drop / d0) / math.log(q / q0)
+            n = np.where(np.isfinite(fitted), np.clip(fitted, 1.0, 3.0), n)
+        return float(np.min(q * (room / drop) ** (1.0 / n)))
 
     def reset(self) -> None:
         """Forget the last held solve (a batch starts from the same state wherever it runs)."""
