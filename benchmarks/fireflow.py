@@ -48,13 +48,42 @@ def serial_rate(net, nodes, options=None) -> dict:
     t0 = time.perf_counter()
     scan = FireFlowScan(net, options=options)
     setup = time.perf_counter() - t0
+    counts = [0, 0]  # Newton iterations, factorizations of the hydrants' solves
+    solve = scan.solver.solve
+
+    def counted(*a, **kw):
+        r = solve(*a, **kw)
+        counts[0] += r.iterations
+        counts[1] += r.factorizations
+        return r
+    scan.solver.solve = counted
     t0 = time.perf_counter()
     for node in nodes:
         scan.hydrant(node)
     dt = time.perf_counter() - t0
     return dict(pipes=net.n_pipes, hydrants=len(nodes), setup=setup, seconds=dt,
                 per_hydrant=dt / len(nodes), rate=len(nodes) / dt,
-                solves=(scan.solves - 1) / len(nodes))
+                solves=(scan.solves - 1) / len(nodes), iterations=counts[0] / len(nodes),
+                factorizations=counts[1] / len(nodes))
+
+
+def block(net, n: int) -> list[str]:
+    """n junctions that follow each other in the scan's locality order, from the middle."""
+    from calib.fireflow.scan import locality_order
+    ordered = locality_order(net, [str(i) for i in net.node_ids[: net.n_junctions]])
+    start = max(0, len(ordered) // 2 - n // 2)
+    return ordered[start:start + n]
+
+
+def serial(name, net, n, opts, neighbours=False) -> dict:
+    nodes = block(net, n) if neighbours else sample(net, n)
+    r = serial_rate(net, nodes, opts)
+    print(f"{name} grid ({r['pipes']} pipes), one process, {'block' if neighbours else 'random'}: "
+          f"{r['hydrants']} hydrants in {r['seconds']:.1f} s = {r['rate']:.2f} hydrants/s per core "
+          f"({r['per_hydrant']:.3f} s each, {r['solves']:.2f} solves, "
+          f"{r['iterations']:.1f} Newton iterations, {r['factorizations']:.1f} factorizations "
+          f"each; set-up {r['setup']:.2f} s), {load()}")
+    return r
 
 
 def dask_rate(net, nodes, workers: int, options=None) -> dict:
@@ -76,6 +105,11 @@ def main(argv=None) -> int:
     p.add_argument("--dask", type=int, default=240, help="hydrants for the 1 vs 2 worker runs")
     p.add_argument("--full", action="store_true", help="all 5,041 junctions of the 10k grid, 2 workers")
     p.add_argument("--full-only", action="store_true", help="only the --full scan")
+    p.add_argument("--serial-only", action="store_true",
+                   help="only the one-process figures (no Dask)")
+    p.add_argument("--block", action="store_true",
+                   help="time a block of neighbouring junctions in the scan's locality order "
+                        "(as a full scan meets them) instead of a random sample")
     p.add_argument("--tree", default=_TREE, help="checkout to import calib from (default: this one)")
     p.add_argument("--system-search", choices=("always", "binding"), default=None,
                    help="ScanOptions.system_search (default: the checkout's default)")
@@ -88,13 +122,21 @@ def main(argv=None) -> int:
     if args.full_only:
         return full_scan(opts)
     grids = {"10k": square_grid(71), "50k": square_grid(159)}
+    if args.serial_only:
+        for name, n in (("10k", args.sample10k), ("50k", args.sample50k)):
+            if n:
+                serial(name, grids[name], n, opts, args.block)
+        print(f"end: {load()}")
+        return 0
     rates = {}
     for name, n in (("10k", args.sample10k), ("50k", args.sample50k)):
         r = serial_rate(grids[name], sample(grids[name], n), opts)
         rates[name] = r["rate"]
         print(f"{name} grid ({r['pipes']} pipes), one process: {r['hydrants']} hydrants in "
               f"{r['seconds']:.1f} s = {r['rate']:.2f} hydrants/s per core "
-              f"({r['per_hydrant']:.3f} s each, {r['solves']:.2f} solves each; set-up "
+              f"({r['per_hydrant']:.3f} s each, {r['solves']:.2f} solves, "
+              f"{r['iterations']:.1f} Newton iterations, {r['factorizations']:.1f} "
+              f"factorizations each; set-up "
               f"{r['setup']:.2f} s), {load()}")
     nodes = sample(grids["10k"], args.dask, seed=2)
     scaling = {}
