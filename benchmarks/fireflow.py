@@ -57,11 +57,12 @@ def serial_rate(net, nodes, options=None) -> dict:
         counts[1] += r.factorizations
         return r
     scan.solver.solve = counted
-    t0 = time.perf_counter()
+    t0, c0 = time.perf_counter(), time.process_time()
     for node in nodes:
         scan.hydrant(node)
     dt = time.perf_counter() - t0
-    return dict(pipes=net.n_pipes, hydrants=len(nodes), setup=setup, seconds=dt,
+    cpu = time.process_time() - c0  # this process's CPU time: less moved by the other users' load
+    return dict(pipes=net.n_pipes, hydrants=len(nodes), setup=setup, seconds=dt, cpu=cpu / len(nodes),
                 per_hydrant=dt / len(nodes), rate=len(nodes) / dt,
                 solves=(scan.solves - 1) / len(nodes), iterations=counts[0] / len(nodes),
                 factorizations=counts[1] / len(nodes))
@@ -80,7 +81,8 @@ def serial(name, net, n, opts, neighbours=False) -> dict:
     r = serial_rate(net, nodes, opts)
     print(f"{name} grid ({r['pipes']} pipes), one process, {'block' if neighbours else 'random'}: "
           f"{r['hydrants']} hydrants in {r['seconds']:.1f} s = {r['rate']:.2f} hydrants/s per core "
-          f"({r['per_hydrant']:.3f} s each, {r['solves']:.2f} solves, "
+          f"({r['per_hydrant']:.3f} s each, CPU {r['cpu']:.3f} s each = {1 / r['cpu']:.2f} "
+          f"hydrants per CPU-second; {r['solves']:.2f} solves, "
           f"{r['iterations']:.1f} Newton iterations, {r['factorizations']:.1f} factorizations "
           f"each; set-up {r['setup']:.2f} s), {load()}")
     return r

@@ -78,8 +78,11 @@ def band(available_gpm: float) -> tuple[str, str]:
 
 
 def _cells(table: pd.DataFrame):
+    """Rows as dicts: a missing figure as '', whole gpm as an int (a column with a missing figure
+    is float in pandas: 5017, not 5017.0)."""
     for rec in table.to_dict("records"):
-        yield {k: ("" if isinstance(v, float) and not math.isfinite(v) else v)
+        yield {k: ("" if isinstance(v, float) and not math.isfinite(v)
+                   else int(v) if isinstance(v, float) and k.endswith("[gpm]") else v)
                for k, v in rec.items()}
 
 
@@ -197,7 +200,8 @@ def render(network, flows, settings: dict, system: str = "us", failures=()) -> s
               "one steady-state solve (global gradient method, Todini and Pilati 1988) gives its "
               "draw. System flow: the draw at which the lowest pressure at any other junction of "
               "its zone reaches the system minimum, found by a short search extrapolating each "
-              "junction's pressure drop as Q^1.852 (Hazen-Williams), and the junction that limits "
+              "junction's pressure drop as a power of the draw (Q^1.852, Hazen-Williams, then the "
+              "power fitted through the last two solves), and the junction that limits "
               "it; unless the run's settings say 'every hydrant', it is searched only where it can "
               "limit: where the held solve shows every other junction of the zone above the "
               "minimum, pressures being higher still at any smaller draw, the system flow is "

@@ -10,11 +10,12 @@ For a hydrant at junction i (SI inside: Pa gauge, m3/s):
   is by default the hydraulic zone of the static solution (``SolveResult.zone``: the part of the
   network fed by the same sources, split at active pressure-reducing, sustaining and flow-limiting
   valves, which hold the grade or flow beyond them); with ``zones="column"`` the junctions.csv
-  ``zone`` column (a junction without one is checked against the whole network). Found by a short search:
-  every junction's pressure drop is extrapolated from the static point as ``a_j Q^1.852`` (the
-  Hazen-Williams flow exponent, the same law as the 0.54 rating formula of NFPA 291), the smallest
-  flow that brings one of them to the minimum is solved, and the extrapolation repeated from that
-  solution until the lowest pressure is within ``pressure_tol`` of the minimum (2-3 solves).
+  ``zone`` column (a junction without one is checked against the whole network). Found by a short
+  search: every junction's pressure drop from the static point is extrapolated as ``a_j Q^1.852``
+  (the Hazen-Williams flow exponent, the same law as the 0.54 rating formula of NFPA 291) through
+  the first solve, the smallest flow that brings one of them to the minimum is solved, and then
+  each drop is extrapolated as ``a_j Q^n_j`` with a_j, n_j through the last two solves, until the
+  lowest pressure is within ``pressure_tol`` of the minimum (2-3 solves).
   By default (``ScanOptions.system_search="binding"``) the search runs only where it can decide the
   available flow; see "When the search is skipped" below.
 - ``available`` = the smaller of the two; its NFPA 291 class (``calib.flowtest.hydrant_class``).

@@ -28,6 +28,8 @@ def test_fireflow_command_writes_csv_geojson_and_page(tmp_path, fit_dir, capsys)
     page = (tmp_path / "fireflow.html").read_text()
     assert "<svg" in page and "authority having jurisdiction" in page and "J342" in page
     assert "light blue" not in page  # our own bands, not the marking colours
+    # whole gpm in the page's table, also in a column with an empty figure (5017, not 5017.0)
+    assert f"<td>{avail[0]:.0f}</td>" in page and f"<td>{avail[0]:.1f}</td>" not in page
     text = capsys.readouterr().out
     assert "target residual: 20.0 psi" in text and "95 %" in text
     # the zones used are said, in the run's settings (also on the page) and per hydrant
