@@ -7,7 +7,8 @@ demands, two fixed-grade sources on opposite corners feeding a lattice of larger
 median solve time, iterations, the floor measured in the same run (iterations x one sparse assemble +
 factorize + solve of the converged matrix with the best factorization available here - SuperLU on
 the solver's ordering, or CHOLMOD with a METIS ordering and its analysis kept when scikit-sparse is
-installed - best of three, timed right after each solve so both see the same load) and the median of
+installed, refactored in place - best of three, timed right after each solve so both see the
+same load) and the median of
 the per-repeat ratios, then the time of solve_many on 20 snapshots (demand factors and a flowing
 hydrant). ``--code DIR`` times the solver of another checkout (e.g. main) with this same script.
 The data are invented; no real network.
@@ -74,7 +75,12 @@ def _floors(solver: NetworkSolver, result):
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             symbolic = analyze(S, mode="simplicial", ordering_method="metis")
-        out["cholmod"] = lambda S: symbolic.cholesky(S).solve_A
+            numeric = symbolic.cholesky(S)
+
+        def cholmod(S):  # refactored in place: no new factor allocated
+            numeric.cholesky_inplace(S)
+            return numeric.solve_A
+        out["cholmod"] = cholmod
     except ImportError:
         pass
     return pat, w, extra, out
@@ -114,6 +120,7 @@ def run(m: int, repeats: int, many: bool = True, plain: bool = True) -> dict:
     solver = NetworkSolver(net)
     setup = time.perf_counter() - t0
     solves, floors, result = timed_solves(solver, repeats)
+    updates = getattr(solver, "updates", "-")  # of the last cold solve (main's solver has none)
     # the same solve with a factorization at every iteration (no CG reuse): the overhead alone
     plain_solves, plain_floors, _ = (timed_solves(NetworkSolver(net, reuse_factor=False), repeats)
                                      if plain else ([np.nan], [1.0], None))
@@ -128,6 +135,7 @@ def run(m: int, repeats: int, many: bool = True, plain: bool = True) -> dict:
     median = statistics.median
     return dict(pipes=net.n_pipes, junctions=net.n_junctions, setup=setup, solve=median(solves),
                 iterations=result.iterations, factorizations=result.factorizations,
+                updates=updates,
                 one=median(floors) / result.iterations, floor=median(floors),
                 ratio=median(np.divide(solves, floors)), plain=median(plain_solves),
                 plain_ratio=median(np.divide(plain_solves, plain_floors)),
@@ -150,14 +158,16 @@ def main(argv=None) -> int:
           f"Python {platform.python_version()}, load {os.getloadavg()[0]:.2f}; "
           f"code {Path(calib.__file__).parents[1]}, backend {backend}")
     print("| pipes | junctions | set-up s | solve s (median) | iterations | factorizations "
+          "| low-rank updates "
           "| one assemble+factor+solve s | floor s | ratio | solve s, factor every iteration "
           "| its ratio | solve_many 20 s "
           "| mean iterations (many) | max mass error m3/s |")
-    print("|---|---|---|---|---|---|---|---|---|---|---|---|---|---|")
+    print("|---|---|---|---|---|---|---|---|---|---|---|---|---|---|---|")
     for m in (int(v) for v in args.sizes.split(",")):
         r = run(m, args.repeats, many=not args.no_many, plain=not args.no_plain)
         print(f"| {r['pipes']} | {r['junctions']} | {r['setup']:.3f} | {r['solve']:.3f} | "
-              f"{r['iterations']} | {r['factorizations']} | {r['one']:.4f} | {r['floor']:.3f} | "
+              f"{r['iterations']} | {r['factorizations']} | {r['updates']} | {r['one']:.4f} | "
+              f"{r['floor']:.3f} | "
               f"{r['ratio']:.2f} | {r['plain']:.3f} | {r['plain_ratio']:.2f} | "
               f"{r['many']:.2f} | {r['many_iterations']:.1f} | {r['mass']:.1e} |", flush=True)
     return 0

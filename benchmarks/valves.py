@@ -1,7 +1,7 @@
 """Benchmark: time per solver iteration on the benchmark grids with and without control valves
 (run by hand, never in the test suite).
 
-    python benchmarks/valves.py [--sizes 71,159] [--every 300] [--repeats 5]
+    python benchmarks/valves.py [--sizes 71,159] [--every 300] [--repeats 5] [--code DIR]
 
 The grids of ``benchmarks/solver.py``; every ``--every``-th pipe (by position, mains excluded) is
 replaced by a control valve of its diameter, the types in turn: a reducing valve set 1 m below the
@@ -12,7 +12,8 @@ factorizations, time per iteration and the median of the per-repeat ratios (the 
 repeat run one after the other, so that both see the same load on a shared machine), and the valve
 states; once with the solver's reuse of an older factorization (the default: how many iterations
 refactor depends on how many links changed much) and once with a factorization at every iteration
-(the cost of an iteration itself). The data are invented; no real network.
+(the cost of an iteration itself). ``--code DIR`` times the solver of another checkout (e.g. main)
+with this same script. The data are invented; no real network.
 """
 
 from __future__ import annotations
@@ -27,8 +28,9 @@ from pathlib import Path
 
 import numpy as np
 
-sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+_code = sys.argv[sys.argv.index("--code") + 1] if "--code" in sys.argv else None
 sys.path.insert(0, str(Path(__file__).resolve().parent))
+sys.path.insert(0, str(Path(_code).resolve() if _code else Path(__file__).resolve().parents[1]))
 
 from solver import square_grid  # noqa: E402
 
@@ -91,10 +93,13 @@ def main(argv=None) -> int:
     parser.add_argument("--sizes", default="71,159")
     parser.add_argument("--every", type=int, default=300)
     parser.add_argument("--repeats", type=int, default=5)
+    parser.add_argument("--code", default=None, help="checkout whose calib is timed (default this one)")
     args = parser.parse_args(argv)
+    import calib
     stamp = time.strftime("%Y-%m-%d %H:%M UTC", time.gmtime())
     print(f"# {stamp}, {platform.processor() or platform.machine()}, {os.cpu_count()} cores, "
-          f"Python {platform.python_version()}, load {os.getloadavg()[0]:.2f}")
+          f"Python {platform.python_version()}, load {os.getloadavg()[0]:.2f}; "
+          f"code {Path(calib.__file__).parents[1]}")
     print("| pipes | valves | factor reuse | solve s (no valves / valves) | iterations "
           "| factorizations | s per iteration | ratio | valve states (active/open/closed) |")
     print("|---|---|---|---|---|---|---|---|---|")

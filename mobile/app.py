@@ -123,7 +123,8 @@ class HydrantFieldApp(App):
 
     # --- navigation and cross-screen actions -------------------------------------------------
     def go(self, name: str) -> None:
-        if name != "home" and name not in ("settings", "export") and not self.test_id:
+        if name != "home" and name not in ("settings", "export") and not self.test_id and \
+                not (name == "map" and self.service.plan):  # the map shows a loaded plan with no test open
             name = "home"
         if self.root.current == name:  # e.g. another test opened on the same screen: show it afresh
             self.root.get_screen(name).on_pre_enter()
@@ -183,30 +184,45 @@ class HydrantFieldApp(App):
         browser.bind(on_choose=lambda _, path: (popup.dismiss(), self.show_plan(path)))
         popup.open()
 
-    def show_plan(self, path) -> None:
-        """The plan's tests in order, each a button that starts it (plain service calls)."""
+    def show_plan(self, path):
+        """The plan's tests in order, each a button that starts it, and one that shows the plan on the
+        map (plain service calls); returns the popup."""
         from kivy.uix.boxlayout import BoxLayout
         from mobile.services import plan as plans
         from mobile.widgets.common import BigButton
-        if Path(path).is_dir():
-            path = Path(path) / "plan.csv"
         try:
-            planned = plans.read_plan(path, self.service.area)
+            planned = plans.load(self.service, path)
         except CalibError as exc:
             self.root.get_screen("home").show(Outcome(False, "Could not load the plan: " + _first_message(exc)))
-            return
+            return None
         self.store.set_setting("plan_path", str(path))
         box = BoxLayout(orientation="vertical", spacing=8)
         popup = Popup(title=f"Today's plan: {len(planned)} tests", title_size="20sp", content=box,
                       size_hint=(0.95, 0.95))
+        on_map = BigButton(text="SHOW THE PLAN ON THE MAP", tone="grey")
+        on_map.bind(on_release=lambda *_: (popup.dismiss(), self.show_plan_map()))
+        box.add_widget(on_map)
+        from kivy.uix.gridlayout import GridLayout
+        from kivy.uix.scrollview import ScrollView
+        scroll, tests = ScrollView(bar_width=dp(12), scroll_type=["bars", "content"]), \
+            GridLayout(cols=1, spacing=8, size_hint_y=None)
+        tests.bind(minimum_height=tests.setter("height"))
+        scroll.add_widget(tests)
+        box.add_widget(scroll)
         for row, p in zip(plans.day_rows(self.service, planned), planned):
             done = f"  [{row['test_id']}]" if row["test_id"] else ""
             button = BigButton(text=f"{row['order']}. {p.test_id}: flow {', '.join(p.flow_nodes)} "
                                     f"{row['flow']}; gauges {', '.join(p.gauge_nodes)}{done}")
             button.bind(on_release=lambda _, p=p: (popup.dismiss(),
                                                     self.open_test(plans.start_planned(self.service, p))))
-            box.add_widget(button)
+            tests.add_widget(button)
         popup.open()
+        return popup
+
+    def show_plan_map(self) -> None:
+        """The map with the day's plan alone (no test open: its picks cannot change a test)."""
+        self.test_id = ""
+        self.go("map")
 
     def load_area(self, path):
         """Read the network in a worker (a large one takes a while); the home screen shows the outcome."""

@@ -27,7 +27,7 @@ from calib.calibration import flags as _flags
 from calib.calibration import zones
 from calib.calibration.groups import Grouping, make_groups
 from calib.calibration.priors import GroupPrior, group_prior
-from calib.calibration.estimate import PROFILE, Estimate, estimate, refine_intervals
+from calib.calibration.estimate import LSQ_TOL, PROFILE, Estimate, estimate, refine_intervals
 from calib.calibration.problem import CalibrationProblem
 from calib.errors import CalibrationError, InputError
 
@@ -156,13 +156,15 @@ def _test_year(tests) -> float:
 
 def fit(network, tests, group_by: str | None = None, grouping: Grouping | None = None,
         prior="handbook", c_bounds=(40.0, 160.0), loss: str = "linear", demand_factor: bool = False,
-        source_offsets: bool = False, threshold: float = 3.0, refit: bool = True,
+        source_offsets: bool = False, threshold: float | None = None, refit: bool = True,
         influence: bool = True, solver=None, progress=None, year: float | None = None,
-        max_nfev: int = 60) -> FitResult:
+        max_nfev: int = 60, flag_level: float = _flags.FLAG_LEVEL) -> FitResult:
     """Fit group C-factors (and optional demand factors, source grade offsets) to a ``TestSet``.
 
     ``prior``: ``"handbook"`` (``priors.group_prior``), ``"none"``/None, or a ``GroupPrior``.
-    ``threshold``: |standardized residual| above which a reading is flagged and left out of the refit.
+    ``threshold``: |standardized residual| above which a reading is flagged and left out of the refit;
+    None (default): the Bonferroni outlier cut over the fitted readings at family-wise level
+    ``flag_level`` (``flags.outlier_cut``; Cook and Weisberg 1982), stated in the flags and findings.
     ``influence``: leave-one-out refits of the most influential remaining readings (Cook's D > 4/n, at
     most two) to say how far each moves the C-factors.
     ``progress(n_solves, stage)`` is called after every solver call; ``stage`` names the phase, with
@@ -170,9 +172,12 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
     """
     if loss not in LOSSES:
         raise InputError(f"unknown loss '{loss}'", field="--loss", expected=", ".join(LOSSES))
-    if threshold <= 0:
+    if threshold is not None and not threshold > 0:
         raise InputError(f"threshold {threshold} must be positive", field="threshold",
                          expected="about 3 standardized units")
+    if not 0.0 < flag_level < 1.0:
+        raise InputError(f"flag level {flag_level} is out of range", field="flag_level",
+                         expected="a family-wise level between 0 and 1, e.g. 0.05")
     grouping = grouping if grouping is not None else make_groups(network, group_by)
     gp = _resolve_prior(prior, network, grouping, tests, year)
     if solver is None:
@@ -210,6 +215,14 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
     if not used0.any():
         raise CalibrationError("every reading fails a face check; nothing left to fit")
     f_scale = 2.0  # robust losses act beyond about 2 standardized units
+    n_family = int(used0.sum())  # the readings tested for a gross error
+
+    def cut_for(e) -> float:
+        """The flag's cut-off for the residuals of fit ``e``: fixed, else Bonferroni over the readings
+        (t on n - p - 1 when the scale comes from them and the residuals are external, else normal)."""
+        if threshold is not None:
+            return float(threshold)
+        return _flags.outlier_cut(n_family, flag_level, e.dof - 1.0 if e.scaled else None)
 
     count["stage"] = "fit"
     prob = make(used0)
@@ -218,6 +231,7 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
     z_used, cook_used = _diagnostics(est, prob)
     gross = np.zeros(n, dtype=bool)
     z_with = np.full(n, np.nan)  # standardized residual in the fit that still held the reading
+    cut_with = np.full(n, np.nan)  # the cut-off it was judged against there
     # leave out one reading beyond the threshold and refit, one at a time, so that a gross error's
     # neighbours (dragged in the first fit) are not left out with it. Which one: of the (at most three)
     # largest standardized residuals, the one whose leave-one-out refit fits the rest best - a
@@ -226,7 +240,8 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
     while refit and gross.sum() < max_out:
         idx = np.flatnonzero(est.used)
         order = np.argsort(-np.abs(z_used))
-        cand = [int(k) for k in order[:3] if abs(z_used[k]) > threshold]
+        cut = cut_for(est)
+        cand = [int(k) for k in order[:3] if abs(z_used[k]) > cut]
         if not cand or est.used.sum() - 1 <= prob.n_params:
             break
         count["stage"] = "refit without flagged readings"
@@ -239,7 +254,7 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
             if best is None or ek.chi2 < best[2].chi2:
                 best = (k, pk, ek)
         k, pk, new_est = best
-        if (est.chi2 - new_est.chi2) / est.s2 < threshold ** 2:
+        if (est.chi2 - new_est.chi2) / est.s2 < cut ** 2:
             # leaving it out does not remove a gross misfit (a genuine outlier takes about z^2 of
             # S with it): keep it, flagged by its standardized residual only
             break
@@ -249,6 +264,7 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
         i = int(idx[k])
         gross[i] = True
         z_with[i] = -z_used[k]
+        cut_with[i] = cut
         est = new_est
         z_used, cook_used = _diagnostics(est, prob)
 
@@ -268,12 +284,15 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
     cook = np.full(n, np.nan)
     cook[est.used] = cook_used
     p = prob.n_params
+    cut = cut_for(est)
+    rule = (f"fixed cut-off +/-{cut:g}" if threshold is not None else
+            f"Bonferroni cut-off +/-{cut:.2f} over {n_family} readings at family-wise level {flag_level:g}")
     for i in np.flatnonzero(gross):
-        flag[i] = (f"standardized residual {z_with[i]:+.1f} beyond +/-{threshold:g} "
+        flag[i] = (f"standardized residual {z_with[i]:+.1f} beyond +/-{cut_with[i]:.2f} "
                    f"({z[i]:+.1f} against the refit); left out")
-    # a reading that survives the refit but is still beyond the threshold
-    for i in np.flatnonzero(est.used & (np.abs(z) > threshold)):
-        flag[i] = f"standardized residual {z[i]:+.1f} beyond +/-{threshold:g}"
+    # a reading that survives the refit but is still beyond the cut-off
+    for i in np.flatnonzero(est.used & (np.abs(z) > cut)):
+        flag[i] = f"standardized residual {z[i]:+.1f} beyond +/-{cut:.2f}"
     findings: list[str] = []
 
     # influence: Cook's distance, then leave-one-out refits of the strongest candidates
@@ -295,7 +314,8 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
             loo_prob = make(mask, x0=est.x)
             loo = optimize.least_squares(loo_prob.residuals, est.x, jac=loo_prob.jacobian,
                                          bounds=(loo_prob.lower, loo_prob.upper), method="trf",
-                                         loss=loss, f_scale=f_scale, x_scale="jac", max_nfev=10)
+                                         loss=loss, f_scale=f_scale, x_scale="jac", max_nfev=10,
+                                         xtol=LSQ_TOL, ftol=LSQ_TOL, gtol=LSQ_TOL)
             shift = np.abs(loo.x[prob.c_cols] - est.x[prob.c_cols])
             rel = np.where(np.isfinite(sd_c) & (sd_c > 0), shift / np.where(sd_c > 0, sd_c, 1), 0.0)
             g = int(np.argmax(rel))
@@ -384,9 +404,10 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
     for a, b, r in together:
         findings.append(f"{a} and {b} move together (correlation {r:+.2f}): the tests determine a "
                         "combination of them better than each alone.")
+    findings.append(_flag_rule_text(threshold, cut, n_family, flag_level, est.scaled))
     if first is not None:
         moved = np.abs(first.x[prob.c_cols] - est.x[prob.c_cols])
-        findings.append(f"{int(gross.sum())} reading(s) beyond the threshold were left out one at a "
+        findings.append(f"{int(gross.sum())} reading(s) beyond the cut-off were left out one at a "
                         f"time and the fit repeated; C moved by up to {moved.max():.1f} between the fit "
                         "with every reading and the result (both are in groups.csv).")
     for (t, kind), res in zip(full.pairs, results):
@@ -424,8 +445,22 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
                      options=dict(group_by=group_by or "group column", prior=prior if isinstance(prior, str)
                                   else ("none" if prior is None else "given"), c_bounds=tuple(c_bounds),
                                   loss=loss, demand_factor=demand_factor, source_offsets=source_offsets,
-                                  threshold=threshold),
+                                  threshold=cut, flag_level=None if threshold is not None else flag_level,
+                                  flag_rule=rule),
                      solutions={res.snapshot.label: res for res in results})
+
+
+def _flag_rule_text(threshold, cut: float, n: int, level: float, scaled: bool) -> str:
+    """The suspect-reading rule in words, for the findings (no hidden default)."""
+    if threshold is not None:
+        return (f"Suspect readings: |standardized residual| beyond the fixed cut-off {cut:g} (given); "
+                f"over {n} readings some genuine ones may pass it by chance.")
+    ref = ("t distribution on n - p - 1 degrees of freedom (scale from the readings' scatter)" if scaled
+           else "normal distribution (the stated gauge sigma)")
+    return (f"Suspect readings: |standardized residual| beyond {cut:.2f}, the Bonferroni outlier cut-off "
+            f"over the {n} readings at family-wise level {level:g} ({ref}; Cook and Weisberg 1982, "
+            f"Weisberg 2005): with no gross error, the chance that any reading is flagged is at most "
+            f"{level:.0%}.")
 
 
 # Leave-one-out screen: below this estimated shift [sd of C] a refit cannot reach the 1 sd flag

@@ -8,6 +8,13 @@
 - Where the scale s comes from the readings' own scatter, a gross error inflates it; the screen then uses
   the externally studentized residual ``t_i = z_i sqrt((nu - 1) / (nu - z_i^2))`` with nu = n - p, the
   residual against the scale of the other readings (Belsley, Kuh and Welsch 1980, "RSTUDENT").
+- The cut-off for a suspect reading is multiplicity-aware: among n readings a few genuine ones lie
+  beyond a fixed +/-3 by chance (about n x 0.27 % with a known scale). The outlier test of Cook and
+  Weisberg (1982, *Residuals and Influence in Regression*, sec. 2.2.3) and Weisberg (2005, *Applied
+  Linear Regression*, 3rd ed., sec. 9.1.3) flags the readings whose |t_i| exceeds the Bonferroni
+  bound ``t(1 - alpha / (2 n), n - p - 1)`` (``outlier_cut``): with no gross error, the chance that
+  any of the n readings is flagged is at most ``alpha`` (the family-wise level, ``FLAG_LEVEL``).
+  With the stated gauge sigma (the scale not estimated) the reference distribution is the normal.
 - Cook's distance ``D_i = z_i^2 h_ii / (p (1 - h_ii))`` (Cook 1977, Technometrics 19(1)); the usual
   screening rule calls D > 1 influential, candidates for a leave-one-out refit above 4/n (common
   practice). Influence says how much the fit leans on a reading (the test layout), not that the
@@ -18,7 +25,13 @@ from __future__ import annotations
 
 import numpy as np
 
+from scipy import stats
+
 from calib import units
+
+#: Family-wise level of the suspect-reading flag: the chance, with no gross error among the readings,
+#: that any of them is flagged (Bonferroni; see ``outlier_cut``). A project choice, stated in the output.
+FLAG_LEVEL = 0.05
 
 
 def face_checks(network, tests, tolerance_sigmas: float = 3.0) -> dict[int, str]:
@@ -81,3 +94,26 @@ def externally_studentized(z: np.ndarray, dof: float) -> np.ndarray:
     if dof <= 1.0:
         return z
     return z * np.sqrt((dof - 1.0) / np.clip(dof - z ** 2, 1e-12, None))
+
+
+def outlier_cut(n: int, level: float = FLAG_LEVEL, dof: float | None = None) -> float:
+    """Bonferroni cut-off for |studentized residual| over ``n`` readings at family-wise ``level``.
+
+    ``t(1 - level / (2 n), dof)`` [-] (two-sided, each reading tested at ``level / n``): the outlier
+    test of Cook and Weisberg (1982), *Residuals and Influence in Regression*, sec. 2.2.3, and Weisberg
+    (2005), *Applied Linear Regression*, 3rd ed., sec. 9.1.3, for the externally studentized residual
+    on ``dof = n - p - 1`` degrees of freedom (the scale estimated from the readings). ``dof`` None or
+    inf: the normal quantile ``z(1 - level / (2 n))``, for residuals against a known (stated) sigma.
+    Holds for ``n >= 1``, ``0 < level < 1``. Example: n = 55, level 0.05, known sigma: 3.32 (a fixed
+    +/-3 would flag a genuine reading of such a day with probability about 1 - 0.9973^55 = 14 %).
+    """
+    if n < 1:
+        return float("inf")
+    if not 0.0 < level < 1.0:
+        raise ValueError(f"family-wise level {level} must lie strictly between 0 and 1")
+    q = 1.0 - level / (2.0 * n)
+    if dof is None or not np.isfinite(dof):
+        return float(stats.norm.ppf(q))
+    if dof <= 0.0:
+        return float("inf")  # no degrees of freedom left to judge a reading against the others
+    return float(stats.t.ppf(q, dof))

@@ -230,22 +230,17 @@ class CalibrationProblem:
             if rows.size == 0:
                 continue
             dhdc = np.asarray(self.solver.dheadloss_droughness(res), float)
-            f1_rows = [self.grouped]
-            f1_cols = [self.c_cols[grp]]
-            f1_vals = [dhdc[self.grouped]]
+            # dense right-hand sides: the sensitivities solve them dense anyway, and building two
+            # sparse matrices per snapshot cost more than the few thousand zeros they hold
+            dF1 = np.zeros((self.n_links, p))
+            dF1[self.grouped, self.c_cols[grp]] = dhdc[self.grouped]
             for s, col in self._test_offsets.get(t, ()):
                 links, vals = self._source_incidence[(t, s)]
-                f1_rows.append(links)
-                f1_cols.append(np.full(len(links), col))
-                f1_vals.append(vals)
-            dF1 = sp.csc_matrix((np.concatenate(f1_vals), (np.concatenate(f1_rows),
-                                                           np.concatenate(f1_cols))),
-                                shape=(self.n_links, p))
+                dF1[links, col] += vals
+            dF2 = np.zeros((nj, p))
             col = self.day_col.get(int(tests.day[t]))
             if col is not None:
-                dF2 = sp.csc_matrix((-net.demand, (np.arange(nj), np.full(nj, col))), shape=(nj, p))
-            else:
-                dF2 = sp.csc_matrix((nj, p))
+                dF2[:, col] = -net.demand
             dH, _ = self.solver.sensitivities(res, dF1, dF2)
             dH = dH.toarray() if sp.issparse(dH) else np.asarray(dH)
             J[rows] = dH[tests.node[rows]] / self.sigma_h[rows, None]

@@ -4,17 +4,15 @@ Sections, in the order a modeler reads them: the cautions; the result at a glanc
 and C with its interval against the prior, the model's C before and the C bounds); the flagged
 (suspect) readings; the influential readings, apart; the findings in words; the fit statistics and the calibration accuracy criteria; how well
 the readings fit (observed vs simulated, residuals by test); hydrant curves; parameter correlation;
-the tests; the method and its sources. matplotlib draws each figure once, through its Agg canvas
-(no pyplot, no display), laid out by its constrained layout during that one draw. The page is
-written atomically through ``calib.fileio``.
+the tests; the method and its sources. This module builds each figure's data (the hydrant curves from
+few warm-started solves); ``figures.py`` draws them, each once, here or in a worker process that
+``calib fit`` starts before the fit. The page is written atomically through ``calib.fileio``.
 """
 
 from __future__ import annotations
 
-import base64
 import datetime as _dt
 import html
-import io
 from pathlib import Path
 
 import numpy as np
@@ -33,24 +31,6 @@ CAUTIONS = [
     "before and after, since fire protection is reduced while the test runs; keep every residual "
     "pressure at or above 20 psi (NFPA 291).",
 ]
-
-
-def _n185_forward(q):
-    return np.power(np.clip(q, 0.0, None), 1.85)
-
-
-def _n185_inverse(x):
-    return np.power(np.clip(x, 0.0, None), 1.0 / 1.85)
-
-
-def _flow_ticks(q_max: float, most: int = 4) -> np.ndarray:
-    """Round flow ticks up to ``q_max``, without 0 (the N^1.85 axis crowds the low ones together)."""
-    step = 10.0 ** np.floor(np.log10(max(q_max, 1e-12) / most))
-    for m in (1.0, 2.0, 5.0, 10.0):
-        if q_max / (m * step) <= most:
-            step *= m
-            break
-    return np.arange(step, q_max * (1 + 1e-9), step)
 
 
 # the hydrant curve's points: the fewest that draw it within this share of its drop (about two
@@ -101,160 +81,83 @@ def _curve(solver, rough, flows, heads, gauge, known=(), start=None):
     return scales, np.array([p[s] for s in scales])
 
 
-def _png(fig) -> str:
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=100)  # one draw: the layout is made during it
-    return base64.b64encode(buf.getvalue()).decode("ascii")
-
-
-def _figure(figsize, rows: int = 1, cols: int = 1, margins: dict | None = None, **kw):
-    """A figure outside pyplot (nothing kept in a global registry): constrained layout, or fixed
-    ``margins`` (``subplots_adjust``) where that layout costs more than the draw (many panels)."""
-    from matplotlib.figure import Figure
-    fig = Figure(figsize=figsize, layout=None if margins else "constrained")
-    if margins:
-        fig.subplots_adjust(**margins)
-    return fig, fig.subplots(rows, cols, **kw)
-
-
-def _plots(result, system: str, curves: bool = True) -> dict[str, str]:
-    t, net = result.tests, result.network
+def _figure_data(result, system: str) -> dict[str, dict]:
+    """The data of the three figures of the fit itself (no solves), in display units."""
+    t = result.tests
     pu = units.display_unit("pressure", system)
     conv = lambda v: units.from_si(np.asarray(v, float), "pressure", pu)  # noqa: E731
-    obs, sim = conv(t.pressure), conv(result.simulated)
     flagged = np.array([bool(f) for f in result.flag])
+    kind = np.asarray(t.kind).astype(str)
     out = {}
-
-    fig, ax = _figure((5.6, 5.2))
-    for kind, marker in (("static", "s"), ("residual", "o")):
-        sel = (t.kind == kind) & ~flagged
-        ax.scatter(sim[sel], obs[sel], marker=marker, s=28, label=f"{kind} reading", alpha=0.8)
-    if flagged.any():
-        ax.scatter(sim[flagged], obs[flagged], marker="x", s=70, color="black", label="flagged")
-    lo, hi = float(min(obs.min(), sim.min())), float(max(obs.max(), sim.max()))
-    pad = 0.04 * (hi - lo + 1e-9)
-    lo, hi = lo - pad, hi + pad
-    band = units.from_si(2.0 * units.PSI, "pressure", pu)  # AWWA ECAC (1999) +/-2 psi, as in the criteria
-    ax.plot([lo, hi], [lo, hi], color="grey", lw=1, label="observed = simulated")
-    ax.fill_between([lo, hi], [lo - band, hi - band], [lo + band, hi + band], color="grey",
-                    alpha=0.15, lw=0, label=f"+/-{band:.3g} {pu}")
-    ax.set_xlim(lo, hi)
-    ax.set_ylim(lo, hi)
-    ax.set_aspect("equal")
-    ax.set_xlabel(f"simulated pressure, calibrated model [{pu}]")
-    ax.set_ylabel(f"observed pressure at the gauge [{pu}]")
-    ax.set_title("Observed against simulated, every reading")
-    ax.legend(fontsize=8, loc="upper left")
-    out["observed vs simulated"] = _png(fig)
-
-    fig, ax = _figure((7.4, 4.0))
-    xs = t.test + np.where(t.kind == "static", -0.12, 0.12)
-    ax.axhline(0, color="grey", lw=1)
-    thr = result.options.get("threshold", 3.0)
-    for sgn in (-1, 1):
-        ax.axhline(sgn * thr, color="grey", lw=0.8, ls="--",
-                   label=f"flag threshold +/-{thr:g}" if sgn > 0 else None)
-    for kind, colour in (("static", "tab:blue"), ("residual", "tab:orange")):
-        sel = (t.kind == kind) & ~flagged
-        ax.scatter(xs[sel], result.z[sel], s=26, color=colour, label=f"{kind} reading")
-    if flagged.any():
-        ax.scatter(xs[flagged], result.z[flagged], marker="x", s=70, color="black", label="flagged")
-    many = t.n_tests > 14
-    ax.set_xticks(range(t.n_tests), t.test_ids, rotation=60 if many else 0, fontsize=8)
-    ax.set_xlabel("test")
-    ax.set_ylabel("(observed - simulated) / sigma [-]")
-    ax.set_title("Standardized residuals by test")
-    ax.legend(fontsize=7, ncol=4, loc="upper center", bbox_to_anchor=(0.5, -0.16), frameon=False)
-    out["residuals by test"] = _png(fig)
-
-    fig, ax = _figure((8.6, 4.4))
-    g = np.arange(result.grouping.n_groups)
+    out["observed vs simulated"] = dict(
+        sim=conv(result.simulated), obs=conv(t.pressure), kind=kind, flagged=flagged, pu=pu,
+        band=units.from_si(2.0 * units.PSI, "pressure", pu))  # AWWA ECAC (1999) +/-2 psi, as in the criteria
+    out["residuals by test"] = dict(
+        x=t.test + np.where(t.kind == "static", -0.12, 0.12), z=np.asarray(result.z, float),
+        kind=kind, flagged=flagged, threshold=result.options.get("threshold", 3.0),
+        test_ids=[str(i) for i in t.test_ids])
     c_lo, c_hi = result.options.get("c_bounds", (40.0, 160.0))
-    lo_c = np.where(np.isfinite(result.c_low), result.c_low, c_lo)
-    hi_c = np.where(np.isfinite(result.c_high), result.c_high, c_hi)
-    model_c = result.grouping.length_weighted(result.network, result.network.roughness)
-    top = max(c_hi, float(np.nanmax(hi_c)), float(np.nanmax(model_c)))
-    bottom = min(c_lo, float(np.nanmin(lo_c)), float(np.nanmin(model_c)))
-    if result.prior is not None:
-        top = max(top, float(np.nanmax(result.prior.c + 1.96 * result.prior.spread)))
-        bottom = min(bottom, float(np.nanmin(result.prior.c - 1.96 * result.prior.spread)))
-    ylo, yhi = bottom - 10.0, top + 10.0
-    # outside the C bounds: shaded, so an interval that reaches a bound is seen as cut by it
-    ax.axhspan(ylo, c_lo, color="grey", alpha=0.15, lw=0, label=f"outside C bounds {c_lo:g}-{c_hi:g}")
-    ax.axhspan(c_hi, yhi, color="grey", alpha=0.15, lw=0)
-    det = result.c_determined
-    if det.any():
-        ax.errorbar(g[det], result.c[det], yerr=[(result.c - lo_c)[det], (hi_c - result.c)[det]],
-                    fmt="o", capsize=5, ms=7, color="tab:blue", label="fitted C, 95 % interval")
-    if (~det).any():
-        # no fitted value: only the range the tests leave open (up to the C bounds)
-        ax.vlines(g[~det], lo_c[~det], hi_c[~det], colors="tab:blue", linestyles=":", lw=2,
-                  label="undetermined: range the tests allow")
-    for gi in g:
-        ax.annotate(f"{result.c[gi]:.0f}" if det[gi] else "undetermined", (gi, hi_c[gi]),
-                    xytext=(0, 4), textcoords="offset points", ha="center", va="bottom", fontsize=8,
-                    color="tab:blue")  # above its interval
-    if result.prior is not None:
-        ax.errorbar(g + 0.25, result.prior.c, yerr=1.96 * result.prior.spread, fmt="s", mfc="none",
-                    capsize=3, color="grey", label="prior, +/-1.96 sd")
-    ax.scatter(g - 0.25, model_c, marker="_", s=300, lw=2, color="tab:red", label="model C before")
-    ax.set_xticks(g, result.grouping.names, fontsize=9)
-    ax.set_xlim(-0.6, len(g) - 0.4)
-    ax.set_ylabel("Hazen-Williams C [-]")
-    ax.set_ylim(ylo, yhi)
-    ax.grid(axis="y", color="#ddd", lw=0.6)
-    ax.legend(fontsize=8, ncol=4, loc="upper center", bbox_to_anchor=(0.5, -0.08), frameon=False)
-    ax.set_title("C by group: fitted, prior, model before, and the C bounds")
-    out["C by group"] = _png(fig)
-
-    if curves and t.n_tests:
-        from calib.hydraulics import NetworkSolver
-        solver = NetworkSolver(net, headloss="hazen-williams")  # one set-up for every curve point
-        n_show = min(t.n_tests, 12)
-        cols = 4
-        rows = int(np.ceil(n_show / cols))
-        height = 2.9 * rows
-        fig, axes = _figure((11, height), rows, cols, squeeze=False, margins=dict(
-            left=0.06, right=0.99, bottom=0.5 / height, top=1 - 0.7 / height, wspace=0.35,
-            hspace=0.45))
-        rough = result.roughness()
-        fu = units.display_unit("flow", system)
-        for k in range(n_show):
-            ax = axes[k // cols][k % cols]
-            flows = {str(net.node_ids[n]): q for n, q in t.flows[k].items()}
-            sel = np.flatnonzero(t.test == k)
-            if not flows or not sel.size:
-                ax.set_axis_off()
-                continue
-            gauge = int(t.node[sel[0]])
-            heads = {str(net.node_ids[s]): h for s, h in t.source_head[k].items()}
-            total = sum(flows.values())
-            known = list(getattr(result, "solutions", {}).values())
-            start = getattr(result, "solutions", {}).get(f"{t.test_ids[k]} residual")
-            scales, p = _curve(solver, rough, flows, heads, gauge, known, start)
-            gh = units.head_to_pressure(t.gauge_height[sel[0]])
-            ax.plot(units.from_si(total * scales, "flow", fu), conv(np.array(p) - gh), color="tab:blue")
-            for i in sel[t.node[sel] == gauge]:
-                q_obs = 0.0 if t.kind[i] == "static" else total
-                ax.scatter([units.from_si(q_obs, "flow", fu)], [conv(t.pressure[i])],
-                           color="black" if result.flag[i] else "tab:orange",
-                           marker="x" if result.flag[i] else "o", zorder=3)
-            ax.axvline(units.from_si(total, "flow", fu), color="#bbb", lw=0.8, ls=":")
-            ax.set_title(f"{t.test_ids[k]}: gauge {net.node_ids[gauge]}, "
-                         f"{units.from_si(total, 'flow', fu):.0f} {fu} flowed", fontsize=8)
-            # The trade's N^1.85 axis (NFPA 291): a supply curve is close to a straight line on it.
-            ax.set_xscale("function", functions=(_n185_forward, _n185_inverse))
-            ax.set_xlim(left=0.0)
-            ax.set_xticks(_flow_ticks(units.from_si(total * scales[-1], "flow", fu)))
-            ax.tick_params(labelsize=7)
-            ax.set_xlabel(f"total test flow [{fu}], N^1.85 scale", fontsize=7)
-            ax.set_ylabel(f"pressure at gauge [{pu}]", fontsize=7)
-        for k in range(n_show, rows * cols):
-            axes[k // cols][k % cols].set_axis_off()
-        fig.suptitle("Hydrant curves at each test's first gauge: calibrated model (line), static and "
-                     "residual readings (dots; x flagged), flow tested (dotted)", fontsize=10)
-        out["hydrant curves"] = _png(fig)
+    out["C by group"] = dict(
+        c=np.asarray(result.c, float), low=np.where(np.isfinite(result.c_low), result.c_low, c_lo),
+        high=np.where(np.isfinite(result.c_high), result.c_high, c_hi),
+        determined=np.asarray(result.c_determined, bool),
+        model_c=result.grouping.length_weighted(result.network, result.network.roughness),
+        prior=None if result.prior is None else (np.asarray(result.prior.c, float),
+                                                 np.asarray(result.prior.spread, float)),
+        c_bounds=(c_lo, c_hi), names=[str(n) for n in result.grouping.names])
     return out
+
+
+def _curves_data(result, system: str) -> dict | None:
+    """The hydrant-curve panels (at most 12 tests), each from ``_curve``'s solves; None without tests."""
+    t, net = result.tests, result.network
+    if not t.n_tests:
+        return None
+    from calib.hydraulics import NetworkSolver
+    solver = NetworkSolver(net, headloss="hazen-williams")  # one set-up for every curve point
+    pu, fu = units.display_unit("pressure", system), units.display_unit("flow", system)
+    rough = result.roughness()
+    solutions = getattr(result, "solutions", {})
+    known = list(solutions.values())
+    panels = []
+    for k in range(min(t.n_tests, 12)):
+        flows = {str(net.node_ids[n]): q for n, q in t.flows[k].items()}
+        sel = np.flatnonzero(t.test == k)
+        if not flows or not sel.size:
+            panels.append(None)
+            continue
+        gauge = int(t.node[sel[0]])
+        heads = {str(net.node_ids[s]): h for s, h in t.source_head[k].items()}
+        total = sum(flows.values())
+        start = solutions.get(f"{t.test_ids[k]} residual")
+        scales, p = _curve(solver, rough, flows, heads, gauge, known, start)
+        gh = units.head_to_pressure(t.gauge_height[sel[0]])
+        readings = [(units.from_si(0.0 if t.kind[i] == "static" else total, "flow", fu),
+                     float(units.from_si(t.pressure[i], "pressure", pu)), bool(result.flag[i]))
+                    for i in sel[t.node[sel] == gauge]]
+        panels.append(dict(
+            flow=units.from_si(total * scales, "flow", fu),
+            pressure=units.from_si(np.array(p) - gh, "pressure", pu), readings=readings,
+            tested=units.from_si(total, "flow", fu),
+            title=(f"{t.test_ids[k]}: gauge {net.node_ids[gauge]}, "
+                   f"{units.from_si(total, 'flow', fu):.0f} {fu} flowed")))
+    return dict(panels=panels, fu=fu, pu=pu)
+
+
+def _plot_specs(result, system: str, curves: bool = True, worker=None) -> dict[str, dict]:
+    """Every figure's data, each handed to ``worker`` (a ``figures.FigureWorker``) as soon as it is
+    known: the fit's figures are drawn there while the curves are solved here."""
+    specs = _figure_data(result, system)
+    if worker is not None:
+        for name, data in specs.items():
+            worker.submit(name, data)
+    if curves:
+        data = _curves_data(result, system)
+        if data is not None:
+            specs["hydrant curves"] = data
+            if worker is not None:
+                worker.submit("hydrant curves", data)
+    return specs
 
 
 def _table(headers, rows) -> str:
@@ -302,16 +205,22 @@ def _info_rows(info):
     return cols, rows
 
 
-def render(result, system: str = "us", curves: bool = True) -> str:
-    """The report as one HTML string."""
+def render(result, system: str = "us", curves: bool = True, worker=None) -> str:
+    """The report as one HTML string; ``worker``: a ``figures.FigureWorker`` to draw the figures in
+    (else they are drawn here)."""
+    from calib.calibration import figures
     from calib.calibration.export import groups_frame, other_parameters_frame
+    from calib.fireflow.fitsummary import html_section  # fire flow with the fitted C
     t, net, est = result.tests, result.network, result.estimate
     pu = units.display_unit("pressure", system)
     e = html.escape
     c_bounds = result.options.get("c_bounds")
     bounds = (f"{c_bounds[0]:g} - {c_bounds[1]:g}" if c_bounds is not None else "-")
     group_by = result.options.get("group_by")
-    plots = _plots(result, system, curves)
+    specs = _plot_specs(result, system, curves, worker)
+    fire_flow = html_section(result, system)  # its solves while the worker draws
+    plots = {name: worker.result(name) if worker is not None else figures.draw(name, data)
+             for name, data in specs.items()}
 
     def img(key, alt):
         return (f"<figure><img alt='{e(alt)}' src='data:image/png;base64,{plots[key]}'></figure>"
@@ -436,8 +345,7 @@ def render(result, system: str = "us", curves: bool = True) -> str:
     if not t.info.empty:
         cols, rows = _info_rows(t.info)
         parts.append("<h2>Tests</h2>" + _table(cols, rows))
-    from calib.fireflow.fitsummary import html_section  # fire flow with the fitted C
-    parts.append(html_section(result, system))
+    parts.append(fire_flow)
     parts.append(
         "<h2>Method</h2><p>Each test gives a static snapshot (normal demand) and a residual snapshot "
         "(normal demand plus the test's flows); both kinds of reading are fitted (static readings "
@@ -455,8 +363,9 @@ def render(result, system: str = "us", curves: bool = True) -> str:
         "squares rises by the squared quantile (Venzon and Moolgavkar 1988, Applied Statistics 37(1); "
         "Bates and Watts 1988, Nonlinear Regression Analysis and Its Applications) - never outside the "
         "C bounds. Flags: face checks, standardized residuals "
-        "with leverage, Cook's distance (Cook 1977) and leave-one-out refits; readings beyond the "
-        "threshold are left out one at a time and the fit repeated. Accuracy criteria: WRc (1989) "
+        "with leverage beyond the Bonferroni outlier cut-off at the stated family-wise level (Cook and "
+        "Weisberg 1982), Cook's distance (Cook 1977) and leave-one-out refits; readings beyond the "
+        "cut-off are left out one at a time and the fit repeated. Accuracy criteria: WRc (1989) "
         "Network Analysis - A Code of Practice, and the AWWA ECAC (1999) calibration guidelines, "
         "both quoted from memory.</p>")
     parts.append("<div class='caution'><b>Before using these C-factors.</b> "
@@ -465,7 +374,7 @@ def render(result, system: str = "us", curves: bool = True) -> str:
     return "\n".join(parts)
 
 
-def write_report(result, out, system: str = "us", curves: bool = True) -> Path:
-    """Write ``OUT/report.html`` atomically and return its path."""
+def write_report(result, out, system: str = "us", curves: bool = True, worker=None) -> Path:
+    """Write ``OUT/report.html`` atomically and return its path (``worker``: see ``render``)."""
     path = Path(out) / "report.html"
-    return fileio.write_text(path, render(result, system, curves))
+    return fileio.write_text(path, render(result, system, curves, worker))

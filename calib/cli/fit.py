@@ -49,8 +49,12 @@ def register(subparsers) -> None:
                    help="also fit a demand factor per test day")
     p.add_argument("--source-offsets", action="store_true",
                    help="also fit a grade offset per source per test where boundary.csv gives none")
-    p.add_argument("--threshold", type=float, default=3.0,
-                   help="flag readings whose standardized residual exceeds this (default 3)")
+    p.add_argument("--threshold", type=float, default=None,
+                   help="flag readings whose standardized residual exceeds this fixed cut-off "
+                        "(default: the Bonferroni cut-off of --flag-level over the readings)")
+    p.add_argument("--flag-level", type=float, default=0.05, metavar="ALPHA",
+                   help="family-wise level of the suspect-reading flag: with no gross error, the "
+                        "chance that any reading is flagged (default 0.05; Bonferroni outlier test)")
     p.add_argument("--no-report", action="store_true", help="skip report.html")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.set_defaults(func=run)
@@ -225,6 +229,9 @@ def summary(result, system: str = "us") -> str:
                  + scale_words(result, system))
     t, net = result.tests, result.network
     flagged = [(i, f) for i, f in enumerate(result.flag) if f]
+    rule = result.options.get("flag_rule")
+    if rule:
+        lines.append(f"suspect-reading flag: {rule}")
     if flagged:
         lines.append("suspect readings (flag):")
         for i, f in flagged:
@@ -240,14 +247,14 @@ def summary(result, system: str = "us") -> str:
 
 
 def run(args) -> int:
-    from calib.calibration import export, fit, read_tests
-    from calib.network.io import read_network
-
     c_bounds = _bounds(args.c_bounds)
     sigma = _sigma(args.sigma)
-    if not (math.isfinite(args.threshold) and args.threshold > 0):
+    if args.threshold is not None and not (math.isfinite(args.threshold) and args.threshold > 0):
         raise InputError(f"{args.threshold} is not a positive threshold", field="--threshold",
                          expected="about 3 standardized units")
+    if not (math.isfinite(args.flag_level) and 0.0 < args.flag_level < 1.0):
+        raise InputError(f"{args.flag_level} is not a family-wise level", field="--flag-level",
+                         expected="a level between 0 and 1, e.g. 0.05")
     out = Path(args.out)
     if out.exists() and not out.is_dir():
         # checked before the fit, not after minutes of solving
@@ -255,6 +262,22 @@ def run(args) -> int:
                          expected="a folder for the outputs (created when missing)")
     fileio.check_outputs({"--out": [out / name for name in OUTPUTS]},
                          fileio.input_files(args.network, args.tests))
+    worker = None
+    if not args.no_report:
+        # a process that loads matplotlib now and draws the report's figures later, beside the fit
+        from calib.calibration.figures import FigureWorker
+        worker = FigureWorker.start()
+    try:
+        return _run(args, out, c_bounds, sigma, worker)
+    finally:
+        if worker is not None:
+            worker.close()
+
+
+def _run(args, out, c_bounds, sigma, worker) -> int:
+    from calib.calibration import export, fit, read_tests
+    from calib.network.io import read_network
+
     network = read_network(args.network)
     tests = read_tests(args.tests, network, sigma=sigma)
     # about 100 solves a test on the demo day (fit, refits, interval checks, leave-one-out)
@@ -262,7 +285,8 @@ def run(args) -> int:
     try:
         result = fit(network, tests, group_by=args.group_by, prior=args.prior, c_bounds=c_bounds,
                      loss=args.loss, demand_factor=args.demand_factor,
-                     source_offsets=args.source_offsets, threshold=args.threshold, progress=bar)
+                     source_offsets=args.source_offsets, threshold=args.threshold,
+                     flag_level=args.flag_level, progress=bar)
     finally:
         if bar is not None:
             bar.close()
@@ -270,7 +294,7 @@ def run(args) -> int:
         paths = export.write_outputs(result, stage, args.units)
         if not args.no_report:
             from calib.calibration.report import write_report
-            paths.append(write_report(result, stage, args.units))
+            paths.append(write_report(result, stage, args.units, worker=worker))
     paths = [out / Path(p).name for p in paths]
     print(summary(result, args.units))
     print("wrote " + ", ".join(str(p) for p in paths))

@@ -28,7 +28,8 @@ def register(subparsers) -> None:
         "plan", help="propose the next flow tests (greedy D- or A-optimal design)",
         description="Propose N flow tests that most reduce the uncertainty of the groups' C (greedy "
                     "D- or A-optimal design from the analytic Jacobian) under the limits of NFPA 291 "
-                    "(20 psi plus a margin at every junction), standard outlets and distinct hydrants.",
+                    "(20 psi plus a margin at every junction), standard outlets and distinct hydrants; "
+                    "a test flows one hydrant or two neighbouring ones sharing the flow.",
         epilog=CAUTION)
     p.add_argument("network", metavar="NETWORK", help="network folder of CSV tables or a .geojson file")
     p.add_argument("--tests", required=True, type=int, metavar="N", help="number of tests to plan")

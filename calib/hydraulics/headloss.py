@@ -85,12 +85,12 @@ def hazen_williams_law(q, r, q_eps: float = HW_Q_EPS):
     r = np.asarray(r, dtype=float)
     n = HW_FLOW_EXPONENT
     aq = np.abs(q)
-    big = aq >= q_eps
-    # Outside the blend: the law itself; aq ** 0.852 computed once and reused for h and slope.
-    pw = np.where(big, aq, q_eps) ** (n - 1.0)
-    h = r * pw * q
-    grad = n * r * pw
-    if not big.all():
+    # Outside the blend: the law itself; r aq ** 0.852 computed once and reused for h and slope.
+    rpw = r * np.maximum(aq, q_eps) ** (n - 1.0)
+    h = rpw * q
+    grad = n * rpw
+    if aq.size and aq.min() < q_eps:
+        big = aq >= q_eps
         x = np.where(big, 0.0, q / q_eps)
         scale = r * q_eps ** n
         h_small = scale * (_BLEND_A * x + _BLEND_B * x ** 3)

@@ -38,6 +38,15 @@ from calib.units import FT, GAMMA_WATER
 HEADLOSS_MODELS = ("hazen-williams", "darcy-weisbach")
 
 
+class _KeptFactor:
+    """The last factorization with the link weights, extra diagonal and fixed junctions of the
+    matrix it now factors (updated in place by ``NetworkSolver._reuse``)."""
+
+    def __init__(self, factor, w, extra, fixed):
+        self.factor, self.w, self.extra, self.fixed = factor, w, extra, fixed
+        self.stale = False
+
+
 class NetworkSolver:
     """Solve snapshots of one network; the sparsity pattern and ordering are built once here.
     A solver keeps state between solves (last factorization, trace): use one per thread.
@@ -57,7 +66,10 @@ class NetworkSolver:
     - ``reuse_factor``: solve an iteration's system by conjugate gradients preconditioned with the
       last factorization when at most ``reuse_max_changed`` links changed 1/D by more than a factor
       2 since it was made; fall back to a new factorization when CG needs more than
-      ``cg_max_iterations`` steps. The step is then as exact as the mass tolerance asks.
+      ``cg_max_iterations`` steps. The step is then as exact as the mass tolerance asks. With
+      CHOLMOD the links whose 1/D changed by more than ``update_ratio`` are first updated into the
+      kept factor (low-rank updates) when that costs at most ``update_budget`` of a factorization,
+      so far more of the iterations near the solution need no new factorization (``_reuse``).
     """
 
     def __init__(self, network, headloss: str = "hazen-williams", *, q_eps: float = hl.HW_Q_EPS,
@@ -65,7 +77,8 @@ class NetworkSolver:
                  energy_tol: float = 1e-6, mass_tol: float = 1e-8, mass_tol_abs: float = 1e-9,
                  max_status_changes: int = 8, viscosity: float = hl.NU_WATER_60F,
                  dense: bool = False, reuse_factor: bool = True, reuse_max_changed: int = 20,
-                 cg_max_iterations: int = 25):
+                 cg_max_iterations: int = 25, update_ratio: float = 2.0,
+                 update_budget: float = 0.25):
         if headloss not in HEADLOSS_MODELS:
             raise InputError(f"unknown head-loss model '{headloss}'", field="headloss",
                              expected=" or ".join(HEADLOSS_MODELS))
@@ -81,6 +94,7 @@ class NetworkSolver:
         self._reach_cache = None
         self._factor = None
         self.reuse_max_changed, self.cg_max_iterations = reuse_max_changed, cg_max_iterations
+        self.update_ratio, self.update_budget = float(update_ratio), float(update_budget)
         self.nj, self.np_, self.nu = net.n_junctions, net.n_pipes, len(net.pumps)
         self.nv = len(net.valves)  # valves: links after the pumps
         self.link_from = np.concatenate([net.pipe_from, np.asarray(net.pumps.from_node, np.int64),
@@ -96,6 +110,7 @@ class NetworkSolver:
         self.pattern = SchurPattern(self.nj, self.link_from, self.link_to, net.n_nodes, dense=dense)
         self.area = np.pi * net.diameter ** 2 / 4.0
         self.minor = hl.minor_loss_coefficient(net.minor_loss, net.diameter)
+        self._has_minor = bool(np.any(self.minor))
         self.is_cv = net.status == PipeStatus.CHECK_VALVE
         self.pipe_closed = net.status == PipeStatus.CLOSED
         pumps = net.pumps
@@ -115,9 +130,10 @@ class NetworkSolver:
         else:
             h, g, _ = hl.darcy_weisbach_law(qp, self.network.length, self.network.diameter, coef,
                                             self.viscosity)
-        aq = np.abs(qp)
-        h = h + self.minor * aq * qp
-        g = g + 2.0 * self.minor * aq
+        if self._has_minor:
+            aq = np.abs(qp)
+            h = h + self.minor * aq * qp
+            g = g + 2.0 * self.minor * aq
         if self.nu:
             hu, gu = self._pump_law(q[self.np_:self.np_ + self.nu])
             h, g = np.concatenate([h, hu]), np.concatenate([g, gu])
@@ -235,9 +251,11 @@ class NetworkSolver:
         changed = False
         dq = np.zeros(len(q))
         dH = np.zeros(nj)
-        if secant:  # cold start; a warm start may precondition with the last solve's factor
-            self._factor = None
-        self.factorizations = 0
+        if secant and self._factor is not None:
+            # cold start: the last solve's factor is not a preconditioner here (a warm start may
+            # use it), only memory for the next factorization
+            self._factor.stale = True
+        self.factorizations = self.updates = 0
         for it in range(self.max_iterations + 1):
             h, grad = self._laws(q, coef)
             F1 = np.where(active, h - (H[f] - H[t]), 0.0)
@@ -281,7 +299,8 @@ class NetworkSolver:
             if self.nv:
                 rhs += rhs_v
             rhs[fixed] = 0.0
-            dH = self._linear_solve(S, rhs, w, isolated, mass_tol) if nj else np.zeros(0)
+            dH = (self._linear_solve(S, rhs, w, extra, fixed, mass_tol) if nj
+                  else np.zeros(0))
             dHn = np.concatenate([dH, np.zeros(net.n_sources)])
             dq = -w * (F1 - (dHn[f] - dHn[t]))
             if self.nv:
@@ -314,30 +333,67 @@ class NetworkSolver:
         self._fail(f"no convergence in {self.max_iterations} iterations", self.max_iterations,
                    F2, dH, dq, e2)
 
-    def _linear_solve(self, S, rhs, w, isolated, mass_tol):
-        """dH from S dH = rhs: by conjugate gradients preconditioned with the last factorization
-        when few links changed their 1/D by more than a factor 2 since then (each such link is a
-        rank-one change, which CG absorbs in about one step), else by a new factorization."""
-        fac = self._factor
-        if self.reuse_factor and fac is not None and np.array_equal(isolated, fac[2]):
-            w_f = fac[1]
-            far = np.count_nonzero((w > 2.0 * w_f) | (w < 0.5 * w_f))
-            # CG steps allowed: about the cost of one factorization (2.5 x the flop ratio, the
-            # factor measured on grids of 1k-50k pipes where Python overhead weighs on CG steps)
-            cap = min(self.cg_max_iterations, int(2.5 * (self.pattern.work_ratio or 0.0)))
-            if far <= self.reuse_max_changed and cap >= 1:
-                dH = self.pattern.pcg(S, fac[0], rhs, 0.1 * mass_tol, cap)
-                if dH is not None:
-                    return dH
-        try:
-            factor = self.pattern.factorize(S)
-        except (RuntimeError, ValueError, np.linalg.LinAlgError) as exc:  # e.g. singular LU
-            raise ConvergenceError(
-                f"network '{self.network.name}': the linear system is singular ({exc}); a pipe of "
-                "extreme diameter, length or C is the usual cause") from None
+    def _linear_solve(self, S, rhs, w, extra, fixed, mass_tol):
+        """dH from S dH = rhs: with the last factorization where S changed little since it was made
+        (``_reuse``), else by a new factorization, which is kept with the weights it was made of."""
+        kept = self._factor
+        if (self.reuse_factor and kept is not None and not kept.stale
+                and np.array_equal(fixed, kept.fixed)):
+            dH = self._reuse(kept, S, rhs, w, extra, fixed, mass_tol)
+            if dH is not None:
+                return dH
+        self._factor = None
+        if kept is not None and kept.factor.refactor(S):  # into the kept factor's memory
+            factor = kept.factor
+        else:
+            try:
+                factor = self.pattern.factorize(S)
+            except (RuntimeError, ValueError, np.linalg.LinAlgError) as exc:  # e.g. singular LU
+                raise ConvergenceError(
+                    f"network '{self.network.name}': the linear system is singular ({exc}); a pipe "
+                    "of extreme diameter, length or C is the usual cause") from None
         self.factorizations += 1
-        self._factor = (factor, w, isolated.copy())
+        self._factor = _KeptFactor(factor, w.copy(), extra.copy(), fixed.copy())
         return factor(rhs)
+
+    def _reuse(self, kept, S, rhs, w, extra, fixed, mass_tol):
+        """Solve with the kept factorization, or None when that would cost more than a new one.
+
+        Each link whose 1/D changed since the factor was made is a rank-one change of S. When at
+        most ``reuse_max_changed`` links changed by more than a factor 2, conjugate gradients
+        preconditioned with the factor absorb them (about one step each). With more, or when CG
+        stops early, where the factor can be updated in place (CHOLMOD), the links changed by more
+        than ``update_ratio`` (and changed extra diagonal terms) are first updated into it when
+        that costs at most ``update_budget`` of a factorization (``SchurPattern.update_work``);
+        CG then absorbs the smaller changes in a few steps.
+        CG is stopped past the cost of about one factorization (2.5 x the flop ratio, measured on
+        grids of 1k-50k pipes where Python overhead weighs on CG steps)."""
+        pat, factor = self.pattern, kept.factor
+        cap = min(self.cg_max_iterations, int(2.5 * (pat.work_ratio or 0.0)))
+        if cap < 1:
+            return None
+        tol = 0.1 * mass_tol
+        far = (w > 2.0 * kept.w) | (w < 0.5 * kept.w)
+        if np.count_nonzero(far) <= self.reuse_max_changed:
+            dH = pat.pcg(S, factor, rhs, tol, cap)
+            if dH is not None or not factor.can_update:
+                return dH
+        elif not factor.can_update:
+            return None
+        rho = self.update_ratio
+        links = np.flatnonzero(far if rho == 2.0 else (w > rho * kept.w) | (rho * w < kept.w))
+        nodes = np.flatnonzero((extra != kept.extra) & ~fixed)
+        if not (len(links) or len(nodes)) or pat.update_work(links, nodes) > self.update_budget:
+            return None  # nothing to update (CG failed on the small changes) or too costly
+        up, down = pat.low_rank(links, w[links] - kept.w[links], nodes,
+                                extra[nodes] - kept.extra[nodes], fixed)
+        if not factor.update(up, down):
+            self._factor = None  # rounding made a pivot <= 0: factor anew
+            return None
+        kept.w[links] = w[links]
+        kept.extra[nodes] = extra[nodes]
+        self.updates += 1
+        return pat.pcg(S, factor, rhs, tol, cap)
 
     def _update_status(self, q, H, active, dynamic, flips, demand):
         """Check valves close on reverse flow and reopen when the head would drive forward flow;
@@ -440,9 +496,9 @@ class NetworkSolver:
             velocity=flow / self.area, headloss=headloss, iterations=it,
             factorizations=self.factorizations,
             max_mass_error=e2, max_energy_error=e1, converged=True,
-            negative_pressure=[str(net.node_ids[i]) for i in neg],
-            isolated=[str(i) for i in net.node_ids[:nj][isolated]],
-            closed_links=[str(i) for i in self.link_ids[~active]],
+            negative_pressure=list(map(str, net.node_ids[neg])),
+            isolated=list(map(str, net.node_ids[:nj][isolated])),
+            closed_links=list(map(str, self.link_ids[~active])),
             snapshot=resolved.snapshot, roughness=rough, _grad=grad, _active=active.copy(),
             **{"_isolated_mask": isolated.copy(), **self._held_fields(resolved, q, held, isolated)})
 

@@ -16,10 +16,14 @@ Method (published names kept):
 
 Limits of each candidate test:
 
+- one flowing hydrant, or two neighbouring ones (the nearest hydrant within ``mate_radius``, 900 ft
+  by default: the next hydrant on the street, common practice) with the flow split between them as
+  their outlets split it - the same outlets opened on each, so equal shares;
 - flows a crew produces from standard outlets (``OUTLETS``): one or two 2.5 in hose outlets read by
   pitot at 10-30 psi (NFPA 291 asks for pitot readings in that band; Q = 29.83 c d^2 sqrt(p), c 0.90),
-  or the 4.5 in pumper outlet through a flow meter up to 2,500 gpm; the pitot must stay at least
-  ``PITOT_MARGIN_PSI`` below the flowing hydrant's own residual pressure (common practice);
+  or the 4.5 in pumper outlet through a flow meter (1,000-2,500 gpm); the test's total at most
+  2,500 gpm (``FLOW_STEPS_GPM``); the pitot must stay at least ``PITOT_MARGIN_PSI`` below each
+  flowing hydrant's own residual pressure (common practice);
 - every junction at or above 20 psi plus ``margin`` during the test (NFPA 291: no residual below
   20 psi; the margin covers the model's error), a junction already below that at rest may not drop;
 - gauges within ``radius`` of the flowing hydrant that drop at least ``MIN_DROP_PSI`` (a smaller drop
@@ -75,13 +79,14 @@ def outlet_for(flow_gpm: float, residual_psi: float):
 class PlannedTest:
     test_id: str
     flow_nodes: list
-    flow: float  # [m3/s]
+    flow: float  # [m3/s] the test's total
     outlets: str
     gauge_nodes: list
     expected_drop: list  # [Pa] per gauge
     aimed_at: str
     sd_before: float
     sd_after: float
+    flow_split: list = field(default_factory=list)  # [m3/s] per flowing hydrant, as flow_nodes
 
 
 @dataclass
@@ -96,25 +101,35 @@ class Plan:
 
 @dataclass
 class Candidate:
-    node: int
-    flow: float  # [m3/s]
+    node: int  # the first flowing hydrant
+    flow: float  # [m3/s] the test's total
     outlets: str
     drops: np.ndarray  # [Pa] per junction
     rows: np.ndarray  # (n_junctions x G) drop sensitivity / (sqrt(2) sigma) [1/unit C]
     gauges: np.ndarray  # eligible gauge junctions
+    nodes: tuple = ()  # every flowing hydrant (the first, and its mate in a two-hydrant test)
+
+    def __post_init__(self):
+        self.nodes = tuple(int(n) for n in self.nodes) or (int(self.node),)
+
+    @property
+    def flows(self) -> dict:
+        """Flow [m3/s] per flowing hydrant: equal shares (the same outlets opened on each)."""
+        return {n: self.flow / len(self.nodes) for n in self.nodes}
 
 
 class Planner:
     """Builds candidate tests on a network at given group C-factors and picks them greedily."""
 
     def __init__(self, network, grouping, c_group, solver=None, sigma: float = PSI, margin_psi: float = 5.0,
-                 radius: float = 2000.0 * units.FT, hydrants=None):
+                 radius: float = 2000.0 * units.FT, hydrants=None, mate_radius: float = 900.0 * units.FT):
         from calib.hydraulics import NetworkSolver, Snapshot
         self.network, self.grouping = network, grouping
         self.solver = solver or NetworkSolver(network, headloss="hazen-williams")
         self.c = np.asarray(c_group, float)
         self.rough = grouping.per_pipe(self.c, network.roughness)
         self.sigma, self.margin, self.radius = float(sigma), float(margin_psi), float(radius)
+        self.mate_radius = float(mate_radius)
         nj = network.n_junctions
         hyd = np.asarray(network.hydrant, bool)[:nj] if hydrants is None else None
         self.hydrants = (np.flatnonzero(hyd) if hyd is not None and hyd.any() else np.arange(nj)) \
@@ -136,28 +151,45 @@ class Planner:
         dH, _ = self.solver.sensitivities(res, dF1, sp.csc_matrix((self.network.n_junctions, g.n_groups)))
         return dH.toarray() if sp.issparse(dH) else np.asarray(dH)
 
-    def _solve(self, node, q):
-        snap = self._Snapshot(extra_demand={str(self.network.node_ids[node]): q}, label="candidate")
+    def _solve(self, node, q=None):
+        """The test's residual snapshot: ``node`` flowing ``q`` [m3/s], or ``node`` a {node: flow} dict."""
+        flows = node if isinstance(node, dict) else {node: q}
+        ids = self.network.node_ids
+        snap = self._Snapshot(extra_demand={str(ids[int(n)]): float(f) for n, f in flows.items()},
+                              label="candidate")
         return self.solver.solve(snap, roughness=self.rough, warm_start=self.rest)
 
-    def candidate(self, node: int) -> Candidate | None:
-        """The largest standard flow at ``node`` that keeps every limit, with its gauges' sensitivities."""
+    def mate(self, node: int) -> int | None:
+        """The hydrant nearest ``node`` within ``mate_radius`` (map distance): its partner in a
+        two-hydrant test; None when no hydrant is that near."""
+        net, h = self.network, self.hydrants[self.hydrants != node]
+        if h.size == 0:
+            return None
+        d = np.hypot(net.x[h] - net.x[node], net.y[h] - net.y[node])
+        k = int(np.argmin(d))
+        return int(h[k]) if d[k] <= self.mate_radius else None
+
+    def candidate(self, node: int, mate: int | None = None) -> Candidate | None:
+        """The largest standard flow at ``node`` (with ``mate`` flowing an equal share: a two-hydrant
+        test) that keeps every limit, with its gauges' sensitivities; None when no flow does."""
         net = self.network
         nj = net.n_junctions
+        nodes = (int(node),) if mate is None else (int(node), int(mate))
         d = np.hypot(net.x[self.hydrants] - net.x[node], net.y[self.hydrants] - net.y[node])
-        near = self.hydrants[(d <= self.radius) & (self.hydrants != node)]
+        near = self.hydrants[(d <= self.radius) & ~np.isin(self.hydrants, nodes)]
         if near.size == 0:
             return None
         for flow_gpm in FLOW_STEPS_GPM:
             q = flow_gpm * GPM
             try:
-                res = self._solve(node, q)
+                res = self._solve({n: q / len(nodes) for n in nodes})
             except ConvergenceError:
                 continue
             p = np.asarray(res.pressure, float)[:nj]
             if np.any(p < self.floor):
                 continue
-            outlet = outlet_for(flow_gpm, p[node] / PSI)
+            # the same outlets on each flowing hydrant, each within its own residual pressure
+            outlet = outlet_for(flow_gpm / len(nodes), float(p[list(nodes)].min()) / PSI)
             if outlet is None:
                 continue
             drops = self.rest_p - p
@@ -166,25 +198,43 @@ class Planner:
                 return None
             rows = (self._dH(res) - self.rest_dH) / (np.sqrt(2.0) * units.pressure_to_head(self.sigma))
             text = outlet[0] + (f" at about {outlet[1]:.0f} psi" if outlet[1] else "")
-            return Candidate(int(node), q, text, drops, rows, gauges)
+            if len(nodes) > 1:
+                text = f"on each of the {len(nodes)} hydrants: {text}"
+            return Candidate(int(node), q, text, drops, rows, gauges, nodes)
         return None
 
-    def plan(self, n_tests: int, P, criterion: str = "D", n_gauges: int = 2, progress=None) -> Plan:
-        """Greedy design of ``n_tests`` tests from the prior covariance ``P`` of the group C-factors."""
+    def candidates(self, pairs: bool = True, progress=None) -> list[Candidate]:
+        """Every hydrant's one-hydrant test and, with ``pairs``, its two-hydrant test with its mate
+        (each pair once), those that keep the limits."""
+        out, seen = [], set()
+        for k, node in enumerate(self.hydrants):
+            c = self.candidate(int(node))
+            if c is not None:
+                out.append(c)
+            m = self.mate(int(node)) if pairs else None
+            if m is not None and frozenset((int(node), m)) not in seen:
+                seen.add(frozenset((int(node), m)))
+                c = self.candidate(int(node), m)
+                if c is not None:
+                    out.append(c)
+            if progress is not None:
+                progress(k + 1, len(self.hydrants))
+        return out
+
+    def plan(self, n_tests: int, P, criterion: str = "D", n_gauges: int = 2, progress=None,
+             pairs: bool = True) -> Plan:
+        """Greedy design of ``n_tests`` tests from the prior covariance ``P`` of the group C-factors
+        (``pairs``: two-hydrant tests among the candidates)."""
         criterion = criterion.upper()
         if criterion not in ("D", "A"):
             raise CalibrationError(f"criterion '{criterion}' is not D or A")
         P = np.asarray(P, float)
         F = np.linalg.inv(P)
         names = list(self.grouping.names)
-        cands = []
-        for k, node in enumerate(self.hydrants):
-            c = self.candidate(int(node))
-            if c is not None:
-                cands.append(c)
-            if progress is not None:
-                progress(k + 1, len(self.hydrants))
-        notes = [f"{len(cands)} of {len(self.hydrants)} hydrants can flow within the limits"]
+        cands = self.candidates(pairs, progress)
+        singles = sum(len(c.nodes) == 1 for c in cands)
+        notes = [f"{singles} of {len(self.hydrants)} hydrants can flow within the limits alone"
+                 + (f", {len(cands) - singles} neighbouring pairs together" if pairs else "")]
 
         def score(Fn):
             if criterion == "D":
@@ -196,7 +246,7 @@ class Planner:
         for t in range(n_tests):
             best = None
             for c in cands:
-                if c.node in used:
+                if used.intersection(c.nodes):
                     continue
                 pool = [int(g) for g in c.gauges if int(g) not in used]
                 if not pool:
@@ -221,19 +271,20 @@ class Planner:
             sd_a = np.sqrt(np.diag(np.linalg.inv(Fn)))
             g = int(np.argmax((sd_b - sd_a) / sd_b))
             ids = self.network.node_ids
-            chosen.append(PlannedTest(f"P{t + 1:02d}", [str(ids[c.node])], c.flow, c.outlets,
+            chosen.append(PlannedTest(f"P{t + 1:02d}", [str(ids[n]) for n in c.nodes], c.flow, c.outlets,
                                       [str(ids[k]) for k in picked], [float(c.drops[k]) for k in picked],
-                                      names[g], float(sd_b[g]), float(sd_a[g])))
-            used.update([c.node] + picked)
+                                      names[g], float(sd_b[g]), float(sd_a[g]), list(c.flows.values())))
+            used.update(list(c.nodes) + picked)
             F = Fn
         return Plan(chosen, names, np.sqrt(np.diag(P)), np.sqrt(np.diag(np.linalg.inv(F))), criterion, notes)
 
 
 def posterior_sd(planner: Planner, P, tests) -> np.ndarray:
-    """sd of each group after ``tests`` [(flow node, flow [m3/s], [gauge nodes])] by the same information."""
+    """sd of each group after ``tests`` [(flow node, flow [m3/s], [gauge nodes])] by the same information;
+    a test's flow node may be a {node: flow [m3/s]} dict (several flowing hydrants; its flow then unused)."""
     F = np.linalg.inv(np.asarray(P, float))
     for node, q, gauges in tests:
-        res = planner._solve(int(node), float(q))
+        res = planner._solve(node if isinstance(node, dict) else {int(node): float(q)})
         rows = (planner._dH(res) - planner.rest_dH) / (np.sqrt(2.0) * units.pressure_to_head(planner.sigma))
         for g in gauges:
             F = F + np.outer(rows[g], rows[g])
@@ -249,9 +300,11 @@ def plan_frame(plan: Plan, system: str = "us"):
         "gauge_nodes": ";".join(t.gauge_nodes),
         f"expected_drop [{pu}]": ";".join(f"{units.from_si(d, 'pressure', pu):.1f}" for d in t.expected_drop),
         "aimed_at": t.aimed_at, "sd_before": round(t.sd_before, 2), "sd_after": round(t.sd_after, 2),
-        "outlets": t.outlets} for t in plan.tests],
+        "outlets": t.outlets,
+        f"flow_split [{fu}]": ";".join(f"{units.from_si(q, 'flow', fu):.0f}" for q in (t.flow_split or [t.flow]))}
+        for t in plan.tests],
         columns=["test_id", "flow_nodes", f"flow [{fu}]", "gauge_nodes", f"expected_drop [{pu}]", "aimed_at",
-                 "sd_before", "sd_after", "outlets"])
+                 "sd_before", "sd_after", "outlets", f"flow_split [{fu}]"])
 
 
 def plan_geojson(plan: Plan, network, system: str = "us") -> dict:
@@ -267,6 +320,6 @@ def plan_geojson(plan: Plan, network, system: str = "us") -> dict:
                     round(float(units.from_si(network.x[i], "length", lu)), 2),
                     round(float(units.from_si(network.y[i], "length", lu)), 2)]},
                     "properties": {"test_id": t.test_id, "order": order, "role": role, "node": n,
-                                   "aimed_at": t.aimed_at}})
+                                   "aimed_at": t.aimed_at, "flowing_hydrants": len(t.flow_nodes)}})
     return {"type": "FeatureCollection", "name": "test plan",
             "properties": {"coordinates": f"map grid [{lu}], as the network's x and y"}, "features": feats}

@@ -77,8 +77,6 @@ def closure_trial(seed: int, n_tests: int = 8, nx: int = 10, ny: int = 8, min_mi
     ``min_misfit`` (a closure no test sees cannot be found by any method). Returns a
     ``ClosureTrial`` or None when ``tries`` draws found none.
     """
-    from calib.hydraulics import NetworkSolver
-    from calib.network.model import PipeStatus
     rng = np.random.default_rng(10_000 + seed)
     net = older_town(nx, ny, seed=seed)
     grouping = make_groups(net)
@@ -86,21 +84,61 @@ def closure_trial(seed: int, n_tests: int = 8, nx: int = 10, ny: int = 8, min_mi
     true_c = np.clip(rng.normal(prior.c, prior.spread), 40.0, 150.0)
     model = net.replace(roughness=grouping.per_pipe(true_c, net.roughness))
     plan = synthetic.plan_tests(model, n_tests, seed=seed, flow_gpm=(700.0, 1100.0), n_gauges=3)
-    solver = NetworkSolver(model, headloss="hazen-williams")
     inner = np.flatnonzero(model.pipe_to < model.n_junctions)[:-1]
+    return _closed_pipe_day(model, plan, inner, rng, seed, min_misfit, tries)
+
+
+def demo_closure_trial(seed: int, min_misfit: float = 30.0, tries: int = 20):
+    """The demo town's day (its tests' flows and gauges) with one open pipe closed in the truth.
+
+    The model is Tallowmere at the demo truth's C (``truth.json``), every pipe open as in the network
+    files; the readings are solved with one drawn pipe closed, 1 psi of gauge noise, read to 0.5 psi.
+    Returns a ``ClosureTrial`` or None, as ``closure_trial``.
+    """
+    import json
+    from pathlib import Path
+
+    from calib.calibration import read_tests
+    from calib.network.io import read_network
+    demo = Path(__file__).resolve().parents[2] / "field_samples" / "tallowmere"
+    net = read_network(demo / "network")
+    grouping = make_groups(net)
+    truth = json.loads((demo / "tests" / "truth.json").read_text())["c_factor"]
+    model = net.replace(roughness=grouping.per_pipe(np.array([truth[g] for g in grouping.names]),
+                                                    net.roughness))
+    day = read_tests(demo / "tests", net)
+    plan = []
+    for t in range(day.n_tests):
+        nodes = day.node[day.test == t]
+        plan.append((dict(day.flows[t]), list(dict.fromkeys(int(n) for n in nodes))))
+    rng = np.random.default_rng(20_000 + seed)
+    inner = np.flatnonzero((np.asarray(model.status) == 0) & (model.pipe_from < model.n_junctions)
+                           & (model.pipe_to < model.n_junctions))
+    return _closed_pipe_day(model, plan, inner, rng, seed, min_misfit, tries)
+
+
+def _closed_pipe_day(model, plan, candidates, rng, seed, min_misfit, tries):
+    """Draw a pipe of ``candidates`` to close in the truth until a test of ``plan`` sees it."""
+    from calib.hydraulics import NetworkSolver, Snapshot
+    from calib.network.model import PipeStatus
+    solver = NetworkSolver(model, headloss="hazen-williams")
+    sim = synthetic.synthetic_tests(model, model.roughness, plan, sigma=1e-9, seed=0, solver=solver)
     for _ in range(tries):
-        k = int(rng.choice(inner))
+        k = int(rng.choice(candidates))
         status = np.array(model.status, copy=True)
         status[k] = PipeStatus.CLOSED
         truth = model.replace(status=status)
         try:
+            # a closure that cuts a junction off (even one without demand, e.g. a reducing valve's
+            # inlet) is not a state a crew finds: draw another
+            if NetworkSolver(truth, headloss="hazen-williams").solve(Snapshot()).isolated:
+                continue
             tests = synthetic.synthetic_tests(truth, truth.roughness, plan, sigma=units.PSI,
                                               seed=seed + 1, round_to=0.5 * units.PSI)
-        except Exception:  # the closure cut a junction off: draw another  # noqa: BLE001
+        except Exception:  # the closure cut a junction with demand off: draw another  # noqa: BLE001
             continue
-        sim = synthetic.synthetic_tests(model, model.roughness, plan, sigma=1e-9, seed=0, solver=solver)
         r = (sim.pressure - tests.pressure) / tests.sigma
-        per_test = np.bincount(tests.test, weights=r ** 2, minlength=n_tests)
+        per_test = np.bincount(tests.test, weights=r ** 2, minlength=len(plan))
         t = int(np.argmax(per_test))
         if per_test[t] >= min_misfit:
             return ClosureTrial(model, tests, k, t, float(per_test[t]))

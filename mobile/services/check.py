@@ -189,7 +189,7 @@ def run_job(job: CheckJob) -> CheckResult:
         if any(v.suspect for v in verdicts):
             m, _ = checker.prior(test)
             closures = [f"{c.pipe_id} ({c.start}-{c.end}): {c.note}"
-                        for c in finder.rank(test, m, top=3, confirm=10)]
+                        for c in finder.rank(test, m, top=3, confirm=10, min_drop=0.0)]
     except (CalibError, KeyError, ValueError, IndexError) as exc:
         return CheckResult(False, f"The model could not simulate this test: {exc}")
     out = []
@@ -235,7 +235,7 @@ def closures_for(service, tid: str, top: int = 5) -> list:
         return []
     checker, finder, test = _checker(job)
     m, _ = checker.prior(test)
-    return finder.rank(test, m, top=top)
+    return finder.rank(test, m, top=top, min_drop=0.0)  # the best few, each with its note
 
 
 def check_test(service, tid: str, tol: float = TOLERANCE) -> CheckResult:

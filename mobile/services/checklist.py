@@ -4,6 +4,10 @@ Drawn from common trade practice for hydrant flow testing (NFPA 291 and AWWA M17
 the cautions themselves are common practice). The list is a reminder, not a procedure: local
 procedures, the water utility's rules and the authority having jurisdiction always come first.
 Ticked items are saved with the test (in its header).
+
+Safety items (``safety=True``: traffic, where the water goes, water hammer, the fire service,
+discoloured water) are confirmed one by one, each with its own tap: the one-tap ALL DONE ticks only
+the other required items, so that nobody confirms a hazard without reading it.
 """
 
 from __future__ import annotations
@@ -23,19 +27,21 @@ class Item:
     title: str
     detail: str
     required: bool = True
+    safety: bool = False  # a hazard to people or property: confirmed by its own tap, never in bulk
 
 
 ITEMS: tuple[Item, ...] = (
     Item("traffic", "Traffic and people kept clear",
-         "Cones and signs up, a spotter where the stream crosses a road or path."),
+         "Cones and signs up, a spotter where the stream crosses a road or path.", safety=True),
     Item("drainage", "Water has somewhere to go",
-         "Stream aimed at a drain or a safe run-off; no flooding of property, no erosion, no ice."),
+         "Stream aimed at a drain or a safe run-off; no flooding of property, no erosion, no ice.",
+         safety=True),
     Item("slowly", "Open and close slowly, one hydrant at a time",
-         "Fast valve moves cause water hammer that can burst mains and services."),
+         "Fast valve moves cause water hammer that can burst mains and services.", safety=True),
     Item("fire_service", "Fire service told",
-         "Fire protection nearby is reduced while the hydrants flow."),
+         "Fire protection nearby is reduced while the hydrants flow.", safety=True),
     Item("customers", "Affected customers told",
-         "Flowing stirs up sediment: warn of discoloured water and low pressure."),
+         "Flowing stirs up sediment: warn of discoloured water and low pressure.", safety=True),
     Item("dechlorination", "Dechlorination",
          "A stream or storm drain may need a diffuser with dechlorinating tablets.",
          required=False),
@@ -51,3 +57,8 @@ def item_keys() -> list[str]:
 def missing_items(ticked: dict) -> list[Item]:
     """Required items not ticked yet."""
     return [i for i in ITEMS if i.required and not ticked.get(i.key)]
+
+
+def bulk_keys() -> list[str]:
+    """What ALL DONE may tick in one tap: the required items that are not safety items."""
+    return [i.key for i in ITEMS if i.required and not i.safety]

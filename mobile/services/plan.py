@@ -1,8 +1,9 @@
-"""A plan from the office (``python -m calib plan``'s plan.csv) as the day's list of tests.
+"""A plan from the office (``python -m calib plan``'s plan.csv) as the day's list of tests and on the map.
 
-Plain Python, no Kivy: read the plan (columns by name, units from the headers), say which planned
-tests are already done on this device, and start a planned test with its hydrants and outlets set up.
-The screens only call these functions.
+Plain Python, no Kivy: read the plan (columns by name, units from the headers), keep it as the day's
+plan on the service, say which planned tests are already done on this device, start a planned test
+with its hydrants and outlets set up, and give the map its marks (each planned test's flowing and
+gauge hydrants, numbered in the plan's order). The screens only call these functions.
 """
 
 from __future__ import annotations
@@ -86,6 +87,40 @@ def read_plan(path, area) -> list[PlannedTest]:
     if problems:
         raise InputError(problems)
     return out
+
+
+def load(service, path) -> list[PlannedTest]:
+    """Read ``path`` (a plan.csv, or the folder holding one) and keep it as the day's plan on
+    ``service`` (``service.plan``); raises ``InputError`` naming every problem, the old plan kept."""
+    path = Path(path)
+    if path.is_dir():
+        path = path / "plan.csv"
+    planned = read_plan(path, service.area)
+    service.plan = planned
+    return planned
+
+
+#: The map's words for the plan's marks (the widget draws them; the shapes are this app's own).
+LEGEND = "Numbers: today's plan in order (filled purple square: flow there; purple ring: gauge there)."
+
+
+def map_marks(plan: list[PlannedTest], data) -> list[dict]:
+    """Each planned test's hydrants for the map, in the plan's order: ``{"node", "role" ("flow" or
+    "gauge"), "order", "label", "x", "y"}`` (map units). A hydrant the map cannot place is left out;
+    a hydrant in two planned tests (a plan from elsewhere) carries both numbers."""
+    marks: dict = {}
+    for order, p in enumerate(plan, start=1):
+        for role, nodes in (("flow", p.flow_nodes), ("gauge", p.gauge_nodes)):
+            for n in nodes:
+                at = data.where(n) if data is not None else None
+                if at is None:
+                    continue
+                if n in marks:
+                    marks[n]["label"] += f",{order}"
+                    continue
+                marks[n] = {"node": n, "role": role, "order": order, "label": str(order),
+                            "x": at[0], "y": at[1]}
+    return sorted(marks.values(), key=lambda m: (m["order"], m["role"] != "flow", m["node"]))
 
 
 def _marker(p: PlannedTest) -> str:

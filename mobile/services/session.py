@@ -75,6 +75,7 @@ class TestService:
     def __init__(self, store: Store, area: Area | None = None):
         self.store = store
         self.area = area or Area("No area loaded")
+        self.plan: list = []  # the day's plan from the office (mobile.services.plan.load), in order
 
     # --- settings ----------------------------------------------------------------------------
     @property
@@ -160,11 +161,18 @@ class TestService:
         return self._edit(tid, lambda h: h["checklist"].__setitem__(key, bool(ticked)), "Saved")
 
     def tick_all(self, tid: str) -> Outcome:
-        """The crew says every required item is done: tick them all in one tap (optional ones,
-        which local rules decide, stay as they are)."""
-        keys = [i.key for i in checklist.ITEMS if i.required]
-        return self._edit(tid, lambda h: h["checklist"].update({k: True for k in keys}),
-                          f"{len(keys)} required items ticked")
+        """ALL DONE: tick the required items that are not safety items in one tap; go on (ok) only
+        when every safety item was confirmed by its own tap, else name the ones left (refused; the
+        other ticks are kept). Optional items, which local rules decide, stay as they are."""
+        keys = checklist.bulk_keys()
+        out = self._edit(tid, lambda h: h["checklist"].update({k: True for k in keys}),
+                         f"{len(keys)} preparation items ticked")
+        if not out.ok:
+            return out
+        left = [i.title for i in checklist.missing_items(self.header(tid)["checklist"])]
+        if left:
+            return Outcome(False, "Tap each safety item to confirm it first: " + "; ".join(left))
+        return out
 
     def checklist_keys(self) -> list[str]:
         return checklist.item_keys()

@@ -122,7 +122,8 @@ def _boundary_text(b: dict, system: str) -> str:
 
 def checklist_rows(service, tid: str) -> list[dict]:
     ticked = service.header(tid)["checklist"]
-    return [{"key": i.key, "title": i.title + ("" if i.required else "  (if local rules ask)"),
+    return [{"key": i.key, "title": ("SAFETY: " if i.safety else "") + i.title
+             + ("" if i.required else "  (if local rules ask)"), "safety": i.safety,
              "detail": i.detail, "ticked": bool(ticked.get(i.key))} for i in checklist.ITEMS]
 
 
@@ -221,13 +222,17 @@ def hydrant_rows(area, text: str = "") -> list[dict]:
             for h in area.search(text)]
 
 
+MAP_LEGEND = ("Blue dots: hydrants.  Green ring: gauge hydrant.  Red square: flowing hydrant.  "
+              "Yellow: picked.  One finger pans, two zoom.")
 EMPTY_MAP = {"title": "", "picked": "", "outlet": "", "gauges": [], "flows": [], "nearby": [],
-             "nearby_title": "", "available": False, "note": ""}
+             "nearby_title": "", "available": False, "note": "", "planned": [], "legend": MAP_LEGEND}
 
 
 def map_view(service, tid: str, data, picked: str = "", here=None) -> dict:
-    """What the map screen shows: the test's hydrants by role, the picked one, the nearest list."""
+    """What the map screen shows: the test's hydrants by role, the picked one, the nearest list, and
+    the day's plan (``service.plan``) numbered in order."""
     from mobile.services import mapdata
+    from mobile.services import plan as plans
 
     if data is None:
         return dict(EMPTY_MAP, note="This area has no map: its network has no x and y coordinates "
@@ -236,6 +241,11 @@ def map_view(service, tid: str, data, picked: str = "", here=None) -> dict:
     area = service.area
     out = dict(EMPTY_MAP, available=True, gauges=list(h["gauges"]),
                flows=sorted({o["hydrant"] for o in h["outlets"]}))
+    day_plan = getattr(service, "plan", None) or []
+    if day_plan:
+        out["planned"] = plans.map_marks(day_plan, data)
+        out["legend"] = MAP_LEGEND + "\n" + plans.LEGEND
+        out["title"] = "" if tid else f"today's plan: {len(day_plan)} tests"
     if picked:
         o = service.remembered_outlet(picked)
         unit = values.field_unit("diameter", service.system)

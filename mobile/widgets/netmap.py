@@ -5,6 +5,7 @@ Geometry is in ``mobile.services.mapdata``; this widget only draws and turns tou
 ``on_pick(node_id)`` (a tap near a junction) or ``on_point(x, y)`` (a tap on open map, in map units).
 """
 
+from kivy.core.text import Label as CoreLabel
 from kivy.graphics import Color, Ellipse, Line, Mesh, Rectangle
 from kivy.graphics.transformation import Matrix
 from kivy.metrics import dp
@@ -24,6 +25,7 @@ class NetworkMap(StencilView):
     flows = ListProperty([])
     picked = StringProperty("")
     here = ListProperty([])  # [x, y] in map units, or []
+    planned = ListProperty([])  # the day's plan: [{"node", "role", "label", "x", "y"}] (map units)
 
     __events__ = ("on_pick", "on_point")
 
@@ -35,7 +37,7 @@ class NetworkMap(StencilView):
         self.view = None
         for name in ("size", "pos", "data"):
             self.fbind(name, self.fit)
-        for name in ("gauges", "flows", "picked", "here"):
+        for name in ("gauges", "flows", "picked", "here", "planned"):
             self.fbind(name, self.draw)
         self.plane.fbind("scale", self.draw)
 
@@ -74,7 +76,29 @@ class NetworkMap(StencilView):
             for i in range(len(d.ids)):
                 if d.hydrant[i]:
                     Ellipse(pos=(px[i] - r, py[i] - r), size=(2 * r, 2 * r))
+            self._plan(k)
             self._mark(d, px, py, k)
+
+    def _plan(self, k):
+        """The plan's hydrants: a filled square where a test flows, a ring where it gauges, each
+        with its test's number beside it (drawn at a fixed size on the screen)."""
+        for m in self.planned:
+            x, y = self.view.to_px(m["x"], m["y"])
+            x, y = float(x), float(y)
+            h = dp(9) * k
+            Color(*S.PLAN)
+            if m["role"] == "flow":
+                Rectangle(pos=(x - h, y - h), size=(2 * h, 2 * h))
+            else:
+                Line(circle=(x, y, dp(11) * k), width=dp(2.5))
+            label = CoreLabel(text=m["label"], font_size=S.TEXT * 0.9, bold=True, color=S.PLAN)
+            label.refresh()
+            tex = label.texture
+            w, t = tex.width * k, tex.height * k
+            Color(*S.PAPER)  # a white tag behind the number, readable over pipes
+            Rectangle(pos=(x + dp(12) * k, y + dp(4) * k), size=(w, t))
+            Color(1, 1, 1, 1)
+            Rectangle(texture=tex, pos=(x + dp(12) * k, y + dp(4) * k), size=(w, t))
 
     def _mark(self, d, px, py, k):
         at = {n: i for i, n in enumerate(d.ids)}

@@ -14,6 +14,7 @@ RED = (0.66, 0.0, 0.08, 1.0)
 GREY = (0.35, 0.35, 0.35, 1.0)
 PALE = (0.90, 0.93, 0.98, 1.0)
 AMBER = (1.0, 0.85, 0.3, 1.0)
+PLAN = (0.42, 0.05, 0.52, 1.0)  # the office plan's marks on the map
 
 TOUCH = dp(64)  # default row and button height (>= 48 dp)
 TOUCH_MIN = dp(48)

@@ -1,7 +1,6 @@
 """The fit against a known truth: recovery within intervals, coverage, gross errors, unloaded groups, units."""
 
 import numpy as np
-import pandas as pd
 import pytest
 
 from calib import units
@@ -177,48 +176,17 @@ def test_face_checks_flag_and_leave_out_impossible_readings(small):
     assert np.all((res.c_low <= TRUTH) & (TRUTH <= res.c_high))
 
 
-def test_one_c_from_a_pipe_in_series_agrees_with_scipy_curve_fit():
+def test_one_c_from_a_pipe_in_series_agrees_with_scipy_curve_fit(series_case):
     # outside reference: scipy.optimize.curve_fit on the closed form of two pipes in series fed by a
     # reservoir, h = 10.67 L Q^1.852 / (C^1.852 D^4.8704) (the SI Hazen-Williams form in check-values.md),
     # with absolute sigma: same C and same standard error as our fit through the network solver
     from scipy.optimize import curve_fit
 
-    from calib.calibration.groups import Grouping
-    from calib.calibration.tests_io import TestSet
-    from calib.network.model import Network
-
-    L1, L2, D, H = 300.0, 250.0, 8 * units.INCH, 70.0
-    z = np.array([5.0, 8.0, 70.0])
-    net = Network(node_ids=["J1", "J2", "R1"], n_junctions=2, elevation=z, demand=[0.0, 0.0],
-                  source_head=[H], pipe_ids=["P1", "P2"], pipe_from=[2, 0], pipe_to=[0, 1],
-                  length=[L1, L2], diameter=[D, D], roughness=[120.0, 120.0],
-                  group=np.array(["G", "G"], dtype=object))
-    flows = np.array([40.0, 55.0, 70.0, 85.0]) * 1e-3  # m3/s drawn at J2
-    gauge = np.array([0, 1] * len(flows))
-    q = np.repeat(flows, 2)
-
-    def model(xdata, c):
-        k = 10.67 / (c ** 1.852 * D ** 4.8704)
-        qq, node = xdata[0], np.asarray(xdata[1]).astype(int)
-        h1 = k * L1 * qq ** 1.852
-        h2 = k * L2 * qq ** 1.852
-        return (H - z[node] - h1 - np.where(node == 1, h2, 0.0)) * units.GAMMA_WATER
-
-    rng = np.random.default_rng(3)
-    sigma = units.PSI
-    p_obs = model((q, gauge), 85.0) + rng.normal(0.0, sigma, size=len(q))
-    popt, pcov = curve_fit(model, (q, gauge), p_obs, p0=[100.0], sigma=np.full(len(q), sigma),
-                           absolute_sigma=True)
-    n = len(q)
-    tests = TestSet(folder="<closed form>", test_ids=[f"T{i}" for i in range(len(flows))],
-                    flows=[{1: f} for f in flows], source_head=[{} for _ in flows],
-                    day=np.zeros(len(flows), dtype=np.int64), days=[""], info=pd.DataFrame(),
-                    test=np.repeat(np.arange(len(flows)), 2), node=gauge,
-                    kind=np.array(["residual"] * n, dtype=object), pressure=p_obs,
-                    gauge_height=np.zeros(n), sigma=np.full(n, sigma), row=np.arange(n) + 2,
-                    elevation=z[gauge])
-    grp = Grouping(names=["G"], index=np.array([0, 0]), rule="test")
-    res = fit(net, tests, grouping=grp, prior="none", refit=False, influence=False)
+    case = series_case(85.0, [40.0, 55.0, 70.0, 85.0], seed=3)
+    n = case.tests.n_readings
+    popt, pcov = curve_fit(lambda _x, c: case.model(c), np.arange(n), case.p_obs, p0=[100.0],
+                           sigma=np.full(n, case.sigma), absolute_sigma=True)
+    res = fit(case.net, case.tests, grouping=case.grp, prior="none", refit=False, influence=False)
     assert res.c[0] == pytest.approx(popt[0], rel=1e-4)
     assert not res.estimate.scaled  # this seed: the stated sigma holds, so both use it
     assert res.c_sd[0] == pytest.approx(np.sqrt(pcov[0, 0]), rel=1e-3)

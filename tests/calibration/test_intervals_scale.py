@@ -11,7 +11,6 @@ from scipy import optimize, stats
 
 from calib import units
 from calib.calibration import export, fit
-from calib.calibration.groups import Grouping
 from calib.calibration.synthetic import plan_tests, synthetic_tests
 from calib.cli.fit import summary
 from calib.hydraulics import NetworkSolver
@@ -86,45 +85,12 @@ def test_prior_rows_keep_their_own_spread_when_the_scale_comes_from_the_scatter(
     assert half == pytest.approx(res.estimate.t * 15.0, rel=0.1)
 
 
-def _closed_form_case(c_true, flows_lps, seed=3, sigma=units.PSI):
-    """Two pipes in series from a reservoir, gauges at both junctions (test_fit.py's curve_fit case)."""
-    from calib.calibration.tests_io import TestSet
-    from calib.network.model import Network
-    L1, L2, D, H = 300.0, 250.0, 8 * units.INCH, 70.0
-    z = np.array([5.0, 8.0, 70.0])
-    net = Network(node_ids=["J1", "J2", "R1"], n_junctions=2, elevation=z, demand=[0.0, 0.0],
-                  source_head=[H], pipe_ids=["P1", "P2"], pipe_from=[2, 0], pipe_to=[0, 1],
-                  length=[L1, L2], diameter=[D, D], roughness=[120.0, 120.0],
-                  group=np.array(["G", "G"], dtype=object))
-    flows = np.asarray(flows_lps) * 1e-3
-    gauge = np.array([0, 1] * len(flows))
-    q = np.repeat(flows, 2)
-
-    def model(c):
-        k = 10.67 / (c ** 1.852 * D ** 4.8704)  # SI Hazen-Williams, h [m], Q [m3/s], D [m]
-        return (H - z[gauge] - k * L1 * q ** 1.852 - np.where(gauge == 1, k * L2 * q ** 1.852, 0.0)) \
-            * units.GAMMA_WATER
-
-    rng = np.random.default_rng(seed)
-    p_obs = model(c_true) + rng.normal(0.0, sigma, size=len(q))
-    n = len(q)
-    tests = TestSet(folder="<closed form>", test_ids=[f"T{i}" for i in range(len(flows))],
-                    flows=[{1: f} for f in flows], source_head=[{} for _ in flows],
-                    day=np.zeros(len(flows), dtype=np.int64), days=[""], info=pd.DataFrame(),
-                    test=np.repeat(np.arange(len(flows)), 2), node=gauge,
-                    kind=np.array(["residual"] * n, dtype=object), pressure=p_obs,
-                    gauge_height=np.zeros(n), sigma=np.full(n, sigma), row=np.arange(n) + 2,
-                    elevation=z[gauge])
-    grp = Grouping(names=["G"], index=np.array([0, 0]), rule="test")
-    S = lambda c: float(np.sum(((model(c) - p_obs) / sigma) ** 2))  # noqa: E731
-    return net, tests, grp, S
-
-
-def test_profile_interval_matches_the_closed_form_profile_near_the_upper_bound():
+def test_profile_interval_matches_the_closed_form_profile_near_the_upper_bound(series_case):
     # smooth new pipe (C 150) and small flows: the sum of squares flattens towards high C, so the
     # linearized interval reaches past 160. Reference: the closed form's S(C) and scipy's brentq for
     # S(C) - S_min = chi2(0.95, 1) (Venzon and Moolgavkar 1988), the stated sigma holding.
-    net, tests, grp, S = _closed_form_case(150.0, [10.0, 15.0, 20.0, 25.0], seed=5)
+    case = series_case(150.0, [10.0, 15.0, 20.0, 25.0], seed=5)
+    net, tests, grp, S = case.net, case.tests, case.grp, case.S
     res = fit(net, tests, grouping=grp, prior="none", refit=False, influence=False)
     est = res.estimate
     assert not est.scaled  # this seed: the stated sigma holds, so the cut-off is chi2(1)
@@ -143,11 +109,12 @@ def test_profile_interval_matches_the_closed_form_profile_near_the_upper_bound()
         assert res.c_high[0] == pytest.approx(high_ref, abs=0.1)
 
 
-def test_a_c_below_the_bounds_is_at_bound_undetermined_with_a_one_sided_limit(tmp_path):
+def test_a_c_below_the_bounds_is_at_bound_undetermined_with_a_one_sided_limit(series_case):
     # a main far rougher than the C bounds allow (C 25, e.g. a throttled valve): the fit goes to 40;
     # that is no fitted value. The interval never leaves 40-160, at_bound is true, the tests give an
     # upper limit only, and every output says so in words, never as a fitted C
-    net, tests, grp, S = _closed_form_case(25.0, [10.0, 14.0, 18.0, 22.0], seed=2)
+    case = series_case(25.0, [10.0, 14.0, 18.0, 22.0], seed=2)
+    net, tests, grp = case.net, case.tests, case.grp
     res = fit(net, tests, grouping=grp, prior="none", refit=False, influence=False)
     assert res.c_at_bound[0] and res.c[0] == pytest.approx(40.0, abs=0.06)
     assert res.status[0] == "undetermined" and not res.c_determined[0]

@@ -43,42 +43,100 @@ def test_adjoint_screen_matches_direct_sensitivities_and_differences(demo):
         assert (h2 - res.head[node]) / 1e-4 == pytest.approx(a[k, 0] * dhdp[k], rel=2e-3, abs=1e-8)
 
 
-def _rank_of_closed(seed):
-    tr = closure_trial(seed)
-    if tr is None:
-        return None
+def _rank_of_closed(tr, alone=False):
+    """Rank of the closed pipe (or a pipe in series with it) when ``tr``'s most affected test is
+    ranked with the day's other tests (``alone``: without them); 99 when it is not among the ten listed."""
     g = make_groups(tr.network)
     finder = ClosureFinder(tr.network, g)
-    test = next(t for t in split_tests(tr.tests) if t.test_id == tr.tests.test_ids[tr.test])
+    day = split_tests(tr.tests)
+    test = next(t for t in day if t.test_id == tr.tests.test_ids[tr.test])
     state = finder.lin.nominal(g.length_weighted(tr.network, tr.network.roughness), test)
-    ranked = finder.rank(test, state)
-    chains = finder._series_chains(test)
+    others = () if alone else day
+    ranked = finder.rank(test, state, others=others)
+    chains = finder._series_chains(test, others)
     hits = [i + 1 for i, c in enumerate(ranked) if chains[c.pipe] == chains[tr.closed]]
     return hits[0] if hits else 99
 
 
-@pytest.mark.parametrize("seed", [0, 1, 3, 5])
-def test_the_closed_pipe_ranks_first_on_generated_days(seed):
-    """Seeds where the closure is inside the grid near a test (benchmarks/closures.py reports the
-    share over many seeds, with the trials where it does not rank first)."""
-    assert _rank_of_closed(seed) == 1
+def test_the_closed_pipe_ranks_first_mostly_and_never_below_third_on_the_older_town():
+    """Generated days (calib.loop.trials.closure_trial, seeds 0-11 and 23, 27: a pipe closed in the
+    truth, open in the model). benchmarks/loop.py closures reports the share over 80 seeds; this is the
+    same check on a few. The old method ranked it 8th and 4th on seeds 23 and 27; scored on the one
+    test alone (others=()), seed 23 still ranks it 8th: the day's other tests are what fixes it."""
+    trials = [t for t in (closure_trial(seed) for seed in [*range(12), 23, 27]) if t is not None]
+    ranks = [_rank_of_closed(t) for t in trials]
+    assert len(ranks) >= 6, ranks
+    assert max(ranks) <= 3, ranks
+    assert sum(r == 1 for r in ranks) >= 0.6 * len(ranks), ranks
+
+
+def test_the_closed_pipe_ranks_within_three_on_the_demo_town():
+    """The demo town's day (its flows and gauges) with one pipe closed in the truth
+    (calib.loop.trials.demo_closure_trial); benchmarks/loop.py closures-demo counts 60 seeds."""
+    from calib.loop.trials import demo_closure_trial
+    ranks = [_rank_of_closed(t) for t in (demo_closure_trial(seed) for seed in (0, 2, 3)) if t is not None]
+    assert len(ranks) == 3 and max(ranks) <= 3, ranks
+
+
+def test_a_partly_closed_setting_pays_for_its_fitted_unknown(demo):
+    # Akaike (1974): a setting chosen among 10x, 100x and closed is one more unknown; its score is the
+    # misfit plus SETTING_PENALTY, a closed one's the misfit alone
+    from calib.loop import closures
+    from calib.loop.trials import closure_trial
+    tr = closure_trial(0)
+    g = make_groups(tr.network)
+    finder = ClosureFinder(tr.network, g)
+    day = split_tests(tr.tests)
+    test = day[tr.test]
+    ranked = finder.rank(test, finder.lin.nominal(g.length_weighted(tr.network, tr.network.roughness), test),
+                         others=day)
+    assert ranked and all(c.score == pytest.approx(c.day_after + (0 if c.multiplier == closures.CLOSED
+                                                                  else closures.SETTING_PENALTY))
+                          for c in ranked)
+    assert [c.score for c in ranked] == sorted(c.score for c in ranked)
+    assert all(c.misfit_after < c.misfit_before - closures.TIE for c in ranked)
 
 
 def test_closures_command_on_the_demo_day(tmp_path, demo):
     import pandas as pd
     from calib.cli import main
+    from calib.cli.closures import COLUMNS
     out = tmp_path / "closures.csv"
     from pathlib import Path
     root = Path(__file__).resolve().parents[2] / "field_samples" / "tallowmere"
-    assert main(["closures", f"{root}/network", f"{root}/tests", "--test", "T05", "--out", str(out)]) == 0
+    planted = demo[3]["planted"]
+    tid = (planted[0] if isinstance(planted, list) else planted)["test_id"]
+    assert main(["closures", f"{root}/network", f"{root}/tests", "--test", tid, "--out", str(out)]) == 0
     frame = pd.read_csv(out)
-    assert list(frame.columns) == ["rank", "pipe", "from", "to", "misfit_before", "misfit_after", "note"]
-    assert list(frame["rank"]) == list(range(1, len(frame) + 1))
-    assert (frame["misfit_after"].diff().dropna() >= 0).all()
-    assert (frame["misfit_after"] <= frame["misfit_before"]).all()
-    # T05's misfit is a misread gauge (truth.json), not a closure: no pipe explains much of it
-    assert frame["note"].str.contains("explains little").all()
+    assert list(frame.columns) == COLUMNS
+    assert COLUMNS[:7] == ["rank", "pipe", "from", "to", "misfit_before", "misfit_after", "note"]
+    # the planted test's misfit is a misread gauge (truth.json), not a closure: no pipe lowers it
+    # significantly, so none is listed
+    assert len(frame) == 0
     assert main(["closures", f"{root}/network", f"{root}/tests", "--test", "T99"]) == 2
+
+
+def test_closures_command_finds_a_closed_pipe_on_the_demo_town(tmp_path, capsys):
+    """End to end: the demo town's day read with a pipe closed in the truth, written as a tests
+    folder; the command (handbook prior, running fit of the tests before) lists that pipe in its
+    first three, ranked on the day's readings."""
+    import pandas as pd
+    from pathlib import Path
+    from calib.calibration.synthetic import write_tests_folder
+    from calib.cli import main
+    from calib.loop.trials import demo_closure_trial
+    tr = demo_closure_trial(0)
+    folder = tmp_path / "tests"
+    write_tests_folder(tr.tests, tr.network, folder)
+    root = Path(__file__).resolve().parents[2] / "field_samples" / "tallowmere"
+    out = tmp_path / "closures.csv"
+    tid = tr.tests.test_ids[tr.test]
+    assert main(["closures", f"{root}/network", str(folder), "--test", tid, "--out", str(out)]) == 0
+    frame = pd.read_csv(out, keep_default_na=False)
+    assert str(tr.network.pipe_ids[tr.closed]) in list(frame["pipe"][:3]), frame
+    assert (frame.day_misfit_after.diff().dropna() >= -2.0 - 1e-9).all()  # by score: + 2 if partly closed
+    text = capsys.readouterr().out
+    assert f"other test(s) of the same day" in text
 
 
 def test_effective_resistance_estimate_matches_the_exact_one(demo, monkeypatch):

@@ -131,9 +131,10 @@ def test_check_rows_show_each_gauge_with_its_advice(service, area):
 
 
 def test_the_app_judges_the_demo_day_as_the_command_line_does():
-    """The app's worker job and ``python -m calib check`` share calib.loop.check: the demo's T05 with
-    T01-T04 as the day's earlier tests flags the planted residual at J299 (truth.json) and only it, and
-    lists the pipes whose closing would best explain the test beside it."""
+    """The app's worker job and ``python -m calib check`` share calib.loop.check: the demo's test with the
+    planted reading (truth.json: T13), with the tests before it as the day's earlier tests, flags the
+    planted residual and only it, and lists the pipes whose closing would best explain the test beside it."""
+    import json
     from pathlib import Path
 
     import numpy as np
@@ -155,14 +156,16 @@ def test_the_app_judges_the_demo_day_as_the_command_line_does():
                 {g: (v["static"], v["residual"]) for g, v in observed.items()},
                 {str(ids[s]): h for s, h in ts.source_head[t].items()})
 
-    flows, observed, grades = one(4)
+    planted = json.loads((demo / "tests" / "truth.json").read_text())["planted"]
+    k = ts.test_ids.index(planted["test_id"])
+    flows, observed, grades = one(k)
     job = check.CheckJob(net, flows, list(observed), observed, "us", check.TOLERANCE, grades,
-                         earlier=[one(t) for t in range(4)])
+                         earlier=[one(t) for t in range(k)])
     result = check.run_job(job)
-    assert result.ok and "4 earlier test(s)" in result.message
+    assert result.ok and f"{k} earlier test(s)" in result.message
     bad = [g for g in result.gauges if g.suspect]
-    assert [g.node for g in bad] == ["J299"]
-    assert "residual at J299 misread" in " ".join(bad[0].advice)
+    assert [g.node for g in bad] == [planted["node"]]
+    assert f"residual at {planted['node']} misread" in " ".join(bad[0].advice)
     assert len(bad[0].closures) == 3 and bad[0].closures[0].startswith("P")
 
 

@@ -60,3 +60,44 @@ def test_the_plan_command_output_loads(area, tmp_path):
     plan_frame(plan).to_csv(path, index=False)
     loaded = plan_service.read_plan(path, area)
     assert [p.test_id for p in loaded] == [t.test_id for t in plan.tests]
+
+
+def test_the_plan_on_the_map_numbers_each_tests_hydrants_in_order(service, area, tmp_path):
+    """load() keeps the plan on the service; the map view gives each planned hydrant its test's number
+    and role, at the hydrant's own map position, and the legend says what the marks mean."""
+    from mobile.services import mapdata, views
+    h = area.hydrants
+    rows = [{"test_id": "P01", "flow_nodes": f"{h[5]};{h[6]}", "flow [gpm]": "2500",
+             "gauge_nodes": f"{h[0]};{h[1]}", "outlets": "on each of the 2 hydrants: two 2.5 in hose outlets"},
+            {"test_id": "P02", "flow_nodes": h[8], "flow [gpm]": "2000", "gauge_nodes": h[9],
+             "outlets": "4.5 in pumper outlet through a flow meter"}]
+    planned = plan_service.load(service, _plan(tmp_path, area, rows))
+    assert service.plan is planned and [p.test_id for p in planned] == ["P01", "P02"]
+    data = mapdata.MapData.from_area(area)
+    view = views.map_view(service, "", data)
+    marks = {m["node"]: m for m in view["planned"]}
+    assert {n: (m["role"], m["label"]) for n, m in marks.items()} == {
+        h[5]: ("flow", "1"), h[6]: ("flow", "1"), h[0]: ("gauge", "1"), h[1]: ("gauge", "1"),
+        h[8]: ("flow", "2"), h[9]: ("gauge", "2")}
+    for n, m in marks.items():
+        assert (m["x"], m["y"]) == data.where(n)
+    assert [m["label"] for m in view["planned"]] == ["1"] * 4 + ["2"] * 2  # in the plan's order
+    assert "plan" in view["legend"] and view["title"] == "today's plan: 2 tests"
+    # a test open: its own hydrants and the plan together
+    tid = plan_service.start_planned(service, planned[1])
+    view = views.map_view(service, tid, data)
+    assert view["flows"] == [h[8]] and len(view["planned"]) == 6 and view["title"] == ""
+    # a bad plan leaves the day's plan as it was
+    bad = _plan(tmp_path, area, [{"test_id": "X", "flow_nodes": "NOPE", "flow [gpm]": "1", "gauge_nodes": h[0]}])
+    with pytest.raises(InputError):
+        plan_service.load(service, bad)
+    assert service.plan is planned
+
+
+def test_a_hydrant_in_two_planned_tests_carries_both_numbers(area):
+    from mobile.services import mapdata
+    h = area.hydrants
+    plan = [plan_service.PlannedTest("P01", [h[0]], 0.1, [h[1]]),
+            plan_service.PlannedTest("P02", [h[2]], 0.1, [h[1]])]
+    marks = {m["node"]: m["label"] for m in plan_service.map_marks(plan, mapdata.MapData.from_area(area))}
+    assert marks == {h[0]: "1", h[1]: "1,2", h[2]: "2"}

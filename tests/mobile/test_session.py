@@ -229,3 +229,25 @@ def test_calib_fit_reads_the_demo_export_as_it_is(store, tmp_path, capsys):
     code = main(["fit", str(TALLOWMERE), str(tmp_path / "tests"), "--out", str(tmp_path / "fit")])
     assert code == 0, capsys.readouterr().err
     assert (tmp_path / "fit" / "readings.csv").exists()
+
+
+def test_all_done_never_confirms_a_safety_item(service):
+    """ALL DONE ticks the preparation items only; each safety item (traffic, drainage and flooding,
+    water hammer, fire service, discoloured water - common practice) needs its own tap, and ALL DONE
+    refuses to go on, naming them, until each is confirmed."""
+    from mobile.services import checklist
+    tid = service.new_test()
+    safety = [i for i in checklist.ITEMS if i.safety]
+    assert {i.key for i in safety} == {"traffic", "drainage", "slowly", "fire_service", "customers"}
+    out = service.tick_all(tid)
+    ticks = service.header(tid)["checklist"]
+    assert not out.ok and all(i.title in out.message for i in safety)
+    assert not any(ticks[i.key] for i in safety)  # none confirmed in bulk
+    assert ticks["system_state"] and not ticks["dechlorination"]  # preparation ticked, optional left
+    for i in safety[:-1]:
+        assert service.tick(tid, i.key, True).ok
+    out = service.tick_all(tid)
+    assert not out.ok and safety[-1].title in out.message and safety[0].title not in out.message
+    assert service.tick(tid, safety[-1].key, True).ok
+    assert service.tick_all(tid).ok
+    assert checklist.missing_items(service.header(tid)["checklist"]) == []

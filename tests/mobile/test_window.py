@@ -37,8 +37,10 @@ def _drive(tmp_path, *args):
 
 
 #: Taps from NEW TEST to a finished two-outlet test before issue 10 (area loaded), as the field day
-#: counted them; the README gives today's count, which ``enter`` measures.
+#: counted them; the README gives today's count, which ``enter`` measures. Issue 10's one-tap ALL DONE
+#: brought it to 24; each of the five safety items now takes its own tap: 29.
 TAPS_BEFORE = 34
+TAPS_NOW = 29
 
 
 def test_enter_a_two_outlet_test_on_the_map_with_the_timer_then_correct_it(tmp_path):
@@ -47,7 +49,11 @@ def test_enter_a_two_outlet_test_on_the_map_with_the_timer_then_correct_it(tmp_p
     # 711.89 + 750.40 = 1462.29 gpm; static 72 / residual 58 psi -> Q_R = Q_F (52/14)^0.54 at 20 psi.
     assert entered["flow_label"] == "1,462 gpm"
     assert entered["rated_label"] == f"{1462.29 * (52 / 14) ** 0.54:,.0f} gpm"
-    assert entered["unticked"] == ["dechlorination"]  # ALL DONE ticks the required items only
+    # ALL DONE alone confirms no safety item: refused, on the checklist still, naming them
+    assert entered["screen_after_all_done_first"] == "checklist"
+    assert "safety item" in entered["all_done_first"] and "Fire service told" in entered["all_done_first"]
+    assert entered["safety_ticked_by_taps"] == ["traffic", "drainage", "slowly", "fire_service", "customers"]
+    assert entered["unticked"] == ["dechlorination"]  # ALL DONE ticks the other required items only
     assert entered["small_targets"] == []  # every tappable widget at least 48 dp (the issue's rule)
     assert entered["targets_checked"] > 50
     assert entered["curve_drawn"]  # drawn in a worker, handed back to the results screen
@@ -61,7 +67,7 @@ def test_enter_a_two_outlet_test_on_the_map_with_the_timer_then_correct_it(tmp_p
     assert entered["duration"] and entered["timer_text"].startswith("Flowed "), entered["timer_text"]
     assert sum(d.startswith("read ") for d in entered["row_details"]) == 4
     assert entered["results_scroll_top"] and entered["finished_button"] == "FINISHED AND SAVED"
-    assert entered["taps"] < TAPS_BEFORE, entered["taps"]
+    assert TAPS_NOW <= entered["taps"] < TAPS_BEFORE, entered["taps"]  # a retried tap counts too
     print(f"taps from NEW TEST to a finished two-outlet test: {entered['taps']}")
     tid = entered["test_id"]
 
@@ -103,3 +109,37 @@ def test_snapshot_mode_writes_a_png_of_every_main_screen(tmp_path):
     assert shots == [f"{i + 1:02d}-{name}.png" for i, name in enumerate(SCREENS)]
     for p in (tmp_path / "shots").glob("*.png"):
         assert p.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+def test_an_office_plan_shows_on_the_map_numbered_in_order(tmp_path):
+    """A plan from ``python -m calib plan`` on the demo town, loaded in the app and shown on the map:
+    every planned hydrant is marked with its test's number, and the mark is drawn where the hydrant is
+    (the screenshot's pixel at a flowing hydrant has the plan's colour)."""
+    import matplotlib.image as mpimg
+    import pandas as pd
+
+    from calib.cli import main
+    from mobile.widgets.style import PLAN
+    plan = tmp_path / "plan.csv"
+    assert main(["plan", str(REPO / "field_samples" / "tallowmere" / "network"), "--tests", "3",
+                 "--year", "2026", "--out", str(plan)]) == 0
+    table = pd.read_csv(plan, dtype=str)
+    shown = _drive(tmp_path, "plan", str(plan))
+    assert shown["map_title"] == "today's plan: 3 tests" and "today's plan in order" in shown["legend"]
+    assert shown["as_gauge_disabled"]  # no test open: the plan's map cannot change a test
+    expected = {}
+    for order, row in enumerate(table.itertuples(), start=1):
+        for n in row.flow_nodes.split(";"):
+            expected[n] = ("flow", str(order))
+        for n in row.gauge_nodes.split(";"):
+            expected[n] = ("gauge", str(order))
+    assert {m["node"]: (m["role"], m["label"]) for m in shown["marks"]} == expected
+    image = mpimg.imread(shown["screenshot"])  # rows from the top, RGB(A) in 0-1
+    h = image.shape[0]
+    assert image.shape[1] == shown["window_size"][0] and h == shown["window_size"][1]
+    for m in shown["marks"]:
+        if m["role"] != "flow":
+            continue
+        x, y = (int(round(v)) for v in m["window"])
+        pixel = image[h - 1 - y, x, :3]
+        assert pixel == pytest.approx(PLAN[:3], abs=0.06), (m["node"], pixel)

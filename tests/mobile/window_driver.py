@@ -1,9 +1,11 @@
 """Drive the real app window like a crew would, then print what the screen shows as JSON.
 
-``python window_driver.py enter DATA_DIR OUT.json``: start the app (demo area), tap NEW TEST, tick
-the checklist, pick the gauge hydrant on the map and the flow hydrant from the nearest-first list
+``python window_driver.py enter DATA_DIR OUT.json``: start the app (demo area), tap NEW TEST, tap
+each safety item of the checklist and ALL DONE, pick the gauge hydrant on the map and the flow hydrant from the nearest-first list
 (two outlets), enter static 72 and residual 58, start the flow timer, enter pitots 18 and 20, stop
 the timer, read the labels, finish the test - counting every tap.
+``python window_driver.py plan DATA_DIR OUT.json PLAN.csv``: start the app (demo area), load the
+plan, show it on the map, report the marks and where they are drawn, and take a screenshot.
 ``python window_driver.py find DATA_DIR OUT.json TEST_ID``: start the app on the same data folder,
 find the test in the home list and open it, correct it (reason, CORRECT, confirm), check the reason
 box of another test, the export plan and a stale message; then load the demo network as LOAD AREA
@@ -146,7 +148,20 @@ def script_enter(app):
     yield from settle()
     checklist = app.root.get_screen("checklist")
     report["crew_carried_over"] = app.service.header(app.test_id)["crew"]
-    # every required item done: one tap ticks them and goes on to the map
+    # ALL DONE before the safety items (a tap a crew might make; not counted): refused, named, stays
+    report["counting"] = False
+    tap(checklist.ids.all_done)
+    yield from wait_for(lambda: checklist.bad and checklist.message)
+    report["all_done_first"] = checklist.message
+    report["screen_after_all_done_first"] = app.root.current
+    report["counting"] = True
+    # each safety item confirmed by its own tap, then ALL DONE ticks the rest and goes on to the map
+    from mobile.services.checklist import ITEMS
+    for item in [i for i in ITEMS if i.safety]:
+        yield from tap_until(lambda: next(r for r in rows(checklist.ids.item_list) if r.key == item.key),
+                             lambda: app.service.header(app.test_id)["checklist"][item.key], tries=1)
+    report["safety_ticked_by_taps"] = [i.key for i in ITEMS if i.safety
+                                       and app.service.header(app.test_id)["checklist"][i.key]]
     tap(checklist.ids.all_done)
     yield from wait_for(lambda: app.root.current == "map")
     report["unticked"] = [r["key"] for r in checklist.rows if not r["ticked"]]
@@ -306,9 +321,36 @@ def script_find(app):
     report["after_pick"] = setup.message
 
 
+def script_plan(app):
+    """Load an office plan (as the PLAN button's file browser hands it over), tap SHOW THE PLAN ON
+    THE MAP, and keep what the map shows: the marks, where each is drawn, and a screenshot."""
+    from kivy.core.window import Window
+
+    home = app.root.get_screen("home")
+    yield from settle()
+    popup = app.show_plan(sys.argv[4])
+    yield from settle()
+    report["plan_message"] = home.message
+    report["plan_buttons"] = [w.text for w in popup.walk() if hasattr(w, "tone")]
+    tap(popup_button("SHOW THE PLAN ON THE MAP"))
+    yield from wait_for(lambda: app.root.current == "map")
+    yield from settle(8)
+    mp = app.root.get_screen("map")
+    netmap = mp.ids.netmap
+    report["map_title"] = mp.view["title"]
+    report["legend"] = mp.view["legend"]
+    report["as_gauge_disabled"] = mp.ids.as_gauge.disabled
+    report["marks"] = [dict(m, window=list(netmap.to_window(*netmap.tap_at_node(m["node"]))))
+                       for m in mp.view["planned"]]
+    report["window_size"] = list(Window.size)
+    yield
+    report["screenshot"] = Window.screenshot(name=os.path.join(os.path.dirname(out_path), "plan-map.png"))
+    yield
+
+
 class DrivenApp(FieldApp):
     def on_start(self):
-        steps = (script_enter if mode == "enter" else script_find)(self)
+        steps = {"enter": script_enter, "find": script_find, "plan": script_plan}[mode](self)
 
         def step(dt):
             try:
@@ -325,7 +367,7 @@ class DrivenApp(FieldApp):
 
 
 try:
-    DrivenApp(data_dir=data_dir, demo_mode=(mode == "enter")).run()
+    DrivenApp(data_dir=data_dir, demo_mode=(mode in ("enter", "plan"))).run()
 except Exception:  # noqa: BLE001
     report["error"] = traceback.format_exc()
 with open(out_path, "w") as fh:
