@@ -39,9 +39,14 @@ def register(subparsers) -> None:
                    help="lowest pressure allowed elsewhere in the hydrant's zone (default 20 psi)")
     p.add_argument("--demand-factor", default="1", metavar="F",
                    help="multiply every base demand by F during the fire (default 1)")
-    p.add_argument("--system-search", choices=("always", "binding"), default="always",
-                   help="always: find the system-limited flow at every hydrant; binding: only where "
-                        "it can limit the available flow (faster; flow_system left empty elsewhere)")
+    p.add_argument("--system-search", choices=("binding", "always"), default="binding",
+                   help="binding (default): find the system-limited flow only where it can limit "
+                        "the available flow (same available flow; flow_system left empty "
+                        "elsewhere); always: at every hydrant (slower)")
+    p.add_argument("--zones", choices=("hydraulic", "column"), default="hydraulic",
+                   help="where a hydrant's zone for the system minimum comes from: hydraulic "
+                        "(default: the model's pressure zones, split at active reducing, "
+                        "sustaining and flow-limiting valves) or column (junctions.csv zone)")
     p.add_argument("--nodes", default="hydrants", metavar="WHICH",
                    help="hydrants (default: junctions marked as hydrants), all, or ids J1,J2,...")
     run_on = p.add_mutually_exclusive_group()
@@ -83,6 +88,7 @@ def _factor(text: str) -> float:
 
 def run(args) -> int:
     from calib.fireflow import ScanOptions, hydrant_nodes
+    from calib.fireflow.scan import ZONE_SOURCES
     from calib.fireflow import distribute, outputs
     from calib.fireflow.fitdir import read_fit
     from calib.network.io import read_network
@@ -90,7 +96,7 @@ def run(args) -> int:
     options = ScanOptions(residual=_pressure(args.residual, "--residual"),
                           system_minimum=_pressure(args.system_minimum, "--system-minimum"),
                           demand_factor=_factor(args.demand_factor),
-                          system_search=args.system_search)
+                          system_search=args.system_search, zones=args.zones)
     if args.workers is not None and args.workers < 0:
         raise InputError(f"--workers {args.workers} is negative", field="--workers",
                          expected="0 (no Dask) or a number of processes")
@@ -115,10 +121,11 @@ def run(args) -> int:
     settings = {
         "network": args.network, "C-factors": fit.note, "target residual": show(options.residual),
         "system minimum": show(options.system_minimum) + " at any other junction of the hydrant's "
-        "zone (the junctions' zone column; the whole network for a junction without one)",
+        f"zone ({options.zones}: {ZONE_SOURCES[options.zones]})",
         "demand factor": f"{options.demand_factor:g} x base demand",
         "system search": ("every hydrant" if options.system_search == "always" else
-                          "only where it can limit the available flow (flow_system empty elsewhere)"),
+                          "only where it can limit the available flow (flow_system empty elsewhere: "
+                          "there it is larger than the flow at residual)"),
         "interval": ("95 %, normal, first-order; from the fitted C-factors' uncertainty only "
                      "(not demands, valve positions or tank levels)")
         if fit.covariance is not None else "none",

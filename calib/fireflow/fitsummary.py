@@ -35,7 +35,7 @@ def html_section(result, system: str = "us", limit: int = 12) -> str:
     fu, pu = units.display_unit("flow", system), units.display_unit("pressure", system)
     nodes = flowed_hydrants(result)[:limit]
     head = ("<h2>Fire flow with the fitted C</h2><p>Model estimate of the flow available at 20 psi "
-            "residual (and 20 psi elsewhere in the zone), average-day demand, at the hydrants the "
+            "residual (and 20 psi elsewhere in its hydraulic zone), average-day demand, at the hydrants the "
             "tests flowed; 95 % interval from the C covariance (first order). For every hydrant, "
             "with a map: <code>python -m calib fireflow NETWORK --fit THIS_FOLDER --out "
             "THIS_FOLDER/fireflow.csv</code>. An estimate: it does not replace flow tests, local "

@@ -54,6 +54,7 @@ def frame(flows, system: str = "us") -> pd.DataFrame:
         f"flow_at_residual [{fu}]": q([f.flow_at_residual for f in flows]),
         f"flow_system [{fu}]": q([f.flow_system for f in flows]),
         "limiting_node": [f.limiting_node for f in flows],
+        "zone": [f.zone for f in flows],
         f"available [{fu}]": q([f.available for f in flows]),
         f"low [{fu}]": q([f.low for f in flows]),
         f"high [{fu}]": q([f.high for f in flows]),
@@ -77,8 +78,11 @@ def band(available_gpm: float) -> tuple[str, str]:
 
 
 def _cells(table: pd.DataFrame):
+    """Rows as dicts: a missing figure as '', whole gpm as an int (a column with a missing figure
+    is float in pandas: 5017, not 5017.0)."""
     for rec in table.to_dict("records"):
-        yield {k: ("" if isinstance(v, float) and not math.isfinite(v) else v)
+        yield {k: ("" if isinstance(v, float) and not math.isfinite(v)
+                   else int(v) if isinstance(v, float) and k.endswith("[gpm]") else v)
                for k, v in rec.items()}
 
 
@@ -137,6 +141,7 @@ def _svg(network, flows, system: str) -> str:
                + (f" (95 % {row[f'low [{fu}]']} - {row[f'high [{fu}]']})" if row[f"low [{fu}]"] != "" else "")
                + f", static {row[f'static [{pu}]']} {pu}, limited by "
                + (row["limiting_node"] if fl.available == fl.flow_system else "its own residual")
+               + (f", zone {row['zone']}" if row["zone"] else "")
                + (f"; {row['note']}" if row["note"] else ""))
         parts.append(f"<circle cx='{px(x[i]):.1f}' cy='{py(y[i]):.1f}' r='6' fill='{colour}' "
                      f"stroke='#222' stroke-width='0.8'><title>{html.escape(tip)}</title></circle>")
@@ -195,8 +200,12 @@ def render(network, flows, settings: dict, system: str = "us", failures=()) -> s
               "one steady-state solve (global gradient method, Todini and Pilati 1988) gives its "
               "draw. System flow: the draw at which the lowest pressure at any other junction of "
               "its zone reaches the system minimum, found by a short search extrapolating each "
-              "junction's pressure drop as Q^1.852 (Hazen-Williams), and the junction that limits "
-              "it. Available: the smaller. Interval: the C covariance of the fit propagated to "
+              "junction's pressure drop as a power of the draw (Q^1.852, Hazen-Williams, then the "
+              "power fitted through the last two solves), and the junction that limits "
+              "it; unless the run's settings say 'every hydrant', it is searched only where it can "
+              "limit: where the held solve shows every other junction of the zone above the "
+              "minimum, pressures being higher still at any smaller draw, the system flow is "
+              "larger and is left empty. Available: the smaller. Interval: the C covariance of the fit propagated to "
               "first order through the analytic sensitivities (JCGM 100:2008, 5.1.2), "
               "+/- 1.96 sd.</p>",
               f"<p>Written {_dt.datetime.now(_dt.timezone.utc):%Y-%m-%d %H:%M} UTC.</p>",

@@ -6,12 +6,18 @@ For a hydrant at junction i (SI inside: Pa gauge, m3/s):
   is held at a fixed grade, elevation + residual / gamma (``Snapshot.held_head``), and one solve gives
   the draw: the node's inflow minus its own demand.
 - ``flow_system``: the draw at which the lowest pressure at any *other* junction of its zone falls to
-  the system minimum, and which junction that is (``limiting``). The zone is the junction's ``zone``
-  column; a junction without one is checked against the whole network. Found by a short search:
-  every junction's pressure drop is extrapolated from the static point as ``a_j Q^1.852`` (the
-  Hazen-Williams flow exponent, the same law as the 0.54 rating formula of NFPA 291), the smallest
-  flow that brings one of them to the minimum is solved, and the extrapolation repeated from that
-  solution until the lowest pressure is within ``pressure_tol`` of the minimum (2-3 solves).
+  the system minimum, and which junction that is (``limiting``). The zone (``ScanOptions.zones``)
+  is by default the hydraulic zone of the static solution (``SolveResult.zone``: the part of the
+  network fed by the same sources, split at active pressure-reducing, sustaining and flow-limiting
+  valves, which hold the grade or flow beyond them); with ``zones="column"`` the junctions.csv
+  ``zone`` column (a junction without one is checked against the whole network). Found by a short
+  search: every junction's pressure drop from the static point is extrapolated as ``a_j Q^1.852``
+  (the Hazen-Williams flow exponent, the same law as the 0.54 rating formula of NFPA 291) through
+  the first solve, the smallest flow that brings one of them to the minimum is solved, and then
+  each drop is extrapolated as ``a_j Q^n_j`` with a_j, n_j through the last two solves, until the
+  lowest pressure is within ``pressure_tol`` of the minimum (2-3 solves).
+  By default (``ScanOptions.system_search="binding"``) the search runs only where it can decide the
+  available flow; see "When the search is skipped" below.
 - ``available`` = the smaller of the two; its NFPA 291 class (``calib.flowtest.hydrant_class``).
 
 With a C covariance (``GroupCovariance``), each flow also carries its gradient with respect to the
@@ -19,6 +25,26 @@ group C-factors by implicit differentiation at the converged state (``NetworkSol
 d(draw)/dC at the held solve; for the system flow ``dQ/dC = -(dH_j/dC) / (dH_j/dQ)`` at the limiting
 junction j. The interval of the available flow is ``Q +/- z sqrt(g^T Cov g)`` (first-order
 propagation of the covariance, e.g. JCGM 100:2008 (GUM), section 5.1.2).
+
+When the search is skipped (the default, ``system_search="binding"``), and why that is exact:
+every link of the model passes a flow from -> to that does not fall when the grade at its inlet
+rises and does not rise when the grade at its outlet rises: pipes and minor losses (h(Q) increasing),
+pumps on falling curves, check valves, and the control valves (a reducing valve's outlet grade is the
+lower of its setting and what the inlet gives; a sustaining valve passes more as its inlet rises; a
+flow-limiting valve caps the flow; a throttle is a fixed loss). The junctions' mass balance is then an
+M-function of their heads, whose solution is antitone in the demands (Rheinboldt, W. C. (1970), "On
+M-functions and their application to nonlinear Gauss-Seidel iterations and to network flows",
+J. Math. Anal. Appl. 32, 274-307; from memory): a larger draw at the hydrant lowers no junction's
+grade. The held solve *is* the state at the draw ``flow_at_residual`` = Q_r. So if there every other
+junction of the zone is above the system minimum by more than ``pressure_tol``, it is higher still at
+every draw below Q_r: the system-limited flow exceeds Q_r, the available flow is Q_r, its gradient
+(interval) and class are those of the residual, and the hydrant limits itself. ``flow_system`` and
+``limiting_node`` are then left empty, with a note. The full search (the same as
+``system_search="always"``) runs in every other case: a junction of the zone at or within
+``pressure_tol`` of the minimum at the held solve (the system limit binds, or nearly; its flow and
+junction are then the full search's), or no held solve (static at or below the residual). The
+checks in tests/fireflow/test_scan.py compare both modes on every hydrant of the demo town and of a
+generated grid, the full search itself against scipy's brentq.
 """
 
 from __future__ import annotations
@@ -48,6 +74,14 @@ Z95 = 1.959964
 SCAN_TOLERANCES = dict(head_tol=1e-4, flow_tol=1e-6, energy_tol=1e-4)
 
 
+#: Where a hydrant's zone comes from (``ScanOptions.zones``), in words for the outputs.
+ZONE_SOURCES = {
+    "hydraulic": "hydraulic zones of the static solution (fed by the same sources; split at active "
+                 "pressure-reducing, sustaining and flow-limiting valves)",
+    "column": "the junctions' zone column (the whole network for a junction without one)",
+}
+
+
 @dataclass(frozen=True)
 class ScanOptions:
     """What a scan asks (SI): target residual at the hydrant and minimum anywhere else in its zone
@@ -55,11 +89,15 @@ class ScanOptions:
     ``pressure_tol`` [Pa] of the minimum or the next flow step is below ``flow_rtol`` (relative),
     after at most ``max_search`` solves.
 
-    ``system_search``: ``"always"`` (default) searches the system-limited flow for every hydrant;
-    ``"binding"`` skips the search when the held solve already shows every other junction of the
-    zone above the system minimum: the system flow is then larger than the flow at the residual
-    (pressures fall as the draw grows), so ``available``, its interval and class are the same, and
-    ``flow_system`` is left empty (nan) with a note saying so. Saves 1-3 solves per hydrant."""
+    ``system_search``: ``"binding"`` (default) searches the system-limited flow only where it can
+    limit the available flow: it is skipped when the held solve already shows every other junction
+    of the zone above the system minimum (exact: see the module's "When the search is skipped");
+    ``available``, its interval, class and what limits it are the same as with ``"always"``, which
+    searches at every hydrant and so also fills ``flow_system`` where it is larger than the flow at
+    the residual. Binding saves 1-3 solves per hydrant where the search is skipped.
+
+    ``zones``: ``"hydraulic"`` (default: the static solution's pressure zones, split by control
+    valves) or ``"column"`` (the junctions' ``zone`` column as given in junctions.csv)."""
 
     residual: float = 20 * PSI
     system_minimum: float = 20 * PSI
@@ -67,9 +105,13 @@ class ScanOptions:
     pressure_tol: float = 0.02 * PSI
     flow_rtol: float = 2e-4
     max_search: int = 12
-    system_search: str = "always"
+    system_search: str = "binding"
+    zones: str = "hydraulic"
 
     def check(self) -> None:
+        if self.zones not in ZONE_SOURCES:
+            raise InputError(f"zones '{self.zones}' is not known", field="--zones",
+                             expected=" or ".join(ZONE_SOURCES))
         if self.system_search not in ("always", "binding"):
             raise InputError(f"system search '{self.system_search}' is not known",
                              field="--system-search", expected="always or binding")
@@ -117,6 +159,7 @@ class HydrantFlow:
     low: float = math.nan
     high: float = math.nan
     note: str = ""
+    zone: str = ""  # the zone checked against the system minimum ('' : the whole network)
     solves: int = 0
     notes: list = field(default_factory=list)
 
@@ -144,7 +187,11 @@ class FireFlowScan:
         nj = net.n_junctions
         self.p0 = self.static.pressure[:nj]
         self.iso = self.static._isolated_mask[:nj].copy()
-        zone = np.asarray(net.zone[:nj]).astype(str)
+        if self.options.zones == "hydraulic" and self.static.zone is not None:
+            zone = np.asarray(self.static.zone[:nj]).astype(str)  # '' where cut off
+        else:
+            zone = np.asarray(net.zone[:nj]).astype(str)
+        self.zone_source = ZONE_SOURCES[self.options.zones]
         self._zone = zone
         self._zone_members = {z: np.flatnonzero((zone == z) & ~self.iso) for z in set(zone) if z}
         self._all = np.flatnonzero(~self.iso)
@@ -165,6 +212,10 @@ class FireFlowScan:
                                                   covariance.n_groups))
 
     # --- per hydrant -------------------------------------------------------------------------
+    def zone_name(self, i: int) -> str:
+        """The zone of junction i as the scan uses it ('' for none: the whole network)."""
+        return str(self._zone[i])
+
     def zone_of(self, i: int) -> np.ndarray:
         """Junctions checked against the system minimum for hydrant i (its zone, itself excluded)."""
         z = self._zone[i]
@@ -179,7 +230,8 @@ class FireFlowScan:
             raise InputError(f"'{node}' is not a junction of the network", id=str(node),
                              field="--nodes", expected="junction ids")
         out = HydrantFlow(node=str(node), static=float(self.p0[i]), flow_at_residual=math.nan,
-                          flow_system=math.nan, limiting_node="", available=math.nan)
+                          flow_system=math.nan, limiting_node="", available=math.nan,
+                          zone=self.zone_name(i))
         if self.iso[i]:
             out.note = "cut off from every source by closed pipes: no fire flow"
             out.flow_at_residual = out.flow_system = out.available = 0.0
@@ -235,7 +287,7 @@ class FireFlowScan:
         if (opt.system_search == "binding" and held is not None and out.flow_at_residual > 0
                 and held.pressure[zone].min() > target + opt.pressure_tol):
             out.notes.append("system limit not searched: every other junction of the zone stays "
-                             "above the system minimum at the flow at residual")
+                             "above the system minimum at the flow at residual, so it is larger")
             return
         # first point: the held solve when there is one, else a 1000 gpm draw
         if held is not None and out.flow_at_residual > 0:
@@ -243,22 +295,20 @@ class FireFlowScan:
         else:
             q = 0.0631
             res = self._solve(self._draw(i, q), self.static)
-        last = None  # (Q^1.852, pressure) at the limiting junction of the previous solve
+        # Each junction's drop from its static pressure as a power law a_j Q^n_j: first with the
+        # Hazen-Williams n = 1.852 through the first solve, then with a_j and n_j through the last
+        # two solves (a secant in log Q, log drop). The smallest Q at which one of them reaches
+        # the minimum is the next draw. Every junction's law, not only the one lowest now: the
+        # limit often passes between far junctions as the draw grows.
+        last = None  # (Q, drops) of the previous solve
         for _ in range(opt.max_search):
             p = res.pressure[zone]
             k = int(np.argmin(p))
             if abs(p[k] - target) <= opt.pressure_tol:
                 break
             drop = np.maximum(p0 - p, 1e-9 * PSI)
-            # Q at which each junction's drop a_j Q^1.852 reaches p0_j - target; the smallest binds
-            q_new = float(np.min(q * ((p0 - target) / drop) ** (1.0 / DROP_EXPONENT)))
-            x = q ** DROP_EXPONENT
-            if last is not None and last[2] == k and last[0] != x and last[1] != p[k]:
-                # same junction limits twice: secant on p(Q^1.852) through the last two solves
-                x_new = x + (target - p[k]) * (x - last[0]) / (p[k] - last[1])
-                if x_new > 0:
-                    q_new = x_new ** (1.0 / DROP_EXPONENT)
-            last = (x, p[k], k)
+            q_new = self._next_draw(q, drop, last, p0 - target)
+            last = (q, drop)
             if abs(q_new - q) <= opt.flow_rtol * q:
                 break
             res = self._solve(self._draw(i, q_new), self._scaled(res, q, q_new))
@@ -273,6 +323,19 @@ class FireFlowScan:
             dH, _ = self._sensitivity(res, extra_demand_at=i)
             dHdq = dH[j, -1]
             out.grad_system = -dH[j, :-1] / dHdq if dHdq != 0 else np.full(dH.shape[1] - 1, np.nan)
+
+    @staticmethod
+    def _next_draw(q, drop, last, room):
+        """Smallest draw at which a junction's drop ``a Q^n`` reaches its ``room`` (static minus
+        the minimum) [Pa]: n = 1.852 through (q, drop), or n from the two solves (last, this) when
+        both moved the junction (n kept within 1-3 where the two points are too close to say)."""
+        n = np.full(len(drop), DROP_EXPONENT)
+        if last is not None and last[0] != q:
+            q0, d0 = last
+            with np.errstate(divide="ignore", invalid="ignore"):
+                fitted = np.log(drop / d0) / math.log(q / q0)
+            n = np.where(np.isfinite(fitted), np.clip(fitted, 1.0, 3.0), n)
+        return float(np.min(q * (room / drop) ** (1.0 / n)))
 
     def reset(self) -> None:
         """Forget the last held solve (a batch starts from the same state wherever it runs)."""

@@ -40,7 +40,9 @@ def hydrant_fire_flow(network, node: str, fit_folder=None, residual: float = 20 
         fit = read_fit(fit_folder, None, network)
         scan = FireFlowScan(network, roughness=fit.roughness, covariance=fit.covariance,
                             options=ScanOptions(residual=residual, system_minimum=system_minimum,
-                                                demand_factor=demand_factor))
+                                                demand_factor=demand_factor,
+                                                # one hydrant: every figure, the system flow too
+                                                system_search="always"))
         f = scan.hydrant(node)
     except CalibError as exc:
         return FireFlowView(False, f"No fire-flow estimate for {node}: {exc}")

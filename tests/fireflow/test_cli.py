@@ -8,7 +8,7 @@ from calib.cli import main
 
 from tests.fireflow.conftest import NETWORK
 
-COLUMNS = ["node", "static [psi]", "flow_at_residual [gpm]", "flow_system [gpm]", "limiting_node",
+COLUMNS = ["node", "static [psi]", "flow_at_residual [gpm]", "flow_system [gpm]", "limiting_node", "zone",
            "available [gpm]", "low [gpm]", "high [gpm]", "class", "note"]
 
 
@@ -28,8 +28,18 @@ def test_fireflow_command_writes_csv_geojson_and_page(tmp_path, fit_dir, capsys)
     page = (tmp_path / "fireflow.html").read_text()
     assert "<svg" in page and "authority having jurisdiction" in page and "J342" in page
     assert "light blue" not in page  # our own bands, not the marking colours
+    # whole gpm in the page's table, also in a column with an empty figure (5017, not 5017.0)
+    assert f"<td>{avail[0]:.0f}</td>" in page and f"<td>{avail[0]:.1f}</td>" not in page
     text = capsys.readouterr().out
     assert "target residual: 20.0 psi" in text and "95 %" in text
+    # the zones used are said, in the run's settings (also on the page) and per hydrant
+    assert "zone (hydraulic: hydraulic zones of the static solution" in text
+    assert "hydraulic zones of the static solution" in page
+    assert table["zone"].tolist() == ["PLANT+HILLTANK"] * 2 + ["PRV-2", "PLANT+HILLTANK"]
+    assert main(["fireflow", str(NETWORK), "--out", str(out), "--workers", "0", "--quiet",
+                 "--nodes", "J113,J144", "--zones", "column"]) == 0
+    assert pd.read_csv(out)["zone"].tolist() == ["south", "mereside"]
+    assert "zone (column: the junctions' zone column" in capsys.readouterr().out
 
 
 def test_si_units_and_bad_options(tmp_path, capsys):
@@ -73,7 +83,7 @@ def test_map_bands_are_contiguous_and_named():
 
 
 def test_binding_system_search_keeps_the_available_flow(tmp_path, fit_dir, capsys):
-    # the same hydrants with the full search and with --system-search binding: same available
+    # the same hydrants with --system-search always and binding (the default): same available
     # flow, interval and class; flow_system empty only where it was not searched
     tables = {}
     for mode in ("always", "binding"):

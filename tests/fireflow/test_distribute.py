@@ -27,10 +27,11 @@ def test_dask_two_workers_gives_the_same_numbers_as_none(town, cluster):
     assert [f.node for f in there.flows] == nodes == [f.node for f in here.flows]
     for a, b in zip(here.flows, there.flows):
         for name in ("static", "flow_at_residual", "flow_system", "available"):
-            assert getattr(a, name) == pytest.approx(getattr(b, name), rel=1e-12)
+            # nan where the default search left flow_system empty: the same on both sides
+            assert getattr(a, name) == pytest.approx(getattr(b, name), rel=1e-12, nan_ok=True)
         assert a.limiting_node == b.limiting_node and a.hydrant_class == b.hydrant_class
-    # both ran every hydrant: the solve counts agree too (3-4 solves a hydrant here)
-    assert here.solves == there.solves and 2 * len(nodes) <= here.solves <= 6 * len(nodes)
+    # both ran every hydrant: the solve counts agree too (1-4 solves a hydrant here)
+    assert here.solves == there.solves and len(nodes) <= here.solves <= 6 * len(nodes)
 
 
 def test_a_failing_batch_is_named_on_dask_and_here(town, cluster):

@@ -4,7 +4,7 @@ against finite differences and against a sampled (Monte Carlo) propagation on th
 import numpy as np
 import pytest
 
-from calib.fireflow import FireFlowScan
+from calib.fireflow import FireFlowScan, ScanOptions
 from calib.fireflow.fitdir import read_covariance, read_fit
 
 
@@ -12,7 +12,9 @@ from calib.fireflow.fitdir import read_covariance, read_fit
 def scan(town, fit_dir):
     inputs = read_fit(fit_dir, network=town)
     assert inputs.covariance is not None and not inputs.covariance.undetermined.any()
-    return FireFlowScan(town, roughness=inputs.roughness, covariance=inputs.covariance)
+    # the full system search: the system flow's gradient is checked too
+    return FireFlowScan(town, roughness=inputs.roughness, covariance=inputs.covariance,
+                        options=ScanOptions(system_search="always"))
 
 
 def _with_groups(scan, c_groups):
