@@ -106,9 +106,12 @@ def run(args) -> int:
     out = Path(args.out)
     if out.is_dir():
         raise InputError(f"'{out}' is a folder", field="--out", expected="a .csv file to write")
+    # of a fit's folder only the two files read are inputs: the fire-flow outputs of an earlier
+    # run may sit beside them and are written anew
+    fit_read = [Path(args.fit) / n for n in ("roughness.csv", "covariance.csv")] if args.fit else []
     fileio.check_outputs({"--out": [out, out.with_suffix(".geojson"), out.with_suffix(".html")]},
-                         fileio.input_files(*(p for p in (args.network, args.fit, args.roughness)
-                                              if p)))
+                         fileio.input_files(*(p for p in (args.network, args.roughness) if p),
+                                            *fit_read))
     network = read_network(args.network)
     nodes = hydrant_nodes(network, args.nodes)
     fit = read_fit(args.fit, args.roughness, network)

@@ -97,3 +97,20 @@ def test_binding_system_search_keeps_the_available_flow(tmp_path, fit_dir, capsy
         assert a[col].tolist() == b[col].tolist()
     assert (b["flow_system [gpm]"] == "").any()
     assert "only where it can limit" in capsys.readouterr().out
+
+
+def test_fireflow_written_into_the_fit_folder_runs_again(tmp_path, fit_dir, capsys):
+    # the README writes fireflow.csv beside the fit's outputs; a second run rewrites its own files
+    # but never the fit's roughness.csv or covariance.csv that it reads
+    import shutil
+    fit = tmp_path / "fit"
+    shutil.copytree(fit_dir, fit)
+    args = ["fireflow", str(NETWORK), "--fit", str(fit), "--workers", "0", "--quiet",
+            "--nodes", "J017,J113"]
+    assert main(args + ["--out", str(fit / "fireflow.csv")]) == 0
+    assert main(args + ["--out", str(fit / "fireflow.csv")]) == 0
+    assert pd.read_csv(fit / "fireflow.csv")["node"].tolist() == ["J017", "J113"]
+    before = (fit / "roughness.csv").read_bytes()
+    assert main(args + ["--out", str(fit / "roughness.csv")]) == 2
+    assert "is an input of this run" in capsys.readouterr().err
+    assert (fit / "roughness.csv").read_bytes() == before
