@@ -239,8 +239,7 @@ class NetworkSolver:
                                   np.zeros(self.nv, dtype=bool)]) & ~fixed_closed
         flips = np.zeros(len(q), dtype=np.int64)
         vstate, vflips, vheld = self._vstate, np.zeros(self.nv, np.int64), np.zeros(self.nv, bool)
-        isolated = self._isolated(active, vstate)
-        isolated, vstate, active, q = self._shut_dead_valves(isolated, vstate, active, q)
+        isolated, vstate, active, q = self._cut_off(active, vstate, q)
         self._check_isolated(isolated, demand)
         # held junctions (Snapshot.held_head) keep a fixed grade like a source: their mass equation
         # leaves the system (identity row, as for an isolated junction) and their draw is an output
@@ -318,8 +317,7 @@ class NetworkSolver:
                 changed, active, q, iso = self._update_status(q, H, active, dynamic, flips,
                                                               demand)
                 if iso is not None:
-                    isolated = iso | self.valves.cut_off(active, vstate) if self.nv else iso
-                    isolated, vstate, active, q = self._shut_dead_valves(isolated, vstate, active, q)
+                    isolated, vstate, active, q = self._cut_off(active, vstate, q)
                     self._check_isolated(isolated, demand)
             if self.nv and dq_max <= STATE_CHECK_FLOW * q_ref:  # valves: states near a solution
                 vchanged, vstate, q, vhold = self.valves.update(q, H, vstate, vflips, demand,
@@ -330,9 +328,7 @@ class NetworkSolver:
                     active = active.copy()
                     active[self.np_ + self.nu:] = (vstate != VALVE_CLOSED) & \
                         ~fixed_closed[self.np_ + self.nu:]
-                    isolated = self._isolated(active, vstate)
-                    isolated, vstate, active, q = self._shut_dead_valves(isolated, vstate, active,
-                                                                         q)
+                    isolated, vstate, active, q = self._cut_off(active, vstate, q)
                     self._check_isolated(isolated, demand)
         self._fail(f"no convergence in {self.max_iterations} iterations", self.max_iterations,
                    F2, dH, dq, e2)
@@ -385,7 +381,7 @@ class NetworkSolver:
         elif not factor.can_update:
             return None
         rho = self.update_ratio
-        links = np.flatnonzero(far if rho == 2.0 else (w > rho * kept.w) | (rho * w < kept.w))
+        links = np.flatnonzero((w > rho * kept.w) | (rho * w < kept.w))
         nodes = np.flatnonzero((extra != kept.extra) & ~fixed)
         if not (len(links) or len(nodes)) or pat.update_work(links, nodes) > self.update_budget:
             return None  # nothing to update (CG failed on the small changes) or too costly
@@ -460,11 +456,13 @@ class NetworkSolver:
                 f"solution at link(s) {', '.join(ids)}; check their direction and settings",
                 iterations=int(flips.max()), worst_links=ids)
 
-    def _shut_dead_valves(self, isolated, vstate, active, q):
-        """A control valve whose inlet junction is cut off from every source carries nothing: it is
-        closed for this solve and kept closed (``ValveLinks.shut``). Left active, a reducing valve
-        would feed its outlet from the dead inlet's stale grade: water made from nothing, since
-        the dead junction's mass balance is out of the system."""
+    def _cut_off(self, active, vstate, q):
+        """Junctions cut off from every source (``_isolated``) -> (isolated, vstate, active, q).
+        A control valve whose inlet junction is cut off carries nothing: it is closed for this
+        solve and kept closed (``ValveLinks.shut``). Left active, a reducing valve would feed its
+        outlet from the dead inlet's stale grade: water made from nothing, since the dead
+        junction's mass balance is out of the system."""
+        isolated = self._isolated(active, vstate)
         if not self.nv:
             return isolated, vstate, active, q
         v, s = self.valves, slice(self.np_ + self.nu, self.np_ + self.nu + self.nv)

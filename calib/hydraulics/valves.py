@@ -129,7 +129,7 @@ class ValveLinks:
         self._cut_cache = None
         self._zone_cache = None
         #: valves whose inlet is cut off from every source: closed whatever the rules say (set by
-        #: the solver, ``NetworkSolver._shut_dead_valves``)
+        #: the solver, ``NetworkSolver._cut_off``)
         self.shut = np.zeros(n, dtype=bool)
         self.start()
 
