@@ -151,9 +151,8 @@ class Planner:
         dH, _ = self.solver.sensitivities(res, dF1, sp.csc_matrix((self.network.n_junctions, g.n_groups)))
         return dH.toarray() if sp.issparse(dH) else np.asarray(dH)
 
-    def _solve(self, node, q=None):
-        """The test's residual snapshot: ``node`` flowing ``q`` [m3/s], or ``node`` a {node: flow} dict."""
-        flows = node if isinstance(node, dict) else {node: q}
+    def _solve(self, flows: dict):
+        """The test's residual snapshot with ``flows`` {junction number: flow [m3/s]} drawn."""
         ids = self.network.node_ids
         snap = self._Snapshot(extra_demand={str(ids[int(n)]): float(f) for n, f in flows.items()},
                               label="candidate")
