@@ -241,7 +241,7 @@ def map_view(service, tid: str, data, picked: str = "", here=None) -> dict:
     area = service.area
     out = dict(EMPTY_MAP, available=True, gauges=list(h["gauges"]),
                flows=sorted({o["hydrant"] for o in h["outlets"]}))
-    day_plan = getattr(service, "plan", None) or []
+    day_plan = service.plan
     if day_plan:
         out["planned"] = plans.map_marks(day_plan, data)
         out["legend"] = MAP_LEGEND + "\n" + plans.LEGEND
