@@ -14,8 +14,10 @@ import io
 import os
 import tempfile
 from pathlib import Path
+from typing import TYPE_CHECKING
 
-import pandas as pd
+if TYPE_CHECKING:
+    import pandas as pd
 
 # A text cell starting with one of these is run as a formula by common spreadsheets (CSV injection).
 _FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
@@ -98,6 +100,7 @@ def safe_cell(value):
 
 def write_csv(path, frame: pd.DataFrame, float_format: str | None = "%.6g") -> Path:
     """Write a DataFrame as CSV atomically, with text cells neutralized (see ``safe_cell``)."""
+    import pandas as pd  # here, not at the top: the app and the commands' --help need no pandas
     frame = frame.copy()
     for col in frame.columns:
         if frame[col].dtype == object or pd.api.types.is_string_dtype(frame[col]):

@@ -16,8 +16,31 @@ from __future__ import annotations
 
 import functools
 import re
+import sys
 
-import pint
+
+def _import_pint():
+    """Import pint without the Dask it loads for its dask-array support (a third of pint's import).
+
+    pint's compatibility layer imports ``dask.base`` whenever Dask is installed; no Quantity here
+    ever holds a Dask array (the fire-flow scan sends plain SI floats to its workers). While pint is
+    imported, ``sys.modules["dask"] = None`` makes Dask look absent (``importlib.util.find_spec``
+    answers None for it); the entry is removed at once, so a later ``import dask`` works as usual.
+    Where Dask or pint is loaded already, nothing changes.
+    """
+    if "pint" in sys.modules or "dask" in sys.modules:
+        import pint
+        return pint
+    sys.modules["dask"] = None
+    try:
+        import pint
+    finally:
+        if sys.modules.get("dask", ...) is None:
+            del sys.modules["dask"]
+    return pint
+
+
+pint = _import_pint()
 
 try:  # pint keeps its parsed unit definitions in the user's cache folder: 10x faster start
     ureg = pint.UnitRegistry(cache_folder=":auto:")

@@ -13,8 +13,10 @@ import sys
 import time
 from pathlib import Path
 
-from calib import fileio, limits, units
 from calib.errors import InputError
+
+# calib.units, calib.limits (pint) and calib.fileio are imported where used: ``fit --help`` loads
+# the command line only
 
 CAUTION = ("A calibrated model supports, never replaces, field verification and review by a licensed "
            "engineer; for fire-protection design follow local codes and the authority having "
@@ -68,6 +70,7 @@ OUTPUTS = ("groups.csv", "roughness.csv", "readings.csv", "parameters.csv", "cov
 
 
 def _bounds(text: str) -> tuple[float, float]:
+    from calib import limits, units
     parts = [s.strip() for s in str(text).split(",")]
     try:
         lo, hi = (units.parse_number(parts[0]), units.parse_number(parts[1])) \
@@ -83,6 +86,7 @@ def _bounds(text: str) -> tuple[float, float]:
 
 
 def _sigma(text: str | None) -> float | None:
+    from calib import limits, units
     if text is None:
         return None  # not stated: the fit takes the scale from the scatter
     try:
@@ -176,6 +180,8 @@ def scale_words(result, system: str = "us") -> str:
     """One phrase: which scale the intervals use and why (stated sigma, or the readings' scatter)."""
     import numpy as np
 
+    from calib import units
+
     est = result.estimate
     pu = units.display_unit("pressure", system)
     sig = float(np.median(result.tests.sigma[est.used])) if est.used.any() else units.PSI
@@ -197,6 +203,8 @@ def summary(result, system: str = "us") -> str:
     A group the tests do not determine shows no C (a dash), what the tests do say (a one-sided limit
     or none) and the model's C that the exports keep.
     """
+    from calib import units
+
     w = max(5, max(len(n) for n in result.grouping.names))
     lines = [f"{'group':<{w}s} {'C':>6s} {'95% interval':>15s} {'pipes':>6s}  status"]
     model_c = result.grouping.length_weighted(result.network, result.network.roughness)
@@ -247,6 +255,7 @@ def summary(result, system: str = "us") -> str:
 
 
 def run(args) -> int:
+    from calib import fileio
     c_bounds = _bounds(args.c_bounds)
     sigma = _sigma(args.sigma)
     if args.threshold is not None and not (math.isfinite(args.threshold) and args.threshold > 0):
@@ -275,6 +284,7 @@ def run(args) -> int:
 
 
 def _run(args, out, c_bounds, sigma, worker) -> int:
+    from calib import fileio
     from calib.calibration import export, fit, read_tests
     from calib.network.io import read_network
 

@@ -1,0 +1,60 @@
+"""Start-up: what a command loads before it does any work (issue 14, import costs).
+
+Each check runs a fresh interpreter and lists the modules it loaded, so a heavy import that creeps
+back in (pandas, pint, Dask through pint, scipy) makes it fail; timings stay in benchmarks/.
+"""
+
+import json
+import os
+import subprocess
+import sys
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[2]
+HEAVY = ("numpy", "scipy", "pandas", "pint", "dask", "matplotlib")
+
+
+def _loaded(code: str) -> dict:
+    """Run ``code`` in a fresh interpreter (this checkout first on the path); return what it printed
+    as JSON on its last line."""
+    env = dict(os.environ, PYTHONPATH=str(ROOT))
+    done = subprocess.run([sys.executable, "-c", code], env=env, cwd=str(ROOT), capture_output=True,
+                          text=True, timeout=120)
+    assert done.returncode == 0, done.stderr
+    return json.loads(done.stdout.strip().splitlines()[-1])
+
+
+def test_fit_help_loads_no_numerics():
+    out = _loaded(
+        "import contextlib, io, json, sys\n"
+        "from calib.cli import main\n"
+        "with contextlib.redirect_stdout(io.StringIO()) as text:\n"
+        "    code = main(['fit', '--help'])\n"
+        "print(json.dumps(dict(code=code, help='--c-bounds' in text.getvalue(),\n"
+        "      heavy=sorted({m.split('.')[0] for m in sys.modules} & set(%r)))))" % (HEAVY,))
+    assert out["code"] == 0 and out["help"]  # the help is complete
+    assert out["heavy"] == []
+
+
+def test_units_load_pint_without_dask_and_dask_still_imports_afterwards():
+    out = _loaded(
+        "import json, sys\n"
+        "import calib.units as u\n"
+        "before = 'dask' in sys.modules\n"
+        "psi = u.to_si('1 psi', 'pressure')\n"
+        "import dask, dask.array\n"  # the fire-flow scan's Dask works as before
+        "print(json.dumps(dict(before=before, psi=psi, dask=dask.array.ones(3).sum().compute())))")
+    assert out["before"] is False
+    # 1 psi = 6894.757293 Pa (NIST SP 811, appendix B): pint works as before
+    assert abs(out["psi"] - 6894.757293168) < 1e-6
+    assert out["dask"] == 3.0
+
+
+def test_units_leave_pint_alone_where_dask_is_loaded_first():
+    out = _loaded(
+        "import json\n"
+        "import dask\n"
+        "import calib.units\n"
+        "import pint.compat\n"
+        "print(json.dumps(dict(has_dask=bool(pint.compat.HAS_DASK))))")
+    assert out["has_dask"] is True
