@@ -293,3 +293,7 @@ def _serve(stdin, stdout) -> None:
 
 if __name__ == "__calib_figures__":
     _serve(sys.stdin.buffer, sys.stdout.buffer)
+    # every answer is flushed: end without the interpreter's teardown of matplotlib's objects
+    # (0.2-0.4 s that ``close`` would wait for; 0.02 s this way)
+    import os
+    os._exit(0)
