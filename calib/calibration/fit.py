@@ -158,7 +158,7 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
         prior="handbook", c_bounds=(40.0, 160.0), loss: str = "linear", demand_factor: bool = False,
         source_offsets: bool = False, threshold: float | None = None, refit: bool = True,
         influence: bool = True, solver=None, progress=None, year: float | None = None,
-        max_nfev: int = 60, flag_level: float = _flags.FLAG_LEVEL) -> FitResult:
+        max_nfev: int = 60, flag_level: float = _flags.FLAG_LEVEL, on_result=None) -> FitResult:
     """Fit group C-factors (and optional demand factors, source grade offsets) to a ``TestSet``.
 
     ``prior``: ``"handbook"`` (``priors.group_prior``), ``"none"``/None, or a ``GroupPrior``.
@@ -169,6 +169,9 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
     most two) to say how far each moves the C-factors.
     ``progress(n_solves, stage)`` is called after every solver call; ``stage`` names the phase, with
     a detail after a colon where the phase repeats (``"leave-one-out: T04 J316"``).
+    ``on_result(result)`` is called with the ``FitResult`` before the leave-one-out refits, which then
+    only add their notes to ``result.influence`` (and their solves to ``n_solves``): what needs the
+    rest, such as the report's figures, can start then.
     """
     if loss not in LOSSES:
         raise InputError(f"unknown loss '{loss}'", field="--loss", expected=", ".join(LOSSES))
@@ -301,29 +304,6 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
     leaning = [""] * n  # the influence notes (``influence`` is the option)
     for i in used_idx[cook[used_idx] > 1.0]:
         leaning[i] = f"Cook's distance {cook[i]:.2f} > 1"
-    if influence and n_used > p + 1:
-        cand = [i for i in used_idx[np.argsort(-cook[used_idx])][:2] if cook[i] > 4.0 / n_used]
-        sd_c = est.sd[prob.c_cols]
-        for i in cand:
-            if _loo_screen(est, prob, int(np.searchsorted(used_idx, i)), loss) < LOO_SCREEN:
-                continue  # the one-step estimate moves no C by a third of an sd: no flag, no refit
-            count["stage"] = (f"leave-one-out: {tests.test_ids[tests.test[i]]} "
-                              f"{network.node_ids[tests.node[i]]}")
-            mask = est.used.copy()
-            mask[i] = False
-            loo_prob = make(mask, x0=est.x)
-            loo = optimize.least_squares(loo_prob.residuals, est.x, jac=loo_prob.jacobian,
-                                         bounds=(loo_prob.lower, loo_prob.upper), method="trf",
-                                         loss=loss, f_scale=f_scale, x_scale="jac", max_nfev=10,
-                                         xtol=LSQ_TOL, ftol=LSQ_TOL, gtol=LSQ_TOL)
-            shift = np.abs(loo.x[prob.c_cols] - est.x[prob.c_cols])
-            rel = np.where(np.isfinite(sd_c) & (sd_c > 0), shift / np.where(sd_c > 0, sd_c, 1), 0.0)
-            g = int(np.argmax(rel))
-            if rel[g] > 1.0:
-                text = (f"leaving it out moves C of {grouping.names[g]} by "
-                        f"{shift[g]:.1f} ({rel[g]:.1f} sd)")
-                leaning[i] = leaning[i] + "; " + text if leaning[i] else text
-
     # identifiability
     cov = est.cov
     d = np.sqrt(np.abs(np.diag(cov)))
@@ -437,7 +417,7 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
     findings.extend(zones.test_findings(network, tests, full, results))  # valves and zones
     findings.extend(tests.notes)
 
-    return FitResult(network=network, tests=tests, grouping=grouping, prior=gp, params=prob.params,
+    result = FitResult(network=network, tests=tests, grouping=grouping, prior=gp, params=prob.params,
                      estimate=est, first=first, corr=corr, move_together=together, informed=informed,
                      status=status, simulated=simulated, z=z, cook=cook, flag=flag, rmse=rmse,
                      criteria=crit, max_headloss=max_hl, findings=findings, influence=leaning,
@@ -448,6 +428,34 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
                                   threshold=cut, flag_level=None if threshold is not None else flag_level,
                                   flag_rule=rule),
                      solutions={res.snapshot.label: res for res in results})
+    if on_result is not None:
+        on_result(result)  # everything but the leave-one-out notes is final: e.g. draw the figures now
+
+    if influence and n_used > p + 1:
+        cand = [i for i in used_idx[np.argsort(-cook[used_idx])][:2] if cook[i] > 4.0 / n_used]
+        sd_c = est.sd[prob.c_cols]
+        for i in cand:
+            if _loo_screen(est, prob, int(np.searchsorted(used_idx, i)), loss) < LOO_SCREEN:
+                continue  # the one-step estimate moves no C by a third of an sd: no flag, no refit
+            count["stage"] = (f"leave-one-out: {tests.test_ids[tests.test[i]]} "
+                              f"{network.node_ids[tests.node[i]]}")
+            mask = est.used.copy()
+            mask[i] = False
+            loo_prob = make(mask, x0=est.x)
+            loo = optimize.least_squares(loo_prob.residuals, est.x, jac=loo_prob.jacobian,
+                                         bounds=(loo_prob.lower, loo_prob.upper), method="trf",
+                                         loss=loss, f_scale=f_scale, x_scale="jac", max_nfev=10,
+                                         xtol=LSQ_TOL, ftol=LSQ_TOL, gtol=LSQ_TOL)
+            shift = np.abs(loo.x[prob.c_cols] - est.x[prob.c_cols])
+            rel = np.where(np.isfinite(sd_c) & (sd_c > 0), shift / np.where(sd_c > 0, sd_c, 1), 0.0)
+            g = int(np.argmax(rel))
+            if rel[g] > 1.0:
+                text = (f"leaving it out moves C of {grouping.names[g]} by "
+                        f"{shift[g]:.1f} ({rel[g]:.1f} sd)")
+                leaning[i] = leaning[i] + "; " + text if leaning[i] else text
+
+    result.n_solves = sum(pr.n_solves for pr in problems)
+    return result
 
 
 def _flag_rule_text(threshold, cut: float, n: int, level: float, scaled: bool) -> str:

@@ -6,13 +6,16 @@ and C with its interval against the prior, the model's C before and the C bounds
 the readings fit (observed vs simulated, residuals by test); hydrant curves; parameter correlation;
 the tests; the method and its sources. This module builds each figure's data (the hydrant curves from
 few warm-started solves); ``figures.py`` draws them, each once, here or in a worker process that
-``calib fit`` starts before the fit. The page is written atomically through ``calib.fileio``.
+``calib fit`` starts before the fit. ``prepare`` makes the figures' data and the fire-flow section;
+``calib fit`` calls it from the fit's ``on_result``, before the leave-one-out refits, so the worker
+draws beside them. The page is written atomically through ``calib.fileio``.
 """
 
 from __future__ import annotations
 
 import datetime as _dt
 import html
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -205,20 +208,40 @@ def _info_rows(info):
     return cols, rows
 
 
-def render(result, system: str = "us", curves: bool = True, worker=None) -> str:
+@dataclass
+class ReportParts:
+    """What the page needs beyond the fit's tables, made by ``prepare``: each figure's data (already
+    handed to the worker) and the fire-flow section."""
+    system: str
+    curves: bool
+    specs: dict
+    fire_flow: str
+
+
+def prepare(result, system: str = "us", curves: bool = True, worker=None) -> ReportParts:
+    """The figures' data, each handed to ``worker`` as soon as it is known, then the fire-flow
+    section (its solves while the worker draws). Needs nothing the leave-one-out refits add, so
+    ``calib fit`` calls it from the fit's ``on_result``: the figures are drawn beside those refits."""
+    from calib.fireflow.fitsummary import html_section  # fire flow with the fitted C
+    specs = _plot_specs(result, system, curves, worker)
+    return ReportParts(system, curves, specs, html_section(result, system))
+
+
+def render(result, system: str = "us", curves: bool = True, worker=None,
+           parts: ReportParts | None = None) -> str:
     """The report as one HTML string; ``worker``: a ``figures.FigureWorker`` to draw the figures in
-    (else they are drawn here)."""
+    (else they are drawn here); ``parts``: ``prepare``'s, made earlier with the same ``worker``."""
     from calib.calibration import figures
     from calib.calibration.export import groups_frame, other_parameters_frame
-    from calib.fireflow.fitsummary import html_section  # fire flow with the fitted C
     t, net, est = result.tests, result.network, result.estimate
     pu = units.display_unit("pressure", system)
     e = html.escape
     c_bounds = result.options.get("c_bounds")
     bounds = (f"{c_bounds[0]:g} - {c_bounds[1]:g}" if c_bounds is not None else "-")
     group_by = result.options.get("group_by")
-    specs = _plot_specs(result, system, curves, worker)
-    fire_flow = html_section(result, system)  # its solves while the worker draws
+    if parts is None or (parts.system, parts.curves) != (system, curves):
+        parts = prepare(result, system, curves, worker)
+    specs, fire_flow = parts.specs, parts.fire_flow
     plots = {name: worker.result(name) if worker is not None else figures.draw(name, data)
              for name, data in specs.items()}
 
@@ -374,7 +397,8 @@ def render(result, system: str = "us", curves: bool = True, worker=None) -> str:
     return "\n".join(parts)
 
 
-def write_report(result, out, system: str = "us", curves: bool = True, worker=None) -> Path:
-    """Write ``OUT/report.html`` atomically and return its path (``worker``: see ``render``)."""
+def write_report(result, out, system: str = "us", curves: bool = True, worker=None,
+                 parts: ReportParts | None = None) -> Path:
+    """Write ``OUT/report.html`` atomically and return its path (``worker``, ``parts``: see ``render``)."""
     path = Path(out) / "report.html"
-    return fileio.write_text(path, render(result, system, curves, worker))
+    return fileio.write_text(path, render(result, system, curves, worker, parts))

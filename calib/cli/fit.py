@@ -128,6 +128,10 @@ class ProgressBar:
         else:
             self._log(n, stage)
 
+    def stage(self, stage: str) -> None:
+        """A phase of work without the fit's solves (e.g. the report's, which run beside the fit)."""
+        self(self._bar.n if self._bar is not None else self._n, stage)
+
     def _draw(self, n: int, stage: str) -> None:
         from tqdm import tqdm
 
@@ -162,8 +166,8 @@ class ProgressBar:
             what += f" ({len(self._details)} readings: {', '.join(self._details)})"
         elif self._details:
             what += f" {self._details[0]}"
-        self.stream.write(f"{what}: {self._n - self._phase_n0} solves, "
-                          f"{time.perf_counter() - self._phase_t0:.1f} s\n")
+        solves = f"{self._n - self._phase_n0} solves, " if self._n > self._phase_n0 else ""
+        self.stream.write(f"{what}: {solves}{time.perf_counter() - self._phase_t0:.1f} s\n")
         self.stream.flush()
         self._phase = None
 
@@ -292,11 +296,22 @@ def _run(args, out, c_bounds, sigma, worker) -> int:
     tests = read_tests(args.tests, network, sigma=sigma)
     # about 100 solves a test on the demo day (fit, refits, interval checks, leave-one-out)
     bar = None if args.quiet else ProgressBar(expected=100 * tests.n_tests)
+    report_parts = []
+
+    def prepare_report(result):
+        # the fit is final but for its leave-one-out notes: hand the figures to the worker now, so
+        # that it draws them beside those refits instead of after the fit
+        from calib.calibration.report import prepare
+        if bar is not None:
+            bar.stage("report data (hydrant curves, fire flow)")
+        report_parts.append(prepare(result, args.units, worker=worker))
+
     try:
         result = fit(network, tests, group_by=args.group_by, prior=args.prior, c_bounds=c_bounds,
                      loss=args.loss, demand_factor=args.demand_factor,
                      source_offsets=args.source_offsets, threshold=args.threshold,
-                     flag_level=args.flag_level, progress=bar)
+                     flag_level=args.flag_level, progress=bar,
+                     on_result=None if args.no_report else prepare_report)
     finally:
         if bar is not None:
             bar.close()
@@ -304,7 +319,8 @@ def _run(args, out, c_bounds, sigma, worker) -> int:
         paths = export.write_outputs(result, stage, args.units)
         if not args.no_report:
             from calib.calibration.report import write_report
-            paths.append(write_report(result, stage, args.units, worker=worker))
+            paths.append(write_report(result, stage, args.units, worker=worker,
+                                      parts=report_parts[0] if report_parts else None))
     paths = [out / Path(p).name for p in paths]
     print(summary(result, args.units))
     print("wrote " + ", ".join(str(p) for p in paths))

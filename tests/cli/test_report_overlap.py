@@ -1,0 +1,48 @@
+"""``calib fit`` hands the report's figures to its worker before the fit's leave-one-out refits, so
+that they are drawn beside those refits (issue 14): every figure is submitted inside the fit call,
+before its first leave-one-out stage, and the page written is complete."""
+
+from pathlib import Path
+
+import calib.calibration as calibration
+from calib.calibration.figures import FIGURES, FigureWorker
+from calib.cli import main
+
+ROOT = Path(__file__).resolve().parents[2]
+DEMO = ROOT / "field_samples" / "tallowmere"
+
+
+def test_figures_go_to_the_worker_before_the_leave_one_out_refits(tmp_path, capsys, monkeypatch):
+    events = []  # ("stage", name) from the fit's progress, ("submit", figure), ("fit", "end")
+    real_fit, real_submit = calibration.fit, FigureWorker.submit
+
+    def fit(*args, progress=None, **kw):
+        def progress_seen(n, stage):
+            if not events or events[-1] != ("stage", stage):
+                events.append(("stage", stage))
+            if progress is not None:
+                progress(n, stage)
+        try:
+            return real_fit(*args, progress=progress_seen, **kw)
+        finally:
+            events.append(("fit", "end"))
+
+    def submit(self, name, data):
+        events.append(("submit", name))
+        return real_submit(self, name, data)
+
+    monkeypatch.setattr(calibration, "fit", fit)  # the command looks it up here when it runs
+    monkeypatch.setattr(FigureWorker, "submit", submit)
+    code = main(["fit", str(DEMO / "network"), str(DEMO / "tests"), "--out", str(tmp_path)])
+    err = capsys.readouterr().err
+    assert code == 0, err
+    submitted = [i for i, (kind, _) in enumerate(events) if kind == "submit"]
+    assert sorted(events[i][1] for i in submitted) == sorted(FIGURES)  # each figure once
+    loo = [i for i, (kind, name) in enumerate(events)
+           if kind == "stage" and name.startswith("leave-one-out")]
+    assert loo, events  # the demo fit does refit readings one at a time
+    assert max(submitted) < min(loo)
+    # the phase line of the report's own work, without fit solves
+    assert "report data (hydrant curves, fire flow): " in err
+    page = (tmp_path / "report.html").read_text()
+    assert page.count("data:image/png;base64,") == len(FIGURES)
