@@ -38,15 +38,25 @@ class Parameter:
     upper: float
 
 
-#: Stack snapshots on networks up to this many pipes (``stack_pays``); measured, see
-#: benchmarks/README.md, "A stacked snapshots".
-STACK_MAX_PIPES = 100_000
+#: Stacks of snapshots (``stack_size``), by measurement (benchmarks/README.md, "A stacked
+#: snapshots"): warm evaluations cost 0.4-0.6x of one-by-one solves at 481-1,105 pipes, about the
+#: same at 2,000, more from 4,000 pipes up (0.8-1.1x slower at 7,938); stacks of 7-14 copies of
+#: the 531-pipe demo town beat one stack of 28 (the stack iterates until its slowest copy is done).
+STACK_MAX_NETWORK_PIPES = 2_000
+STACK_MAX_PIPES = 8_000  # the largest stack, over all its copies
 
 
-def stack_pays(network, n_snapshots: int) -> bool:
-    """Whether solving the snapshots as one stacked network is the faster way (by measurement):
-    on small networks a solve is mostly per-iteration Python work, which the stack pays once."""
-    return n_snapshots > 1 and network.n_pipes <= STACK_MAX_PIPES
+def stack_size(network, limit: int | None = None) -> int:
+    """How many snapshots of ``network`` one stack holds (1: none stacked). On small networks a
+    solve is mostly per-iteration Python work, which a stack pays once for all its copies; on
+    larger ones the stacked arrays' own work dominates and a stack gains nothing (measured).
+    ``limit``: the largest stack in pipes over its copies (default ``STACK_MAX_PIPES``, and no
+    stack above ``STACK_MAX_NETWORK_PIPES`` a copy)."""
+    if limit is None:
+        if network.n_pipes > STACK_MAX_NETWORK_PIPES:
+            return 1
+        limit = STACK_MAX_PIPES
+    return max(1, int(limit) // max(network.n_pipes, 1))
 
 
 class CalibrationProblem:
@@ -56,9 +66,10 @@ class CalibrationProblem:
     ``prior`` is a ``priors.GroupPrior`` or None. ``progress(n_solves)`` is called after every solve.
     ``warm``: last solution per snapshot label, shared between problems over the same tests (a refit
     on a subset starts each snapshot from its own last state, not from another test's).
-    ``stack``: solve the snapshots that share a demand factor as one block-diagonal network
-    (``calib.hydraulics.stacked``), one solve and one sensitivity solve for all of them; None
-    chooses by network size (``stack_pays``). Same results to the solver's tolerance.
+    ``stack``: solve the snapshots that share a demand factor in stacks, each one block-diagonal
+    network (``calib.hydraulics.stacked``): one solve and one sensitivity solve for all its copies;
+    an int is the largest stack in pipes over its copies, None the measured default
+    (``stack_size``), False none. Same results to the solver's tolerance.
     """
 
     def __init__(self, network, tests, grouping, prior=None, c_bounds=(40.0, 160.0),
@@ -153,11 +164,14 @@ class CalibrationProblem:
         self._cache_key = None
         self._cache = None
         # --- stacks: snapshots that share a demand factor column are solved as one network -----
-        self.stack = stack_pays(network, len(self.pairs)) if stack is None else bool(stack)
+        size = 1 if stack is False else stack_size(network, None if stack is None or stack is True else stack)
         by_col: dict = {}
         for i, (t, _k) in enumerate(self.pairs):
             by_col.setdefault(self.day_col.get(int(tests.day[t])), []).append(i)
-        self.stacks = [v for v in by_col.values() if len(v) > 1] if self.stack else []
+        self.stacks = []
+        for members in by_col.values():  # near-equal stacks of at most ``size`` snapshots
+            n = -(-len(members) // size)
+            self.stacks += [m.tolist() for m in np.array_split(members, n) if len(m) > 1]
         self._stacked = None  # the last x's stacked results, one per stack
 
     # --- sizes ----------------------------------------------------------------------------------
