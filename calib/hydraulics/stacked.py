@@ -108,6 +108,9 @@ class StackedNetwork:
             name=f"{net.name} x {k}")
         # stacked id -> original id, for the names a result carries (zones, notes, held draws)
         self._zone_memo: dict = {}
+        self._link_ids = np.concatenate([net.pipe_ids, np.asarray(net.pumps.ids, dtype=object),
+                                         net.valves.ids]).astype(str)
+        self._junction_ids = np.asarray(net.node_ids[:nj]).astype(str)
         self._original = {}
         for c in range(k):
             for arr, stacked in ((net.node_ids, self.node_ids_of(c)),
@@ -145,28 +148,51 @@ class StackedNetwork:
         r = np.asarray(per_copy, float)
         return _tile(r, self.k) if r.ndim == 1 else r.reshape(-1)
 
-    def tolerance_ratio(self, snaps) -> float:
-        """The smallest copy's share of the stack's total demand: the solver's relative tolerances
-        (flow change and mass balance, both relative to the total demand) times this ratio hold
-        every copy to at least the accuracy it has when solved alone."""
-        totals = np.array([float(np.abs(resolve(s, self.base).demand).sum()) for s in snaps])
+    def tolerance_ratio(self, demand) -> float:
+        """The smallest copy's share of the stack's total demand (``demand``: the stack's resolved
+        demand per junction): the solver's relative tolerances (flow change and mass balance, both
+        relative to the total demand) times this ratio hold every copy to at least the accuracy it
+        has when solved alone."""
+        totals = np.abs(np.asarray(demand)).reshape(self.k, self.nj).sum(axis=1)
         total = totals.sum()
         return float(totals.min() / total) if total > 0 else 1.0 / self.k
 
-    # --- results -----------------------------------------------------------------------------
-    def split(self, result: SolveResult, snaps) -> list[SolveResult]:
+    def mass_errors(self, result: SolveResult, demand) -> np.ndarray:
+        """Each copy's largest mass-balance error [m3/s] at ``result`` (fixed-grade junctions left
+        out, as in the solver): ``demand`` is the stack's resolved demand per junction."""
+        sn = self.network
+        q = result.link_flow
+        f = np.concatenate([sn.pipe_from, sn.pumps.from_node, sn.valves.from_node]).astype(np.int64)
+        t = np.concatenate([sn.pipe_to, sn.pumps.to_node, sn.valves.to_node]).astype(np.int64)
+        n = sn.n_nodes
+        err = (np.bincount(t, weights=q, minlength=n) - np.bincount(f, weights=q, minlength=n))[:sn.n_junctions]
+        err = np.abs(err - demand)
+        if result._isolated_mask is not None:  # isolated and held junctions
+            err[result._isolated_mask] = 0.0
+        held = [sn.node_index[str(i)] for i in (result.snapshot.held_head or {})]
+        err[held] = 0.0
+        return err.reshape(self.k, self.nj).max(axis=1, initial=0.0)
+
+    def split(self, result: SolveResult, snaps, demand=None) -> list[SolveResult]:
         """Each copy's ``SolveResult`` out of the stack's: arrays sliced, ids mapped back, the mass
-        error recomputed per copy; iterations and factorizations are the stack's, the energy error
+        error recomputed per copy (``demand``: the stack's resolved demand, else resolved here);
+        iterations and factorizations are the stack's, the energy error
         the stack's largest (an upper bound for the copy)."""
         net, k = self.base, self.k
         nj, npp = self.nj, self.np_
         out = []
         valve = self.nv > 0
+        if demand is None:
+            demand = resolve(result.snapshot, self.network).demand
+        masses = self.mass_errors(result, demand)
         zones = None
         if result.zone is not None:  # few distinct labels: map each once
+            import pandas as pd  # factorize: a hash pass over the labels, no Python loop
+            codes, uniques = pd.factorize(result.zone)
             memo = self._zone_memo
-            zones = np.array([memo[z] if z in memo else memo.setdefault(z, self._rename_zone(z))
-                              for z in result.zone], dtype=object)
+            names = np.array([memo[z] if z in memo else memo.setdefault(z, self._rename_zone(z))
+                              for z in uniques] + [""], dtype=object)
+            zones = names[codes]  # code -1 (none) -> ""
         for c in range(k):
             nodes, pipes, links = self.node_map[c], self.pipe_map[c], self.link_map[c]
             active = result._active[links]
@@ -174,16 +200,7 @@ class StackedNetwork:
                 else np.zeros(nj, dtype=bool)
             head, pressure = result.head[nodes], result.pressure[nodes]
             flow = result.flow[pipes]
-            q = np.concatenate([flow, result.pump_flow[self.pump_map[c] - k * npp],
-                                result.valve_flow[self.valve_map[c] - k * (npp + self.nu)]
-                                if valve else np.zeros(0)])
-            inflow = (np.bincount(self._link_to, weights=q, minlength=net.n_nodes)
-                      - np.bincount(self._link_from, weights=q, minlength=net.n_nodes))[:nj]
-            demand = resolve(snaps[c], net).demand
-            fixed = iso.copy()
-            held = [net.node_index[str(n)] for n in (snaps[c].held_head or {})]
-            fixed[held] = True
-            mass = float(np.abs(np.where(fixed, 0.0, inflow - demand)).max(initial=0.0))
+            mass = float(masses[c])
             neg = np.flatnonzero((pressure[:nj] < 0) & ~iso)
             extra = {}
             if valve:
@@ -208,9 +225,9 @@ class StackedNetwork:
                 velocity=result.velocity[pipes], headloss=result.headloss[pipes],
                 iterations=result.iterations, factorizations=result.factorizations,
                 max_mass_error=mass, max_energy_error=result.max_energy_error, converged=True,
-                negative_pressure=list(map(str, net.node_ids[neg])),
-                isolated=list(map(str, net.node_ids[:nj][iso])),
-                closed_links=list(map(str, self._link_ids[~active])),
+                negative_pressure=self._junction_ids[neg].tolist(),
+                isolated=self._junction_ids[iso].tolist(),
+                closed_links=self._link_ids[~active].tolist(),
                 snapshot=snaps[c], roughness=result.roughness[pipes], held_flow=held_flow,
                 _grad=result._grad[links], _active=active,
                 _isolated_mask=None if result._isolated_mask is None else iso.copy(), **extra))
@@ -259,23 +276,6 @@ class StackedNetwork:
             _valve_state=put(k * nv, "_valve_state", lambda c: self.valve_map[c] - k * (npp + nu),
                              dtype=None) if nv else None)
 
-    @property
-    def _link_from(self):
-        net = self.base
-        return np.concatenate([net.pipe_from, np.asarray(net.pumps.from_node, np.int64),
-                               net.valves.from_node]).astype(np.int64)
-
-    @property
-    def _link_to(self):
-        net = self.base
-        return np.concatenate([net.pipe_to, np.asarray(net.pumps.to_node, np.int64),
-                               net.valves.to_node]).astype(np.int64)
-
-    @property
-    def _link_ids(self):
-        net = self.base
-        return np.concatenate([net.pipe_ids, np.asarray(net.pumps.ids, dtype=object),
-                               net.valves.ids]).astype(str)
 
     def _rename(self, text: str) -> str:
         """Stacked ids in a message back to the original ids (longest first)."""
@@ -318,13 +318,15 @@ class StackedSolver:
 
     def solve(self, snaps, roughness=None, warm=None):
         st, s = self.stack, self.solver
-        ratio = st.tolerance_ratio(snaps)
+        snap = st.snapshot(snaps)
+        demand = resolve(snap, st.network).demand
+        ratio = st.tolerance_ratio(demand)
         s.flow_tol, s.mass_tol = self.flow_tol * ratio, self.mass_tol * ratio
         if isinstance(warm, (list, tuple)):
             warm = st.join(warm)
         rough = None if roughness is None else st.roughness(roughness)
-        res = s.solve(st.snapshot(snaps), roughness=rough, warm_start=warm)
-        return res, st.split(res, snaps)
+        res = s.solve(snap, roughness=rough, warm_start=warm)
+        return res, st.split(res, snaps, demand)
 
     def sensitivities(self, result, dF1_dp, dF2_dp):
         """``NetworkSolver.sensitivities`` of the stack (rows in stacked order)."""
