@@ -38,6 +38,14 @@ class Parameter:
     upper: float
 
 
+class _Solved(list):
+    """Per-snapshot results of one ``x``, with the stacked results they were split from."""
+
+    def __init__(self, results, stacks, stacked):
+        super().__init__(results)
+        self.stacks, self.stacked = stacks, stacked
+
+
 #: Stacks of snapshots (``stack_size``), by measurement (benchmarks/README.md, "A stacked
 #: snapshots"): warm evaluations cost 0.4-0.6x of one-by-one solves at 481-1,105 pipes, about the
 #: same at 2,000, more from 4,000 pipes up (0.8-1.1x slower at 7,938); stacks of 7-14 copies of
@@ -172,7 +180,6 @@ class CalibrationProblem:
         for members in by_col.values():  # near-equal stacks of at most ``size`` snapshots
             n = -(-len(members) // size)
             self.stacks += [m.tolist() for m in np.array_split(members, n) if len(m) > 1]
-        self._stacked = None  # the last x's stacked results, one per stack
 
     # --- sizes ----------------------------------------------------------------------------------
     @property
@@ -223,7 +230,6 @@ class CalibrationProblem:
             if results is not None:
                 self._cache_key, self._cache = key, results
                 return results
-        self._stacked = None
         results = []
         # not solve_many: a warm start from the same snapshot at the last parameters beats one from
         # the previous snapshot (a few iterations instead of many)
@@ -267,7 +273,6 @@ class CalibrationProblem:
             try:
                 res, parts = ss.solve([snaps[i] for i in members], roughness, warm)
             except (ConvergenceError, NetworkError):
-                self._stacked = None
                 return None
             stacked.append(res)
             self.n_solver_calls += 1
@@ -284,7 +289,6 @@ class CalibrationProblem:
             try:
                 r = self.solver.solve(snaps[i], roughness=roughness, warm_start=warm)
             except ConvergenceError:
-                self._stacked = None
                 return None
             results[i] = r
             self.warm[snaps[i].label] = r
@@ -293,8 +297,14 @@ class CalibrationProblem:
             self.n_iterations += r.iterations
             if self.progress is not None:
                 self.progress(self.n_solves)
-        self._stacked = stacked
-        return results
+        return _Solved(results, stacks=self.stacks, stacked=stacked)
+
+    @property
+    def _stacked(self):
+        """The stacked results behind the cached solution (one per stack), when it was solved in
+        the same stacks (a problem over the same snapshots may hand its cache on)."""
+        c = self._cache
+        return c.stacked if isinstance(c, _Solved) and c.stacks == self.stacks else None
 
     def simulated_head(self, x) -> np.ndarray:
         """Simulated grade at each reading's node [m]."""
