@@ -11,6 +11,10 @@
    network (``calib.hydraulics.stacked``): the same sequence of parameter vectors (residuals and
    Jacobian at each, as a fit's steps) on the demo town and on grids of growing size, both ways
    interleaved; counts (solver calls, Newton iterations), CPU and wall time, largest differences.
+4. ``--fit-counts --code DIR [--code DIR ...] NETWORK TESTS``: the whole ``calib.calibration.fit`` of
+   one case in a fresh process per code tree (e.g. a pristine main against this branch), trees
+   interleaved: snapshot solves, solver calls, Newton iterations, factorizations, sensitivity
+   solves (counted by wrapping ``NetworkSolver``'s public methods), CPU and wall time, the C.
 Figures go into the "Fit" section of benchmarks/README.md. Synthetic data only (calib.calibration.synthetic).
 """
 
@@ -153,11 +157,56 @@ def main_stacked(quick: bool) -> None:
               f"{r['max_resid_diff']:.1e} | {r['max_jac_rel_diff']:.1e}", flush=True)
 
 
+_FIT_COUNTS = r"""
+import sys, time
+import numpy as np
+from calib.network.io import read_network
+from calib.calibration.tests_io import read_tests
+from calib.calibration import fit
+from calib.hydraulics import NetworkSolver
+n = dict(calls=0, iterations=0, factorizations=0, sensitivities=0)
+solve, sens = NetworkSolver.solve, NetworkSolver.sensitivities
+def counted_solve(self, *a, **k):
+    r = solve(self, *a, **k)
+    n["calls"] += 1; n["iterations"] += r.iterations; n["factorizations"] += r.factorizations
+    return r
+def counted_sens(self, *a, **k):
+    n["sensitivities"] += 1
+    return sens(self, *a, **k)
+NetworkSolver.solve, NetworkSolver.sensitivities = counted_solve, counted_sens
+net = read_network(sys.argv[1]); tests = read_tests(sys.argv[2], net)
+c0, t0 = time.process_time(), time.perf_counter()
+res = fit(net, tests, solver=NetworkSolver(net))
+cpu, wall = time.process_time() - c0, time.perf_counter() - t0
+print(f"snapshot solves {res.n_solves} | solver calls {n['calls']} | Newton iterations "
+      f"{n['iterations']} | factorizations {n['factorizations']} | sensitivity solves "
+      f"{n['sensitivities']} | cpu {cpu:.2f} s | wall {wall:.2f} s | C {np.round(res.c, 2).tolist()}")
+"""
+
+
+def fit_counts(codes, network, tests, rounds: int = 2) -> None:
+    import subprocess
+    for r in range(rounds):
+        for code in codes:
+            env = dict(os.environ, PYTHONPATH=str(Path(code).resolve()))
+            out = subprocess.run([sys.executable, "-c", _FIT_COUNTS, str(Path(network).resolve()),
+                                  str(Path(tests).resolve())], cwd=code, env=env, text=True,
+                                 capture_output=True, check=True).stdout.strip()
+            print(f"round {r + 1} | {code} | load {os.getloadavg()[0]:.1f} | {out}", flush=True)
+
+
 def main() -> None:
     ap = argparse.ArgumentParser()
     ap.add_argument("--quick", action="store_true", help="smaller networks (a smoke run)")
     ap.add_argument("--stacked", action="store_true", help="only the stacked-snapshots comparison")
+    ap.add_argument("--fit-counts", nargs=2, metavar=("NETWORK", "TESTS"),
+                    help="whole fit of one case per --code tree: counts and times")
+    ap.add_argument("--code", action="append", default=[], help="a code tree for --fit-counts")
+    ap.add_argument("--rounds", type=int, default=2)
     args = ap.parse_args()
+    if args.fit_counts:
+        fit_counts(args.code or ["."], *args.fit_counts, rounds=args.rounds)
+        return
     if args.stacked:
         print(f"machine: {platform.processor() or platform.machine()}, {os.cpu_count()} cores; "
               f"load {os.getloadavg()[0]:.2f}")
