@@ -142,3 +142,38 @@ def test_snapshots_of_one_stack_must_share_their_demand_factor():
         st.snapshot([Snapshot()])
     with pytest.raises(ValueError, match="at least one copy"):
         StackedNetwork(net, 0)
+
+
+def test_pumps_check_valves_closed_pipes_and_held_grades_per_copy():
+    # a random looped network (20 junctions, two sources) with a pump lifting from a low reservoir,
+    # a check valve, a closed pipe; copies differ in the pump's lift need, one copy holds a junction's
+    # grade (the fire-flow scan's held node) and reports its draw: each copy as its own solve
+    from calib.network.model import PipeStatus, Pumps
+    from tests.hydraulics.conftest import random_looped
+    base = random_looped(20, seed=7, n_sources=2)
+    nj = base.n_junctions
+    status = base.status.copy()
+    status[7] = PipeStatus.CHECK_VALVE  # closes against reverse flow at the base loading
+    status[5] = PipeStatus.CLOSED
+    pumps = Pumps(ids=np.array(["PU"], dtype=object), from_node=np.array([nj + 1]),
+                  to_node=np.array([8]), shutoff_head=np.array([45.0]), curve_r=np.array([2000.0]),
+                  curve_n=np.array([2.0]), speed=np.array([1.0]))
+    net = base.replace(status=status, pumps=pumps,
+                       source_head=np.array([base.source_head[0], base.source_head[1] - 40.0]))
+    low = str(net.source_ids[1])
+    j = [str(i) for i in net.junction_ids]
+    snaps = [Snapshot(label="base"), Snapshot(extra_demand={j[12]: 0.02}, label="flow"),
+             Snapshot(source_head={low: float(net.source_head[1]) - 5.0}, label="low lower"),
+             Snapshot(held_head={j[15]: float(net.elevation[15]) + 14.06}, label="held")]
+    alone, solver = _separate(net, snaps)
+    assert alone[3].held_flow and alone[0].pump_flow[0] > 0  # the cases are exercised
+    assert {"P5", "P7"} <= set(alone[0].closed_links)
+    _res, parts = StackedSolver(solver, len(snaps)).solve(snaps)
+    for a, b in zip(alone, parts):
+        np.testing.assert_allclose(b.head, a.head, atol=1e-5, rtol=0)
+        np.testing.assert_allclose(b.flow, a.flow, atol=1e-7, rtol=0)
+        np.testing.assert_allclose(b.pump_flow, a.pump_flow, atol=1e-7, rtol=0)
+        assert b.closed_links == a.closed_links
+        assert b.held_flow.keys() == a.held_flow.keys()
+        for k in a.held_flow:
+            assert b.held_flow[k] == pytest.approx(a.held_flow[k], abs=1e-7)
