@@ -67,20 +67,17 @@ class StackedNetwork:
         self.link_map = np.concatenate([self.pipe_map, self.pump_map, self.valve_map], axis=1)
         node = self.node_map  # original node number -> stacked, per copy
 
-        def ids(a, n):  # "id@k", copy-major
-            a = np.asarray(a, dtype=object).astype(str)
-            return np.array([f"{i}{SEP}{c}" for c in range(k) for i in a], dtype=object)[:k * n]
+        def ids(a):  # "id@c" for every copy c, copy-major
+            return np.array([f"{i}{SEP}{c}" for c in range(k) for i in np.asarray(a).astype(str)],
+                            dtype=object)
 
-        node_ids = np.concatenate([ids(net.junction_ids, nj),
-                                   np.array([f"{i}{SEP}{c}" for c in range(k)
-                                             for i in np.asarray(net.source_ids).astype(str)],
-                                            dtype=object)])
+        node_ids = np.concatenate([ids(net.junction_ids), ids(net.source_ids)])
         self._node_names = node_ids
         self.network = Network(
             node_ids=node_ids, n_junctions=k * nj,
             elevation=np.concatenate([_tile(net.elevation[:nj], k), _tile(net.elevation[nj:], k)]),
             demand=_tile(net.demand, k), source_head=_tile(net.source_head, k),
-            pipe_ids=ids(net.pipe_ids, npp),
+            pipe_ids=ids(net.pipe_ids),
             pipe_from=node[copies, net.pipe_from[None, :]].ravel(),
             pipe_to=node[copies, net.pipe_to[None, :]].ravel(),
             length=_tile(net.length, k), diameter=_tile(net.diameter, k),
@@ -93,13 +90,13 @@ class StackedNetwork:
             x=np.concatenate([_tile(net.x[:nj], k), _tile(net.x[nj:], k)]),
             y=np.concatenate([_tile(net.y[:nj], k), _tile(net.y[nj:], k)]),
             zone=np.concatenate([_tile(net.zone[:nj], k), _tile(net.zone[nj:], k)]),
-            pumps=Pumps(ids=ids(net.pumps.ids, nu),
+            pumps=Pumps(ids=ids(net.pumps.ids),
                         from_node=node[copies, np.asarray(net.pumps.from_node, np.int64)[None, :]].ravel(),
                         to_node=node[copies, np.asarray(net.pumps.to_node, np.int64)[None, :]].ravel(),
                         shutoff_head=_tile(net.pumps.shutoff_head, k),
                         curve_r=_tile(net.pumps.curve_r, k), curve_n=_tile(net.pumps.curve_n, k),
                         speed=_tile(net.pumps.speed, k)),
-            valves=Valves(ids=ids(net.valves.ids, nv),
+            valves=Valves(ids=ids(net.valves.ids),
                           from_node=node[copies, net.valves.from_node[None, :]].ravel(),
                           to_node=node[copies, net.valves.to_node[None, :]].ravel(),
                           diameter=_tile(net.valves.diameter, k), kind=_tile(net.valves.kind, k),
@@ -165,7 +162,8 @@ class StackedNetwork:
         f = np.concatenate([sn.pipe_from, sn.pumps.from_node, sn.valves.from_node]).astype(np.int64)
         t = np.concatenate([sn.pipe_to, sn.pumps.to_node, sn.valves.to_node]).astype(np.int64)
         n = sn.n_nodes
-        err = (np.bincount(t, weights=q, minlength=n) - np.bincount(f, weights=q, minlength=n))[:sn.n_junctions]
+        err = (np.bincount(t, weights=q, minlength=n)
+               - np.bincount(f, weights=q, minlength=n))[:sn.n_junctions]
         err = np.abs(err - demand)
         if result._isolated_mask is not None:  # isolated and held junctions
             err[result._isolated_mask] = 0.0
@@ -276,7 +274,6 @@ class StackedNetwork:
             _valve_state=put(k * nv, "_valve_state", lambda c: self.valve_map[c] - k * (npp + nu),
                              dtype=None) if nv else None)
 
-
     def _rename(self, text: str) -> str:
         """Stacked ids in a message back to the original ids (longest first)."""
         if SEP not in text:
@@ -333,6 +330,7 @@ class StackedSolver:
         return self.solver.sensitivities(result, dF1_dp, dF2_dp)
 
     def dheadloss_droughness(self, result):
+        """``NetworkSolver.dheadloss_droughness`` of the stack (pipes in stacked order)."""
         return self.solver.dheadloss_droughness(result)
 
 
