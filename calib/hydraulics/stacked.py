@@ -299,8 +299,7 @@ class StackedSolver:
     def __init__(self, base_solver, k: int):
         from calib.hydraulics.solver import NetworkSolver
         self.stack = StackedNetwork(base_solver.network, k)
-        b = base_solver
-        self.base = b
+        b = base_solver  # not kept: the cache of stacks is keyed weakly by it
         self.flow_tol, self.mass_tol = b.flow_tol, b.mass_tol
         self.solver = NetworkSolver(
             self.stack.network, headloss=b.headloss, q_eps=b.q_eps,

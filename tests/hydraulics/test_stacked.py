@@ -177,3 +177,19 @@ def test_pumps_check_valves_closed_pipes_and_held_grades_per_copy():
         assert b.held_flow.keys() == a.held_flow.keys()
         for k in a.held_flow:
             assert b.held_flow[k] == pytest.approx(a.held_flow[k], abs=1e-7)
+
+
+def test_stacks_are_kept_per_solver_and_size_and_released_with_the_solver():
+    # one stack (pattern, ordering) per (solver, k), reused; it goes when its solver goes
+    import gc
+
+    from calib.hydraulics.stacked import _CACHE, stacked_solver
+    net = build([("J", 0.0, 0.01)], [("R", 50.0)], [("P", "R", "J", 400.0, 0.2, 100.0)])
+    solver = NetworkSolver(net)
+    a = stacked_solver(solver, 3)
+    assert stacked_solver(solver, 3) is a and stacked_solver(solver, 4) is not a
+    assert solver in _CACHE
+    n = len(_CACHE)
+    del solver, a
+    gc.collect()
+    assert len(_CACHE) == n - 1
