@@ -257,7 +257,7 @@ class CalibrationProblem:
     def _solve_stacked(self, x, roughness, snaps):
         """``solve`` by stacks (snapshots outside a stack alone); None when a stacked solve fails
         (the caller then solves snapshot by snapshot, whose errors name the snapshot)."""
-        from calib.errors import NetworkError
+        from calib.errors import CalibError
         from calib.hydraulics.stacked import stacked_solver
         previous, last = self._cache, self._stacked
         results = [None] * len(snaps)
@@ -272,7 +272,7 @@ class CalibrationProblem:
                 warm = warm if all(w is not None for w in warm) else None
             try:
                 res, parts = ss.solve([snaps[i] for i in members], roughness, warm)
-            except (ConvergenceError, NetworkError):
+            except CalibError:  # solved one by one, the error names the snapshot and original ids
                 return None
             stacked.append(res)
             self.n_solver_calls += 1
