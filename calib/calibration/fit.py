@@ -269,12 +269,17 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
         z_used, cook_used = _diagnostics(est, prob)
 
     # intervals that can be trusted: profile likelihood where the linearized one cannot stand
+    # the snapshots' solutions at the result, as ``estimate`` left them in its problem's cache
+    at_result = (prob.pairs, prob._cache_key, prob._cache)
     count["stage"] = "interval checks (profile likelihood where needed)"
     est = refine_intervals(prob, est, prob.c_cols)
 
     # simulated values for every reading (left-out ones too) at the final parameters
     count["stage"] = "simulate every reading"
     full = make(np.ones(n, dtype=bool), x0=est.x)
+    if full.pairs == at_result[0] and at_result[1] == np.asarray(est.x, float).tobytes():
+        # the same snapshots at the same x: not solved again (the interval checks moved the cache)
+        full._cache_key, full._cache = at_result[1], at_result[2]
     h_sim = full.simulated_head(est.x)
     results = full.solve(est.x)
     simulated = units.head_to_pressure(h_sim - tests.elevation - tests.gauge_height)

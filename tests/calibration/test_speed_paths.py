@@ -163,3 +163,25 @@ def test_leave_one_out_refit_agrees_with_a_long_refit_from_the_fit(small):
         start = _loo_start(est, fast_prob, int(row), "linear")
         assert np.linalg.norm(start - slow.x) < 0.5 * np.linalg.norm(est.x - slow.x)
         assert fast_prob.n_solves <= slow_prob.n_solves
+
+
+def test_simulated_readings_reuse_the_fits_solutions_and_match_fresh_solves(small):
+    # the result's simulated pressures come from the solutions the fit already has at its x (no
+    # solve in that phase); reference: a fresh problem solved cold at the same x, to the solver's
+    # head tolerance (1e-6 m, calib.hydraulics) in pressure
+    from calib.calibration import fit
+    from calib.calibration.problem import CalibrationProblem
+    from calib.calibration.synthetic import synthetic_tests
+    from calib.hydraulics import NetworkSolver
+
+    net, grp, plan, solver = small
+    tests = synthetic_tests(net, np.array([70.0, 100.0, 130.0])[grp.index], plan, seed=12)
+    stages = []
+    res = fit(net, tests, grouping=grp, prior="none", solver=solver, refit=False, influence=False,
+              progress=lambda n, stage: stages.append(stage))
+    assert "simulate every reading" not in stages
+    assert "interval checks (profile likelihood where needed)" in stages  # the cache moved there
+    fresh = CalibrationProblem(net, tests, grp, solver=NetworkSolver(net))
+    h = fresh.simulated_head(res.estimate.x)
+    p = units.head_to_pressure(h - tests.elevation - tests.gauge_height)
+    np.testing.assert_allclose(res.simulated, p, atol=units.head_to_pressure(1e-5))
