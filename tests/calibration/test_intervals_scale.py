@@ -205,7 +205,7 @@ def test_profile_point_rise_matches_a_tight_refit_from_near_and_far_starts(small
     for value in (x_hat[1] - 0.5 * est.t * est.sd[1], x_hat[1] - 0.8 * est.t * est.sd[1]):
         ref = rise(1, value)
         for warm in (x_hat + (value - x_hat[1]) * trace, x_hat):
-            got, x_at, slope, _trace, _solved = _profile_point(prob, est, 1, value, warm)
+            got, x_at, slope, _trace, _drop = _profile_point(prob, est, 1, value, warm)
             assert got == pytest.approx(ref, abs=1e-3 * cut), (value, got, ref)
             assert x_at[1] == value
             # the slope (envelope theorem) against a central difference of the long way's rise
