@@ -526,9 +526,16 @@ def loo_refit(est: Estimate, problem: CalibrationProblem, row: int, loss: str = 
     against 5-7 and 10 (the grid's stopped at ``max_nfev`` short of the optimum) from the fit's x.
     """
     start = _loo_start(est, problem, row, loss)
+    known: dict = {}  # the Jacobian already computed at the start, if the fit starts there
     if loss == "linear":
-        start = _extrapolated_start(problem, start, start - est.x)
-    return optimize.least_squares(problem.residuals, start, jac=problem.jacobian,
+        start = _extrapolated_start(problem, start, start - est.x, known)
+
+    def jacobian(x):
+        if known and np.array_equal(x, known["x"]):
+            return known["J"]
+        return problem.jacobian(x)
+
+    return optimize.least_squares(problem.residuals, start, jac=jacobian,
                                   bounds=(problem.lower, problem.upper), method="trf", loss=loss,
                                   f_scale=f_scale, x_scale="jac", max_nfev=max_nfev,
                                   xtol=LSQ_TOL, ftol=LSQ_TOL, gtol=LSQ_TOL)
@@ -541,7 +548,8 @@ def loo_refit(est: Estimate, problem: CalibrationProblem, row: int, loss: str = 
 RHO_EXTRAPOLATE = 0.2
 
 
-def _extrapolated_start(problem: CalibrationProblem, x1: np.ndarray, step: np.ndarray) -> np.ndarray:
+def _extrapolated_start(problem: CalibrationProblem, x1: np.ndarray, step: np.ndarray,
+                        known: dict | None = None) -> np.ndarray:
     """A start for the refit of ``problem`` past ``x1``, reached from the fit by ``step``.
 
     Where the sum of squares is far from quadratic along ``step`` (a C-factor's head loss goes
@@ -550,15 +558,18 @@ def _extrapolated_start(problem: CalibrationProblem, x1: np.ndarray, step: np.nd
     Gauss-Newton step at ``x1`` measures rho along ``step``; the rest of the geometric series of
     steps, ``dx2 / (1 - rho)``, is taken at once (Aitken's extrapolation of a linearly converging
     sequence). The least-squares fit from there decides the result; this only moves its start.
+    Where ``x1`` is returned, ``known`` (a dict, if given) receives its Jacobian: ``x`` and ``J``.
     """
+    norm2 = float(step @ step)
+    if norm2 == 0.0:
+        return x1
     r = problem.residuals(x1)
     J = problem.jacobian(x1)
     dx2 = np.linalg.lstsq(J, -r, rcond=None)[0]
-    norm2 = float(step @ step)
-    if not np.all(np.isfinite(dx2)) or norm2 == 0.0:
-        return x1
-    rho = float(dx2 @ step) / norm2
+    rho = float(dx2 @ step) / norm2 if np.all(np.isfinite(dx2)) else 0.0
     if not RHO_EXTRAPOLATE <= rho < 0.9:
+        if known is not None:
+            known["x"], known["J"] = np.array(x1, float), J
         return x1  # near the optimum already (or no steady ratio): the fit starts here, evaluated
     dx2 = dx2 / (1.0 - rho)
     lo, hi = problem.lower, problem.upper
