@@ -132,11 +132,17 @@ class SchurPattern:
         return _factor.ordering(self.backend, pattern)
 
     # --- per iteration -----------------------------------------------------------------------
-    def assemble(self, w: np.ndarray, extra_diag: np.ndarray | None = None) -> sp.csc_matrix:
-        """``S = A21 diag(w) A12`` in the permuted order, plus ``extra_diag`` (old order) on the diagonal."""
+    def assemble(self, w: np.ndarray, extra_diag: np.ndarray | None = None,
+                 out: sp.csc_matrix | None = None) -> sp.csc_matrix:
+        """``S = A21 diag(w) A12`` in the permuted order, plus ``extra_diag`` (old order) on the
+        diagonal. ``out``: a matrix this pattern assembled before, whose values are replaced (a
+        solver's iterations reuse one: building a new scipy matrix costs more than the numbers)."""
         data = self._gather @ np.asarray(w, dtype=float)
         if extra_diag is not None and extra_diag.any():
             data[self.diag_pos] += extra_diag
+        if out is not None:
+            out.data = data
+            return out
         return sp.csc_matrix((data, self.indices, self.indptr), shape=(self.n, self.n))
 
     def hold(self, matrix: sp.csc_matrix, fixed: np.ndarray) -> sp.csc_matrix:

@@ -93,6 +93,7 @@ class NetworkSolver:
         self.reuse_factor = reuse_factor and not dense
         self._reach_cache = None
         self._factor = None
+        self._matrix = None  # S of the last iteration; its values are replaced each iteration
         self.reuse_max_changed, self.cg_max_iterations = reuse_max_changed, cg_max_iterations
         self.update_ratio, self.update_budget = float(update_ratio), float(update_budget)
         self.nj, self.np_, self.nu = net.n_junctions, net.n_pipes, len(net.pumps)
@@ -110,7 +111,8 @@ class NetworkSolver:
         self.pattern = SchurPattern(self.nj, self.link_from, self.link_to, net.n_nodes, dense=dense)
         self.area = np.pi * net.diameter ** 2 / 4.0
         self.minor = hl.minor_loss_coefficient(net.minor_loss, net.diameter)
-        self._has_minor = bool(np.any(self.minor))
+        self._minor_at = np.flatnonzero(self.minor)
+        self._has_minor = bool(self._minor_at.size)
         self.is_cv = net.status == PipeStatus.CHECK_VALVE
         self.pipe_closed = net.status == PipeStatus.CLOSED
         pumps = net.pumps
@@ -124,22 +126,27 @@ class NetworkSolver:
     # --- the link laws -----------------------------------------------------------------------
     def _laws(self, q, coef):
         """Head loss h(Q) and slope dh/dQ of every link (pipes then pumps)."""
-        qp = q[: self.np_]
+        np_, nu = self.np_, self.nu
+        qp = q[:np_]
         if self.headloss == "hazen-williams":
-            h, g = hl.hazen_williams_law(qp, coef, self.q_eps)
+            hp, gp = hl.hazen_williams_law(qp, coef, self.q_eps)
         else:
-            h, g, _ = hl.darcy_weisbach_law(qp, self.network.length, self.network.diameter, coef,
-                                            self.viscosity)
-        if self._has_minor:
-            aq = np.abs(qp)
-            h = h + self.minor * aq * qp
-            g = g + 2.0 * self.minor * aq
-        if self.nu:
-            hu, gu = self._pump_law(q[self.np_:self.np_ + self.nu])
-            h, g = np.concatenate([h, hu]), np.concatenate([g, gu])
+            hp, gp, _ = hl.darcy_weisbach_law(qp, self.network.length, self.network.diameter,
+                                              coef, self.viscosity)
+        if len(q) == np_:
+            h, g = hp, gp
+        else:  # pumps and valves after the pipes
+            h, g = np.empty(len(q)), np.empty(len(q))
+            h[:np_], g[:np_] = hp, gp
+        if self._has_minor:  # only the pipes with fittings (usually few)
+            k, m = self._minor_at, self.minor[self._minor_at]
+            aq = np.abs(qp[k])
+            h[k] += m * aq * qp[k]
+            g[k] += 2.0 * m * aq
+        if nu:
+            h[np_:np_ + nu], g[np_:np_ + nu] = self._pump_law(q[np_:np_ + nu])
         if self.nv:  # valves
-            hv, gv = self.valves.law(q[self.np_ + self.nu:])
-            h, g = np.concatenate([h, hv]), np.concatenate([g, gv])
+            h[np_ + nu:], g[np_ + nu:] = self.valves.law(q[np_ + nu:])
         return h, g
 
     def _pump_law(self, q):
@@ -292,7 +299,7 @@ class NetworkSolver:
             extra = fixed.astype(float)
             if self.nv:  # valves: stiff one-sided links at the nodes active valves hold
                 w, extra, rhs_v, w_s = self.valves.schur_terms(w, F1, vstate, extra)
-            S = pat.assemble(w, extra)
+            S = self._matrix = pat.assemble(w, extra, out=self._matrix)
             if held.any():
                 pat.hold(S, fixed)
             rhs = F2 - pat.inflow(w * F1)[:nj]
