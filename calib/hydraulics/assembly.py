@@ -74,6 +74,7 @@ class SchurPattern:
                                      shape=(len(uniq), len(f)))
         # the diagonal contributions were listed by old junction number 0..nj-1
         self.diag_pos = pos[n_contrib:].astype(np.int64)  # diag_pos[old junction] -> data position
+        self._a21 = None  # incidence A21 over the junctions (``inflow_matrix``)
         self._factorizer = None if (dense or nj == 0) else _factor.factorizer(
             self.backend, sp.csc_matrix((np.ones(self.nnz), self.indices, self.indptr), shape=(nj, nj)))
 
@@ -210,12 +211,13 @@ class SchurPattern:
 
     def inflow_matrix(self, x: sp.spmatrix | np.ndarray):
         """``A21 X`` restricted to junctions for a matrix X (n_links x p), dense or sparse."""
-        m = len(self.link_from)
-        a21 = sp.csr_matrix((np.concatenate([np.ones(m), -np.ones(m)]),
-                             (np.concatenate([self.link_to, self.link_from]),
-                              np.concatenate([np.arange(m), np.arange(m)]))),
-                            shape=(self.n_nodes, m))[: self.n]
-        out = a21 @ x
+        if self._a21 is None:  # built once per network
+            m = len(self.link_from)
+            self._a21 = sp.csr_matrix((np.concatenate([np.ones(m), -np.ones(m)]),
+                                       (np.concatenate([self.link_to, self.link_from]),
+                                        np.concatenate([np.arange(m), np.arange(m)]))),
+                                      shape=(self.n_nodes, m))[: self.n]
+        out = self._a21 @ x
         return out.toarray() if sp.issparse(out) else np.asarray(out)
 
     def across(self, head: np.ndarray) -> np.ndarray:

@@ -28,6 +28,7 @@ from calib.errors import ConvergenceError, InputError, NetworkError, Problem
 from calib.hydraulics import headloss as hl
 from calib.hydraulics import checks, sensitivity
 from calib.hydraulics.assembly import SchurPattern
+from calib.hydraulics.memo import Memo
 from calib.hydraulics.result import SolveResult
 from calib.hydraulics.snapshot import Snapshot, resolve
 from calib.hydraulics.valves import CLOSED as VALVE_CLOSED
@@ -91,7 +92,7 @@ class NetworkSolver:
         self.max_status_changes = int(max_status_changes)
         self.viscosity = float(viscosity)
         self.reuse_factor = reuse_factor and not dense
-        self._reach_cache = None
+        self._reach_cache = Memo()
         self._factor = None
         self._matrix = None  # S of the last iteration; its values are replaced each iteration
         self.reuse_max_changed, self.cg_max_iterations = reuse_max_changed, cg_max_iterations
@@ -177,12 +178,11 @@ class NetworkSolver:
 
     def _reachable(self, active):
         """Junctions joined to some source through active links -> (isolated junction mask).
-        The last answer is kept: most solves of a network share their set of active links."""
+        The last few answers are kept: most solves of a network share their set of active links."""
         key = active.tobytes()
-        if self._reach_cache is not None and self._reach_cache[0] == key:
-            return self._reach_cache[1].copy()
-        isolated = self._components(active)
-        self._reach_cache = (key, isolated.copy())
+        isolated = self._reach_cache.get(key)
+        if isolated is None:
+            isolated = self._reach_cache.put(key, self._components(active))
         return isolated
 
     def _isolated(self, active, vstate):

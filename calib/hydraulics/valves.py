@@ -65,6 +65,7 @@ from scipy.sparse.csgraph import connected_components
 
 from calib.errors import ConvergenceError, NetworkError, Problem
 from calib.hydraulics import headloss as hl
+from calib.hydraulics.memo import Memo
 from calib.network.model import PipeStatus, ValveMode, ValveType
 from calib.units import GAMMA_WATER
 
@@ -110,6 +111,12 @@ class ValveLinks:
         #: valves whose state the solver finds (the others keep the one of their mode)
         self.auto = (self.mode == ACTIVE) & (self.kind != TCV)
         self.pressure_valve = np.isin(self.kind, (PRV, PSV))
+        # the steered valves of each kind, and whether there are any (most networks have one
+        # or two kinds: the state rules of the others are skipped)
+        self._prv, self._psv = self.auto & (self.kind == PRV), self.auto & (self.kind == PSV)
+        self._fcv = self.auto & (self.kind == FCV)
+        self._kinds = (self._prv.any(), self._psv.any(), self._fcv.any())
+        self._sign = np.where(self.kind == PSV, 1.0, -1.0)  # rhs = F2 - A21 (w F1), controlled end
         self.fixed_closed = self.mode == CLOSED
         nj = network.n_junctions
         self.nj = nj
@@ -126,8 +133,8 @@ class ValveLinks:
         self._near_link = (link[order][np.concatenate([np.arange(a, b) for a, b in
                                                        zip(starts, stops)])]
                            if n else np.zeros(0, dtype=np.int64)).astype(np.int64)
-        self._cut_cache = None
-        self._zone_cache = None
+        self._cut_cache = Memo()
+        self._zone_cache = Memo()
         #: valves whose inlet is cut off from every source: closed whatever the rules say (set by
         #: the solver, ``NetworkSolver._cut_off``)
         self.shut = np.zeros(n, dtype=bool)
@@ -174,9 +181,9 @@ class ValveLinks:
             return F1
         F1 = F1.copy()
         r = F1[s]
-        r = np.where(act & (self.kind == PRV), H[self.to] - self.h_set, r)
-        r = np.where(act & (self.kind == PSV), self.h_set - H[self.frm], r)
-        r = np.where(act & (self.kind == FCV), 0.0, r)
+        r = np.where(act & self._prv, H[self.to] - self.h_set, r)
+        r = np.where(act & self._psv, self.h_set - H[self.frm], r)
+        r = np.where(act & self._fcv, 0.0, r)
         F1[s] = r
         return F1
 
@@ -198,7 +205,7 @@ class ValveLinks:
         self._w_s[fresh] = STIFFNESS * np.maximum(near[fresh], 1e-12)
         w_s = self._w_s
         press = act & self.pressure_valve
-        sign = np.where(self.kind == PSV, 1.0, -1.0)  # rhs = F2 - A21 (w F1) at the controlled end
+        sign = self._sign
         node = self.ctrl[press]
         extra += np.bincount(node, weights=w_s[press], minlength=len(extra))[: len(extra)]
         rhs += np.bincount(node, weights=(sign * w_s * F1[s])[press],
@@ -212,9 +219,9 @@ class ValveLinks:
         if not act.any():
             return dq
         d = dq[s]
-        d = np.where(act & (self.kind == PRV), -w_s * (F1[s] + dHn[self.to]), d)
-        d = np.where(act & (self.kind == PSV), -w_s * (F1[s] - dHn[self.frm]), d)
-        d = np.where(act & (self.kind == FCV), self.q_set - q[s], d)
+        d = np.where(act & self._prv, -w_s * (F1[s] + dHn[self.to]), d)
+        d = np.where(act & self._psv, -w_s * (F1[s] - dHn[self.frm]), d)
+        d = np.where(act & self._fcv, self.q_set - q[s], d)
         dq[s] = d
         return dq
 
@@ -225,31 +232,33 @@ class ValveLinks:
         h_open = self.k_open * np.abs(q) * q + R_LINEAR * q
         rev = q < -self.q_eps
         new = state.copy()
-        k, hs = self.kind, self.h_set
-        # reducing
-        prv = self.auto & (k == PRV)
-        a, o, c = prv & (state == ACTIVE), prv & (state == OPEN), prv & (state == CLOSED)
-        new[a & (hf - hs < h_open - tol)] = OPEN
-        new[o & (ht > hs + tol)] = ACTIVE
-        new[(a | o) & rev] = CLOSED
-        new[c & (ht < hs - tol) & (hf > hs + tol)] = ACTIVE
-        new[c & (ht < hf - tol) & (hf <= hs + tol)] = OPEN
-        # sustaining
-        psv = self.auto & (k == PSV)
-        a, o, c = psv & (state == ACTIVE), psv & (state == OPEN), psv & (state == CLOSED)
-        new[a & (hs - ht < h_open - tol)] = OPEN
-        new[o & (hf < hs - tol)] = ACTIVE
-        new[(a | o) & rev] = CLOSED
-        new[c & (hf > hs + tol) & (hf > ht + tol)] = ACTIVE
-        # flow-limiting
-        fcv = self.auto & (k == FCV)
-        qs = self.q_set
-        a, o, c = fcv & (state == ACTIVE), fcv & (state == OPEN), fcv & (state == CLOSED)
-        h_at_set = self.k_open * np.abs(qs) * qs + R_LINEAR * qs
-        new[o & (q > qs * (1 + 1e-9) + self.q_eps)] = ACTIVE
-        new[o & rev] = CLOSED
-        new[a & (hf - ht < h_at_set - tol)] = OPEN
-        new[c & (hf > ht + tol)] = OPEN
+        hs = self.h_set
+        is_a, is_o, is_c = state == ACTIVE, state == OPEN, state == CLOSED
+        has_prv, has_psv, has_fcv = self._kinds
+        if has_prv:  # reducing
+            prv = self._prv
+            a, o, c = prv & is_a, prv & is_o, prv & is_c
+            new[a & (hf - hs < h_open - tol)] = OPEN
+            new[o & (ht > hs + tol)] = ACTIVE
+            new[(a | o) & rev] = CLOSED
+            new[c & (ht < hs - tol) & (hf > hs + tol)] = ACTIVE
+            new[c & (ht < hf - tol) & (hf <= hs + tol)] = OPEN
+        if has_psv:  # sustaining
+            psv = self._psv
+            a, o, c = psv & is_a, psv & is_o, psv & is_c
+            new[a & (hs - ht < h_open - tol)] = OPEN
+            new[o & (hf < hs - tol)] = ACTIVE
+            new[(a | o) & rev] = CLOSED
+            new[c & (hf > hs + tol) & (hf > ht + tol)] = ACTIVE
+        if has_fcv:  # flow-limiting
+            fcv = self._fcv
+            qs = self.q_set
+            a, o, c = fcv & is_a, fcv & is_o, fcv & is_c
+            h_at_set = self.k_open * np.abs(qs) * qs + R_LINEAR * qs
+            new[o & (q > qs * (1 + 1e-9) + self.q_eps)] = ACTIVE
+            new[o & rev] = CLOSED
+            new[a & (hf - ht < h_at_set - tol)] = OPEN
+            new[c & (hf > ht + tol)] = OPEN
         new[self.shut] = CLOSED  # a dead inlet feeds nothing
         return new
 
@@ -311,14 +320,13 @@ class ValveLinks:
     def cut_off(self, link_active, state) -> np.ndarray:
         """Junctions no source or active pressure valve feeds through coupled links."""
         key = (link_active.tobytes(), state.tobytes())
-        if self._cut_cache is not None and self._cut_cache[0] == key:
-            return self._cut_cache[1].copy()
+        cut = self._cut_cache.get(key)
+        if cut is not None:
+            return cut
         labels = self._components(state, link_active)
         fed = np.zeros(labels.max() + 1, dtype=bool)
         fed[labels[self.nj:]] = True
-        cut = ~fed[labels[: self.nj]]
-        self._cut_cache = (key, cut.copy())
-        return cut
+        return self._cut_cache.put(key, ~fed[labels[: self.nj]])
 
     def _cuts(self, state, demand) -> np.ndarray:
         active = self._link_active(state)
@@ -363,8 +371,9 @@ class ValveLinks:
         """Zone label per junction: the id(s) of the source(s) its part holds, else of the active
         valve(s) whose downstream side it is ('V1+V2'); '' when cut off. Cached per states."""
         key = (link_active.tobytes(), state.tobytes(), np.asarray(isolated).tobytes())
-        if self._zone_cache is not None and self._zone_cache[0] == key:
-            return self._zone_cache[1].copy()
+        zone = self._zone_cache.get(key)
+        if zone is not None:
+            return zone
         net = self.network
         base = self._components_plain(state, link_active)
         names: dict[int, list[str]] = {}
@@ -378,8 +387,7 @@ class ValveLinks:
         labels = {lab: "+".join(ids) for lab, ids in names.items()}
         zone = np.array([labels.get(int(b), "") for b in base[: self.nj]], dtype=object)
         zone[np.asarray(isolated, dtype=bool)] = ""
-        self._zone_cache = (key, zone.copy())
-        return zone
+        return self._zone_cache.put(key, zone)
 
     def _components_plain(self, state, link_active):
         """Components over the coupled links without the virtual source links."""
@@ -432,9 +440,9 @@ def sensitivity_solve(solver, result, w, b1, b2, pat, iso):
     wb1 = w[:, None] * b1
     sign = np.where(valves.kind == PSV, 1.0, -1.0)
     base = b2 - pat.inflow_matrix(wb1)
-    base += np.asarray(sp.csr_matrix((sign * w_s, (valves.ctrl, np.arange(valves.n))),
-                                     shape=(solver.network.n_nodes, valves.n))[: solver.nj]
-                       @ b1[s])
+    # the stiff links' term at each controlled junction (a source-side node takes none)
+    at = valves.ctrl < solver.nj
+    np.add.at(base, valves.ctrl[at], (sign * w_s)[at, None] * b1[s][at])
     nj = solver.nj
     dq_v = np.zeros((valves.n, b1.shape[1]))
     press = act & valves.pressure_valve
