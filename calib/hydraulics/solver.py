@@ -258,6 +258,7 @@ class NetworkSolver:
         changed = False
         dq = np.zeros(len(q))
         dH = np.zeros(nj)
+        dHn = np.zeros(net.n_nodes)
         if secant and self._factor is not None:
             # cold start: the last solve's factor is not a preconditioner here (a warm start may
             # use it), only memory for the next factorization
@@ -308,17 +309,17 @@ class NetworkSolver:
             rhs[fixed] = 0.0
             dH = (self._linear_solve(S, rhs, w, extra, fixed, mass_tol) if nj
                   else np.zeros(0))
-            dHn = np.concatenate([dH, np.zeros(net.n_sources)])
+            dHn[:nj] = dH  # sources keep their grade: dH = 0 there
             dq = -w * (F1 - (dHn[f] - dHn[t]))
             if self.nv:
                 dq = self.valves.flow_step(dq, dHn, F1, q, vstate, w_s)
-            if not (np.all(np.isfinite(dH)) and np.all(np.isfinite(dq))):
+            dq_max = float(np.abs(dq).max(initial=0.0))  # NaN or inf if any entry is
+            dh_max = float(np.abs(dH).max(initial=0.0))
+            if not (np.isfinite(dq_max) and np.isfinite(dh_max)):
                 self._fail("the linear system broke down (non-finite step)", it + 1, F2, dH, dq,
                            e2)
             q = q + dq
             H[:nj] += dH
-            dq_max = float(np.abs(dq).max(initial=0.0))
-            dh_max = float(np.abs(dH).max(initial=0.0))
             changed = False
             if dynamic.any():
                 changed, active, q, iso = self._update_status(q, H, active, dynamic, flips,
@@ -409,6 +410,10 @@ class NetworkSolver:
         A closing that would cut junctions with demand off every source is held back (a Newton
         step can reverse a flow on its way); if the flow stays reversed at the solution,
         ``_check_held`` says so. Returns (changed, active, q, isolated)."""
+        d = np.flatnonzero(dynamic)  # usually few: look at them alone first
+        steady = flips[d] >= self.max_status_changes
+        if not ((active[d] & (q[d] < 0.0)) | ~active[d])[~steady].any():
+            return False, active, q, None  # none can close, none is closed: nothing to change
         np_ = self.np_
         f, t = self.link_from, self.link_to
         frozen = flips >= self.max_status_changes

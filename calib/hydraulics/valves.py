@@ -419,7 +419,8 @@ def sensitivity_solve(solver, result, w, b1, b2, pat, iso):
     The valve rows are exact at the fixed point (``dH = -dF1/dp`` at the controlled node, as
     ``H_node = H_set`` asks), by the same proximal term as in the solver. Returns (dH, dQ) as
     ``sensitivity.sensitivities``. The fixed point is solved exactly: the valve rows' misfit is
-    affine in the valves' flow changes, so three passes of triangular solves give it."""
+    affine in the valves' flow changes, so one solve with a unit flow change per valve beside
+    the right-hand sides gives it."""
     valves: ValveLinks = solver.valves
     state = result._valve_state
     s = valves.slots()
@@ -452,38 +453,45 @@ def sensitivity_solve(solver, result, w, b1, b2, pat, iso):
     lag = press & (far < nj)
     prv = act & (valves.kind == PRV)
     psv = act & (valves.kind == PSV)
+    n_src = solver.network.n_sources
 
-    def sweep(dq_v, rhs, b1s):
-        """One pass of the lagged system: (dH, dH with sources, g) with g = the valve rows' misfit, affine in
-        (dq_v, rhs, b1s); the fixed point of the lagged iteration is g = 0."""
-        rhs = rhs.copy()
-        # the last flow change of each valve: at its far end as a lagged demand or supply, at
-        # its controlled end as the proximal term that makes dH there exact at the fixed point
-        np.add.at(rhs, far[lag], far_sign[lag, None] * dq_v[lag])
-        np.add.at(rhs, valves.ctrl[press], ctrl_sign[press, None] * dq_v[press])
-        rhs[iso] = 0.0
-        dH = factor(rhs)
-        dHn = np.vstack([dH, np.zeros((solver.network.n_sources, dH.shape[1]))])
-        g = np.zeros_like(dq_v)
+    def misfit(dH, b1s):
+        """The valve rows' misfit g for grades dH (junctions x columns), affine in them and in
+        b1s; the fixed point of the lagged iteration is g = 0."""
+        dHn = np.vstack([dH, np.zeros((n_src, dH.shape[1]))])
+        g = np.zeros((valves.n, dH.shape[1]))
         g[prv] = -w_s[prv, None] * (b1s[prv] + dHn[valves.to[prv]])
         g[psv] = -w_s[psv, None] * (b1s[psv] - dHn[valves.frm[psv]])
-        return dH, dHn, g
+        return g
 
-    # g is affine in dq_v and the same linear map acts on every column: solve g(dq_v) = 0 exactly
-    # with one sweep for the constant part and one with a unit flow change per active pressure
-    # valve (instead of iterating the lagged sweep to its fixed point)
+    # The last flow change of each valve enters the right-hand side at its far end as a lagged
+    # demand or supply, and at its controlled end as the proximal term that makes dH there exact
+    # at the fixed point. g is affine in those flow changes and the same linear map acts on every
+    # column: the grades of the constant part and of a unit flow change per active pressure valve
+    # come from one solve with all columns, g(dq_v) = 0 is solved exactly, and the grades follow
+    # by linearity (instead of iterating the lagged system to its fixed point).
+    rhs0 = base.copy()
+    rhs0[iso] = 0.0
     idx = np.flatnonzero(press)
     if idx.size:
-        _, _, g0 = sweep(dq_v, base, b1[s])
-        unit = np.zeros((valves.n, idx.size))
-        unit[idx, np.arange(idx.size)] = 1.0
-        _, _, gu = sweep(unit, np.zeros((base.shape[0], idx.size)), np.zeros((valves.n, idx.size)))
-        A = gu[idx]
+        k, cols = idx.size, np.arange(idx.size)
+        unit = np.zeros((nj, k))
+        at_far = lag[idx]
+        np.add.at(unit, (far[idx][at_far], cols[at_far]), far_sign[idx][at_far])
+        np.add.at(unit, (valves.ctrl[idx], cols), ctrl_sign[idx])
+        unit[iso] = 0.0
+        both = factor(np.hstack([rhs0, unit]))
+        dH0, dHu = both[:, :-k], both[:, -k:]
+        A = misfit(dHu, np.zeros((valves.n, k)))[idx]
+        g0 = misfit(dH0, b1[s])[idx]
         try:
-            dq_v[idx] = np.linalg.solve(A, -g0[idx])
+            dq_v[idx] = np.linalg.solve(A, -g0)
         except np.linalg.LinAlgError:
-            dq_v[idx] = np.linalg.lstsq(A, -g0[idx], rcond=None)[0]
-    dH, dHn, _ = sweep(dq_v, base, b1[s])
+            dq_v[idx] = np.linalg.lstsq(A, -g0, rcond=None)[0]
+        dH = dH0 + dHu @ dq_v[idx]
+    else:
+        dH = factor(rhs0)
+    dHn = np.vstack([dH, np.zeros((n_src, dH.shape[1]))])
     dQ = -(wb1 - w[:, None] * (dHn[solver.link_from] - dHn[solver.link_to]))
     dQ[s] = np.where(act[:, None], dq_v, dQ[s])
     return dH, dQ
