@@ -309,6 +309,8 @@ class NetworkSolver:
             rhs[fixed] = 0.0
             dH = (self._linear_solve(S, rhs, w, extra, fixed, mass_tol) if nj
                   else np.zeros(0))
+            if self.nv and nj:  # valves: their flow changes at their far ends too
+                dH = self.valves.couple(dH, F1, vstate, w_s, self._factor.factor, fixed)
             dHn[:nj] = dH  # sources keep their grade: dH = 0 there
             dq = -w * (F1 - (dHn[f] - dHn[t]))
             if self.nv:
