@@ -356,3 +356,20 @@ def test_sensitivities_with_a_pump_and_a_closed_check_valve(make):
     fd_h, fd_q = _fd(solver, lambda x: Snapshot(demand_factor=x), lambda x: None, 1.0, 1e-4)
     np.testing.assert_allclose(dH[:, 0], fd_h, rtol=1e-5, atol=1e-8)
     np.testing.assert_allclose(dQ[:, 0], fd_q, rtol=1e-5, atol=1e-10)
+
+
+def test_kept_connectivity_answers_match_fresh_ones_over_alternating_closures():
+    # the solver keeps the last few "cut off from every source" answers by set of open links
+    # (calib.hydraulics.memo); alternate over more sets than it keeps, and change what it returns:
+    # every answer must still be the graph search's own (scipy's connected components)
+    from .conftest import random_looped
+    net = random_looped(40, seed=3, extra_loops=2)
+    solver = NetworkSolver(net)
+    rng = np.random.default_rng(0)
+    masks = [rng.random(solver.np_) > 0.15 for _ in range(11)]
+    for _ in range(3):
+        for mask in masks:
+            got = solver._reachable(mask)
+            np.testing.assert_array_equal(got, solver._components(mask))
+            got[:] = ~got  # a caller's change must not reach the kept answer
+    assert any(solver._components(m).any() for m in masks)  # some closures do cut junctions off
