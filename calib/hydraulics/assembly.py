@@ -75,6 +75,7 @@ class SchurPattern:
         # the diagonal contributions were listed by old junction number 0..nj-1
         self.diag_pos = pos[n_contrib:].astype(np.int64)  # diag_pos[old junction] -> data position
         self._a21 = None  # incidence A21 over the junctions (``inflow_matrix``)
+        self._scratch = None  # factor refactored in place by ``factorize_scratch``
         self._factorizer = None if (dense or nj == 0) else _factor.factorizer(
             self.backend, sp.csc_matrix((np.ones(self.nnz), self.indices, self.indptr), shape=(nj, nj)))
 
@@ -163,6 +164,17 @@ class SchurPattern:
             factor = scipy.linalg.cho_factor(matrix.toarray())
             return SchurFactor(self, matrix, lambda b: scipy.linalg.cho_solve(factor, b))
         return SchurFactor(self, matrix, self._factorizer.factor(matrix))
+
+    def factorize_scratch(self, matrix: sp.csc_matrix) -> "SchurFactor":
+        """Factor S into this pattern's scratch factor where the backend can (CHOLMOD: in the
+        memory of the last one, no new factor allocated), else as ``factorize``. The result is
+        good until the next call: for a factor used once and dropped (the sensitivities)."""
+        scratch = self._scratch
+        if scratch is not None and scratch.refactor(matrix):
+            return scratch
+        self._scratch = None
+        self._scratch = factor = self.factorize(matrix)
+        return factor
 
     def pcg(self, matrix: sp.csc_matrix, factor: "SchurFactor", b: np.ndarray, tol: float,
             max_iterations: int) -> np.ndarray | None:

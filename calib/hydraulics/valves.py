@@ -472,7 +472,7 @@ def sensitivity_solve(solver, result, w, b1, b2, pat, iso):
     extra = iso.astype(float) + np.bincount(valves.ctrl, weights=w_s,
                                             minlength=solver.network.n_nodes)[: solver.nj]
     S = pat.hold(pat.assemble(w, extra), iso)  # iso includes held junctions (Snapshot.held_head)
-    factor = pat.factorize(S)
+    factor = pat.factorize_scratch(S)
     b1 = b1.copy()
     # an active valve's equation holds a grade or a flow: no roughness or source grade enters it
     b1[s][act] = 0.0
