@@ -316,7 +316,8 @@ class NetworkSolver:
                   else np.zeros(0))
             if self.nv and nj:  # valves: their flow changes at their far ends too
                 dH = self.valves.couple(dH, F1, vstate, w_s, self._factor.factor, fixed,
-                                        max(COUPLED_VALVES, (pat.work_ratio or 0.0) / 4.0))
+                                        max(COUPLED_VALVES, (pat.work_ratio or 0.0) / 4.0),
+                                        mass_tol)
             dHn[:nj] = dH  # sources keep their grade: dH = 0 there
             dq = -w * (F1 - (dHn[f] - dHn[t]))
             if self.nv:
