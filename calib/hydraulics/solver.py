@@ -40,7 +40,7 @@ HEADLOSS_MODELS = ("hazen-williams", "darcy-weisbach")
 #: Active pressure valves whose flow change the Newton step always couples to their far end
 #: (``ValveLinks.couple``); more only while their solves cost at most a quarter of a
 #: factorization (k <= work ratio / 4). Measured: the demo town's two reducing-valve stations
-#: 3,756 -> 3,440 iterations over its fit; grids with 7 and 38 such valves gained nothing.
+#: 3,756 -> 3,496 iterations over its fit; grids with 7 and 38 such valves gained nothing.
 COUPLED_VALVES = 2
 
 
