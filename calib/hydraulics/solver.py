@@ -355,7 +355,7 @@ class NetworkSolver:
         (``_reuse``), else by a new factorization, which is kept with the weights it was made of."""
         kept = self._factor
         if (self.reuse_factor and kept is not None and not kept.stale
-                and np.array_equal(fixed, kept.fixed)):
+                and np.array_equal(fixed, kept.fixed) and self.pattern.reuse_pays):
             dH = self._reuse(kept, S, rhs, w, extra, fixed, mass_tol)
             if dH is not None:
                 return dH
