@@ -373,3 +373,26 @@ def test_kept_connectivity_answers_match_fresh_ones_over_alternating_closures():
             np.testing.assert_array_equal(got, solver._components(mask))
             got[:] = ~got  # a caller's change must not reach the kept answer
     assert any(solver._components(m).any() for m in masks)  # some closures do cut junctions off
+
+
+def test_tiny_networks_factor_at_every_iteration_larger_ones_reuse_the_factor():
+    # a speed rule with no effect on the answer beyond the mass tolerance (common practice: a
+    # direct solve where it is cheap, an older factor as CG preconditioner where it is not)
+    from calib.hydraulics import assembly, factor
+    from .conftest import random_looped
+    if not factor.cholmod_available() or factor.choose() != "cholmod":
+        pytest.skip("the rule reads CHOLMOD's factorization work")
+    small, large = random_looped(60, seed=1), random_looped(2000, seed=1)
+    for net, tiny in ((small, True), (large, False)):
+        solver = NetworkSolver(net)
+        cold = solver.solve()
+        warm = solver.solve(roughness=np.asarray(net.roughness, float) * 1.03, warm_start=cold)
+        work = solver.pattern._factorizer.factor_work
+        assert (work < assembly.REUSE_MIN_WORK) == tiny
+        if tiny:
+            assert cold.factorizations == cold.iterations and warm.factorizations == warm.iterations
+        else:
+            assert warm.factorizations < warm.iterations
+        again = NetworkSolver(net, reuse_factor=False).solve(
+            roughness=np.asarray(net.roughness, float) * 1.03)
+        np.testing.assert_allclose(warm.head, again.head, atol=1e-6)
