@@ -100,6 +100,7 @@ class NetworkSolver:
         self._reach_cache = Memo()
         self._factor = None
         self._matrix = None  # S of the last iteration; its values are replaced each iteration
+        self._rough_memo = None  # (roughness bytes, roughness, law coefficient) of the last solve
         self.reuse_max_changed, self.cg_max_iterations = reuse_max_changed, cg_max_iterations
         self.update_ratio, self.update_budget = float(update_ratio), float(update_budget)
         self.nj, self.np_, self.nu = net.n_junctions, net.n_pipes, len(net.pumps)
@@ -211,8 +212,19 @@ class NetworkSolver:
         """Solve one snapshot; ``roughness`` overrides the network's C (or DW height) per pipe;
         ``warm_start`` is a previous ``SolveResult`` (flows and statuses start from it)."""
         resolved = resolve(snapshot, self.network)
-        # per-pipe coefficient of the law: HW resistance r, or DW roughness height
-        rough, coef = checks.roughness_parameters(self.network, self.headloss, roughness)
+        # per-pipe coefficient of the law: HW resistance r, or DW roughness height; the last one
+        # is kept, since a fit solves all its snapshots at one roughness in turn
+        given = None if roughness is None else np.asarray(roughness, dtype=float)
+        key = None if given is None else (given.shape, given.tobytes())
+        if key is not None and self._rough_memo is not None and self._rough_memo[0] == key:
+            rough, coef = self._rough_memo[1:]
+        else:
+            rough, coef = checks.roughness_parameters(self.network, self.headloss, roughness)
+            if key is not None:  # private copies: the caller may change its array later
+                same = coef is rough
+                rough = rough.copy()
+                coef = rough if same else coef
+                self._rough_memo = (key, rough, coef)
         if warm_start is not None:
             q = warm_start.link_flow.astype(float).copy()
             active = warm_start._active.copy()

@@ -396,3 +396,20 @@ def test_tiny_networks_factor_at_every_iteration_larger_ones_reuse_the_factor():
         again = NetworkSolver(net, reuse_factor=False).solve(
             roughness=np.asarray(net.roughness, float) * 1.03)
         np.testing.assert_allclose(warm.head, again.head, atol=1e-6)
+
+
+def test_roughness_changed_in_place_between_solves_is_seen():
+    # the solver keeps the last roughness's law coefficients (a fit solves many snapshots at one
+    # C); a caller that changes its array in place must still get the new C's answer
+    from .conftest import random_looped
+    net = random_looped(30, seed=4)
+    solver = NetworkSolver(net)
+    c = np.asarray(net.roughness, float).copy()
+    original = c.copy()
+    first = solver.solve(roughness=c)
+    c *= 0.8  # same array object, new values
+    second = solver.solve(roughness=c, warm_start=first)
+    fresh = NetworkSolver(net).solve(roughness=c.copy())
+    np.testing.assert_allclose(second.head, fresh.head, atol=1e-6)
+    assert not np.allclose(first.head, second.head, atol=1e-3)
+    np.testing.assert_array_equal(first.roughness, original)  # the result kept its own C
