@@ -7,6 +7,14 @@
    finite differences (2 p solves per snapshot), with the ratio and the largest difference.
 2. A whole fit (least squares, intervals, flags, influence) of a generated ~8,000-pipe network
    (64 x 63 grid) with 20 tests and 5 groups; target at most 30 s on a 2-core machine.
+3. ``--stacked``: the snapshots of a fit solved one by one against stacked as one block-diagonal
+   network (``calib.hydraulics.stacked``): the same sequence of parameter vectors (residuals and
+   Jacobian at each, as a fit's steps) on the demo town and on grids of growing size, both ways
+   interleaved; counts (solver calls, Newton iterations), CPU and wall time, largest differences.
+4. ``--fit-counts --code DIR [--code DIR ...] NETWORK TESTS``: the whole ``calib.calibration.fit`` of
+   one case in a fresh process per code tree (e.g. a pristine main against this branch), trees
+   interleaved: snapshot solves, solver calls, Newton iterations, factorizations, sensitivity
+   solves (counted by wrapping ``NetworkSolver``'s public methods), CPU and wall time, the C.
 Figures go into the "Fit" section of benchmarks/README.md. Synthetic data only (calib.calibration.synthetic).
 """
 
@@ -70,10 +78,141 @@ def whole_fit(nx: int, ny: int, n_tests: int = 20, n_groups: int = 5) -> dict:
                 nfev=res.estimate.nfev, covered=covered, c=np.round(res.c, 1).tolist())
 
 
+def _evaluations(prob, xs) -> tuple[dict, list, list]:
+    """Residuals and Jacobian at each of ``xs``: counts and CPU/wall time of the first (a cold
+    start, and a stack's set-up) and of the rest (warm starts, as most of a fit's evaluations)."""
+    rs, Js, times = [], [], []
+    for x in xs:
+        c0, t0 = time.process_time(), time.perf_counter()
+        rs.append(prob.residuals(x))
+        Js.append(prob.jacobian(x))
+        times.append((time.process_time() - c0, time.perf_counter() - t0))
+        if len(times) == 1:
+            first = (prob.n_solver_calls, prob.n_iterations)
+    cpu0, wall0 = times[0]
+    return dict(solves=prob.n_solves, calls=prob.n_solver_calls - first[0],
+                iterations=prob.n_iterations - first[1], first_calls=first[0],
+                first_iterations=first[1], first_cpu=cpu0, first_wall=wall0,
+                cpu=sum(t[0] for t in times[1:]), wall=sum(t[1] for t in times[1:])), rs, Js
+
+
+def stacked_cost(cases, variants=(False, None), rounds: int = 2) -> list[dict]:
+    """Per case (name, network, tests, grouping): 8 evaluations (residuals and Jacobian) at
+    parameters stepping towards a point 5 % below the start, for each ``stack`` variant of
+    ``CalibrationProblem`` (False: one by one; an int: largest stack in pipes; None: the default),
+    interleaved ``rounds`` times, the least CPU kept; a fresh solver each run (a stack's set-up
+    is inside its time)."""
+    rows = []
+    for name, net, tests, grp in cases:
+        best, out = {}, {}
+        for _ in range(rounds):
+            for v in variants:
+                prob = CalibrationProblem(net, tests, grp, solver=NetworkSolver(net), stack=v)
+                xs = [prob.x0 * f for f in (1.0, 0.97, 0.96, 0.955, 0.952, 0.951, 0.9502, 0.95)]
+                row, rs, Js = _evaluations(prob, xs)
+                row["stacks"] = [len(m) for m in prob.stacks]
+                if v not in best or row["cpu"] < best[v]["cpu"]:
+                    best[v] = row
+                out[v] = (rs, Js)
+        ref = out[variants[0]]
+        for v in variants:
+            dr = max(float(np.abs(a - b).max()) for a, b in zip(ref[0], out[v][0]))
+            dj = max(float(np.abs(a - b).max() / np.abs(a).max()) for a, b in zip(ref[1], out[v][1]))
+            rows.append(dict(case=name, pipes=net.n_pipes, snapshots=len(prob.pairs), variant=v,
+                             max_resid_diff=dr, max_jac_rel_diff=dj, ratio=best[variants[0]]["cpu"]
+                             / best[v]["cpu"], **best[v]))
+    return rows
+
+
+def stacked_cases(sizes) -> list:
+    cases = []
+    demo = Path(__file__).resolve().parents[1] / "field_samples" / "tallowmere"
+    if (demo / "network").is_dir():
+        from calib.calibration.tests_io import read_tests
+        from calib.network.io import read_network
+        net = read_network(demo / "network")
+        cases.append(("demo town", net, read_tests(demo / "tests", net), make_groups(net)))
+    for nx, ny, n_tests in sizes:
+        net = grid_network(nx, ny, n_groups=5, seed=5)
+        grp = make_groups(net)
+        truth = np.array([65.0, 85.0, 105.0, 125.0, 140.0])[grp.index]
+        plan = plan_tests(net, n_tests, seed=6, flow_gpm=(1000.0, 1500.0))
+        cases.append((f"grid {nx} x {ny}", net, synthetic_tests(net, truth, plan, seed=7), grp))
+    return cases
+
+
+def main_stacked(quick: bool) -> None:
+    sizes = [(12, 12, 10)] if quick else [(16, 16, 14), (24, 24, 14), (32, 32, 14), (45, 45, 14),
+                                           (64, 63, 20)]
+    variants = (False, None) if quick else (False, 4000, 8000, 16000, 10 ** 9)
+    print("case | pipes | snapshots | stack limit [pipes] | stacks | first evaluation (cold, "
+          "set-up): solver calls, Newton iterations, cpu s | next 7 (warm): solver calls, Newton "
+          "iterations, cpu s, wall s | warm cpu ratio to one by one | max residual diff | max "
+          "Jacobian rel diff")
+    for r in stacked_cost(stacked_cases(sizes), variants):
+        v = "one by one" if r["variant"] is False else "default" if r["variant"] is None else r["variant"]
+        print(f"{r['case']} | {r['pipes']} | {r['snapshots']} | {v} | {r['stacks']} | "
+              f"{r['first_calls']}, {r['first_iterations']}, {r['first_cpu']:.3f} | {r['calls']}, "
+              f"{r['iterations']}, {r['cpu']:.3f}, {r['wall']:.3f} | {r['ratio']:.2f} | "
+              f"{r['max_resid_diff']:.1e} | {r['max_jac_rel_diff']:.1e}", flush=True)
+
+
+_FIT_COUNTS = r"""
+import sys, time
+import numpy as np
+from calib.network.io import read_network
+from calib.calibration.tests_io import read_tests
+from calib.calibration import fit
+from calib.hydraulics import NetworkSolver
+n = dict(calls=0, iterations=0, factorizations=0, sensitivities=0)
+solve, sens = NetworkSolver.solve, NetworkSolver.sensitivities
+def counted_solve(self, *a, **k):
+    r = solve(self, *a, **k)
+    n["calls"] += 1; n["iterations"] += r.iterations; n["factorizations"] += r.factorizations
+    return r
+def counted_sens(self, *a, **k):
+    n["sensitivities"] += 1
+    return sens(self, *a, **k)
+NetworkSolver.solve, NetworkSolver.sensitivities = counted_solve, counted_sens
+net = read_network(sys.argv[1]); tests = read_tests(sys.argv[2], net)
+c0, t0 = time.process_time(), time.perf_counter()
+res = fit(net, tests, solver=NetworkSolver(net))
+cpu, wall = time.process_time() - c0, time.perf_counter() - t0
+print(f"snapshot solves {res.n_solves} | solver calls {n['calls']} | Newton iterations "
+      f"{n['iterations']} | factorizations {n['factorizations']} | sensitivity solves "
+      f"{n['sensitivities']} | cpu {cpu:.2f} s | wall {wall:.2f} s | C {np.round(res.c, 2).tolist()}")
+"""
+
+
+def fit_counts(codes, network, tests, rounds: int = 2) -> None:
+    import subprocess
+    for r in range(rounds):
+        for code in codes:
+            env = dict(os.environ, PYTHONPATH=str(Path(code).resolve()))
+            out = subprocess.run([sys.executable, "-c", _FIT_COUNTS, str(Path(network).resolve()),
+                                  str(Path(tests).resolve())], cwd=code, env=env, text=True,
+                                 capture_output=True, check=True).stdout.strip()
+            print(f"round {r + 1} | {code} | load {os.getloadavg()[0]:.1f} | {out}", flush=True)
+
+
 def main() -> None:
     ap = argparse.ArgumentParser()
     ap.add_argument("--quick", action="store_true", help="smaller networks (a smoke run)")
+    ap.add_argument("--stacked", action="store_true", help="only the stacked-snapshots comparison")
+    ap.add_argument("--fit-counts", nargs=2, metavar=("NETWORK", "TESTS"),
+                    help="whole fit of one case per --code tree: counts and times")
+    ap.add_argument("--code", action="append", default=[], help="a code tree for --fit-counts")
+    ap.add_argument("--rounds", type=int, default=2)
     args = ap.parse_args()
+    if args.fit_counts:
+        fit_counts(args.code or ["."], *args.fit_counts, rounds=args.rounds)
+        return
+    if args.stacked:
+        print(f"machine: {platform.processor() or platform.machine()}, {os.cpu_count()} cores; "
+              f"load {os.getloadavg()[0]:.2f}")
+        main_stacked(args.quick)
+        print(f"load after {os.getloadavg()[0]:.2f}")
+        return
     print(f"machine: {platform.processor() or platform.machine()}, {os.cpu_count()} cores, "
           f"Python {platform.python_version()}, numpy {np.__version__}")
     if args.quick:

@@ -38,6 +38,35 @@ class Parameter:
     upper: float
 
 
+class _Solved(list):
+    """Per-snapshot results of one ``x``, with the stacked results they were split from."""
+
+    def __init__(self, results, stacks, stacked):
+        super().__init__(results)
+        self.stacks, self.stacked = stacks, stacked
+
+
+#: Stacks of snapshots (``stack_size``), by measurement (benchmarks/README.md, "A stacked
+#: snapshots"): warm evaluations cost 0.4-0.6x of one-by-one solves at 481-1,105 pipes, about the
+#: same at 2,000, more from 4,000 pipes up (0.8-1.1x slower at 7,938); stacks of 7-14 copies of
+#: the 531-pipe demo town beat one stack of 28 (the stack iterates until its slowest copy is done).
+STACK_MAX_NETWORK_PIPES = 2_000
+STACK_MAX_PIPES = 8_000  # the largest stack, over all its copies
+
+
+def stack_size(network, limit: int | None = None) -> int:
+    """How many snapshots of ``network`` one stack holds (1: none stacked). On small networks a
+    solve is mostly per-iteration Python work, which a stack pays once for all its copies; on
+    larger ones the stacked arrays' own work dominates and a stack gains nothing (measured).
+    ``limit``: the largest stack in pipes over its copies (default ``STACK_MAX_PIPES``, and no
+    stack above ``STACK_MAX_NETWORK_PIPES`` a copy)."""
+    if limit is None:
+        if network.n_pipes > STACK_MAX_NETWORK_PIPES:
+            return 1
+        limit = STACK_MAX_PIPES
+    return max(1, int(limit) // max(network.n_pipes, 1))
+
+
 class CalibrationProblem:
     """Residuals and Jacobian of the calibration for one network, one set of readings and groups.
 
@@ -45,11 +74,15 @@ class CalibrationProblem:
     ``prior`` is a ``priors.GroupPrior`` or None. ``progress(n_solves)`` is called after every solve.
     ``warm``: last solution per snapshot label, shared between problems over the same tests (a refit
     on a subset starts each snapshot from its own last state, not from another test's).
+    ``stack``: solve the snapshots that share a demand factor in stacks, each one block-diagonal
+    network (``calib.hydraulics.stacked``): one solve and one sensitivity solve for all its copies;
+    an int is the largest stack in pipes over its copies, None the measured default
+    (``stack_size``), False none. Same results to the solver's tolerance.
     """
 
     def __init__(self, network, tests, grouping, prior=None, c_bounds=(40.0, 160.0),
                  demand_factor: bool = False, source_offsets: bool = False, solver=None,
-                 progress=None, x0=None, warm: dict | None = None):
+                 progress=None, x0=None, warm: dict | None = None, stack: bool | None = None):
         if solver is None:
             from calib.hydraulics import NetworkSolver
             solver = NetworkSolver(network, headloss="hazen-williams")
@@ -57,7 +90,9 @@ class CalibrationProblem:
         self.solver = solver
         self.progress = progress
         self.warm = {} if warm is None else warm
-        self.n_solves = 0
+        self.n_solves = 0  # snapshot solves (a stacked solve of K snapshots counts K)
+        self.n_solver_calls = 0  # calls of a solver (a stacked solve counts 1)
+        self.n_iterations = 0  # Newton iterations over those calls
         lo, hi = float(c_bounds[0]), float(c_bounds[1])
         if not 0 < lo < hi:
             raise CalibrationError(f"C bounds {lo:g}, {hi:g} are not an increasing positive pair")
@@ -136,6 +171,15 @@ class CalibrationProblem:
         self.grouped = np.flatnonzero(grouping.index >= 0)
         self._cache_key = None
         self._cache = None
+        # --- stacks: snapshots that share a demand factor column are solved as one network -----
+        size = 1 if stack is False else stack_size(network, None if stack is None or stack is True else stack)
+        by_col: dict = {}
+        for i, (t, _k) in enumerate(self.pairs):
+            by_col.setdefault(self.day_col.get(int(tests.day[t])), []).append(i)
+        self.stacks = []
+        for members in by_col.values():  # near-equal stacks of at most ``size`` snapshots
+            n = -(-len(members) // size)
+            self.stacks += [m.tolist() for m in np.array_split(members, n) if len(m) > 1]
 
     # --- sizes ----------------------------------------------------------------------------------
     @property
@@ -180,8 +224,13 @@ class CalibrationProblem:
         if key == self._cache_key:
             return self._cache
         roughness = self.roughness(x)
-        results = []
         snaps = self.snapshots(x)
+        if self.stacks:
+            results = self._solve_stacked(x, roughness, snaps)
+            if results is not None:
+                self._cache_key, self._cache = key, results
+                return results
+        results = []
         # not solve_many: a warm start from the same snapshot at the last parameters beats one from
         # the previous snapshot (a few iterations instead of many)
         previous = self._cache
@@ -198,10 +247,64 @@ class CalibrationProblem:
             results.append(res)
             self.warm[snap.label] = res
             self.n_solves += 1
+            self.n_solver_calls += 1
+            self.n_iterations += res.iterations
             if self.progress is not None:
                 self.progress(self.n_solves)
         self._cache_key, self._cache = key, results
         return results
+
+    def _solve_stacked(self, x, roughness, snaps):
+        """``solve`` by stacks (snapshots outside a stack alone); None when a stacked solve fails
+        (the caller then solves snapshot by snapshot, whose errors name the snapshot)."""
+        from calib.errors import CalibError
+        from calib.hydraulics.stacked import stacked_solver
+        previous, last = self._cache, self._stacked
+        results = [None] * len(snaps)
+        stacked = []
+        for si, members in enumerate(self.stacks):
+            ss = stacked_solver(self.solver, len(members))
+            if last is not None:
+                warm = last[si]
+            else:
+                warm = [previous[i] if previous is not None else self.warm.get(snaps[i].label)
+                        for i in members]
+                warm = warm if all(w is not None for w in warm) else None
+            try:
+                res, parts = ss.solve([snaps[i] for i in members], roughness, warm)
+            except CalibError:  # solved one by one, the error names the snapshot and original ids
+                return None
+            stacked.append(res)
+            self.n_solver_calls += 1
+            self.n_iterations += res.iterations
+            for i, r in zip(members, parts):
+                results[i] = r
+                self.warm[snaps[i].label] = r
+                self.n_solves += 1
+                if self.progress is not None:
+                    self.progress(self.n_solves)
+        alone = [i for i, r in enumerate(results) if r is None]
+        for i in alone:
+            warm = previous[i] if previous is not None else self.warm.get(snaps[i].label)
+            try:
+                r = self.solver.solve(snaps[i], roughness=roughness, warm_start=warm)
+            except ConvergenceError:
+                return None
+            results[i] = r
+            self.warm[snaps[i].label] = r
+            self.n_solves += 1
+            self.n_solver_calls += 1
+            self.n_iterations += r.iterations
+            if self.progress is not None:
+                self.progress(self.n_solves)
+        return _Solved(results, stacks=self.stacks, stacked=stacked)
+
+    @property
+    def _stacked(self):
+        """The stacked results behind the cached solution (one per stack), when it was solved in
+        the same stacks (a problem over the same snapshots may hand its cache on)."""
+        c = self._cache
+        return c.stacked if isinstance(c, _Solved) and c.stacks == self.stacks else None
 
     def simulated_head(self, x) -> np.ndarray:
         """Simulated grade at each reading's node [m]."""
@@ -218,29 +321,37 @@ class CalibrationProblem:
         return r
 
     def jacobian(self, x) -> np.ndarray:
-        """Analytic Jacobian of ``residuals`` (dense, rows x parameters), one factorization per snapshot."""
+        """Analytic Jacobian of ``residuals`` (dense, rows x parameters): one factorization per
+        snapshot, or per stack of snapshots (``stack``)."""
         x = np.asarray(x, float)
         results = self.solve(x)
-        net, tests, p = self.network, self.tests, self.n_params
-        nj = net.n_junctions
+        tests, p = self.tests, self.n_params
         J = np.zeros((self.n_readings + self.n_prior_rows, p))
-        grp = self.grouping.index[self.grouped]
-        for si, ((t, kind), res) in enumerate(zip(self.pairs, results)):
+        stacked = self._stacked or []
+        in_stack = set()
+        if stacked:
+            from calib.hydraulics.stacked import stacked_solver
+        for members, res in zip(self.stacks, stacked):
+            ss = stacked_solver(self.solver, len(members))
+            st = ss.stack
+            dhdc = np.asarray(ss.dheadloss_droughness(res), float)
+            dF1 = np.zeros((st.link_map.size, p))
+            dF2 = np.zeros((st.junction_map.size, p))
+            for c, si in enumerate(members):
+                b1, b2 = self._rhs(si, dhdc[st.pipe_map[c]])
+                dF1[st.link_map[c]] = b1
+                dF2[st.junction_map[c]] = b2
+            dH, _ = ss.sensitivities(res, dF1, dF2)
+            dH = dH.toarray() if sp.issparse(dH) else np.asarray(dH)
+            for c, si in enumerate(members):
+                in_stack.add(si)
+                rows = np.flatnonzero(self.reading_snapshot == si)
+                J[rows] = dH[st.junction_map[c, tests.node[rows]]] / self.sigma_h[rows, None]
+        for si, res in enumerate(results):
             rows = np.flatnonzero(self.reading_snapshot == si)
-            if rows.size == 0:
+            if rows.size == 0 or si in in_stack:
                 continue
-            dhdc = np.asarray(self.solver.dheadloss_droughness(res), float)
-            # dense right-hand sides: the sensitivities solve them dense anyway, and building two
-            # sparse matrices per snapshot cost more than the few thousand zeros they hold
-            dF1 = np.zeros((self.n_links, p))
-            dF1[self.grouped, self.c_cols[grp]] = dhdc[self.grouped]
-            for s, col in self._test_offsets.get(t, ()):
-                links, vals = self._source_incidence[(t, s)]
-                dF1[links, col] += vals
-            dF2 = np.zeros((nj, p))
-            col = self.day_col.get(int(tests.day[t]))
-            if col is not None:
-                dF2[:, col] = -net.demand
+            dF1, dF2 = self._rhs(si, np.asarray(self.solver.dheadloss_droughness(res), float))
             dH, _ = self.solver.sensitivities(res, dF1, dF2)
             dH = dH.toarray() if sp.issparse(dH) else np.asarray(dH)
             J[rows] = dH[tests.node[rows]] / self.sigma_h[rows, None]
@@ -249,14 +360,41 @@ class CalibrationProblem:
             J[n + np.arange(len(self.c_cols)), self.c_cols] = 1.0 / self.prior.spread
         return J
 
+    def _rhs(self, si, dhdc):
+        """``-dF/dp`` parts of snapshot ``si``: (dF1 per link, dF2 per junction), dense p columns;
+        ``dhdc`` the pipes' dh/dC at its solution."""
+        t, _kind = self.pairs[si]
+        p, nj = self.n_params, self.network.n_junctions
+        grp = self.grouping.index[self.grouped]
+        # dense right-hand sides: the sensitivities solve them dense anyway, and building two
+        # sparse matrices per snapshot cost more than the few thousand zeros they hold
+        dF1 = np.zeros((self.n_links, p))
+        dF1[self.grouped, self.c_cols[grp]] = dhdc[self.grouped]
+        for s, col in self._test_offsets.get(t, ()):
+            links, vals = self._source_incidence[(t, s)]
+            dF1[links, col] += vals
+        dF2 = np.zeros((nj, p))
+        col = self.day_col.get(int(self.tests.day[t]))
+        if col is not None:
+            dF2[:, col] = -self.network.demand
+        return dF1, dF2
+
     def jacobian_fd(self, x, step: float = 1e-6) -> np.ndarray:
-        """Central finite-difference Jacobian (for checks and the benchmark): 2 p solves per snapshot."""
+        """Central finite-difference Jacobian (for checks and the benchmark): 2 p solves per snapshot,
+        one snapshot at a time even where ``solve`` stacks them: in a stack every copy iterates
+        until the slowest has converged, so a parameter of one copy moves the others' heads within
+        the solver's tolerance (about 1e-10 m), which a difference quotient with a 1e-6 step would
+        show as derivatives of up to 1e-4 where the true one is 0."""
         x = np.asarray(x, float)
-        cols = []
-        for j in range(self.n_params):
-            h = step * max(1.0, abs(x[j]))
-            xp, xm = x.copy(), x.copy()
-            xp[j] += h
-            xm[j] -= h
-            cols.append((self.residuals(xp) - self.residuals(xm)) / (2 * h))
+        stacks, self.stacks = self.stacks, []
+        try:
+            cols = []
+            for j in range(self.n_params):
+                h = step * max(1.0, abs(x[j]))
+                xp, xm = x.copy(), x.copy()
+                xp[j] += h
+                xm[j] -= h
+                cols.append((self.residuals(xp) - self.residuals(xm)) / (2 * h))
+        finally:
+            self.stacks = stacks
         return np.column_stack(cols)
