@@ -81,6 +81,7 @@ class SchurPattern:
         self.diag_pos = pos[n_contrib:].astype(np.int64)  # diag_pos[old junction] -> data position
         self._a21 = None  # incidence A21 over the junctions (``inflow_matrix``)
         self._scratch = None  # factor refactored in place by ``factorize_scratch``
+        self._blocks = None  # connected part of each junction (``blocks``)
         self._factorizer = None if (dense or nj == 0) else _factor.factorizer(
             self.backend, sp.csc_matrix((np.ones(self.nnz), self.indices, self.indptr), shape=(nj, nj)))
 
@@ -95,6 +96,18 @@ class SchurPattern:
         networks, ``REUSE_MIN_WORK``); True before the first factorization says."""
         work = getattr(self._factorizer, "factor_work", None)
         return work is None or work >= REUSE_MIN_WORK
+
+    @property
+    def blocks(self) -> np.ndarray:
+        """Label of each junction's connected part of S (old order), found once: disjoint
+        networks, e.g. the copies of a stacked network, are separate parts."""
+        if self._blocks is None:
+            from scipy.sparse.csgraph import connected_components
+            graph = sp.csc_matrix((np.ones(self.nnz), self.indices, self.indptr),
+                                  shape=(self.n, self.n))
+            labels = connected_components(graph, directed=False)[1] if self.n else np.zeros(0)
+            self._blocks = np.asarray(labels, dtype=np.int64)[self.inv]
+        return self._blocks
 
     def update_work(self, links: np.ndarray, nodes: np.ndarray) -> float:
         """Work of low-rank updates for ``links`` and diagonal changes at junctions ``nodes`` (old

@@ -228,7 +228,7 @@ class ValveLinks:
         dq[s] = d
         return dq
 
-    def couple(self, dH, F1, state, w_s, solve, fixed, max_valves, tol):
+    def couple(self, dH, F1, state, w_s, solve, fixed, max_valves, tol, blocks=None):
         """The Newton step with each active pressure valve's flow change seen at its far end too.
 
         ``dH`` solves the system in which the far end (a reducing valve's inlet, a sustaining
@@ -240,10 +240,15 @@ class ValveLinks:
         flow changes ``flow_step`` gives for the corrected grades (``dq_v = a + B dH``; one
         solve with k columns and the factor the step used, exact when it is S's own factor,
         a close one when the step reused an older one). S stays symmetric: only the step changes.
-        Only with at most ``max_valves`` such valves: each costs a solve per iteration, and on the
-        50k-pipe benchmark grid with 38 of them the iterations took 2.7x as long and were not
+        Only with at most ``max_valves`` columns: each costs a solve per iteration, and on the
+        50k-pipe benchmark grid with 38 such valves the iterations took 2.7x as long and were not
         fewer (25 -> 28); the lag is kept there. Nor where the valves' flow changes are at most
         ``tol`` [m3/s] (the mass tolerance): the lag then leaves no error that counts.
+        ``blocks``: the label of each junction's part of S (disjoint networks, e.g. the copies of
+        a stacked network). Valves in different parts share a column, since a unit change in one
+        part moves no grade in another (Curtis, Powell and Reid (1974), J. Inst. Maths Applics
+        13, for the same grouping of Jacobian columns): the columns are as many as the most
+        such valves in one part.
         """
         act = (state == ACTIVE) & self.auto
         far = self._far
@@ -251,7 +256,16 @@ class ValveLinks:
         lag[lag] = ~fixed[far[lag]] & ~fixed[self.ctrl[lag]]
         idx = np.flatnonzero(lag)
         k = idx.size
-        if k == 0 or k > max_valves:
+        if k == 0:
+            return dH
+        part = np.zeros(self.nj, dtype=np.int64) if blocks is None else blocks
+        vpart = part[far[idx]]
+        # column of each valve: its rank among the valves of its part
+        order = np.argsort(vpart, kind="stable")
+        col = np.empty(k, dtype=np.int64)
+        col[order] = np.arange(k) - np.searchsorted(vpart[order], vpart[order])
+        n_col = int(col.max()) + 1
+        if n_col > max_valves:
             return dH
         # dq_v = -w_s (F1_v + sigma dH_ctrl), sigma = +1 (reducing: its outlet) or -1
         # (sustaining: its inlet), as in ``flow_step``
@@ -260,11 +274,17 @@ class ValveLinks:
         rhs = -w_s[idx] * F1[self.slots()][idx] - ws_sigma * dH[ctrl]
         if np.abs(rhs).max() <= tol:
             return dH
-        unit = np.zeros((self.nj, k))
-        unit[far[idx], np.arange(k)] = self._far_sign[idx]
-        Y = solve(unit).reshape(self.nj, k)
-        c = np.linalg.solve(np.eye(k) + ws_sigma[:, None] * Y[ctrl], rhs)
-        return dH + Y @ c
+        unit = np.zeros((self.nj, n_col))
+        unit[far[idx], col] = self._far_sign[idx]
+        Yc = solve(unit).reshape(self.nj, n_col)
+        # Y[n, j] = Yc[n, col_j] in valve j's part, 0 elsewhere
+        Y_ctrl = Yc[ctrl][:, col] * (part[ctrl][:, None] == vpart[None, :])
+        c = np.linalg.solve(np.eye(k) + ws_sigma[:, None] * Y_ctrl, rhs)
+        if n_col == k and blocks is None:
+            return dH + Yc @ c
+        by_part = np.zeros((n_col, int(part.max()) + 1))
+        by_part[col, vpart] = c
+        return dH + (Yc * by_part[:, part].T).sum(axis=1)
 
     def _wanted(self, q, H, state):
         """The state each valve's rules ask for at (q, H), for the valves the solver steers."""

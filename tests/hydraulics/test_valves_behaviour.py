@@ -142,3 +142,22 @@ def test_a_newton_step_balances_a_reducing_valves_inlet_at_once():
     cold = NetworkSolver(net).solve(Snapshot(extra_demand={"Z3": 0.01}))
     np.testing.assert_allclose(res.head, cold.head, atol=1e-6)
     np.testing.assert_allclose(res.valve_flow, cold.valve_flow, atol=1e-9)
+
+
+def test_the_coupled_step_acts_in_a_stack_with_one_column_per_valve_of_a_copy():
+    # three disjoint copies (calib.hydraulics.stacked): a unit flow change in one copy moves no
+    # grade in another, so the copies' valves share one column (Curtis, Powell and Reid 1974) and
+    # the step stays exact at every copy's valve inlet, as for one copy (common practice: Newton)
+    from calib.hydraulics.stacked import StackedNetwork
+    st = StackedNetwork(zoned(30.0), 3)
+    solver = NetworkSolver(st.network)
+    assert len(np.unique(solver.pattern.blocks)) == 3
+    base = solver.solve()
+    hydrants = {st.name(c, "Z3"): 0.01 * (c + 1) for c in range(3)}
+    res = solver.solve(Snapshot(extra_demand=hydrants), warm_start=base)
+    assert list(res.valve_state) == ["active"] * 3
+    np.testing.assert_allclose(res.valve_flow - base.valve_flow, [0.01, 0.02, 0.03], rtol=1e-6)
+    assert solver.trace[1][3] < 1e-9  # lagged: 3e-2 m3/s
+    for c in range(3):  # each copy as solved alone
+        alone = NetworkSolver(zoned(30.0)).solve(Snapshot(extra_demand={"Z3": 0.01 * (c + 1)}))
+        np.testing.assert_allclose(res.head[st.junction_map[c]], alone.head[:st.nj], atol=1e-6)
