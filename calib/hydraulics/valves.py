@@ -535,15 +535,23 @@ def sensitivity_solve(solver, result, w, b1, b2, pat, iso):
     rhs0[iso] = 0.0
     idx = np.flatnonzero(press)
     if idx.size:
-        k, cols = idx.size, np.arange(idx.size)
-        unit = np.zeros((nj, k))
+        # valves in different connected parts of S (copies of a stacked network) share a column
+        # (see ``ValveLinks.couple``); each valve's grades are its column within its part
+        part = pat.blocks
+        vpart = part[valves.ctrl[idx]]
+        order = np.argsort(vpart, kind="stable")
+        cols = np.empty(idx.size, dtype=np.int64)
+        cols[order] = np.arange(idx.size) - np.searchsorted(vpart[order], vpart[order])
+        n_col = int(cols.max()) + 1
+        unit = np.zeros((nj, n_col))
         at_far = lag[idx]
         np.add.at(unit, (far[idx][at_far], cols[at_far]), far_sign[idx][at_far])
         np.add.at(unit, (valves.ctrl[idx], cols), ctrl_sign[idx])
         unit[iso] = 0.0
         both = factor(np.hstack([rhs0, unit]))
-        dH0, dHu = both[:, :-k], both[:, -k:]
-        A = misfit(dHu, np.zeros((valves.n, k)))[idx]
+        dH0 = both[:, :-n_col]
+        dHu = both[:, -n_col:][:, cols] * (part[:, None] == vpart[None, :])
+        A = misfit(dHu, np.zeros((valves.n, idx.size)))[idx]
         g0 = misfit(dH0, b1[s])[idx]
         try:
             dq_v[idx] = np.linalg.solve(A, -g0)

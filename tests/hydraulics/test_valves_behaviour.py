@@ -161,3 +161,36 @@ def test_the_coupled_step_acts_in_a_stack_with_one_column_per_valve_of_a_copy():
     for c in range(3):  # each copy as solved alone
         alone = NetworkSolver(zoned(30.0)).solve(Snapshot(extra_demand={"Z3": 0.01 * (c + 1)}))
         np.testing.assert_allclose(res.head[st.junction_map[c]], alone.head[:st.nj], atol=1e-6)
+
+
+def test_stacked_sensitivities_with_active_valves_match_each_copy_alone():
+    # the copies' valves share the sensitivity solve's columns (one per valve of a copy); each
+    # copy's dH/dC and dH/d(demand factor) - which moves the valves' flows - must still be its own
+    # (implicit differentiation, as for one network)
+    from calib.hydraulics.stacked import StackedNetwork
+    net = zoned(30.0)
+    st = StackedNetwork(net, 3)
+    solver = NetworkSolver(st.network)
+    hydrants = {st.name(c, "Z3"): 0.005 * (c + 1) for c in range(3)}
+    res = solver.solve(Snapshot(extra_demand=hydrants))
+    d = solver.dheadloss_droughness(res)
+    p = net.n_pipes + 1  # every pipe's C, then the demand factor
+    dF1 = np.zeros((st.link_map.size, p))
+    for c in range(3):
+        dF1[st.pipe_map[c], np.arange(net.n_pipes)] = d[st.pipe_map[c]]
+    dF2 = np.zeros((st.junction_map.size, p))
+    dF2[:, -1] = -st.network.demand
+    dH, dQ = solver.sensitivities(res, dF1, dF2)
+    for c in range(3):
+        one = NetworkSolver(net)
+        alone = one.solve(Snapshot(extra_demand={"Z3": 0.005 * (c + 1)}))
+        assert alone.valve_state[0] == "active"
+        rows = np.zeros((net.n_pipes + len(net.valves), p))  # links: pipes, then the valve
+        rows[np.arange(net.n_pipes), np.arange(net.n_pipes)] = one.dheadloss_droughness(alone)
+        cols = np.zeros((net.n_junctions, p))
+        cols[:, -1] = -net.demand
+        ref, ref_q = one.sensitivities(alone, rows, cols)
+        np.testing.assert_allclose(dH[st.junction_map[c]], ref, rtol=1e-6, atol=1e-12)
+        np.testing.assert_allclose(dQ[st.valve_map[c]], ref_q[net.n_pipes:], rtol=1e-6,
+                                   atol=1e-12)
+        assert np.abs(ref_q[net.n_pipes:, -1]).max() > 0  # the valve's flow moves with demand
