@@ -159,3 +159,79 @@ def test_a_group_no_test_reaches_keeps_the_model_c_in_every_export(small, tmp_pa
     assert c_geo and all(c == pytest.approx(110.0) for c in c_geo)
     line = next(ln for ln in summary(res).splitlines() if ln.startswith("G3"))
     assert line.split()[1] == "-" and "model C 110 kept" in line
+
+
+def _three_group_profile_case(small):
+    """The small grid where all three groups need the profile (linearized intervals reach past 160),
+    its fit before the intervals are refined, and the rise of the weighted sum of squares computed
+    the long way: a tight least-squares refit of the other two C (scipy.optimize.least_squares,
+    tolerances 1e-12) at each held value."""
+    from calib.calibration.estimate import estimate
+    from calib.calibration.problem import CalibrationProblem
+
+    net, grp, plan, solver = small
+    tests = synthetic_tests(net, np.array([70.0, 100.0, 130.0])[grp.index], plan, seed=2)
+    prob = CalibrationProblem(net, tests, grp, solver=solver)
+    est = estimate(prob, prob.x0, "linear", 2.0, 60, np.ones(tests.n_readings, dtype=bool))
+    x_hat, S0 = est.x.copy(), float(est.residual @ est.residual)
+
+    def rise(i, c):
+        free = [k for k in range(3) if k != i]
+        ref = CalibrationProblem(net, tests, grp, solver=solver)
+        ref.sigma_h = prob.sigma_h
+
+        def embed(z):
+            x = x_hat.copy()
+            x[free], x[i] = z, c
+            return x
+        sol = optimize.least_squares(lambda z: ref.residuals(embed(z)), x_hat[free],
+                                     jac=lambda z: ref.jacobian(embed(z))[:, free],
+                                     bounds=(ref.lower[free], ref.upper[free]), method="trf",
+                                     x_scale="jac", xtol=1e-12, ftol=1e-12, gtol=1e-12)
+        return float(sol.fun @ sol.fun) - S0
+
+    return prob, est, x_hat, rise
+
+
+def test_profile_point_rise_matches_a_tight_refit_from_near_and_far_starts(small):
+    # one profile point: from a start on the linearized trace (a Gauss-Newton step suffices) and
+    # from the optimum with the others left where they are (a refit is needed): the rise against
+    # the long way's, to 0.1 % of the cut-off
+    from calib.calibration.estimate import _profile_point
+
+    prob, est, x_hat, rise = _three_group_profile_case(small)
+    cut = est.t ** 2
+    trace = est.cov[:, 1] / est.cov[1, 1]
+    for value in (x_hat[1] - 0.5 * est.t * est.sd[1], x_hat[1] - 0.8 * est.t * est.sd[1]):
+        ref = rise(1, value)
+        for warm in (x_hat + (value - x_hat[1]) * trace, x_hat):
+            got, x_at, slope, _trace, _drop = _profile_point(prob, est, 1, value, warm)
+            assert got == pytest.approx(ref, abs=1e-3 * cut), (value, got, ref)
+            assert x_at[1] == value
+            # the slope (envelope theorem) against a central difference of the long way's rise
+            h = 0.01
+            assert slope == pytest.approx((rise(1, value + h) - rise(1, value - h)) / (2 * h),
+                                          rel=0.02)
+
+
+def test_profile_ends_match_a_tight_profile_on_three_groups(small):
+    # every end found by the fit's Newton search (Gauss-Newton points where the step is small)
+    # against the long way's profile, the end by scipy.optimize.brentq
+    from calib.calibration.estimate import refine_intervals
+
+    prob, est, x_hat, rise = _three_group_profile_case(small)
+    cut = est.t ** 2
+    est = refine_intervals(prob, est, prob.c_cols)
+    assert est.method == ["profile likelihood"] * 3
+    checked = 0
+    for i in range(3):
+        for end, bound, is_open in ((est.low[i], 40.0, est.low_open[i]),
+                                    (est.high[i], 160.0, est.high_open[i])):
+            if is_open:
+                assert end == bound and rise(i, bound) < cut  # no limit on that side within the bounds
+                continue
+            a, b = sorted((x_hat[i], bound))
+            ref = optimize.brentq(lambda c: rise(i, c) - cut, a, b, xtol=1e-4)
+            assert end == pytest.approx(ref, abs=0.01), (i, end, ref)
+            checked += 1
+    assert checked >= 3

@@ -85,3 +85,103 @@ def test_curve_reuses_the_fits_solution_of_the_same_loading(grid):
     assert p[list(scales).index(1.0)] == tested.pressure[21]
     assert p[0] == at_rest.pressure[21]
     assert len(calls) == len(scales) - 2  # the two known points are not solved again
+
+
+def test_case_deletion_step_is_exact_with_the_readings_scale_in_the_weights():
+    # the fit stores J and r with the readings' rows at s * sigma and the covariance of that J; the
+    # one-step deletion estimate must use it as stored (reference: numpy.linalg.lstsq with and
+    # without the row; exact in linear least squares, Cook and Weisberg 1982, sec. 3.4)
+    from calib.calibration.fit import _case_deletion_step
+
+    rng = np.random.default_rng(5)
+    J0 = rng.normal(size=(20, 3))
+    y = J0 @ np.array([2.0, 1.0, -1.0]) + rng.normal(0, 0.3, 20)
+    x = np.linalg.lstsq(J0, y, rcond=None)[0]
+    s = 0.6  # the readings' scale found from their scatter
+    est = _linear_estimate(J0 / s, (J0 @ x - y) / s)
+    est.s2 = s ** 2
+    for row in (2, 11):
+        keep = np.arange(20) != row
+        x_loo = np.linalg.lstsq(J0[keep], y[keep], rcond=None)[0]
+        np.testing.assert_allclose(x + _case_deletion_step(est, row, "linear"), x_loo, rtol=1e-9)
+
+
+def test_extrapolated_start_takes_the_rest_of_steadily_shrinking_steps():
+    # closed form: r = [x, (k x^2 / 2 - m)] has its least-squares minimum at x = 0 (k m < 1), where
+    # the Hessian 1 - k m is smaller than J^T J = 1: Gauss-Newton steps shrink by about k m each
+    # (a linearly converging sequence; Aitken's extrapolation takes the rest at once)
+    from calib.calibration.fit import _extrapolated_start
+
+    k, m = 1.0, 0.5
+    res = lambda x: np.array([x[0], 0.5 * k * x[0] ** 2 - m])  # noqa: E731
+    jac = lambda x: np.array([[1.0], [k * x[0]]])  # noqa: E731
+    gn = lambda x: np.linalg.lstsq(jac(x), -res(x), rcond=None)[0]  # noqa: E731
+    problem = SimpleNamespace(residuals=res, jacobian=jac, lower=np.array([-10.0]),
+                              upper=np.array([10.0]))
+    x0 = np.array([0.4])
+    x1 = x0 + gn(x0)
+    plain = x1 + gn(x1)
+    start = _extrapolated_start(problem, x1, x1 - x0)
+    assert abs(start[0]) < 0.1 * abs(plain[0])  # the optimum is 0
+    # no steady shrinking (a linear problem: one step reaches the optimum): the start stays
+    lin = SimpleNamespace(residuals=lambda x: np.array([x[0] - 1.0, x[0] - 1.0]),
+                          jacobian=lambda x: np.array([[1.0], [1.0]]), lower=problem.lower,
+                          upper=problem.upper)
+    assert _extrapolated_start(lin, np.array([1.0]), np.array([0.5]))[0] == 1.0
+
+
+def test_leave_one_out_refit_agrees_with_a_long_refit_from_the_fit(small):
+    # the fit's shortcut (one-step start, extrapolated) against the plain way: least_squares from
+    # the fit's solution with tight tolerances and many evaluations (reference: scipy.optimize)
+    from scipy import optimize
+
+    from calib.calibration.estimate import estimate
+    from calib.calibration.fit import _loo_start, loo_refit
+    from calib.calibration.problem import CalibrationProblem
+    from calib.calibration.synthetic import synthetic_tests
+
+    net, grp, plan, solver = small
+    tests = synthetic_tests(net, np.array([70.0, 100.0, 130.0])[grp.index], plan, seed=11)
+    n = tests.n_readings
+    used = np.ones(n, dtype=bool)
+    prob = CalibrationProblem(net, tests, grp, solver=solver)
+    est = estimate(prob, prob.x0, "linear", 2.0, 60, used)
+    h = np.sum(est.jac[:n] * (est.jac[:n] @ est.cov), axis=1)  # leverages
+    for row in np.argsort(-h)[:2]:
+        mask = used.copy()
+        mask[row] = False
+        fast_prob = CalibrationProblem(net, tests.subset(mask), grp, solver=solver)
+        fast = loo_refit(est, fast_prob, int(row))
+        slow_prob = CalibrationProblem(net, tests.subset(mask), grp, solver=solver)
+        slow = optimize.least_squares(slow_prob.residuals, est.x, jac=slow_prob.jacobian,
+                                      bounds=(slow_prob.lower, slow_prob.upper), method="trf",
+                                      x_scale="jac", max_nfev=100, xtol=1e-12, ftol=1e-12,
+                                      gtol=1e-12)
+        assert fast.status > 0 and slow.status > 0  # both converged (not stopped at max_nfev)
+        np.testing.assert_allclose(fast.x, slow.x, atol=0.01 * float(np.min(est.sd)))
+        assert np.all(np.abs(fast.x - est.x) > 0.0)
+        start = _loo_start(est, fast_prob, int(row), "linear")
+        assert np.linalg.norm(start - slow.x) < 0.5 * np.linalg.norm(est.x - slow.x)
+        assert fast_prob.n_solves <= slow_prob.n_solves
+
+
+def test_simulated_readings_reuse_the_fits_solutions_and_match_fresh_solves(small):
+    # the result's simulated pressures come from the solutions the fit already has at its x (no
+    # solve in that phase); reference: a fresh problem solved cold at the same x, to the solver's
+    # head tolerance (1e-6 m, calib.hydraulics) in pressure
+    from calib.calibration import fit
+    from calib.calibration.problem import CalibrationProblem
+    from calib.calibration.synthetic import synthetic_tests
+    from calib.hydraulics import NetworkSolver
+
+    net, grp, plan, solver = small
+    tests = synthetic_tests(net, np.array([70.0, 100.0, 130.0])[grp.index], plan, seed=12)
+    stages = []
+    res = fit(net, tests, grouping=grp, prior="none", solver=solver, refit=False, influence=False,
+              progress=lambda n, stage: stages.append(stage))
+    assert "simulate every reading" not in stages
+    assert "interval checks (profile likelihood where needed)" in stages  # the cache moved there
+    fresh = CalibrationProblem(net, tests, grp, solver=NetworkSolver(net))
+    h = fresh.simulated_head(res.estimate.x)
+    p = units.head_to_pressure(h - tests.elevation - tests.gauge_height)
+    np.testing.assert_allclose(res.simulated, p, atol=units.head_to_pressure(1e-5))
