@@ -26,6 +26,11 @@ UPDATE_TIME_PER_WORK = 1.5
 #: grid, whose factorization takes about 3 ms) a new factorization costs less than the Python work
 #: around a low-rank update, so none is made.
 UPDATE_MIN_WORK = 1e6
+#: Below this work of a factorization a new one costs less than the Python work of a CG attempt
+#: with an older one, so the solver factors at every iteration. Measured (CPU, same process,
+#: alternated): the demo town (work 1.4e4) 2.1-2.3 s against 2.7-3.0 s for its fit's 1,092
+#: solves; a 1k-pipe grid (9.7e4) even; grids of 2k-10k pipes (3.2e5-3.7e6) gain from reuse.
+REUSE_MIN_WORK = 5e4
 
 
 class SchurPattern:
@@ -74,6 +79,9 @@ class SchurPattern:
                                      shape=(len(uniq), len(f)))
         # the diagonal contributions were listed by old junction number 0..nj-1
         self.diag_pos = pos[n_contrib:].astype(np.int64)  # diag_pos[old junction] -> data position
+        self._a21 = None  # incidence A21 over the junctions (``inflow_matrix``)
+        self._scratch = None  # factor refactored in place by ``factorize_scratch``
+        self._blocks = None  # connected part of each junction (``blocks``)
         self._factorizer = None if (dense or nj == 0) else _factor.factorizer(
             self.backend, sp.csc_matrix((np.ones(self.nnz), self.indices, self.indptr), shape=(nj, nj)))
 
@@ -81,6 +89,25 @@ class SchurPattern:
     def work_ratio(self) -> float | None:
         """Flops of a factorization over those of one CG step; set by the first sparse factorization."""
         return None if self._factorizer is None else self._factorizer.work_ratio
+
+    @property
+    def reuse_pays(self) -> bool:
+        """False where a factorization is cheaper than trying CG with an older one (tiny
+        networks, ``REUSE_MIN_WORK``); True before the first factorization says."""
+        work = getattr(self._factorizer, "factor_work", None)
+        return work is None or work >= REUSE_MIN_WORK
+
+    @property
+    def blocks(self) -> np.ndarray:
+        """Label of each junction's connected part of S (old order), found once: disjoint
+        networks, e.g. the copies of a stacked network, are separate parts."""
+        if self._blocks is None:
+            from scipy.sparse.csgraph import connected_components
+            graph = sp.csc_matrix((np.ones(self.nnz), self.indices, self.indptr),
+                                  shape=(self.n, self.n))
+            labels = connected_components(graph, directed=False)[1] if self.n else np.zeros(0)
+            self._blocks = np.asarray(labels, dtype=np.int64)[self.inv]
+        return self._blocks
 
     def update_work(self, links: np.ndarray, nodes: np.ndarray) -> float:
         """Work of low-rank updates for ``links`` and diagonal changes at junctions ``nodes`` (old
@@ -132,11 +159,17 @@ class SchurPattern:
         return _factor.ordering(self.backend, pattern)
 
     # --- per iteration -----------------------------------------------------------------------
-    def assemble(self, w: np.ndarray, extra_diag: np.ndarray | None = None) -> sp.csc_matrix:
-        """``S = A21 diag(w) A12`` in the permuted order, plus ``extra_diag`` (old order) on the diagonal."""
+    def assemble(self, w: np.ndarray, extra_diag: np.ndarray | None = None,
+                 out: sp.csc_matrix | None = None) -> sp.csc_matrix:
+        """``S = A21 diag(w) A12`` in the permuted order, plus ``extra_diag`` (old order) on the
+        diagonal. ``out``: a matrix this pattern assembled before, whose values are replaced (a
+        solver's iterations reuse one: building a new scipy matrix costs more than the numbers)."""
         data = self._gather @ np.asarray(w, dtype=float)
         if extra_diag is not None and extra_diag.any():
             data[self.diag_pos] += extra_diag
+        if out is not None:
+            out.data = data
+            return out
         return sp.csc_matrix((data, self.indices, self.indptr), shape=(self.n, self.n))
 
     def hold(self, matrix: sp.csc_matrix, fixed: np.ndarray) -> sp.csc_matrix:
@@ -156,6 +189,17 @@ class SchurPattern:
             factor = scipy.linalg.cho_factor(matrix.toarray())
             return SchurFactor(self, matrix, lambda b: scipy.linalg.cho_solve(factor, b))
         return SchurFactor(self, matrix, self._factorizer.factor(matrix))
+
+    def factorize_scratch(self, matrix: sp.csc_matrix) -> "SchurFactor":
+        """Factor S into this pattern's scratch factor where the backend can (CHOLMOD: in the
+        memory of the last one, no new factor allocated), else as ``factorize``. The result is
+        good until the next call: for a factor used once and dropped (the sensitivities)."""
+        scratch = self._scratch
+        if scratch is not None and scratch.refactor(matrix):
+            return scratch
+        self._scratch = None
+        self._scratch = factor = self.factorize(matrix)
+        return factor
 
     def pcg(self, matrix: sp.csc_matrix, factor: "SchurFactor", b: np.ndarray, tol: float,
             max_iterations: int) -> np.ndarray | None:
@@ -204,12 +248,13 @@ class SchurPattern:
 
     def inflow_matrix(self, x: sp.spmatrix | np.ndarray):
         """``A21 X`` restricted to junctions for a matrix X (n_links x p), dense or sparse."""
-        m = len(self.link_from)
-        a21 = sp.csr_matrix((np.concatenate([np.ones(m), -np.ones(m)]),
-                             (np.concatenate([self.link_to, self.link_from]),
-                              np.concatenate([np.arange(m), np.arange(m)]))),
-                            shape=(self.n_nodes, m))[: self.n]
-        out = a21 @ x
+        if self._a21 is None:  # built once per network
+            m = len(self.link_from)
+            self._a21 = sp.csr_matrix((np.concatenate([np.ones(m), -np.ones(m)]),
+                                       (np.concatenate([self.link_to, self.link_from]),
+                                        np.concatenate([np.arange(m), np.arange(m)]))),
+                                      shape=(self.n_nodes, m))[: self.n]
+        out = self._a21 @ x
         return out.toarray() if sp.issparse(out) else np.asarray(out)
 
     def across(self, head: np.ndarray) -> np.ndarray:

@@ -81,23 +81,26 @@ def hazen_williams_law(q, r, q_eps: float = HW_Q_EPS):
     q_eps = 1e-6 m3/s (0.016 gpm) that is 2.2e-7 m on a 1000 m, 4 in main of C 60, far below the
     precision of any field reading (common practice: regularize below what can be measured).
     """
-    q = np.asarray(q, dtype=float)
-    r = np.asarray(r, dtype=float)
+    q, r = np.asarray(q, dtype=float), np.asarray(r, dtype=float)
+    shape = q.shape
+    if q.ndim != 1 or r.shape != shape:  # scalars, matrices, broadcasting: as flat arrays
+        q, r = np.broadcast_arrays(q, r)
+        shape = q.shape
+        q, r = q.ravel(), r.ravel()
     n = HW_FLOW_EXPONENT
     aq = np.abs(q)
     # Outside the blend: the law itself; r aq ** 0.852 computed once and reused for h and slope.
     rpw = r * np.maximum(aq, q_eps) ** (n - 1.0)
     h = rpw * q
     grad = n * rpw
-    if aq.size and aq.min() < q_eps:
-        big = aq >= q_eps
-        x = np.where(big, 0.0, q / q_eps)
-        scale = r * q_eps ** n
-        h_small = scale * (_BLEND_A * x + _BLEND_B * x ** 3)
-        g_small = scale / q_eps * (_BLEND_A + 3.0 * _BLEND_B * x ** 2)
-        h = np.where(big, h, h_small)
-        grad = np.where(big, grad, g_small)
-    return h, grad
+    # the blend only where it applies (closed and idle pipes: usually a few of many)
+    small = np.flatnonzero(aq < q_eps)
+    if small.size:
+        x = q[small] / q_eps
+        scale = r[small] * q_eps ** n
+        h[small] = scale * (_BLEND_A * x + _BLEND_B * x ** 3)
+        grad[small] = scale / q_eps * (_BLEND_A + 3.0 * _BLEND_B * x ** 2)
+    return h.reshape(shape), grad.reshape(shape)
 
 
 def minor_loss_coefficient(k, diameter):

@@ -48,7 +48,7 @@ def sensitivities(solver, result: SolveResult, dF1_dp, dF2_dp):
     rhs = b2 - pat.inflow_matrix(wb1)
     rhs[iso] = 0.0
     S = pat.hold(pat.assemble(w, iso.astype(float)), iso)  # iso includes held junctions
-    dH = pat.factorize(S)(rhs) if (rhs.shape[1] and nj) else np.zeros((nj, rhs.shape[1]))
+    dH = pat.factorize_scratch(S)(rhs) if (rhs.shape[1] and nj) else np.zeros((nj, rhs.shape[1]))
     dHn = np.vstack([dH, np.zeros((solver.network.n_sources, dH.shape[1]))])
     dQ = -(wb1 - w[:, None] * (dHn[solver.link_from] - dHn[solver.link_to]))
     if vector:

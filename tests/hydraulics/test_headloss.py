@@ -73,6 +73,28 @@ def test_hazen_williams_blend_matches_value_and_slope_and_is_monotone():
     np.testing.assert_allclose((hp - hm) / (2 * dq), g, rtol=1e-4)
 
 
+def test_hazen_williams_law_per_pipe_resistances_both_sides_of_q_eps_and_any_shape():
+    # closed forms: r |Q|^0.852 Q above q_eps, r q_eps^1.852 (a x + b x^3) below (x = Q/q_eps,
+    # b = 0.426, a = 0.574: the blend of the docstring), each pipe with its own r
+    qe = 1e-6
+    q = np.array([0.0, 3e-7, -0.01, -5e-7, 2e-3, qe])
+    r = np.array([10.0, 2e3, 5e4, 7.0, 900.0, 1e5])
+    x = q / qe
+    law = r * np.abs(q) ** 0.852 * q
+    blend = r * qe ** 1.852 * (0.574 * x + 0.426 * x ** 3)
+    h, g = hl.hazen_williams_law(q, r, qe)
+    np.testing.assert_allclose(h, np.where(np.abs(q) < qe, blend, law), rtol=1e-13, atol=0)
+    slope = np.where(np.abs(q) < qe, r * qe ** 0.852 * (0.574 + 3 * 0.426 * x ** 2),
+                     1.852 * r * np.abs(q) ** 0.852)
+    np.testing.assert_allclose(g, slope, rtol=1e-13)
+    h0, g0 = hl.hazen_williams_law(2e-7, 50.0, qe)  # scalars in, 0-d arrays out
+    assert np.shape(h0) == () and float(h0) == pytest.approx(
+        50.0 * qe ** 1.852 * (0.574 * 0.2 + 0.426 * 0.2 ** 3), rel=1e-13)
+    h2, g2 = hl.hazen_williams_law(q.reshape(2, 3), r.reshape(2, 3), qe)
+    np.testing.assert_array_equal(h2, h.reshape(2, 3))
+    np.testing.assert_array_equal(g2, g.reshape(2, 3))
+
+
 def test_minor_loss_is_k_v2_over_2g():
     # closed form h = K V^2 / (2 g)
     k, d, q = 3.5, 0.2, 0.04

@@ -356,3 +356,60 @@ def test_sensitivities_with_a_pump_and_a_closed_check_valve(make):
     fd_h, fd_q = _fd(solver, lambda x: Snapshot(demand_factor=x), lambda x: None, 1.0, 1e-4)
     np.testing.assert_allclose(dH[:, 0], fd_h, rtol=1e-5, atol=1e-8)
     np.testing.assert_allclose(dQ[:, 0], fd_q, rtol=1e-5, atol=1e-10)
+
+
+def test_kept_connectivity_answers_match_fresh_ones_over_alternating_closures():
+    # the solver keeps the last few "cut off from every source" answers by set of open links
+    # (calib.hydraulics.memo); alternate over more sets than it keeps, and change what it returns:
+    # every answer must still be the graph search's own (scipy's connected components)
+    from .conftest import random_looped
+    net = random_looped(40, seed=3, extra_loops=2)
+    solver = NetworkSolver(net)
+    rng = np.random.default_rng(0)
+    masks = [rng.random(solver.np_) > 0.15 for _ in range(11)]
+    for use in (masks[:5], masks[:5], masks, masks):  # a few sets (kept), then more (dropped)
+        for mask in use:
+            got = solver._reachable(mask)
+            np.testing.assert_array_equal(got, solver._components(mask))
+            got[:] = ~got  # a caller's change must not reach the kept answer
+    assert any(solver._components(m).any() for m in masks)  # some closures do cut junctions off
+
+
+def test_tiny_networks_factor_at_every_iteration_larger_ones_reuse_the_factor():
+    # a speed rule with no effect on the answer beyond the mass tolerance (common practice: a
+    # direct solve where it is cheap, an older factor as CG preconditioner where it is not)
+    from calib.hydraulics import assembly, factor
+    from .conftest import random_looped
+    if not factor.cholmod_available() or factor.choose() != "cholmod":
+        pytest.skip("the rule reads CHOLMOD's factorization work")
+    small, large = random_looped(60, seed=1), random_looped(2000, seed=1)
+    for net, tiny in ((small, True), (large, False)):
+        solver = NetworkSolver(net)
+        cold = solver.solve()
+        warm = solver.solve(roughness=np.asarray(net.roughness, float) * 1.03, warm_start=cold)
+        work = solver.pattern._factorizer.factor_work
+        assert (work < assembly.REUSE_MIN_WORK) == tiny
+        if tiny:
+            assert cold.factorizations == cold.iterations and warm.factorizations == warm.iterations
+        else:
+            assert warm.factorizations < warm.iterations
+        again = NetworkSolver(net, reuse_factor=False).solve(
+            roughness=np.asarray(net.roughness, float) * 1.03)
+        np.testing.assert_allclose(warm.head, again.head, atol=1e-6)
+
+
+def test_roughness_changed_in_place_between_solves_is_seen():
+    # the solver keeps the last roughness's law coefficients (a fit solves many snapshots at one
+    # C); a caller that changes its array in place must still get the new C's answer
+    from .conftest import random_looped
+    net = random_looped(30, seed=4)
+    solver = NetworkSolver(net)
+    c = np.asarray(net.roughness, float).copy()
+    original = c.copy()
+    first = solver.solve(roughness=c)
+    c *= 0.8  # same array object, new values
+    second = solver.solve(roughness=c, warm_start=first)
+    fresh = NetworkSolver(net).solve(roughness=c.copy())
+    np.testing.assert_allclose(second.head, fresh.head, atol=1e-6)
+    assert not np.allclose(first.head, second.head, atol=1e-3)
+    np.testing.assert_array_equal(first.roughness, original)  # the result kept its own C

@@ -7,7 +7,7 @@ import pytest
 import scipy.sparse as sp
 
 from calib.errors import ConvergenceError, NetworkError
-from calib.hydraulics import NetworkSolver
+from calib.hydraulics import NetworkSolver, Snapshot
 from calib.hydraulics.assembly import SchurPattern
 from calib.network.model import ValveMode, ValveType
 from calib.units import GAMMA_WATER
@@ -125,3 +125,72 @@ def test_a_reducing_valve_whose_inlet_is_cut_off_carries_nothing():
     live = np.array([i != "D" for i in base.junction_ids])
     nj = base.n_junctions
     np.testing.assert_allclose(res.head[:nj][live], held.head[:nj][live], atol=1e-6)
+
+
+def test_a_newton_step_balances_a_reducing_valves_inlet_at_once():
+    # mass balance is linear in the flows, so an exact Newton step meets it after one step (common
+    # practice: Newton's method on the global gradient system, Todini and Pilati 1988); a step
+    # that lags the valve's flow change leaves that change as the inlet's mass error
+    net = zoned(30.0)
+    solver = NetworkSolver(net)
+    base = solver.solve()
+    res = solver.solve(Snapshot(extra_demand={"Z3": 0.01}), warm_start=base)
+    assert res.valve_state[0] == "active"
+    assert res.valve_flow[0] - base.valve_flow[0] == pytest.approx(0.01, rel=1e-6)
+    mass_after_first_step = solver.trace[1][3]
+    assert mass_after_first_step < 1e-9  # lagged: 1e-2 m3/s, the valve's flow change
+    cold = NetworkSolver(net).solve(Snapshot(extra_demand={"Z3": 0.01}))
+    np.testing.assert_allclose(res.head, cold.head, atol=1e-6)
+    np.testing.assert_allclose(res.valve_flow, cold.valve_flow, atol=1e-9)
+
+
+def test_the_coupled_step_acts_in_a_stack_with_one_column_per_valve_of_a_copy():
+    # three disjoint copies (calib.hydraulics.stacked): a unit flow change in one copy moves no
+    # grade in another, so the copies' valves share one column (Curtis, Powell and Reid 1974) and
+    # the step stays exact at every copy's valve inlet, as for one copy (common practice: Newton)
+    from calib.hydraulics.stacked import StackedNetwork
+    st = StackedNetwork(zoned(30.0), 3)
+    solver = NetworkSolver(st.network)
+    assert len(np.unique(solver.pattern.blocks)) == 3
+    base = solver.solve()
+    hydrants = {st.name(c, "Z3"): 0.01 * (c + 1) for c in range(3)}
+    res = solver.solve(Snapshot(extra_demand=hydrants), warm_start=base)
+    assert list(res.valve_state) == ["active"] * 3
+    np.testing.assert_allclose(res.valve_flow - base.valve_flow, [0.01, 0.02, 0.03], rtol=1e-6)
+    assert solver.trace[1][3] < 1e-9  # lagged: 3e-2 m3/s
+    for c in range(3):  # each copy as solved alone
+        alone = NetworkSolver(zoned(30.0)).solve(Snapshot(extra_demand={"Z3": 0.01 * (c + 1)}))
+        np.testing.assert_allclose(res.head[st.junction_map[c]], alone.head[:st.nj], atol=1e-6)
+
+
+def test_stacked_sensitivities_with_active_valves_match_each_copy_alone():
+    # the copies' valves share the sensitivity solve's columns (one per valve of a copy); each
+    # copy's dH/dC and dH/d(demand factor) - which moves the valves' flows - must still be its own
+    # (implicit differentiation, as for one network)
+    from calib.hydraulics.stacked import StackedNetwork
+    net = zoned(30.0)
+    st = StackedNetwork(net, 3)
+    solver = NetworkSolver(st.network)
+    hydrants = {st.name(c, "Z3"): 0.005 * (c + 1) for c in range(3)}
+    res = solver.solve(Snapshot(extra_demand=hydrants))
+    d = solver.dheadloss_droughness(res)
+    p = net.n_pipes + 1  # every pipe's C, then the demand factor
+    dF1 = np.zeros((st.link_map.size, p))
+    for c in range(3):
+        dF1[st.pipe_map[c], np.arange(net.n_pipes)] = d[st.pipe_map[c]]
+    dF2 = np.zeros((st.junction_map.size, p))
+    dF2[:, -1] = -st.network.demand
+    dH, dQ = solver.sensitivities(res, dF1, dF2)
+    for c in range(3):
+        one = NetworkSolver(net)
+        alone = one.solve(Snapshot(extra_demand={"Z3": 0.005 * (c + 1)}))
+        assert alone.valve_state[0] == "active"
+        rows = np.zeros((net.n_pipes + len(net.valves), p))  # links: pipes, then the valve
+        rows[np.arange(net.n_pipes), np.arange(net.n_pipes)] = one.dheadloss_droughness(alone)
+        cols = np.zeros((net.n_junctions, p))
+        cols[:, -1] = -net.demand
+        ref, ref_q = one.sensitivities(alone, rows, cols)
+        np.testing.assert_allclose(dH[st.junction_map[c]], ref, rtol=1e-6, atol=1e-12)
+        np.testing.assert_allclose(dQ[st.valve_map[c]], ref_q[net.n_pipes:], rtol=1e-6,
+                                   atol=1e-12)
+        assert np.abs(ref_q[net.n_pipes:, -1]).max() > 0  # the valve's flow moves with demand
