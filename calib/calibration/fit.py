@@ -447,6 +447,9 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
             mask = est.used.copy()
             mask[i] = False
             loo_prob = make(mask, x0=est.x)
+            # case deletion at the fit's weights: the readings at the scale the fit settled on
+            # (s * sigma), so that with a prior the readings' weight against it stays the fit's
+            loo_prob.sigma_h = loo_prob.sigma_h * np.sqrt(est.s2)
             loo = loo_refit(est, loo_prob, int(np.searchsorted(used_idx, i)), loss, f_scale)
             shift = np.abs(loo.x[prob.c_cols] - est.x[prob.c_cols])
             rel = np.where(np.isfinite(sd_c) & (sd_c > 0), shift / np.where(sd_c > 0, sd_c, 1), 0.0)

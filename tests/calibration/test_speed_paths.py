@@ -185,3 +185,51 @@ def test_simulated_readings_reuse_the_fits_solutions_and_match_fresh_solves(smal
     h = fresh.simulated_head(res.estimate.x)
     p = units.head_to_pressure(h - tests.elevation - tests.gauge_height)
     np.testing.assert_allclose(res.simulated, p, atol=units.head_to_pressure(1e-5))
+
+
+def test_leave_one_out_refit_keeps_the_fits_weights_with_a_prior(monkeypatch):
+    # case deletion leaves one reading out and keeps every other weight as the fit had it (Cook
+    # and Weisberg 1982, sec. 3.4): with the handbook prior and the scale from the readings'
+    # scatter (the demo town's day states no gauge accuracy), the readings' rows at s * sigma.
+    # Reference: scipy.optimize.least_squares from the fit's x with tight tolerances on the same
+    # readings at those weights.
+    import importlib
+    from pathlib import Path
+
+    from scipy import optimize
+
+    from calib.calibration import make_groups, read_tests
+    from calib.calibration.problem import CalibrationProblem
+    from calib.hydraulics import NetworkSolver
+    from calib.network.io import read_network
+
+    fitmod = importlib.import_module("calib.calibration.fit")  # the module; the package exports fit()
+    demo = Path(__file__).resolve().parents[2] / "field_samples" / "tallowmere"
+    net = read_network(demo / "network")
+    tests = read_tests(demo / "tests", net)
+    grp = make_groups(net)
+    seen = []
+    real = fitmod.loo_refit
+
+    def spy(est, problem, row, *args, **kwargs):
+        out = real(est, problem, row, *args, **kwargs)
+        seen.append((est, problem, out))
+        return out
+
+    monkeypatch.setattr(fitmod, "loo_refit", spy)
+    res = fitmod.fit(net, tests, grouping=grp)
+    assert seen and res.estimate.scaled and abs(res.estimate.s2 - 1.0) > 0.1
+    solver = NetworkSolver(net)
+    for est, problem, out in seen:
+        kept = CalibrationProblem(net, problem.tests, grp, prior=problem.prior, solver=solver)
+        kept.sigma_h = kept.sigma_h * np.sqrt(est.s2)
+        tight = dict(bounds=(kept.lower, kept.upper), method="trf", x_scale="jac", max_nfev=100,
+                     xtol=1e-12, ftol=1e-12, gtol=1e-12)
+        ref = optimize.least_squares(kept.residuals, est.x, jac=kept.jacobian, **tight)
+        cols = kept.c_cols
+        np.testing.assert_allclose(out.x[cols], ref.x[cols], atol=0.01 * float(np.min(est.sd[cols])))
+        # at the nominal 1 psi the prior counts 1/s^2 times more and the refit lands elsewhere,
+        # so the check above can tell the two apart
+        nominal = CalibrationProblem(net, problem.tests, grp, prior=problem.prior, solver=solver)
+        other = optimize.least_squares(nominal.residuals, est.x, jac=nominal.jacobian, **tight)
+        assert np.max(np.abs(other.x[cols] - ref.x[cols])) > 0.05 * float(np.min(est.sd[cols]))
