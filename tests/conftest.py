@@ -17,6 +17,9 @@ import shutil
 import subprocess
 import sys
 import time
+from pathlib import Path
+
+import pytest
 
 #: Debian/Ubuntu packages for the window tests: the X server, OpenGL through Mesa (software
 #: rendering under Xvfb), EGL/GLES that Kivy's SDL2 window loads, and mtdev for Kivy's input probe.
@@ -122,3 +125,17 @@ def pytest_unconfigure(config):
     if _xvfb is not None:
         _xvfb.terminate()
         _xvfb.wait(timeout=10)
+
+
+#: The fictional demo town and its day of flow tests (field_samples/).
+DEMO_TOWN = Path(__file__).resolve().parents[1] / "field_samples" / "tallowmere"
+
+
+@pytest.fixture(scope="session")
+def demo_day():
+    """The demo town's network and its day of tests, read once per run: ``(network, tests)``.
+    Read-only for the tests that use it."""
+    from calib.calibration import read_tests
+    from calib.network.io import read_network
+    net = read_network(DEMO_TOWN / "network")
+    return net, read_tests(DEMO_TOWN / "tests", net)

@@ -7,21 +7,15 @@ makes two leave-one-out refits), so a change that lets those refits touch anythi
 """
 
 import re
-from pathlib import Path
 
 import pytest
 
-from calib.calibration import fit, read_tests, report
-from calib.network.io import read_network
-
-ROOT = Path(__file__).resolve().parents[2]
-DEMO = ROOT / "field_samples" / "tallowmere"
+from calib.calibration import fit, report
 
 
 @pytest.fixture(scope="module")
-def demo():
-    net = read_network(DEMO / "network")
-    tests = read_tests(DEMO / "tests", net)
+def demo(demo_day):
+    net, tests = demo_day
     stages, seen, early = [], [], []
 
     def on_result(result):

@@ -187,26 +187,22 @@ def test_simulated_readings_reuse_the_fits_solutions_and_match_fresh_solves(smal
     np.testing.assert_allclose(res.simulated, p, atol=units.head_to_pressure(1e-5))
 
 
-def test_leave_one_out_refit_keeps_the_fits_weights_with_a_prior(monkeypatch):
+def test_leave_one_out_refit_keeps_the_fits_weights_with_a_prior(demo_day, monkeypatch):
     # case deletion leaves one reading out and keeps every other weight as the fit had it (Cook
     # and Weisberg 1982, sec. 3.4): with the handbook prior and the scale from the readings'
     # scatter (the demo town's day states no gauge accuracy), the readings' rows at s * sigma.
     # Reference: scipy.optimize.least_squares from the fit's x with tight tolerances on the same
     # readings at those weights.
     import importlib
-    from pathlib import Path
 
     from scipy import optimize
 
-    from calib.calibration import make_groups, read_tests
+    from calib.calibration import make_groups
     from calib.calibration.problem import CalibrationProblem
     from calib.hydraulics import NetworkSolver
-    from calib.network.io import read_network
 
     fitmod = importlib.import_module("calib.calibration.fit")  # the module; the package exports fit()
-    demo = Path(__file__).resolve().parents[2] / "field_samples" / "tallowmere"
-    net = read_network(demo / "network")
-    tests = read_tests(demo / "tests", net)
+    net, tests = demo_day
     grp = make_groups(net)
     seen = []
     real = fitmod.loo_refit

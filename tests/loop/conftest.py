@@ -10,10 +10,8 @@ DEMO = ROOT / "field_samples" / "tallowmere"
 
 
 @pytest.fixture(scope="session")
-def demo():
-    from calib.calibration import make_groups, read_tests
-    from calib.network.io import read_network
-    net = read_network(DEMO / "network")
-    tests = read_tests(DEMO / "tests", net)
+def demo(demo_day):
+    from calib.calibration import make_groups
+    net, tests = demo_day
     truth = json.loads((DEMO / "tests" / "truth.json").read_text())
     return net, tests, make_groups(net), truth
