@@ -519,11 +519,14 @@ def _loo_start(est: Estimate, problem: CalibrationProblem, row: int, loss: str) 
     """Start of the leave-one-out refit: the fit moved by the one-step case-deletion estimate, kept
     inside the bounds; the fit itself where that estimate does not apply."""
     dx = _case_deletion_step(est, row, loss)
-    if dx is None:
-        return np.asarray(est.x, float)
+    return np.asarray(est.x, float) if dx is None else _inside(problem, est.x + dx)
+
+
+def _inside(problem: CalibrationProblem, x: np.ndarray) -> np.ndarray:
+    """``x`` kept strictly inside the parameters' bounds (a start on a bound would pin it there)."""
     lo, hi = problem.lower, problem.upper
     margin = 1e-6 * (hi - lo)
-    return np.clip(est.x + dx, lo + margin, hi - margin)
+    return np.clip(x, lo + margin, hi - margin)
 
 
 def loo_refit(est: Estimate, problem: CalibrationProblem, row: int, loss: str = "linear",
@@ -582,10 +585,7 @@ def _extrapolated_start(problem: CalibrationProblem, x1: np.ndarray, step: np.nd
         if known is not None:
             known["x"], known["J"] = np.array(x1, float), J
         return x1  # near the optimum already (or no steady ratio): the fit starts here, evaluated
-    dx2 = dx2 / (1.0 - rho)
-    lo, hi = problem.lower, problem.upper
-    margin = 1e-6 * (hi - lo)
-    return np.clip(x1 + dx2, lo + margin, hi - margin)
+    return _inside(problem, x1 + dx2 / (1.0 - rho))
 
 
 def _diagnostics(est: Estimate, problem: CalibrationProblem):

@@ -238,21 +238,29 @@ class CalibrationProblem:
             warm = (previous[i] if previous is not None else self.warm.get(snap.label)
                     or (results[-1] if results else None))
             try:
-                res = self.solver.solve(snap, roughness=roughness, warm_start=warm)
+                results.append(self._solve_alone(snap, roughness, warm))
             except ConvergenceError as exc:
                 values = ", ".join(f"{p.name} = {v:.4g}" for p, v in zip(self.params, x))
                 raise CalibrationError(
                     f"the solver did not converge for snapshot '{snap.label}' at {values}: {exc}. "
                     "Check the network (closed valves, isolated areas) or narrow --c-bounds.") from exc
-            results.append(res)
-            self.warm[snap.label] = res
-            self.n_solves += 1
-            self.n_solver_calls += 1
-            self.n_iterations += res.iterations
-            if self.progress is not None:
-                self.progress(self.n_solves)
         self._cache_key, self._cache = key, results
         return results
+
+    def _kept(self, snap, res) -> None:
+        """Keep ``res`` as the last solution of ``snap`` (the next warm start) and count it."""
+        self.warm[snap.label] = res
+        self.n_solves += 1
+        if self.progress is not None:
+            self.progress(self.n_solves)
+
+    def _solve_alone(self, snap, roughness, warm):
+        """One snapshot by the solver: one call, kept and counted."""
+        res = self.solver.solve(snap, roughness=roughness, warm_start=warm)
+        self.n_solver_calls += 1
+        self.n_iterations += res.iterations
+        self._kept(snap, res)
+        return res
 
     def _solve_stacked(self, x, roughness, snaps):
         """``solve`` by stacks (snapshots outside a stack alone); None when a stacked solve fails
@@ -279,24 +287,14 @@ class CalibrationProblem:
             self.n_iterations += res.iterations
             for i, r in zip(members, parts):
                 results[i] = r
-                self.warm[snaps[i].label] = r
-                self.n_solves += 1
-                if self.progress is not None:
-                    self.progress(self.n_solves)
+                self._kept(snaps[i], r)
         alone = [i for i, r in enumerate(results) if r is None]
         for i in alone:
             warm = previous[i] if previous is not None else self.warm.get(snaps[i].label)
             try:
-                r = self.solver.solve(snaps[i], roughness=roughness, warm_start=warm)
+                results[i] = self._solve_alone(snaps[i], roughness, warm)
             except ConvergenceError:
                 return None
-            results[i] = r
-            self.warm[snaps[i].label] = r
-            self.n_solves += 1
-            self.n_solver_calls += 1
-            self.n_iterations += r.iterations
-            if self.progress is not None:
-                self.progress(self.n_solves)
         return _Solved(results, stacks=self.stacks, stacked=stacked)
 
     @property

@@ -89,13 +89,15 @@ def _curve(solver, rough, flows, heads, gauge, known=(), start=None):
         snap = loading(s)
         return [r for r in known if _same_loading(r.snapshot, snap)]
 
+    given = {s: same(s) for s in CURVE_SCALES}  # the fit's solutions among the curve's points
+
     def at(s):
-        found = same(s)
+        found = given[s] if s in given else same(s)
         solved[s] = found[0] if found else solver.solve(
             loading(s), roughness=rough, warm_start=_start_for(solved, s, start))
         return float(solved[s].pressure[gauge])
 
-    p = {s: at(s) for s in sorted(CURVE_SCALES, key=lambda v: (not same(v), -v))}
+    p = {s: at(s) for s in sorted(CURVE_SCALES, key=lambda v: (not given[v], -v))}
     tol = CURVE_TOLERANCE * max(abs(p[CURVE_SCALES[0]] - p[CURVE_SCALES[-1]]), 1e-3 * units.PSI)
     todo = list(zip(CURVE_SCALES[:-1], CURVE_SCALES[1:]))
     while todo and len(p) < 33:
