@@ -252,6 +252,12 @@ class NetworkSolver:
             results.append(last)
         return results
 
+    def forget(self) -> None:
+        """Drop what the last solves left for the next (the kept factorization that a warm solve
+        may reuse): the next solve then gives the numbers a fresh solver's would, whatever ran
+        before (``calib.parallel``: a task gives the same answer in any process, in any order)."""
+        self._factor = None
+
     def _iterate(self, resolved, rough, coef, q, active, fixed_closed, secant):
         net, nj, pat = self.network, self.nj, self.pattern
         f, t = self.link_from, self.link_to

@@ -1,0 +1,85 @@
+"""The fit's independent work on a problem, shared between processes by ``calib.parallel``.
+
+``on_problem(problem, task, items)``: ``[task(item) for item in items]`` where every task starts from
+the state ``problem`` had when called: its attributes (the last solutions and the warm starts per
+snapshot, shared with the fit's other problems, put back in place) and a solver holding no kept
+factorization. So a task's numbers do not depend on the tasks before it nor on the process that
+ran it, and the problem is left as it was, but for its counts of solves, solver calls and
+iterations, which gain every task's. Used for the profile-likelihood interval ends and the
+leave-one-out refits (a task of a few seconds on an 8,000-pipe network); the report's hydrant
+curves use ``calib.parallel`` directly with their own solver.
+"""
+
+from __future__ import annotations
+
+from calib import parallel
+
+_COUNTS = ("n_solves", "n_solver_calls", "n_iterations")
+
+
+class _Kept:
+    """The attributes of ``obj`` as they are now, to be put back: containers (dict, list, set)
+    are put back in place too, since other objects may share them (the fit's warm starts)."""
+
+    def __init__(self, obj):
+        self.obj = obj
+        self.attrs = dict(vars(obj))
+        self.contents = {name: (dict(v) if isinstance(v, dict) else list(v) if isinstance(v, list)
+                                else set(v))
+                         for name, v in self.attrs.items() if isinstance(v, (dict, list, set))}
+
+    def restore(self) -> None:
+        d = vars(self.obj)
+        for name in [k for k in d if k not in self.attrs]:
+            del d[name]
+        d.update(self.attrs)
+        for name, saved in self.contents.items():
+            v = self.attrs[name]
+            if isinstance(v, dict):
+                v.clear()
+                v.update(saved)
+            elif isinstance(v, list):
+                v[:] = saved
+            else:
+                v.clear()
+                v.update(saved)
+
+
+def forget_factors(problem) -> None:
+    """Drop the kept factorizations of ``problem``'s solver and of its stacked solvers."""
+    problem.solver.forget()
+    if problem.stacks:
+        from calib.hydraulics.stacked import stacked_solver
+        for k in sorted({len(m) for m in problem.stacks}):
+            stacked_solver(problem.solver, k).solver.forget()
+
+
+def on_problem(problem, task, items, workers: int | None = None) -> list:
+    """``[task(item) for item in items]``, each from ``problem``'s state at the call (see the module
+    docstring), run by ``calib.parallel.run`` on up to ``workers`` processes. The problem's
+    ``progress`` is told of each task's solves as the task ends (not from inside a worker)."""
+    kept = _Kept(problem)
+    progress = problem.progress
+    base = [getattr(problem, name) for name in _COUNTS]
+    added = [0, 0, 0]
+
+    def reset():
+        kept.restore()
+        forget_factors(problem)
+
+    def one(item):
+        problem.progress = None  # reported by ``done``, here
+        value = task(item)
+        return value, [getattr(problem, name) - b for name, b in zip(_COUNTS, base)]
+
+    def done(_i, out):
+        for j, d in enumerate(out[1]):
+            added[j] += d
+        if progress is not None:
+            for k in range(out[1][0]):
+                progress(base[0] + added[0] - out[1][0] + k + 1)
+
+    outs = parallel.run(one, items, reset=reset, workers=workers, done=done)
+    for name, b, d in zip(_COUNTS, base, added):
+        setattr(problem, name, b + d)
+    return [value for value, _counts in outs]

@@ -1,0 +1,240 @@
+"""Independent tasks on the machine's cores: fork-started worker processes beside this one.
+
+``run(task, items, reset=...)`` returns ``[task(item) for item in items]``, in the items' order,
+with the tasks shared out between this process and ``workers - 1`` worker processes started by
+``fork``: a worker inherits everything this process holds (a fitted problem, its solver and
+factorizations), so a task sends nothing but its item's index in and a few numbers back.
+
+The same answers whatever the number of workers: ``reset()`` is called before every task, in the
+process that runs it, to put back the state the tasks start from (warm starts, kept
+factorizations); a task then computes the same numbers here, in a worker, or after any other task.
+After ``run`` the caller's state is back where it was (``reset()`` once more), so what follows does
+not depend on which tasks ran here either.
+
+Serial, in this process, where there is one core (``os.sched_getaffinity``), no ``fork`` (Windows,
+macOS's default, the Android build), inside a worker (no nesting), for a single task, or when
+``CALIB_WORKERS=1`` says so. Errors: the first failing task's exception (in the items' order, as
+a serial run would raise it) reaches the caller with its own type and message; tasks after it are
+not started. A worker that dies without an answer has its tasks run here. Ctrl-C or an error
+stops every worker (terminated and reaped: no zombie processes).
+
+Not here: what the tasks compute (``calib.calibration.tasks`` runs the fit's).
+"""
+
+from __future__ import annotations
+
+import os
+import pickle
+import signal
+import sys
+import traceback
+
+#: Environment variable: the most processes ``run`` uses (1: serial). Unset: one per core.
+WORKERS_ENV = "CALIB_WORKERS"
+
+_in_worker = False  # True in a worker process: tasks there run serially
+
+
+def can_fork() -> bool:
+    """True where worker processes may be started by ``fork``: Linux, not the Android build (its
+    app process must not fork), not inside a worker."""
+    if _in_worker or not sys.platform.startswith("linux"):
+        return False
+    if hasattr(sys, "getandroidapilevel") or "ANDROID_ARGUMENT" in os.environ:
+        return False
+    return hasattr(os, "fork")
+
+
+def available_workers() -> int:
+    """How many processes may share independent tasks: the cores this process may run on, at most
+    ``CALIB_WORKERS`` where set; 1 where ``can_fork()`` is False."""
+    if not can_fork():
+        return 1
+    try:
+        cores = len(os.sched_getaffinity(0))
+    except (AttributeError, OSError):
+        cores = os.cpu_count() or 1
+    text = os.environ.get(WORKERS_ENV, "").strip()
+    if text:
+        try:
+            cores = min(cores, int(text))
+        except ValueError:
+            from calib.errors import InputError
+            raise InputError(f"{WORKERS_ENV}={text!r} is not a whole number", field=WORKERS_ENV,
+                             expected="a number of processes, e.g. 1 for one core") from None
+    return max(1, cores)
+
+
+def run(task, items, reset=None, workers: int | None = None, done=None) -> list:
+    """``[task(item) for item in items]``, shared out between up to ``workers`` processes (default
+    ``available_workers()``), the same list whatever that number.
+
+    ``reset()``: puts back the state every task starts from; called before each task and once at
+    the end (also after an error). ``done(index, result)``: called here as each task's result
+    arrives (in completion order), e.g. to advance a progress bar.
+    """
+    items = list(items)
+    n = available_workers() if workers is None else max(1, int(workers))
+    n = min(n, len(items))
+    if n <= 1 or not can_fork():
+        return _serial(task, items, reset, done)
+    return _forked(task, items, reset, done, n)
+
+
+def _serial(task, items, reset, done) -> list:
+    results = []
+    try:
+        for i, item in enumerate(items):
+            if reset is not None:
+                reset()
+            results.append(task(item))
+            if done is not None:
+                done(i, results[-1])
+    finally:
+        if reset is not None:
+            reset()
+    return results
+
+
+_MISSING = object()
+
+
+def _forked(task, items, reset, done, n_workers) -> list:
+    import multiprocessing
+    from multiprocessing.connection import wait
+
+    ctx = multiprocessing.get_context("fork")
+    n = len(items)
+    lock = ctx.Lock()
+    shared = ctx.RawArray("q", [0, n])  # [next task to claim, first task not to start]
+    results = [_MISSING] * n
+    errors: dict[int, BaseException] = {}
+
+    def claim():
+        with lock:
+            i = shared[0]
+            if i >= shared[1]:
+                return None
+            shared[0] = i + 1
+            return i
+
+    def stop_before(i):  # a task failed: later ones need not run (their results would be dropped)
+        with lock:
+            shared[1] = min(shared[1], i)
+
+    def keep(i, ok, value):
+        if ok:
+            results[i] = value
+            if done is not None:
+                done(i, value)
+        else:
+            errors[i] = value
+            stop_before(i)
+
+    procs, conns = [], []
+    try:
+        for _ in range(n_workers - 1):
+            recv, send = ctx.Pipe(duplex=False)
+            p = ctx.Process(target=_worker, args=(task, items, reset, claim, stop_before, send),
+                            daemon=True)
+            p.start()
+            send.close()
+            procs.append(p)
+            conns.append(recv)
+        open_conns = list(conns)
+
+        def drain(timeout):
+            for c in wait(open_conns, timeout):
+                try:
+                    keep(*c.recv())
+                except (EOFError, OSError):
+                    open_conns.remove(c)  # the worker finished (or died)
+
+        while True:  # this process takes tasks too; between them it reads what workers sent
+            i = claim()
+            if i is None:
+                break
+            if reset is not None:
+                reset()
+            try:
+                value = task(items[i])
+            except Exception as exc:
+                keep(i, False, exc)
+            else:
+                keep(i, True, value)
+            if open_conns:
+                drain(0)
+        while open_conns:
+            drain(None)
+        for p in procs:
+            p.join()
+        # a worker that died without an answer (killed, out of memory): its tasks are run here
+        first_error = min(errors, default=n)
+        for i in range(first_error):
+            if results[i] is _MISSING:
+                if reset is not None:
+                    reset()
+                try:
+                    keep(i, True, task(items[i]))
+                except Exception as exc:
+                    keep(i, False, exc)
+                    break
+        if errors:
+            raise errors[min(errors)]
+        return results
+    finally:
+        for p in procs:
+            if p.is_alive():
+                p.terminate()
+            p.join(5)
+            if p.is_alive():
+                p.kill()
+                p.join()
+            p.close()
+        for c in conns:
+            c.close()
+        if reset is not None:
+            reset()
+
+
+def _worker(task, items, reset, claim, stop_before, conn) -> None:
+    """A worker's loop: claim the next task, run it from the reset state, send ``(index, ok,
+    result or exception)``; Ctrl-C is the parent's to handle (it stops the workers)."""
+    global _in_worker
+    _in_worker = True
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    try:
+        while True:
+            i = claim()
+            if i is None:
+                return
+            if reset is not None:
+                reset()
+            try:
+                answer = (i, True, task(items[i]))
+            except Exception as exc:
+                stop_before(i)
+                answer = (i, False, _portable(exc))
+            try:
+                conn.send(answer)
+            except Exception as exc:  # a result that does not pickle
+                stop_before(i)
+                conn.send((i, False, _portable(exc)))
+    finally:
+        conn.close()
+
+
+def _portable(exc: BaseException) -> BaseException:
+    """``exc`` as it can cross to the parent: itself where it pickles back to the same type and
+    message, else a RuntimeError with its type name and message. The worker's traceback rides along
+    as a note (shown where a traceback is printed)."""
+    tb = "".join(traceback.format_exception(type(exc), exc, exc.__traceback__))
+    try:
+        back = pickle.loads(pickle.dumps(exc))
+        if type(back) is not type(exc) or str(back) != str(exc):
+            raise TypeError("changed on the way")
+    except Exception:
+        back = RuntimeError(f"{type(exc).__name__}: {exc}")
+    if hasattr(back, "add_note"):
+        back.add_note("raised in a worker process:\n" + tb)
+    return back
