@@ -1,0 +1,169 @@
+"""calib.parallel: the same results at one and several workers, the first error as a serial run
+raises it, the serial fallback, and no worker process left behind (after an error, Ctrl-C or a
+worker's death). The reference is the plain serial loop ``[task(x) for x in items]``."""
+
+import os
+import time
+
+import pytest
+
+from calib import parallel
+from calib.errors import CalibrationError, InputError
+
+needs_fork = pytest.mark.skipif(not parallel.can_fork(), reason="no fork on this platform")
+
+
+def _children() -> list[int]:
+    """Pids of this process's live children (zombies included: they are still listed)."""
+    me, out = os.getpid(), []
+    for name in os.listdir("/proc"):
+        if name.isdigit():
+            try:
+                with open(f"/proc/{name}/stat") as f:
+                    fields = f.read().rsplit(")", 1)[1].split()
+            except OSError:
+                continue
+            if int(fields[1]) == me:
+                out.append(int(name))
+    return out
+
+
+@pytest.fixture
+def no_new_children():
+    before = set(_children())
+    yield
+    left = set(_children()) - before
+    assert not left, f"worker processes left behind: {sorted(left)}"
+
+
+class State:
+    """A stand-in for a fitted problem: tasks change it; ``reset`` puts it back."""
+
+    def __init__(self):
+        self.value = 10
+
+    def task(self, x):
+        time.sleep(0.02)  # long enough for both processes to claim tasks
+        self.value += x  # a task that ran before would leave its trace here without reset
+        return self.value, os.getpid()
+
+
+@needs_fork
+@pytest.mark.parametrize("workers", [2, 3])
+def test_same_results_as_the_serial_loop_at_any_worker_count(workers, no_new_children):
+    items = list(range(1, 9))
+    s = State()
+    expected = [10 + x for x in items]  # every task from the reset state
+    done = []
+    out = parallel.run(s.task, items, reset=lambda: setattr(s, "value", 10), workers=workers,
+                       done=lambda i, r: done.append(i))
+    assert [v for v, _pid in out] == expected
+    assert len({pid for _v, pid in out}) >= 2  # the work was really shared out
+    assert sorted(done) == list(range(len(items)))  # each result reported once, here
+    assert s.value == 10  # the caller's state as it was
+    serial = parallel.run(s.task, items, reset=lambda: setattr(s, "value", 10), workers=1)
+    assert [v for v, _ in serial] == expected
+    assert {pid for _v, pid in serial} == {os.getpid()}
+
+
+def test_without_reset_the_serial_loop_carries_state():
+    # the property the reset gives is not automatic: the same tasks without it drift
+    s = State()
+    out = parallel.run(s.task, [1, 2, 3], workers=1)
+    assert [v for v, _ in out] == [11, 13, 16]
+
+
+def test_serial_fallback(monkeypatch, no_new_children):
+    monkeypatch.setenv(parallel.WORKERS_ENV, "1")
+    assert parallel.available_workers() == 1
+    out = parallel.run(lambda x: (x * x, os.getpid()), range(5))
+    assert out == [(x * x, os.getpid()) for x in range(5)]
+    monkeypatch.delenv(parallel.WORKERS_ENV)
+    monkeypatch.setattr(parallel, "can_fork", lambda: False)  # Windows, the Android build
+    assert parallel.available_workers() == 1
+    assert parallel.run(lambda x: os.getpid(), range(4), workers=2) == [os.getpid()] * 4
+
+
+def test_bad_worker_count_names_the_variable(monkeypatch):
+    if not parallel.can_fork():
+        pytest.skip("no fork: the variable is not read")
+    monkeypatch.setenv(parallel.WORKERS_ENV, "two")
+    with pytest.raises(InputError, match="CALIB_WORKERS='two' is not a whole number"):
+        parallel.available_workers()
+
+
+def _failing(x):
+    if x == 1:
+        time.sleep(0.3)  # fails last in time, first in order
+        raise CalibrationError("the solver did not converge for snapshot 'T3 residual'")
+    if x == 2:
+        raise ValueError("a later failure that a serial run never reaches")
+    time.sleep(0.02)
+    return x
+
+
+@needs_fork
+@pytest.mark.parametrize("workers", [1, 2])
+def test_first_error_reaches_the_caller_as_a_serial_run_raises_it(workers, no_new_children):
+    resets = []
+    with pytest.raises(CalibrationError) as err:
+        parallel.run(_failing, range(8), reset=lambda: resets.append(1), workers=workers)
+    assert str(err.value) == "the solver did not converge for snapshot 'T3 residual'"
+    assert resets  # the state is put back after the error too
+
+
+class Unpicklable(Exception):
+    def __init__(self, a, b):
+        super().__init__(f"{a} and {b}")
+
+
+def _unpicklable(x):
+    if parallel._in_worker:
+        raise Unpicklable("left", "right")
+    time.sleep(0.3)  # let the worker take the next task
+    return x
+
+
+@needs_fork
+def test_an_error_that_cannot_cross_keeps_its_message(no_new_children):
+    with pytest.raises(RuntimeError, match="Unpicklable: left and right"):
+        parallel.run(_unpicklable, range(4), workers=2)
+
+
+def _dies_in_worker(x):
+    if parallel._in_worker:
+        os._exit(3)  # killed, out of memory: no answer
+    time.sleep(0.05)
+    return x * 2
+
+
+@needs_fork
+def test_tasks_of_a_worker_that_died_are_run_here(no_new_children):
+    assert parallel.run(_dies_in_worker, range(6), workers=2) == [0, 2, 4, 6, 8, 10]
+
+
+def _interrupted(x):
+    if not parallel._in_worker:
+        time.sleep(0.2)  # the worker is busy in its long task by now
+        raise KeyboardInterrupt  # as Ctrl-C raises it in the main process
+    time.sleep(30)
+    return x
+
+
+@needs_fork
+def test_ctrl_c_stops_the_workers_at_once(no_new_children):
+    t0 = time.perf_counter()
+    with pytest.raises(KeyboardInterrupt):
+        parallel.run(_interrupted, range(4), workers=2)
+    assert time.perf_counter() - t0 < 4.0  # terminated: neither its 30 s task nor join's 5 s
+
+
+@needs_fork
+def test_no_nesting_inside_a_worker():
+    def task(x):
+        time.sleep(0.05)
+        return parallel.available_workers(), parallel._in_worker
+
+    out = parallel.run(task, range(6), workers=2)
+    assert all(n == 1 for n, inside in out if inside)
+    assert any(inside for _n, inside in out)
