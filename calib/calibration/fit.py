@@ -29,6 +29,7 @@ from calib.calibration.groups import Grouping, make_groups
 from calib.calibration.priors import GroupPrior, group_prior
 from calib.calibration.estimate import LSQ_TOL, PROFILE, Estimate, estimate, refine_intervals
 from calib.calibration.problem import CalibrationProblem
+from calib.calibration.tasks import on_problem
 from calib.errors import CalibrationError, InputError
 
 LOSSES = ("linear", "soft_l1", "huber", "cauchy")
@@ -439,18 +440,30 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
     if influence and n_used > p + 1:
         cand = [i for i in used_idx[np.argsort(-cook[used_idx])][:2] if cook[i] > 4.0 / n_used]
         sd_c = est.sd[prob.c_cols]
+        # the one-step estimate moves no C by a third of an sd: no flag, no refit
+        cand = [i for i in cand
+                if _loo_screen(est, prob, int(np.searchsorted(used_idx, i)), loss) >= LOO_SCREEN]
+        loo_probs = []
         for i in cand:
-            if _loo_screen(est, prob, int(np.searchsorted(used_idx, i)), loss) < LOO_SCREEN:
-                continue  # the one-step estimate moves no C by a third of an sd: no flag, no refit
-            count["stage"] = (f"leave-one-out: {tests.test_ids[tests.test[i]]} "
-                              f"{network.node_ids[tests.node[i]]}")
             mask = est.used.copy()
             mask[i] = False
             loo_prob = make(mask, x0=est.x)
             # case deletion at the fit's weights: the readings at the scale the fit settled on
             # (s * sigma), so that with a prior the readings' weight against it stays the fit's
             loo_prob.sigma_h = loo_prob.sigma_h * np.sqrt(est.s2)
-            loo = loo_refit(est, loo_prob, int(np.searchsorted(used_idx, i)), loss, f_scale)
+            loo_probs.append(loo_prob)
+
+        def announce(k):
+            i = cand[k]
+            count["stage"] = (f"leave-one-out: {tests.test_ids[tests.test[i]]} "
+                              f"{network.node_ids[tests.node[i]]}")
+
+        # independent refits: shared out between processes, each from the same state
+        # (``tasks.on_problem``), so the notes are the same on one core or several
+        refits = on_problem(loo_probs, lambda k: loo_refit(
+            est, loo_probs[k], int(np.searchsorted(used_idx, cand[k])), loss, f_scale),
+            range(len(cand)), announce=announce)
+        for i, loo in zip(cand, refits):
             shift = np.abs(loo.x[prob.c_cols] - est.x[prob.c_cols])
             rel = np.where(np.isfinite(sd_c) & (sd_c > 0), shift / np.where(sd_c > 0, sd_c, 1), 0.0)
             g = int(np.argmax(rel))

@@ -148,18 +148,29 @@ def _curves_data(result, system: str) -> dict | None:
     rough = result.roughness()
     solutions = getattr(result, "solutions", {})
     known = list(solutions.values())
+    shown = [k for k in range(min(t.n_tests, 12)) if t.flows[k] and (t.test == k).any()]
+
+    def curve(k):
+        flows = {str(net.node_ids[n]): q for n, q in t.flows[k].items()}
+        heads = {str(net.node_ids[s]): h for s, h in t.source_head[k].items()}
+        gauge = int(t.node[np.flatnonzero(t.test == k)[0]])
+        return _curve(solver, rough, flows, heads, gauge, known,
+                      solutions.get(f"{t.test_ids[k]} residual"))
+
+    # the curves are independent: shared out between processes, each from a solver holding no
+    # kept factorization (``calib.parallel``), so they come out the same on one core or several
+    from calib import parallel
+    curves = dict(zip(shown, parallel.run(curve, shown, reset=solver.forget)))
     panels = []
     for k in range(min(t.n_tests, 12)):
-        flows = {str(net.node_ids[n]): q for n, q in t.flows[k].items()}
-        sel = np.flatnonzero(t.test == k)
-        if not flows or not sel.size:
+        if k not in curves:
             panels.append(None)
             continue
+        flows = {str(net.node_ids[n]): q for n, q in t.flows[k].items()}
+        sel = np.flatnonzero(t.test == k)
         gauge = int(t.node[sel[0]])
-        heads = {str(net.node_ids[s]): h for s, h in t.source_head[k].items()}
         total = sum(flows.values())
-        start = solutions.get(f"{t.test_ids[k]} residual")
-        scales, p = _curve(solver, rough, flows, heads, gauge, known, start)
+        scales, p = curves[k]
         gh = units.head_to_pressure(t.gauge_height[sel[0]])
         readings = [(units.from_si(0.0 if t.kind[i] == "static" else total, "flow", fu),
                      float(units.from_si(t.pressure[i], "pressure", pu)), bool(result.flag[i]))

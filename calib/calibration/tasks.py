@@ -54,32 +54,44 @@ def forget_factors(problem) -> None:
             stacked_solver(problem.solver, k).solver.forget()
 
 
-def on_problem(problem, task, items, workers: int | None = None) -> list:
+def on_problem(problem, task, items, workers: int | None = None, announce=None) -> list:
     """``[task(item) for item in items]``, each from ``problem``'s state at the call (see the module
-    docstring), run by ``calib.parallel.run`` on up to ``workers`` processes. The problem's
-    ``progress`` is told of each task's solves as the task ends (not from inside a worker)."""
-    kept = _Kept(problem)
-    progress = problem.progress
-    base = [getattr(problem, name) for name in _COUNTS]
-    added = [0, 0, 0]
+    docstring), run by ``calib.parallel.run`` on up to ``workers`` processes. ``problem`` may be a
+    list of problems (e.g. one per leave-one-out refit, sharing warm starts and a solver): each
+    keeps its own counts. Each problem's ``progress`` is told of a task's solves when the task
+    ends, here (not from inside a worker), after ``announce(index)`` where given."""
+    problems = list(problem) if isinstance(problem, (list, tuple)) else [problem]
+    kept = [_Kept(p) for p in problems]
+    progress = [p.progress for p in problems]
+    base = [[getattr(p, name) for name in _COUNTS] for p in problems]
+    added = [[0] * len(_COUNTS) for _ in problems]
 
     def reset():
-        kept.restore()
-        forget_factors(problem)
+        for k in kept:
+            k.restore()
+        for p in problems:
+            forget_factors(p)
 
     def one(item):
-        problem.progress = None  # reported by ``done``, here
+        for p in problems:
+            p.progress = None  # reported by ``done``, here
         value = task(item)
-        return value, [getattr(problem, name) - b for name, b in zip(_COUNTS, base)]
+        return value, [[getattr(p, name) - b for name, b in zip(_COUNTS, b0)]
+                       for p, b0 in zip(problems, base)]
 
-    def done(_i, out):
-        for j, d in enumerate(out[1]):
-            added[j] += d
-        if progress is not None:
-            for k in range(out[1][0]):
-                progress(base[0] + added[0] - out[1][0] + k + 1)
+    def done(i, out):
+        if announce is not None:
+            announce(i)
+        for j, deltas in enumerate(out[1]):
+            n0 = base[j][0] + added[j][0]
+            for c, d in enumerate(deltas):
+                added[j][c] += d
+            if progress[j] is not None:
+                for k in range(deltas[0]):
+                    progress[j](n0 + k + 1)
 
     outs = parallel.run(one, items, reset=reset, workers=workers, done=done)
-    for name, b, d in zip(_COUNTS, base, added):
-        setattr(problem, name, b + d)
+    for p, b0, a in zip(problems, base, added):
+        for name, b, d in zip(_COUNTS, b0, a):
+            setattr(p, name, b + d)
     return [value for value, _counts in outs]

@@ -91,3 +91,27 @@ def test_a_solver_that_forgot_gives_a_fresh_solvers_numbers():
     again = used.solve(b, warm_start=start)
     assert not np.array_equal(kept.head, fresh.head)  # what the reset is for
     assert np.array_equal(again.head, fresh.head) and np.array_equal(again.flow, fresh.flow)
+
+
+@needs_fork
+def test_the_demo_fit_and_its_report_data_bit_identical_at_one_and_two_workers(demo_day, monkeypatch):
+    # the whole pipeline on the demo town: profile checks, two leave-one-out refits (their notes),
+    # the report's hydrant curves; every number compared bit for bit
+    from calib.calibration import fit, report
+
+    net, tests = demo_day
+    out = {}
+    for workers in ("1", "2"):
+        monkeypatch.setenv(parallel.WORKERS_ENV, workers)
+        stages = []
+        result = fit(net, tests, progress=lambda n, stage: stages.append(stage))
+        curves = report._curves_data(result, "us")
+        est = result.estimate
+        out[workers] = dict(
+            ends=(est.x.tobytes(), est.low.tobytes(), est.high.tobytes()),
+            influence=list(result.influence), n_solves=result.n_solves, stages=stages,
+            curves=[None if p is None else (p["flow"].tobytes(), p["pressure"].tobytes())
+                    for p in curves["panels"]])
+    assert any(out["1"]["influence"])  # the case does refit and note
+    assert sum(p is not None for p in out["1"]["curves"]) >= 2
+    assert out["1"] == out["2"]
