@@ -35,6 +35,11 @@ WORKERS_ENV = "CALIB_WORKERS"
 _in_worker = False  # True in a worker process: tasks there run serially
 
 
+def in_worker() -> bool:
+    """True inside a worker process of ``run``."""
+    return _in_worker
+
+
 def can_fork() -> bool:
     """True where worker processes may be started by ``fork``: Linux, not the Android build (its
     app process must not fork), not inside a worker."""

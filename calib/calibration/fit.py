@@ -458,11 +458,15 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
             count["stage"] = (f"leave-one-out: {tests.test_ids[tests.test[i]]} "
                               f"{network.node_ids[tests.node[i]]}")
 
+
         # independent refits: shared out between processes, each from the same state
         # (``tasks.on_problem``), so the notes are the same on one core or several
-        refits = on_problem(loo_probs, lambda k: loo_refit(
-            est, loo_probs[k], int(np.searchsorted(used_idx, cand[k])), loss, f_scale),
-            range(len(cand)), announce=announce)
+        def refit_one(k):
+            announce(k)
+            return loo_refit(est, loo_probs[k], int(np.searchsorted(used_idx, cand[k])), loss,
+                             f_scale)
+
+        refits = on_problem(loo_probs, refit_one, range(len(cand)), announce=announce)
         for i, loo in zip(cand, refits):
             shift = np.abs(loo.x[prob.c_cols] - est.x[prob.c_cols])
             rel = np.where(np.isfinite(sd_c) & (sd_c > 0), shift / np.where(sd_c > 0, sd_c, 1), 0.0)

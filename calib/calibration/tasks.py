@@ -58,8 +58,8 @@ def on_problem(problem, task, items, workers: int | None = None, announce=None) 
     """``[task(item) for item in items]``, each from ``problem``'s state at the call (see the module
     docstring), run by ``calib.parallel.run`` on up to ``workers`` processes. ``problem`` may be a
     list of problems (e.g. one per leave-one-out refit, sharing warm starts and a solver): each
-    keeps its own counts. Each problem's ``progress`` is told of a task's solves when the task
-    ends, here (not from inside a worker), after ``announce(index)`` where given."""
+    keeps its own counts. Each problem's ``progress`` hears of the solves of a task run here as
+    they come, of a worker's when its task ends (after ``announce(index)`` where given)."""
     problems = list(problem) if isinstance(problem, (list, tuple)) else [problem]
     kept = [_Kept(p) for p in problems]
     progress = [p.progress for p in problems]
@@ -73,25 +73,28 @@ def on_problem(problem, task, items, workers: int | None = None, announce=None) 
             forget_factors(p)
 
     def one(item):
-        for p in problems:
-            p.progress = None  # reported by ``done``, here
+        worker = parallel.in_worker()
+        if worker:
+            for p in problems:
+                p.progress = None  # reported by ``done``, here, when the task ends
         value = task(item)
         return value, [[getattr(p, name) - b for name, b in zip(_COUNTS, b0)]
-                       for p, b0 in zip(problems, base)]
+                       for p, b0 in zip(problems, base)], worker
 
     def done(i, out):
-        if announce is not None:
+        value, deltas, worker = out
+        if worker and announce is not None:
             announce(i)
-        for j, deltas in enumerate(out[1]):
+        for j, d in enumerate(deltas):
             n0 = base[j][0] + added[j][0]
-            for c, d in enumerate(deltas):
-                added[j][c] += d
-            if progress[j] is not None:
-                for k in range(deltas[0]):
+            for c, dc in enumerate(d):
+                added[j][c] += dc
+            if worker and progress[j] is not None:  # solves here were reported as they came
+                for k in range(d[0]):
                     progress[j](n0 + k + 1)
 
     outs = parallel.run(one, items, reset=reset, workers=workers, done=done)
     for p, b0, a in zip(problems, base, added):
         for name, b, d in zip(_COUNTS, b0, a):
             setattr(p, name, b + d)
-    return [value for value, _counts in outs]
+    return [value for value, _counts, _worker in outs]
