@@ -12,8 +12,8 @@ After ``run`` the caller's state is back where it was (``reset()`` once more), s
 not depend on which tasks ran here either.
 
 Serial, in this process, where there is one core (``os.sched_getaffinity``), no ``fork`` (Windows,
-macOS's default, the Android build), inside a worker (no nesting), for a single task, or when
-``CALIB_WORKERS=1`` says so. Errors: the first failing task's exception (in the items' order, as
+macOS's default, the Android build), off the main thread (the app's background work), inside a
+worker (no nesting), for a single task, or when ``CALIB_WORKERS=1`` says so. Errors: the first failing task's exception (in the items' order, as
 a serial run would raise it) reaches the caller with its own type and message; tasks after it are
 not started. A worker that dies without an answer has its tasks run here. Ctrl-C or an error
 stops every worker (terminated and reaped: no zombie processes).
@@ -27,6 +27,7 @@ import os
 import pickle
 import signal
 import sys
+import threading
 import traceback
 
 #: Environment variable: the most processes ``run`` uses (1: serial). Unset: one per core.
@@ -42,8 +43,11 @@ def in_worker() -> bool:
 
 def can_fork() -> bool:
     """True where worker processes may be started by ``fork``: Linux, not the Android build (its
-    app process must not fork), not inside a worker."""
+    app process must not fork), not inside a worker, and from the main thread only (an app's
+    background thread runs its work serially: a fork copies one thread of a busy process)."""
     if _in_worker or not sys.platform.startswith("linux"):
+        return False
+    if threading.current_thread() is not threading.main_thread():
         return False
     if hasattr(sys, "getandroidapilevel") or "ANDROID_ARGUMENT" in os.environ:
         return False

@@ -7,7 +7,7 @@ import html
 
 import numpy as np
 
-from calib import units
+from calib import parallel, units
 from calib.errors import CalibError
 from calib.fireflow.scan import FireFlowScan, GroupCovariance
 
@@ -29,6 +29,14 @@ def flowed_hydrants(result) -> list[str]:
     return list(dict.fromkeys(str(ids[i]) for flows in result.tests.flows for i in flows))
 
 
+def _fresh(scan) -> None:
+    """The scan as a hydrant finds it first: no neighbour's held solve, no kept factorization; the
+    hydrants are shared out between processes (``calib.parallel``), each from this state, so the
+    table is the same on one core or several."""
+    scan.reset()
+    scan.solver.forget()
+
+
 def html_section(result, system: str = "us", limit: int = 12) -> str:
     """``<h2>Fire flow ...</h2>`` with a table for the flowed hydrants (at most ``limit``)."""
     e = html.escape
@@ -43,7 +51,7 @@ def html_section(result, system: str = "us", limit: int = 12) -> str:
     try:
         scan = FireFlowScan(result.network, roughness=result.roughness(),
                             covariance=covariance_of(result))
-        flows = [scan.hydrant(n) for n in nodes]
+        flows = parallel.run(scan.hydrant, nodes, reset=lambda: _fresh(scan))
     except CalibError as exc:
         return head + f"<p>Not computed: {e(str(exc))}</p>"
     q = lambda v: f"{units.from_si(v, 'flow', fu):.0f}" if np.isfinite(v) else "-"  # noqa: E731

@@ -98,8 +98,9 @@ def test_a_solver_that_forgot_gives_a_fresh_solvers_numbers():
 @needs_fork
 def test_the_demo_fit_and_its_report_data_bit_identical_at_one_and_two_workers(demo_day, monkeypatch):
     # the whole pipeline on the demo town: profile checks, two leave-one-out refits (their notes),
-    # the report's hydrant curves; every number compared bit for bit
+    # the report's hydrant curves and fire-flow table; every number compared bit for bit
     from calib.calibration import fit, report
+    from calib.fireflow.fitsummary import html_section
 
     net, tests = demo_day
     out = {}
@@ -108,13 +109,15 @@ def test_the_demo_fit_and_its_report_data_bit_identical_at_one_and_two_workers(d
         stages = []
         result = fit(net, tests, progress=lambda n, stage: stages.append(stage))
         curves = report._curves_data(result, "us")
+        fire = html_section(result, "us")
         est = result.estimate
         out[workers] = dict(
             ends=(est.x.tobytes(), est.low.tobytes(), est.high.tobytes()),
             influence=list(result.influence), n_solves=result.n_solves,
             stages=Counter(stages),  # every solve reported once, in any order
-            curves=[None if p is None else (p["flow"].tobytes(), p["pressure"].tobytes())
+            fire=fire, curves=[None if p is None else (p["flow"].tobytes(), p["pressure"].tobytes())
                     for p in curves["panels"]])
     assert any(out["1"]["influence"])  # the case does refit and note
     assert sum(p is not None for p in out["1"]["curves"]) >= 2
+    assert out["1"]["fire"].count("<tr>") >= 3  # a few hydrants in the table
     assert out["1"] == out["2"]

@@ -84,6 +84,18 @@ def test_serial_fallback(monkeypatch, no_new_children):
     assert parallel.run(lambda x: os.getpid(), range(4), workers=2) == [os.getpid()] * 4
 
 
+def test_serial_off_the_main_thread(no_new_children):
+    # an app's background thread: no fork of a process whose other threads may hold locks
+    import threading
+
+    out = []
+    t = threading.Thread(target=lambda: out.extend(parallel.run(lambda x: os.getpid(), range(4),
+                                                                workers=2)))
+    t.start()
+    t.join()
+    assert out == [os.getpid()] * 4
+
+
 def test_bad_worker_count_names_the_variable(monkeypatch):
     if not parallel.can_fork():
         pytest.skip("no fork: the variable is not read")
