@@ -121,3 +121,33 @@ def test_the_demo_fit_and_its_report_data_bit_identical_at_one_and_two_workers(d
     assert sum(p is not None for p in out["1"]["curves"]) >= 2
     assert out["1"]["fire"].count("<tr>") >= 3  # a few hydrants in the table
     assert out["1"] == out["2"]
+
+
+
+@needs_fork
+def test_an_error_in_a_refit_reads_the_same_from_a_worker(tmp_path, capsys, monkeypatch):
+    # ``calib fit`` on the demo town with its leave-one-out refits failing (at two workers one of
+    # them fails in a worker): the same exit code and message as on one core, naming the first
+    # refit's reading as a serial run does
+    import importlib
+    from pathlib import Path
+
+    from calib.cli import main
+    from calib.errors import CalibrationError
+
+    fitmod = importlib.import_module("calib.calibration.fit")
+
+    def failing(est, problem, row, *args, **kwargs):
+        raise CalibrationError(f"the solver did not converge in the refit without row {row}")
+
+    monkeypatch.setattr(fitmod, "loo_refit", failing)
+    demo = Path(__file__).resolve().parents[2] / "field_samples" / "tallowmere"
+    seen = {}
+    for workers in ("1", "2"):
+        monkeypatch.setenv(parallel.WORKERS_ENV, workers)
+        code = main(["fit", str(demo / "network"), str(demo / "tests"), "--out",
+                     str(tmp_path / workers), "--no-report", "--quiet"])
+        err = capsys.readouterr().err
+        seen[workers] = (code, [ln for ln in err.splitlines() if "did not converge" in ln])
+    assert seen["1"][0] != 0 and len(seen["1"][1]) == 1
+    assert seen["1"] == seen["2"], seen
