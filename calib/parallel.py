@@ -13,10 +13,14 @@ not depend on which tasks ran here either.
 
 Serial, in this process, where there is one core (``os.sched_getaffinity``), no ``fork`` (Windows,
 macOS's default, the Android build), off the main thread (the app's background work), inside a
-worker (no nesting), for a single task, or when ``CALIB_WORKERS=1`` says so. Errors: the first failing task's exception (in the items' order, as
+worker (no nesting) or a daemonic process (a Dask worker's), for a single task, or when
+``CALIB_WORKERS=1`` says so. Errors: the first failing task's exception (in the items' order, as
 a serial run would raise it) reaches the caller with its own type and message; tasks after it are
 not started. A worker that dies without an answer has its tasks run here. Ctrl-C or an error
 stops every worker (terminated and reaped: no zombie processes).
+
+Which work is worth a worker is the caller's choice (``workers=``): a fork and a worker's start
+cost about 15-25 ms here, and a task's result crosses back as a pickle.
 
 Not here: what the tasks compute (``calib.calibration.tasks`` runs the fit's).
 """
@@ -48,6 +52,9 @@ def can_fork() -> bool:
     if _in_worker or not sys.platform.startswith("linux"):
         return False
     if threading.current_thread() is not threading.main_thread():
+        return False
+    from multiprocessing import process
+    if process.current_process().daemon:  # e.g. a Dask worker process: it may have no children
         return False
     if hasattr(sys, "getandroidapilevel") or "ANDROID_ARGUMENT" in os.environ:
         return False

@@ -179,3 +179,20 @@ def test_no_nesting_inside_a_worker():
     out = parallel.run(task, range(6), workers=2)
     assert all(n == 1 for n, inside in out if inside)
     assert any(inside for _n, inside in out)
+
+
+def _in_daemon(queue):
+    queue.put(parallel.run(lambda x: os.getpid(), range(3), workers=2) == [os.getpid()] * 3)
+
+
+@needs_fork
+def test_serial_inside_a_daemonic_process():
+    # a daemonic process (a Dask worker's, a multiprocessing pool's) may not start children
+    import multiprocessing
+
+    ctx = multiprocessing.get_context("fork")
+    queue = ctx.Queue()
+    p = ctx.Process(target=_in_daemon, args=(queue,), daemon=True)
+    p.start()
+    assert queue.get(timeout=30) is True
+    p.join()
