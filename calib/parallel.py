@@ -148,6 +148,7 @@ def _forked(task, items, reset, done, n_workers) -> list:
             stop_before(i)
 
     procs, conns = [], []
+    mine = claim()  # the first task is this process's: it starts (and reports) first, as serially
     try:
         for _ in range(n_workers - 1):
             recv, send = ctx.Pipe(duplex=False)
@@ -167,7 +168,7 @@ def _forked(task, items, reset, done, n_workers) -> list:
                     open_conns.remove(c)  # the worker finished (or died)
 
         while True:  # this process takes tasks too; between them it reads what workers sent
-            i = claim()
+            i, mine = (mine, None) if mine is not None else (claim(), None)
             if i is None:
                 break
             if reset is not None:

@@ -382,18 +382,22 @@ def refine_intervals(problem, est: Estimate, columns) -> Estimate:
     low_open = np.isclose(low, problem.lower) & ~np.isfinite(est.sd)
     high_open = np.isclose(high, problem.upper) & ~np.isfinite(est.sd)
     method = list(est.method) or [LINEARIZED] * len(est.x)
-    profiled = [int(i) for i in columns if not linear_trustworthy(problem, est, int(i), cut)]
-    # the ends are independent: shared out between processes, each from the same state of the
+
+    def column(i):
+        """None where the linearized interval stands, else both profile ends of parameter ``i``."""
+        if linear_trustworthy(problem, est, i, cut):
+            return None
+        return _profile_end(problem, est, i, -1.0, cut), _profile_end(problem, est, i, +1.0, cut)
+
+    # the columns are independent: shared out between processes, each from the same state of the
     # problem (``tasks.on_problem``), so they come out the same on one core or several
-    ends = [(i, d) for i in profiled for d in (-1.0, 1.0)]
-    found = on_problem(problem, lambda end: _profile_end(problem, est, end[0], end[1], cut), ends)
+    columns = [int(i) for i in columns]
     fits = 0
-    for (i, d), (value, is_open, points) in zip(ends, found):
-        if d < 0:
-            low[i], low_open[i] = value, is_open
-        else:
-            high[i], high_open[i] = value, is_open
-        fits += points
+    for i, ends in zip(columns, on_problem(problem, column, columns)):
+        if ends is None:
+            continue
+        (low[i], low_open[i], f1), (high[i], high_open[i], f2) = ends
+        fits += f1 + f2
         method[i] = PROFILE
     est.low, est.high, est.low_open, est.high_open = low, high, low_open, high_open
     est.method, est.n_profile_fits = method, fits
