@@ -40,6 +40,23 @@ WORKERS_ENV = "CALIB_WORKERS"
 _in_worker = False  # True in a worker process: tasks there run serially
 
 
+#: Networks below this many pipes keep their tasks in one process unless ``CALIB_WORKERS`` says
+#: otherwise: a task there lasts tens of ms (the demo town's 531 pipes: a hydrant curve 15 ms, a
+#: leave-one-out refit 50-100 ms) against 15-25 ms to fork a worker, and ``calib fit``'s figure
+#: worker draws on the second core during those phases. Measured on the demo town (in-process,
+#: medians of 8, load 2.2): curves and fire-flow rows 0.35 s serial, 0.39 s at two workers; the
+#: fit with its refits 1.19 s either way. The 7,938-pipe grid gains (benchmarks/README.md, "E").
+MIN_PIPES = 2_000
+
+
+def workers_for(network) -> int | None:
+    """``run``'s ``workers`` for tasks on ``network``: 1 below ``MIN_PIPES`` pipes, else None (as
+    many as ``available_workers``); None wherever ``CALIB_WORKERS`` is set (it decides)."""
+    if os.environ.get(WORKERS_ENV, "").strip():
+        return None
+    return 1 if network.n_pipes < MIN_PIPES else None
+
+
 def in_worker() -> bool:
     """True inside a worker process of ``run``."""
     return _in_worker

@@ -160,7 +160,8 @@ def _curves_data(result, system: str) -> dict | None:
     # the curves are independent: shared out between processes, each from a solver holding no
     # kept factorization (``calib.parallel``), so they come out the same on one core or several
     from calib import parallel
-    curves = dict(zip(shown, parallel.run(curve, shown, reset=solver.forget)))
+    curves = dict(zip(shown, parallel.run(curve, shown, reset=solver.forget,
+                                           workers=parallel.workers_for(net))))
     panels = []
     for k in range(min(t.n_tests, 12)):
         if k not in curves:

@@ -56,7 +56,8 @@ def forget_factors(problem) -> None:
 
 def on_problem(problem, task, items, workers: int | None = None, announce=None) -> list:
     """``[task(item) for item in items]``, each from ``problem``'s state at the call (see the module
-    docstring), run by ``calib.parallel.run`` on up to ``workers`` processes. ``problem`` may be a
+    docstring), run by ``calib.parallel.run`` on up to ``workers`` processes (default
+    ``parallel.workers_for`` the problem's network). ``problem`` may be a
     list of problems (e.g. one per leave-one-out refit, sharing warm starts and a solver): each
     keeps its own counts. Each problem's ``progress`` hears of the solves of a task run here as
     they come, of a worker's when its task ends (after ``announce(index)`` where given)."""
@@ -93,6 +94,8 @@ def on_problem(problem, task, items, workers: int | None = None, announce=None) 
                 for k in range(d[0]):
                     progress[j](n0 + k + 1)
 
+    if workers is None:
+        workers = parallel.workers_for(problems[0].network)
     outs = parallel.run(one, items, reset=reset, workers=workers, done=done)
     for p, b0, a in zip(problems, base, added):
         for name, b, d in zip(_COUNTS, b0, a):

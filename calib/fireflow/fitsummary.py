@@ -51,7 +51,8 @@ def html_section(result, system: str = "us", limit: int = 12) -> str:
     try:
         scan = FireFlowScan(result.network, roughness=result.roughness(),
                             covariance=covariance_of(result))
-        flows = parallel.run(scan.hydrant, nodes, reset=lambda: _fresh(scan))
+        flows = parallel.run(scan.hydrant, nodes, reset=lambda: _fresh(scan),
+                             workers=parallel.workers_for(result.network))
     except CalibError as exc:
         return head + f"<p>Not computed: {e(str(exc))}</p>"
     q = lambda v: f"{units.from_si(v, 'flow', fu):.0f}" if np.isfinite(v) else "-"  # noqa: E731

@@ -196,3 +196,13 @@ def test_serial_inside_a_daemonic_process():
     p.start()
     assert queue.get(timeout=30) is True
     p.join()
+
+
+def test_small_networks_stay_in_one_process_unless_told(monkeypatch):
+    from types import SimpleNamespace
+
+    monkeypatch.delenv(parallel.WORKERS_ENV, raising=False)
+    assert parallel.workers_for(SimpleNamespace(n_pipes=531)) == 1  # the demo town's size
+    assert parallel.workers_for(SimpleNamespace(n_pipes=7_938)) is None  # the cores decide
+    monkeypatch.setenv(parallel.WORKERS_ENV, "2")
+    assert parallel.workers_for(SimpleNamespace(n_pipes=531)) is None  # the variable decides
