@@ -1,9 +1,10 @@
 """``calib fit`` with its report at one and two workers, against a reference tree (run by hand).
 
-    python benchmarks/parallel.py [--base /tmp/main_base] [--repeats 3] [--cases demo,grid]
+    python benchmarks/parallel.py [--base /tmp/main_base] [--repeats 3] [--cases demo,grid] [--default]
 
 Runs, interleaved in each repeat so that all see the same load: the base tree (as it is), this
-tree with ``CALIB_WORKERS=1`` (serial) and this tree with ``CALIB_WORKERS=2``. Prints per case the
+tree with ``CALIB_WORKERS=1`` (serial) and this tree with ``CALIB_WORKERS=2`` (two workers even
+below ``calib.parallel.MIN_PIPES``), and with ``--default`` this tree without the variable. Prints per case the
 median wall and CPU time (the command with its children: the report's figure worker and the fit's
 worker processes) and the median of each phase line the command writes off a terminal
 (``interval checks ...: 651 solves, 9.0 s``), with the solve counts, and the load average before
@@ -56,6 +57,7 @@ def main(argv=None) -> int:
     ap.add_argument("--repeats", type=int, default=3)
     ap.add_argument("--cases", default="demo,grid")
     ap.add_argument("--grid", default=None)
+    ap.add_argument("--default", action="store_true", help="also this tree without CALIB_WORKERS")
     args = ap.parse_args(argv)
     tmp = Path(tempfile.mkdtemp(prefix="calib-parallel-"))
     cases = {}
@@ -71,6 +73,8 @@ def main(argv=None) -> int:
             cases["grid"] = write_grid_case(tmp / "grid")
     variants = [("base", Path(args.base), None), ("this, 1 worker", HERE, "1"),
                 ("this, 2 workers", HERE, "2")]
+    if args.default:  # what a user gets: the cores decide, small networks stay serial
+        variants.append(("this, default", HERE, None))
     print("load before:", os.getloadavg())
     for case, (network, tests) in cases.items():
         seen = {name: [] for name, _c, _w in variants}
