@@ -62,6 +62,9 @@ def on_problem(problem, task, items, workers: int | None = None, announce=None) 
     keeps its own counts. Each problem's ``progress`` hears of the solves of a task run here as
     they come, of a worker's when its task ends (after ``announce(index)`` where given)."""
     problems = list(problem) if isinstance(problem, (list, tuple)) else [problem]
+    items = list(items)
+    if not items:
+        return []
     kept = [_Kept(p) for p in problems]
     progress = [p.progress for p in problems]
     base = [[getattr(p, name) for name in _COUNTS] for p in problems]

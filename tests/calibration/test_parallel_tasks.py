@@ -149,3 +149,8 @@ def test_an_error_in_a_refit_reads_the_same_from_a_worker(tmp_path, capsys, monk
         seen[workers] = (code, [ln for ln in err.splitlines() if "did not converge" in ln])
     assert seen["1"][0] != 0 and len(seen["1"][1]) == 1
     assert seen["1"] == seen["2"], seen
+
+
+def test_no_tasks_no_problems():
+    # a fit without leave-one-out candidates hands an empty list of refits
+    assert on_problem([], lambda k: k, []) == []
