@@ -36,6 +36,30 @@ def no_new_children():
     assert not left, f"worker processes left behind: {sorted(left)}"
 
 
+_worker_busy = None  # an Event made before the fork: set by a worker as it takes a task
+
+
+@pytest.fixture
+def worker_busy():
+    """The parent's tasks wait (up to 10 s) until a worker has taken one, so that a slow fork
+    (a loaded machine, a large test process) cannot leave every task to the parent."""
+    global _worker_busy
+    import multiprocessing
+    _worker_busy = multiprocessing.get_context("fork").Event()
+    yield
+    _worker_busy = None
+
+
+def _meet():
+    """In a worker: say it is busy; here: wait for that."""
+    if _worker_busy is None:
+        return
+    if parallel.in_worker():
+        _worker_busy.set()
+    else:
+        _worker_busy.wait(10)
+
+
 class State:
     """A stand-in for a fitted problem: tasks change it; ``reset`` puts it back."""
 
@@ -43,14 +67,16 @@ class State:
         self.value = 10
 
     def task(self, x):
-        time.sleep(0.02)  # long enough for both processes to claim tasks
+        _meet()
+        time.sleep(0.02)
         self.value += x  # a task that ran before would leave its trace here without reset
         return self.value, os.getpid()
 
 
 @needs_fork
 @pytest.mark.parametrize("workers", [2, 3])
-def test_same_results_as_the_serial_loop_at_any_worker_count(workers, no_new_children):
+def test_same_results_as_the_serial_loop_at_any_worker_count(workers, no_new_children,
+                                                               worker_busy):
     items = list(range(1, 9))
     s = State()
     expected = [10 + x for x in items]  # every task from the reset state
@@ -130,14 +156,14 @@ class Unpicklable(Exception):
 
 
 def _unpicklable(x):
+    _meet()
     if parallel._in_worker:
         raise Unpicklable("left", "right")
-    time.sleep(0.3)  # let the worker take the next task
     return x
 
 
 @needs_fork
-def test_an_error_that_cannot_cross_keeps_its_message(no_new_children):
+def test_an_error_that_cannot_cross_keeps_its_message(no_new_children, worker_busy):
     with pytest.raises(RuntimeError, match="Unpicklable: left and right"):
         parallel.run(_unpicklable, range(4), workers=2)
 
@@ -155,15 +181,16 @@ def test_tasks_of_a_worker_that_died_are_run_here(no_new_children):
 
 
 def _interrupted(x):
+    _meet()
     if not parallel._in_worker:
-        time.sleep(0.2)  # the worker is busy in its long task by now
+        time.sleep(0.1)  # the worker is in its long task by now
         raise KeyboardInterrupt  # as Ctrl-C raises it in the main process
     time.sleep(30)
     return x
 
 
 @needs_fork
-def test_ctrl_c_stops_the_workers_at_once(no_new_children):
+def test_ctrl_c_stops_the_workers_at_once(no_new_children, worker_busy):
     t0 = time.perf_counter()
     with pytest.raises(KeyboardInterrupt):
         parallel.run(_interrupted, range(4), workers=2)
@@ -171,9 +198,9 @@ def test_ctrl_c_stops_the_workers_at_once(no_new_children):
 
 
 @needs_fork
-def test_no_nesting_inside_a_worker():
+def test_no_nesting_inside_a_worker(worker_busy):
     def task(x):
-        time.sleep(0.05)
+        _meet()
         return parallel.available_workers(), parallel._in_worker
 
     out = parallel.run(task, range(6), workers=2)
