@@ -109,3 +109,25 @@ def test_a_profile_end_starts_at_the_point_its_check_solved_and_ends_where_a_fre
     fresh.sigma_h = prob.sigma_h
     ref, _reaches, _points = _profile_end(fresh, est, 0, -1.0, cut)
     assert end == pytest.approx(ref, abs=1e-4 * est.t * est.sd[0])
+
+
+def test_the_fits_solver_tolerances_give_the_answers_of_a_tight_solver(demo_day):
+    # the fit's own solver stops at heads to 0.1 mm (FIT_TOLERANCES); Newton's quadratic
+    # convergence leaves the returned heads far closer than that. Reference: the same fit of the
+    # demo town (every phase: fit, the refit without its gross error, interval checks,
+    # leave-one-out) with a solver at 1e-10 m / 1e-12
+    from calib.calibration import fit
+    from calib.calibration.fit import FIT_TOLERANCES
+    from calib.hydraulics import NetworkSolver
+
+    net, tests = demo_day
+    assert FIT_TOLERANCES["head_tol"] > NetworkSolver(net).head_tol
+    ours = fit(net, tests)
+    tight = NetworkSolver(net, headloss="hazen-williams", head_tol=1e-10, energy_tol=1e-10,
+                          flow_tol=1e-12, mass_tol=1e-12)
+    ref = fit(net, tests, solver=tight)
+    assert ours.first is not None and any(ours.influence)  # the refit and leave-one-out ran
+    assert ours.flag == ref.flag and ours.influence == ref.influence
+    for a, b in ((ours.estimate.x, ref.estimate.x), (ours.estimate.low, ref.estimate.low),
+                 (ours.estimate.high, ref.estimate.high), (ours.simulated, ref.simulated)):
+        np.testing.assert_allclose(a, b, rtol=0, atol=1e-6 * max(1.0, float(np.max(np.abs(b)))))
