@@ -49,10 +49,10 @@ class _Solved(list):
         self.dH = None
 
 
-#: Solutions kept per fit (``_Recent``): the points a least-squares fit or a profile search comes
-#: back to are the last two or three (a fit's final x after a rejected trial step, a profile
-#: point's start that its refit begins from); more would hold a few MB each on 8k pipes for no hit.
-RECENT_KEPT = 4
+#: Solutions kept per fit (``_Recent``): a least-squares fit comes back to the point before its
+#: last, rejected, trial step; points further back are handed on by the callers that need them
+#: (``recall``). Each holds every snapshot's solution: on large networks many would weigh.
+RECENT_KEPT = 2
 
 
 class _Recent:
