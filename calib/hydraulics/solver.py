@@ -117,6 +117,9 @@ class NetworkSolver:
         self.viscosity = float(viscosity)
         self.reuse_factor = reuse_factor and not dense
         self._reach_cache = Memo()
+        #: a stack of copies (``stacked.StackedNetwork``) whose every copy meeting its own
+        #: tolerances also ends the iteration (``settled``); None for one network
+        self.copies = None
         self._factor = None
         #: factorizations kept beside solutions: result key -> _KeptFactor (least recently used
         #: first). A warm start from a solution starts from its factor; the sensitivities at a
@@ -388,8 +391,11 @@ class NetworkSolver:
             e2 = float(np.abs(F2).max(initial=0.0))
             q_ref = max(total_demand, float(np.abs(q).max(initial=0.0)), self.q_eps)
             self.trace.append((dq_max / q_ref, dh_max, e1, e2))
-            if (it > 0 and not changed and dq_max <= self.flow_tol * q_ref
-                    and dh_max <= self.head_tol and e1 <= self.energy_tol and e2 <= mass_tol):
+            if it > 0 and not changed and (
+                    (dq_max <= self.flow_tol * q_ref and dh_max <= self.head_tol
+                     and e1 <= self.energy_tol and e2 <= mass_tol)
+                    or (self.copies is not None
+                        and self.copies.settled(q, dq, dH, F1, F2, demand, self))):
                 self._check_frozen(q, H, active, dynamic, flips)
                 self._check_held(q, active, dynamic, demand)
                 notes = (self.valves.check(q, H, vstate, vflips, vheld, demand, it)
