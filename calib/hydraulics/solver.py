@@ -47,10 +47,10 @@ HEADLOSS_MODELS = ("hazen-williams", "darcy-weisbach")
 #: one snapshot at a time, 410 -> 278 in stacks of 14 copies (2 columns for 28 valves); grids
 #: with 7 and 38 such valves in one part gained nothing.
 COUPLED_VALVES = 2
-#: Memory for the factorizations kept beside solutions (``NetworkSolver._kept``): 64 MB holds
-#: 21-64 of the 7,938-pipe grid's (0.2 MB of L each: every snapshot of its fit) and one at 200k
-#: pipes; at most ``KEPT_FACTORS`` (a solution a warm start may come from is one of the last few).
-KEPT_FACTOR_BYTES = 64e6
+#: Memory for the factorizations kept beside solutions (``NetworkSolver._kept``): 32 MB holds
+#: 38 of the 7,938-pipe grid's (0.84 MB each: every snapshot of its fit, 21) and one at 200k
+#: pipes; at most ``KEPT_FACTORS``. Small enough to stay in a server's last-level cache.
+KEPT_FACTOR_BYTES = 32e6
 KEPT_FACTORS = 64
 _KEYS = itertools.count(1)  # keys of kept factorizations, unique across solvers
 
@@ -302,14 +302,22 @@ class NetworkSolver:
 
     def _spare(self) -> _KeptFactor | None:
         """A kept factorization whose memory may be factored into: the least recently used one
-        when the budget is full and no other solution keeps it, else None (allocate anew)."""
-        if len(self._kept) < self._capacity():
+        when the budget is full (dropped from every solution that keeps it), else None (allocate
+        anew)."""
+        if len({id(e) for e in self._kept.values()}) < self._capacity():
             return None
-        _, entry = self._kept.popitem(last=False)
-        if any(e is entry for e in self._kept.values()):
-            return None
-        entry.shared = False
-        return entry
+        oldest = next(iter(self._kept.values()))
+        for key in [k for k, e in self._kept.items() if e is oldest]:
+            del self._kept[key]
+        oldest.shared = False
+        return oldest
+
+    def _trim(self) -> None:
+        """Drop the least recently used factorizations past the budget (``_capacity`` distinct
+        ones; at most four solutions per factorization kept)."""
+        cap = self._capacity()
+        while len(self._kept) > 4 * cap or len({id(e) for e in self._kept.values()}) > cap:
+            self._kept.popitem(last=False)
 
     def _keep(self, result) -> None:
         """Keep the factorization the solve ended with beside ``result`` (``_factor_key``)."""
@@ -320,8 +328,7 @@ class NetworkSolver:
         self._factor.stale = False
         self._kept[key] = self._factor
         result._factor_key = key
-        while len(self._kept) > self._capacity():
-            self._kept.popitem(last=False)
+        self._trim()
 
     def kept_factor(self, result) -> _KeptFactor | None:
         """The factorization kept beside ``result`` (shared: not to be changed), or None."""
@@ -338,8 +345,7 @@ class NetworkSolver:
         self._kept[key] = kept
         self._kept.move_to_end(key)
         result._factor_key = key
-        while len(self._kept) > self._capacity():
-            self._kept.popitem(last=False)
+        self._trim()
 
     def solve_many(self, snapshots, roughness=None) -> list[SolveResult]:
         """Solve snapshots in turn, each warm-started from the last; pattern and ordering reused."""
