@@ -19,16 +19,23 @@ _COUNTS = ("n_solves", "n_solver_calls", "n_iterations")
 
 class _Kept:
     """The attributes of ``obj`` as they are now, to be put back: containers (dict, list, set)
-    are put back in place too, since other objects may share them (the fit's warm starts)."""
+    are put back in place too, since other objects may share them (the fit's warm starts), and
+    so are the attributes of the calibration's own objects it holds (the solutions kept at the
+    last few x, shared by the fit's problems)."""
 
-    def __init__(self, obj):
+    def __init__(self, obj, depth: int = 1):
         self.obj = obj
         self.attrs = dict(vars(obj))
         self.contents = {name: (dict(v) if isinstance(v, dict) else list(v) if isinstance(v, list)
                                 else set(v))
                          for name, v in self.attrs.items() if isinstance(v, (dict, list, set))}
+        self.inner = [_Kept(v, depth - 1) for v in self.attrs.values()
+                      if depth > 0 and type(v).__module__.startswith("calib.calibration")
+                      and hasattr(v, "__dict__")]
 
     def restore(self) -> None:
+        for k in self.inner:
+            k.restore()
         d = vars(self.obj)
         for name in [k for k in d if k not in self.attrs]:
             del d[name]
