@@ -2,12 +2,14 @@
 
 ``draw(name, data)`` turns one figure's data (numbers already in display units, labels as text; built
 by ``calib.calibration.report``) into a base64 PNG with matplotlib's Agg canvas (no pyplot, no
-display), each figure drawn once. ``FigureWorker`` runs the same ``draw`` in a separate Python
-process, started before the fit: importing matplotlib and its fonts (about 1.5 s) and drawing the
-PNGs (1-3 s) then run beside the fit and the report's solves instead of after them, on a second core.
-The worker is this file run as a script: it imports numpy and matplotlib only, not ``calib``.
-Anything that goes wrong in the worker (no worker, a crash, an error) is drawn again here, so the
-report is the same with or without it.
+display), each figure drawn once. ``calib.figure_worker.FigureWorker`` (also reachable here) runs
+the same ``draw`` in a separate Python process, started first thing by ``calib fit``: importing
+matplotlib and its fonts (about 0.6 s), making the figures' empty canvases (``LAYOUTS``) and drawing
+the PNGs (about 1.2 s on the demo town) then run beside the fit and the report's solves instead of
+after them, on a second core; the hydrant curves, the largest figure, in a second lane forked from
+the first once matplotlib is loaded. The worker is this file run as a script: it imports numpy and
+matplotlib only, not ``calib``. Anything that goes wrong in the worker (no worker, a crash, an
+error) is drawn again here, so the report is the same with or without it.
 
 Not here: what the figures show (``report.py`` builds their data) or any computation on the fit.
 """
@@ -17,9 +19,7 @@ from __future__ import annotations
 import base64
 import io
 import pickle
-import subprocess
 import sys
-import threading
 
 import numpy as np
 
@@ -65,8 +65,7 @@ def _title(ax, text, **kw):
     ax.set_title(text, y=1.0, **kw)
 
 
-def _observed_vs_simulated(d):
-    fig, ax = _figure((5.6, 5.2))
+def _observed_vs_simulated(d, fig, ax):
     sim, obs, kind, flagged = d["sim"], d["obs"], d["kind"], d["flagged"]
     for k, marker in (("static", "s"), ("residual", "o")):
         sel = (kind == k) & ~flagged
@@ -90,8 +89,7 @@ def _observed_vs_simulated(d):
     return _png(fig)
 
 
-def _residuals_by_test(d):
-    fig, ax = _figure((7.4, 4.0))
+def _residuals_by_test(d, fig, ax):
     xs, z, kind, flagged, thr = d["x"], d["z"], d["kind"], d["flagged"], d["threshold"]
     ax.axhline(0, color="grey", lw=1)
     for sgn in (-1, 1):
@@ -112,8 +110,7 @@ def _residuals_by_test(d):
     return _png(fig)
 
 
-def _c_by_group(d):
-    fig, ax = _figure((8.6, 4.4))
+def _c_by_group(d, fig, ax):
     c, lo_c, hi_c, det, model_c = d["c"], d["low"], d["high"], d["determined"], d["model_c"]
     g = np.arange(len(c))
     c_lo, c_hi = d["c_bounds"]
@@ -152,13 +149,20 @@ def _c_by_group(d):
     return _png(fig)
 
 
-def _hydrant_curves(d):
-    panels, cols = d["panels"], 4
-    rows = int(np.ceil(len(panels) / cols))
+def _curves_layout(n_panels: int):
+    rows = int(np.ceil(n_panels / _CURVE_COLUMNS))
     height = 2.9 * rows
-    fig, axes = _figure((11, height), rows, cols, squeeze=False, margins=dict(
+    return _figure((11, height), rows, _CURVE_COLUMNS, squeeze=False, margins=dict(
         left=0.06, right=0.99, bottom=0.5 / height, top=1 - 0.7 / height, wspace=0.35,
         hspace=0.45))
+
+
+_CURVE_COLUMNS = 4
+
+
+def _hydrant_curves(d, fig, axes):
+    panels, cols = d["panels"], _CURVE_COLUMNS
+    rows = int(np.ceil(len(panels) / cols))
     fu, pu = d["fu"], d["pu"]
     for k, panel in enumerate(panels):
         ax = axes[k // cols][k % cols]
@@ -188,89 +192,71 @@ def _hydrant_curves(d):
 FIGURES = {"observed vs simulated": _observed_vs_simulated, "residuals by test": _residuals_by_test,
            "C by group": _c_by_group, "hydrant curves": _hydrant_curves}
 
+#: Each figure's empty canvas and axes, from its ``layout_key`` (the hydrant curves': the number of
+#: panels; the others': None). Made before the data is known (in the worker, while the fit runs:
+#: the curves' 12 axes are a fifth of their draw); the same calls as at draw time, so the same PNG.
+LAYOUTS = {"observed vs simulated": lambda key: _figure((5.6, 5.2)),
+           "residuals by test": lambda key: _figure((7.4, 4.0)),
+           "C by group": lambda key: _figure((8.6, 4.4)),
+           "hydrant curves": _curves_layout}
 
-def draw(name: str, data: dict) -> str:
-    """Figure ``name`` (a key of ``FIGURES``) from its ``data`` as a base64 PNG."""
-    return FIGURES[name](data)
+
+def layout_key(name: str, data: dict):
+    """What figure ``name``'s layout depends on in its ``data`` (see ``LAYOUTS``)."""
+    return len(data["panels"]) if name == "hydrant curves" else None
 
 
-# --- the worker process ---------------------------------------------------------------------------
-class FigureWorker:
-    """A Python process that draws figures while this one goes on: ``submit`` each figure's data as
-    soon as it is known, ``result(name)`` when the page is written (drawn here if the worker could
-    not). ``start()`` returns None where no process can be started; ``close()`` ends it."""
+def draw(name: str, data: dict, made: tuple | None = None) -> str:
+    """Figure ``name`` (a key of ``FIGURES``) from its ``data`` as a base64 PNG. ``made``:
+    ``(key, (figure, axes))`` from ``LAYOUTS[name](key)``, built earlier and not drawn on yet;
+    used when ``key`` is this data's ``layout_key`` (else a new layout is made)."""
+    key = layout_key(name, data)
+    fig_axes = made[1] if made is not None and made[0] == key else LAYOUTS[name](key)
+    return FIGURES[name](data, *fig_axes)
 
-    def __init__(self, proc):
-        self._proc = proc
-        self._done: dict[str, tuple[bool, str]] = {}
-        self._sent: dict[str, dict] = {}
-        self._cond = threading.Condition()
-        self._reader = threading.Thread(target=self._read, daemon=True)
-        self._reader.start()
 
-    @classmethod
-    def start(cls) -> FigureWorker | None:
-        # the script by its path, with this interpreter; -c keeps the script's folder off sys.path
-        code = ("import runpy, sys; sys.path.pop(0); "
-                "runpy.run_path(sys.argv[1], run_name='__calib_figures__')")
-        try:
-            proc = subprocess.Popen([sys.executable, "-c", code, __file__], stdin=subprocess.PIPE,
-                                    stdout=subprocess.PIPE, stderr=subprocess.DEVNULL)
-        except OSError:
-            return None
-        return cls(proc)
-
-    def _read(self):
-        out = self._proc.stdout
-        while True:
-            try:
-                name, ok, value = pickle.load(out)
-            except Exception:  # the worker ended (or broke): whatever is missing is drawn here
-                break
-            with self._cond:
-                self._done[name] = (ok, value)
-                self._cond.notify_all()
-        with self._cond:
-            self._proc_gone = True
-            self._cond.notify_all()
-
-    _proc_gone = False
-
-    def submit(self, name: str, data: dict) -> None:
-        self._sent[name] = data
-        try:
-            pickle.dump((name, data), self._proc.stdin, protocol=pickle.HIGHEST_PROTOCOL)
-            self._proc.stdin.flush()
-        except (OSError, ValueError):
-            pass  # drawn here in result()
-
-    def result(self, name: str) -> str:
-        with self._cond:
-            self._cond.wait_for(lambda: name in self._done or self._proc_gone)
-            ok, value = self._done.get(name, (False, ""))
-        return value if ok else draw(name, self._sent[name])
-
-    def close(self) -> None:
-        """End the worker: at once when a figure is still wanted (the command failed), else when
-        it has read the end of its input."""
-        with self._cond:
-            waiting = any(name not in self._done for name in self._sent) or not self._sent
-        try:
-            self._proc.stdin.close()
-        except OSError:
-            pass
-        if waiting:
-            self._proc.kill()
-        try:
-            self._proc.wait(timeout=5)
-        except subprocess.TimeoutExpired:
-            self._proc.kill()
-            self._proc.wait()
+# --- the worker process: calib.figure_worker starts it and talks to it ----------------------------
+def __getattr__(name):
+    # FigureWorker lives where ``calib fit`` can start it without importing this package (the
+    # package imports the fit and its numerics: 0.9 s the worker would wait for)
+    if name == "FigureWorker":
+        from calib.figure_worker import FigureWorker
+        return FigureWorker
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
 
 
 def _serve(stdin, stdout) -> None:
-    """The worker's loop: read ``(name, data)`` pickles until the input closes, answer each with
+    """One lane of the worker: read ``(kind, name, payload)`` pickles until the input closes.
+    ``("layout", name, key)``: make that figure's canvas and axes now (``LAYOUTS``), while the fit
+    runs; ``("draw", name, data)``: draw it (on that canvas when the key matches) and answer
     ``(name, ok, png or error text)``."""
+    made = {}
+    while True:
+        try:
+            kind, name, payload = pickle.load(stdin)
+        except EOFError:
+            return
+        if kind == "layout":
+            try:
+                made[name] = (payload, LAYOUTS[name](payload))
+            except Exception:  # made again when the figure is drawn, where an error is answered
+                pass
+            continue
+        try:
+            answer = (name, True, draw(name, payload, made.pop(name, None)))
+        except Exception as exc:  # the parent draws it again and sees the error itself
+            answer = (name, False, f"{type(exc).__name__}: {exc}")
+        pickle.dump(answer, stdout, protocol=pickle.HIGHEST_PROTOCOL)
+        stdout.flush()
+
+
+def _worker(argv) -> None:
+    """The worker process: load matplotlib and its fonts, then serve its lanes. With ``argv`` =
+    ``[REQUESTS_FD, ANSWERS_FD]`` a second lane on those pipes is a fork of this process made once
+    matplotlib is loaded: two figures drawn at once at no second import, each lane as warm as the
+    other (so the same PNG from either)."""
+    import os
+
     import matplotlib
     matplotlib.use("Agg")
     from matplotlib.figure import Figure  # noqa: F401  (loaded before the first request)
@@ -278,21 +264,28 @@ def _serve(stdin, stdout) -> None:
     fig, ax = _figure((1, 1))
     ax.set_title("0")
     _png(fig)
-    while True:
+    child = 0
+    if len(argv) == 2:
+        requests, answers = (int(v) for v in argv)
         try:
-            name, data = pickle.load(stdin)
-        except EOFError:
-            return
-        try:
-            answer = (name, True, draw(name, data))
-        except Exception as exc:  # the parent draws it again and sees the error itself
-            answer = (name, False, f"{type(exc).__name__}: {exc}")
-        pickle.dump(answer, stdout, protocol=pickle.HIGHEST_PROTOCOL)
-        stdout.flush()
+            child = os.fork()
+        except OSError:  # no second lane: its pipes close below, and the parent draws its figures
+            child = -1
+        if child == 0:
+            null = os.open(os.devnull, os.O_RDWR)
+            os.dup2(null, 0)  # the first lane's pipes are the parent's alone: their ends are seen
+            os.dup2(null, 1)
+            _serve(os.fdopen(requests, "rb"), os.fdopen(answers, "wb"))
+            os._exit(0)
+        os.close(requests)
+        os.close(answers)
+    _serve(sys.stdin.buffer, sys.stdout.buffer)
+    if child > 0:
+        os.waitpid(child, 0)
 
 
 if __name__ == "__calib_figures__":
-    _serve(sys.stdin.buffer, sys.stdout.buffer)
+    _worker(sys.argv[2:])  # argv: -c, this file, then the second lane's pipes if any
     # every answer is flushed: end without the interpreter's teardown of matplotlib's objects
     # (0.2-0.4 s that ``close`` would wait for; 0.02 s this way)
     import os

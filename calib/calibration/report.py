@@ -137,8 +137,22 @@ def _figure_data(result, system: str) -> dict[str, dict]:
     return out
 
 
+#: Hydrant-curve panels drawn at most (the first tests').
+CURVE_PANELS = 12
+
+
+def announce(worker, tests, curves: bool = True) -> None:
+    """Have ``worker`` (a ``figure_worker.FigureWorker``) make the figures' empty canvases now,
+    from what the tests alone decide (the number of curve panels), while the fit runs."""
+    for name in ("observed vs simulated", "residuals by test", "C by group"):
+        worker.layout(name)
+    if curves and tests.n_tests:
+        worker.layout("hydrant curves", min(tests.n_tests, CURVE_PANELS))
+
+
 def _curves_data(result, system: str) -> dict | None:
-    """The hydrant-curve panels (at most 12 tests), each from ``_curve``'s solves; None without tests."""
+    """The hydrant-curve panels (at most ``CURVE_PANELS`` tests), each from ``_curve``'s solves;
+    None without tests."""
     t, net = result.tests, result.network
     if not t.n_tests:
         return None
@@ -149,7 +163,7 @@ def _curves_data(result, system: str) -> dict | None:
     solutions = getattr(result, "solutions", {})
     known = list(solutions.values())
     panels = []
-    for k in range(min(t.n_tests, 12)):
+    for k in range(min(t.n_tests, CURVE_PANELS)):
         flows = {str(net.node_ids[n]): q for n, q in t.flows[k].items()}
         sel = np.flatnonzero(t.test == k)
         if not flows or not sel.size:
@@ -174,7 +188,7 @@ def _curves_data(result, system: str) -> dict | None:
 
 
 def _plot_specs(result, system: str, curves: bool = True, worker=None) -> dict[str, dict]:
-    """Every figure's data, each handed to ``worker`` (a ``figures.FigureWorker``) as soon as it is
+    """Every figure's data, each handed to ``worker`` (a ``figure_worker.FigureWorker``) as soon as it is
     known: the fit's figures are drawn there while the curves are solved here."""
     specs = _figure_data(result, system)
     if worker is not None:
@@ -255,7 +269,7 @@ def prepare(result, system: str = "us", curves: bool = True, worker=None) -> Rep
 
 def render(result, system: str = "us", curves: bool = True, worker=None,
            parts: ReportParts | None = None) -> str:
-    """The report as one HTML string; ``worker``: a ``figures.FigureWorker`` to draw the figures in
+    """The report as one HTML string; ``worker``: a ``figure_worker.FigureWorker`` to draw the figures in
     (else they are drawn here); ``parts``: ``prepare``'s, made earlier with the same ``worker``."""
     from calib.calibration import figures
     from calib.calibration.export import groups_frame, other_parameters_frame
