@@ -149,12 +149,19 @@ def _c_by_group(d, fig, ax):
     return _png(fig)
 
 
-def _curves_layout(n_panels: int):
+def _curves_layout(n_panels: int, ticks: int = 7):
+    """The curves' canvas and axes; with ``ticks`` tick objects made on each axis (matplotlib
+    makes them on the first draw, a fifth of it, each a copy of the axis' first; the draw uses as
+    many as it needs, made now or then alike)."""
     rows = int(np.ceil(n_panels / _CURVE_COLUMNS))
     height = 2.9 * rows
-    return _figure((11, height), rows, _CURVE_COLUMNS, squeeze=False, margins=dict(
+    fig, axes = _figure((11, height), rows, _CURVE_COLUMNS, squeeze=False, margins=dict(
         left=0.06, right=0.99, bottom=0.5 / height, top=1 - 0.7 / height, wspace=0.35,
         hspace=0.45))
+    for ax in axes.flat:
+        ax.xaxis.get_major_ticks(ticks)
+        ax.yaxis.get_major_ticks(ticks)
+    return fig, axes
 
 
 _CURVE_COLUMNS = 4

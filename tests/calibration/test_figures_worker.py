@@ -71,6 +71,9 @@ def test_a_canvas_made_before_the_data_draws_the_same_png():
     fresh = figures.draw("hydrant curves", data)
     made = (6, figures.LAYOUTS["hydrant curves"](6))
     assert figures.draw("hydrant curves", data, made) == fresh
+    # ticks made ahead (the curves' layout makes 7 on each axis) or on the draw, as matplotlib does
+    for ticks in (0, 2, 12):
+        assert figures.draw("hydrant curves", data, (6, figures._curves_layout(6, ticks))) == fresh
     # a canvas made for another number of panels is not used
     other = (5, figures.LAYOUTS["hydrant curves"](5))
     assert figures.draw("hydrant curves", data, other) == fresh
