@@ -110,6 +110,11 @@ class FigureWorker:
         ``figures.layout_key``), before its data is known."""
         self._send(name, ("layout", name, key))
 
+    def submit_part(self, name: str, part) -> None:
+        """A part of figure ``name`` known before the rest (a hydrant-curve panel, ``(k, panel,
+        flow unit, pressure unit)``), rendered there at once; ``submit`` still sends the whole."""
+        self._send(name, ("part", name, part))
+
     def submit(self, name: str, data: dict) -> None:
         self._sent[name] = data
         self._send(name, ("draw", name, data))

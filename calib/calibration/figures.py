@@ -167,33 +167,111 @@ def _curves_layout(n_panels: int, ticks: int = 7):
 _CURVE_COLUMNS = 4
 
 
-def _hydrant_curves(d, fig, axes):
-    panels, cols = d["panels"], _CURVE_COLUMNS
-    rows = int(np.ceil(len(panels) / cols))
-    fu, pu = d["fu"], d["pu"]
-    for k, panel in enumerate(panels):
-        ax = axes[k // cols][k % cols]
-        if panel is None:
-            ax.set_axis_off()
-            continue
-        ax.plot(panel["flow"], panel["pressure"], color="tab:blue")
-        for q_obs, p_obs, flagged in panel["readings"]:
-            ax.scatter([q_obs], [p_obs], color="black" if flagged else "tab:orange",
-                       marker="x" if flagged else "o", zorder=3)
-        ax.axvline(panel["tested"], color="#bbb", lw=0.8, ls=":")
-        _title(ax, panel["title"], fontsize=8)
-        # The trade's N^1.85 axis (NFPA 291): a supply curve is close to a straight line on it.
-        ax.set_xscale("function", functions=(_n185_forward, _n185_inverse))
-        ax.set_xlim(left=0.0)
-        ax.set_xticks(_flow_ticks(panel["flow"][-1]))
-        ax.tick_params(labelsize=7)
-        ax.set_xlabel(f"total test flow [{fu}], N^1.85 scale", fontsize=7)
-        ax.set_ylabel(f"pressure at gauge [{pu}]", fontsize=7)
-    for k in range(len(panels), rows * cols):
-        axes[k // cols][k % cols].set_axis_off()
+def _curve_panel(ax, panel, fu: str, pu: str) -> None:
+    """One test's hydrant curve on ``ax`` (``None``: an empty slot)."""
+    if panel is None:
+        ax.set_axis_off()
+        return
+    ax.plot(panel["flow"], panel["pressure"], color="tab:blue")
+    for q_obs, p_obs, flagged in panel["readings"]:
+        ax.scatter([q_obs], [p_obs], color="black" if flagged else "tab:orange",
+                   marker="x" if flagged else "o", zorder=3)
+    ax.axvline(panel["tested"], color="#bbb", lw=0.8, ls=":")
+    _title(ax, panel["title"], fontsize=8)
+    # The trade's N^1.85 axis (NFPA 291): a supply curve is close to a straight line on it.
+    ax.set_xscale("function", functions=(_n185_forward, _n185_inverse))
+    ax.set_xlim(left=0.0)
+    ax.set_xticks(_flow_ticks(panel["flow"][-1]))
+    ax.tick_params(labelsize=7)
+    ax.set_xlabel(f"total test flow [{fu}], N^1.85 scale", fontsize=7)
+    ax.set_ylabel(f"pressure at gauge [{pu}]", fontsize=7)
+
+
+def _curves_rest(fig, axes, n_panels: int) -> None:
+    """What the curves' figure holds beside the panels: the unused slots off, the title."""
+    for k in range(n_panels, axes.size):
+        axes.flat[k].set_axis_off()
     fig.suptitle("Hydrant curves at each test's first gauge: calibrated model (line), static and "
                  "residual readings (dots; x flagged), flow tested (dotted)", fontsize=10)
+
+
+def _hydrant_curves(d, fig, axes):
+    for k, panel in enumerate(d["panels"]):
+        _curve_panel(axes.flat[k], panel, d["fu"], d["pu"])
+    _curves_rest(fig, axes, len(d["panels"]))
     return _png(fig)
+
+
+class CurvesInProgress:
+    """The hydrant curves' PNG rendered panel by panel as their data comes (``add``), so that
+    only the last panel, the title and the PNG's encoding are left when the page wants it
+    (``finish``): the panels are rendered while the other curves are still being solved.
+
+    The same pixels as ``draw``: Agg renders what ``Figure.draw`` renders, in its order (the
+    figure's patch, the axes in the order they were made, then the title), each panel once its
+    own data is set, onto one canvas; ``finish`` encodes that canvas as ``savefig`` does. Where
+    the figure holds anything else, or a panel given differs from the final data, ``finish``
+    returns None and the figure is drawn afresh.
+    """
+
+    def __init__(self, n_panels: int, made):
+        self.n, (self.fig, self.axes) = n_panels, made
+        self.given: dict[int, tuple] = {}
+        self.rendered = 0
+        self.renderer = None
+
+    def add(self, k: int, panel, fu: str, pu: str) -> None:
+        self.given[k] = (panel, fu, pu)
+        while self.rendered in self.given:
+            panel, fu, pu = self.given[self.rendered]
+            ax = self.axes.flat[self.rendered]
+            _curve_panel(ax, panel, fu, pu)
+            self._render(ax)
+            self.rendered += 1
+
+    def _canvas(self):
+        if self.renderer is None:
+            from matplotlib.backends.backend_agg import FigureCanvasAgg
+            canvas = FigureCanvasAgg(self.fig)
+            canvas._is_saving = True  # as in savefig (animated artists drawn too: there are none)
+            self.renderer = canvas.get_renderer()
+            self.renderer.clear()
+            self.fig.patch.draw(self.renderer)
+        return self.renderer
+
+    def _render(self, artist) -> None:
+        artist.draw(self._canvas())
+
+    def finish(self, d) -> str | None:
+        """The PNG of the figure of ``d`` (the whole data), or None (see the class docstring)."""
+        import matplotlib as mpl
+
+        panels = d["panels"]
+        if len(panels) != self.n or any(
+                not _same_panel(self.given[k], (panels[k], d["fu"], d["pu"]))
+                for k in range(self.rendered)):
+            return None
+        for k in range(self.rendered, self.n):
+            _curve_panel(self.axes.flat[k], panels[k], d["fu"], d["pu"])
+        _curves_rest(self.fig, self.axes, self.n)
+        order = self.fig._get_draw_artists(self._canvas())
+        if order[:self.rendered] != list(self.axes.flat[:self.rendered]):
+            return None
+        for artist in order[self.rendered:]:
+            self._render(artist)
+        buf = io.BytesIO()
+        mpl.image.imsave(buf, self.renderer.buffer_rgba(), format="png", origin="upper",
+                         dpi=self.fig.dpi)  # what savefig's print_png does after its draw
+        return base64.b64encode(buf.getvalue()).decode("ascii")
+
+
+def _same_panel(a, b) -> bool:
+    (pa, fa, ua), (pb, fb, ub) = a, b
+    if (fa, ua) != (fb, ub) or (pa is None) != (pb is None):
+        return False
+    return pa is None or (pa.keys() == pb.keys() and all(
+        np.array_equal(pa[k], pb[k]) if isinstance(pa[k], np.ndarray) else pa[k] == pb[k]
+        for k in pa))
 
 
 FIGURES = {"observed vs simulated": _observed_vs_simulated, "residuals by test": _residuals_by_test,
@@ -235,9 +313,11 @@ def __getattr__(name):
 def _serve(stdin, stdout) -> None:
     """One lane of the worker: read ``(kind, name, payload)`` pickles until the input closes.
     ``("layout", name, key)``: make that figure's canvas and axes now (``LAYOUTS``), while the fit
-    runs; ``("draw", name, data)``: draw it (on that canvas when the key matches) and answer
+    runs; ``("part", name, (k, panel, fu, pu))``: a hydrant-curve panel, rendered at once
+    (``CurvesInProgress``); ``("draw", name, data)``: draw it (on that canvas when the key matches,
+    from the panels rendered so far where they are this data's) and answer
     ``(name, ok, png or error text)``."""
-    made = {}
+    made, growing = {}, {}
     while True:
         try:
             kind, name, payload = pickle.load(stdin)
@@ -249,8 +329,23 @@ def _serve(stdin, stdout) -> None:
             except Exception:  # made again when the figure is drawn, where an error is answered
                 pass
             continue
+        if kind == "part":  # a hydrant-curve panel (k, panel, fu, pu), rendered now
+            try:
+                if name not in growing and name in made:
+                    growing[name] = CurvesInProgress(*made.pop(name))
+                if name in growing:
+                    growing[name].add(*payload)
+            except Exception:  # drawn afresh when the whole figure comes
+                growing.pop(name, None)
+            continue
         try:
-            answer = (name, True, draw(name, payload, made.pop(name, None)))
+            png = None
+            if name in growing:
+                try:
+                    png = growing.pop(name).finish(payload)
+                except Exception:
+                    png = None
+            answer = (name, True, png or draw(name, payload, made.pop(name, None)))
         except Exception as exc:  # the parent draws it again and sees the error itself
             answer = (name, False, f"{type(exc).__name__}: {exc}")
         pickle.dump(answer, stdout, protocol=pickle.HIGHEST_PROTOCOL)

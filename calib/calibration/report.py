@@ -156,9 +156,10 @@ def announce(worker, tests, curves: bool = True) -> None:
         worker.layout("hydrant curves", min(tests.n_tests, CURVE_PANELS))
 
 
-def _curves_data(result, system: str) -> dict | None:
+def _curves_data(result, system: str, on_panel=None) -> dict | None:
     """The hydrant-curve panels (at most ``CURVE_PANELS`` tests), each from ``_curve``'s solves;
-    None without tests."""
+    None without tests. ``on_panel(k, panel, flow unit, pressure unit)`` is called with each panel
+    as soon as it is known (``None`` for a test without flows or gauges)."""
     t, net = result.tests, result.network
     if not t.n_tests:
         return None
@@ -175,6 +176,8 @@ def _curves_data(result, system: str) -> dict | None:
         sel = np.flatnonzero(t.test == k)
         if not flows or not sel.size:
             panels.append(None)
+            if on_panel is not None:
+                on_panel(k, None, fu, pu)
             continue
         gauge = int(t.node[sel[0]])
         heads = {str(net.node_ids[s]): h for s, h in t.source_head[k].items()}
@@ -191,6 +194,8 @@ def _curves_data(result, system: str) -> dict | None:
             tested=units.from_si(total, "flow", fu),
             title=(f"{t.test_ids[k]}: gauge {net.node_ids[gauge]}, "
                    f"{units.from_si(total, 'flow', fu):.0f} {fu} flowed")))
+        if on_panel is not None:
+            on_panel(k, panels[-1], fu, pu)
     return dict(panels=panels, fu=fu, pu=pu)
 
 
@@ -202,7 +207,10 @@ def _plot_specs(result, system: str, curves: bool = True, worker=None) -> dict[s
         for name, data in specs.items():
             worker.submit(name, data)
     if curves:
-        data = _curves_data(result, system)
+        # each panel to the worker as soon as it is solved: it renders it while the next are
+        on_panel = None if worker is None else (
+            lambda *panel: worker.submit_part("hydrant curves", panel))
+        data = _curves_data(result, system, on_panel)
         if data is not None:
             specs["hydrant curves"] = data
             if worker is not None:

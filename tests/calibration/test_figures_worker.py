@@ -138,3 +138,46 @@ def test_a_worker_closed_while_drawing_leaves_no_lane_running():
     time.sleep(0.1)
     assert worker._proc.returncode is not None
     assert _running_in_group(group) == []
+
+
+@pytest.mark.parametrize("order", ["in order", "out of order", "none before"])
+def test_curves_rendered_panel_by_panel_are_the_png_drawn_at_once(order):
+    # CurvesInProgress renders each panel as its data comes, then the rest: byte for byte the
+    # PNG that draw() makes from the whole data (empty slots, a panel left for the end, panels
+    # given out of order: each rendered once those before it are)
+    data = _curves(7)
+    fresh = figures.draw("hydrant curves", data)
+    growing = figures.CurvesInProgress(7, figures.LAYOUTS["hydrant curves"](7))
+    given = {"in order": [0, 1, 2, 3, 4, 5], "out of order": [3, 1, 0, 5, 2],
+             "none before": []}[order]
+    for k in given:
+        growing.add(k, data["panels"][k], data["fu"], data["pu"])
+    assert growing.rendered == {"in order": 6, "out of order": 4, "none before": 0}[order]
+    assert growing.finish(data) == fresh
+
+
+def test_curves_rendered_from_other_panels_are_not_used():
+    # a panel given before that is not the final data's: no PNG from it (drawn afresh instead)
+    data = _curves(5)
+    growing = figures.CurvesInProgress(5, figures.LAYOUTS["hydrant curves"](5))
+    other = dict(data["panels"][1], pressure=data["panels"][1]["pressure"] - 1.0)
+    growing.add(0, data["panels"][0], data["fu"], data["pu"])
+    growing.add(1, other, data["fu"], data["pu"])
+    assert growing.finish(data) is None
+
+
+def test_the_worker_renders_curve_panels_as_they_come():
+    # panels sent one by one (submit_part), then the whole: the worker's PNG is the one drawn here
+    from calib.figure_worker import FigureWorker
+    data = _curves(6)
+    worker = FigureWorker.start()
+    try:
+        worker.layout("hydrant curves", 6)
+        for k, panel in enumerate(data["panels"]):
+            worker.submit_part("hydrant curves", (k, panel, data["fu"], data["pu"]))
+        worker.submit("hydrant curves", data)
+        there = worker.result("hydrant curves")
+        assert worker._done["hydrant curves"][0]
+    finally:
+        worker.close()
+    assert there == figures.draw("hydrant curves", data)
