@@ -124,13 +124,15 @@ class ClosureFinder:
             return float(b @ b), float(a @ a)
         return generalized
 
-    def screen(self, test: TestReadings, state, others=()) -> np.ndarray:
-        """Per pipe: the linearized misfit left after its best resistance increase (inf: cannot help).
+    def screen(self, test: TestReadings, state) -> np.ndarray:
+        """Per pipe: the linearized misfit left after its best resistance increase (inf: cannot help)."""
+        return _screen_left(*self._linearize(test, state))
 
-        ``others``: ``(TestReadings, state)`` of the day's other tests: their first-order changes
-        are kept (``_linear``) for ``rank`` to skip the solves a closure cannot move; the screen itself
-        stands on ``test``'s readings (the Sherman-Morrison factor from its flowing snapshot).
-        """
+    def _linearize(self, test: TestReadings, state, others=()):
+        """First-order change of each test's readings with each pipe's resistance:
+        ``(r_parts, S_parts, beta)``, per test (``test`` first, then ``others``, each a
+        ``(TestReadings, state)``) its weighted residuals and their derivatives by ln r_k, and per
+        pipe the Sherman-Morrison factor of closing it, from ``test``'s flowing snapshot."""
         net, lin = self.network, self.lin
         n_links = lin.n_links
         r_parts, S_parts = [], []
@@ -164,17 +166,7 @@ class ClosureFinder:
             S_parts.append(S)
         if beta is None:
             beta = np.ones(net.n_pipes)
-        self._linear = (r_parts, S_parts, beta)  # per test: for ``rank`` to skip solves a closure cannot move
-        # the screen ranks by ``test``'s readings alone: the other tests' linearization at one shared
-        # amplitude missed closures that flip a control valve (demo town, a pipe by a reducing valve)
-        r_all, S = r_parts[0], S_parts[0]
-        sr = r_all @ S
-        ss = np.einsum("ij,ij->j", S, S)
-        # misfit left at the best amplitude between open (0) and closed (beta) in the linear network
-        delta = np.clip(-np.divide(sr, ss, out=np.zeros_like(sr), where=ss > 0), 0.0, beta)
-        left = np.einsum("ij,ij->j", r_all[:, None] + S * delta, r_all[:, None] + S * delta)
-        left[(ss <= 0) | (delta <= 0)] = np.inf
-        return left
+        return r_parts, S_parts, beta
 
     def _beta(self, res) -> np.ndarray:
         """Per pipe: 1 / (1 - g_k R_k), the Sherman-Morrison factor of closing it in the linear network."""
@@ -257,8 +249,10 @@ class ClosureFinder:
         ends = np.cumsum(sizes)
         y = np.concatenate([t.hgl for t, _ in day])
         measure = self._measure(day, cov)
-        left = self.screen(test, state, others=day[1:])
-        r_lin, S_lin, beta = self._linear
+        # the screen ranks by ``test``'s readings; the other tests' first-order changes let the
+        # confirming solves skip the loadings a closure cannot move
+        r_lin, S_lin, beta = self._linearize(test, state, others=day[1:])
+        left = _screen_left(r_lin, S_lin, beta)
         cand = [int(k) for k in np.argsort(left, kind="stable")[:confirm] if np.isfinite(left[k])]
         base = lin.roughness(state[: lin.G])
         # tests with the same loading share a snapshot (e.g. the day's statics at the same tank level)
@@ -345,3 +339,18 @@ class ClosureFinder:
         """(pipe id, misfit after) of the best candidate, for the check's ranking of causes."""
         ranked = self.rank(test, state, top=1, confirm=3, min_drop=0.0)
         return (ranked[0].pipe_id, ranked[0].misfit_after) if ranked else None
+
+
+def _screen_left(r_parts, S_parts, beta) -> np.ndarray:
+    """Per pipe: the linearized misfit of the first test left after its best resistance increase
+    (inf: cannot help). The screen ranks by that test's readings alone: the other tests'
+    linearization at one shared amplitude missed closures that flip a control valve (demo town, a
+    pipe by a reducing valve)."""
+    r_all, S = r_parts[0], S_parts[0]
+    sr = r_all @ S
+    ss = np.einsum("ij,ij->j", S, S)
+    # misfit left at the best amplitude between open (0) and closed (beta) in the linear network
+    delta = np.clip(-np.divide(sr, ss, out=np.zeros_like(sr), where=ss > 0), 0.0, beta)
+    left = np.einsum("ij,ij->j", r_all[:, None] + S * delta, r_all[:, None] + S * delta)
+    left[(ss <= 0) | (delta <= 0)] = np.inf
+    return left
