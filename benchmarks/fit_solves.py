@@ -73,6 +73,7 @@ def replay(calls_path: str, network: str, repeats: int, save: str | None) -> int
         solver, results, outs = NetworkSolver(net), {}, []
         t_solve = t_sens = 0.0
         iterations = factorizations = n_solve = n_sens = 0
+        sens_factors = 0  # factorizations in the sensitivities (counted where the code counts)
         for i, call in enumerate(calls):
             if call[0] == "solve":
                 _, snap, rough, warm = call
@@ -87,16 +88,19 @@ def replay(calls_path: str, network: str, repeats: int, save: str | None) -> int
                 outs.append(np.concatenate([res.head, res.link_flow]))
             else:
                 _, which, dF1, dF2 = call
+                before = getattr(solver.pattern, "factorizations", None)
                 t0 = time.process_time()
                 dH, dQ = solver.sensitivities(results[which], dF1, dF2)
                 t_sens += time.process_time() - t0
+                sens_factors += (solver.pattern.factorizations - before if before is not None
+                                 else 1)  # before the counter: one (scratch) factorization each
                 n_sens += 1
                 outs.append(np.concatenate([np.ravel(dH), np.ravel(dQ)]))
         print(f"{Path(calib.__file__).parents[1]}: {n_solve} solves, {iterations} iterations "
               f"({iterations / n_solve:.2f} a solve), {factorizations} factorizations; solves "
               f"{t_solve:.2f} s CPU ({1e3 * t_solve / iterations:.3f} ms an iteration); "
               f"{n_sens} sensitivities {t_sens:.2f} s ({1e3 * t_sens / max(n_sens, 1):.2f} ms "
-              f"each); load {os.getloadavg()[0]:.2f}", flush=True)
+              f"each, {sens_factors} factorizations); load {os.getloadavg()[0]:.2f}", flush=True)
     if save:
         np.save(save, np.concatenate(outs))
     return 0

@@ -310,8 +310,11 @@ def _profile_end(problem, est, i, direction, cut):
     value = float(x0[i] + direction * step)
     near, x_near = float(x0[i]), np.asarray(x0, float)
     points = 0
-    for _ in range(12):
-        warm = np.clip(x_near + (value - near) * trace, problem.lower, problem.upper)
+    for k in range(12):
+        if k == 0:
+            warm = _linearized_end(problem, est, direction * step, trace)
+        else:
+            warm = np.clip(x_near + (value - near) * trace, problem.lower, problem.upper)
         rise, x_at, slope, trace_at, drop = _profile_point(problem, est, i, value, warm)
         points += 1
         root = np.sqrt(rise)
@@ -347,8 +350,11 @@ def _profile_end(problem, est, i, direction, cut):
     return float(value), False, points
 
 
-def linear_trustworthy(problem, est, i, cut) -> bool:
-    """True when the linearized interval of parameter ``i`` can stand (see the module docstring)."""
+def linear_trustworthy(problem, est, i, cut, kept: dict | None = None) -> bool:
+    """True when the linearized interval of parameter ``i`` can stand (see the module docstring).
+
+    ``kept`` (a dict, if given) receives per end evaluated (-1.0, 1.0) ``(x, solutions)``: where
+    the profile search then starts at that end, it is not solved again (``refine_intervals``)."""
     lo, hi = est.x[i] - est.t * est.sd[i], est.x[i] + est.t * est.sd[i]
     if est.undetermined[i] or not np.isfinite(est.sd[i]) or est.at_bound[i]:
         return False
@@ -361,12 +367,21 @@ def linear_trustworthy(problem, est, i, cut) -> bool:
         return False
     S0 = float(est.residual @ est.residual)
     for end in (-1.0, 1.0):
-        x = np.clip(est.x + end * est.t * est.sd[i] * direction, problem.lower, problem.upper)
+        x = _linearized_end(problem, est, end * (est.t * est.sd[i]), direction)
         r = problem.residuals(x)
+        if kept is not None:
+            kept[end] = (x, problem.solve(x))
         ratio = (float(r @ r) - S0) / cut
         if not QUADRATIC_RANGE[0] <= ratio <= QUADRATIC_RANGE[1]:
             return False
     return True
+
+
+def _linearized_end(problem, est, step, trace):
+    """The point ``step`` from the optimum along the linearized profile ``trace``, inside the
+    bounds: the check of a linearized end evaluates it, and a profile search that starts at that
+    end begins there (the same bits, so its kept solutions serve: ``CalibrationProblem.solve``)."""
+    return np.clip(est.x + step * trace, problem.lower, problem.upper)
 
 
 def refine_intervals(problem, est: Estimate, columns) -> Estimate:
@@ -383,10 +398,15 @@ def refine_intervals(problem, est: Estimate, columns) -> Estimate:
     fits = 0
     for i in columns:
         i = int(i)
-        if linear_trustworthy(problem, est, i, cut):
+        kept: dict = {}
+        if linear_trustworthy(problem, est, i, cut, kept):
             continue
-        low[i], low_open[i], f1 = _profile_end(problem, est, i, -1.0, cut)
-        high[i], high_open[i], f2 = _profile_end(problem, est, i, +1.0, cut)
+        ends = []
+        for end in (-1.0, 1.0):
+            if end in kept:  # its first point is that linearized end, solved by the check
+                problem.recall(*kept[end])
+            ends.append(_profile_end(problem, est, i, end, cut))
+        (low[i], low_open[i], f1), (high[i], high_open[i], f2) = ends
         fits += f1 + f2
         method[i] = PROFILE
     est.low, est.high, est.low_open, est.high_open = low, high, low_open, high_open

@@ -39,11 +39,49 @@ class Parameter:
 
 
 class _Solved(list):
-    """Per-snapshot results of one ``x``, with the stacked results they were split from."""
+    """Per-snapshot results of one ``x``, with the stacked results they were split from, and (once
+    ``jacobian`` asked for them) the head sensitivities at that ``x``: ``dH`` = (number of
+    parameters, per snapshot dH/dp at the junctions or None)."""
 
     def __init__(self, results, stacks, stacked):
         super().__init__(results)
         self.stacks, self.stacked = stacks, stacked
+        self.dH = None
+
+
+#: Solutions kept per fit (``_Recent``): a least-squares fit comes back to the point before its
+#: last, rejected, trial step; points further back are handed on by the callers that need them
+#: (``recall``). Each holds every snapshot's solution: on large networks many would weigh.
+RECENT_KEPT = 2
+
+
+class _Recent:
+    """The snapshots' solutions at the last few parameter vectors (``x.tobytes()`` -> ``_Solved``),
+    most recent last: the next solve warm-starts from the last. One store is shared by the
+    problems of a fit over the same snapshots (``CalibrationProblem.share``): a solution depends
+    on the snapshots and ``x`` only, not on the readings or their weights."""
+
+    def __init__(self, keep: int = RECENT_KEPT):
+        self.keep = keep
+        self.items: dict = {}
+
+    def get(self, key):
+        """The solutions at ``key`` (then the most recent), or None."""
+        res = self.items.pop(key, None)
+        if res is not None:
+            self.items[key] = res
+        return res
+
+    def put(self, key, results) -> None:
+        self.items.pop(key, None)
+        self.items[key] = results
+        while len(self.items) > self.keep:
+            del self.items[next(iter(self.items))]
+
+    @property
+    def last(self):
+        """``(key, solutions)`` of the most recent, or ``(None, None)``."""
+        return next(reversed(self.items.items()), (None, None))
 
 
 #: Stacks of snapshots (``stack_size``), by measurement (benchmarks/README.md, "A stacked
@@ -169,8 +207,8 @@ class CalibrationProblem:
             v = np.where(link_from == s, -1.0, 0.0) + np.where(link_to == s, 1.0, 0.0)
             self._source_incidence[(t, s)] = (np.flatnonzero(v), v[v != 0])
         self.grouped = np.flatnonzero(grouping.index >= 0)
-        self._cache_key = None
-        self._cache = None
+        self._recent = _Recent()
+        self._rows = [np.flatnonzero(self.reading_snapshot == si) for si in range(len(self.pairs))]
         # --- stacks: snapshots that share a demand factor column are solved as one network -----
         size = 1 if stack is False else stack_size(network, None if stack is None or stack is True else stack)
         by_col: dict = {}
@@ -193,6 +231,28 @@ class CalibrationProblem:
     @property
     def n_prior_rows(self) -> int:
         return 0 if self.prior is None else self.grouping.n_groups
+
+    # --- solutions kept ---------------------------------------------------------------------------
+    def share(self, other: "CalibrationProblem") -> bool:
+        """Use ``other``'s kept solutions when both solve the same snapshots (a refit on a subset of
+        the readings): exact at the same ``x``, warm starts elsewhere. True when shared."""
+        if other.pairs != self.pairs:
+            return False
+        self._recent = other._recent
+        return True
+
+    def recall(self, x, results) -> None:
+        """Keep ``results`` (from ``solve(x)``) again as the most recent solution at ``x``."""
+        self._recent.put(np.asarray(x, float).tobytes(), results)
+
+    @property
+    def _cache_key(self):
+        """``x.tobytes()`` of the last solution (the next solve's warm start)."""
+        return self._recent.last[0]
+
+    @property
+    def _cache(self):
+        return self._recent.last[1]
 
     # --- model ------------------------------------------------------------------------------------
     def roughness(self, x) -> np.ndarray:
@@ -218,17 +278,18 @@ class CalibrationProblem:
         return out
 
     def solve(self, x):
-        """Solve every snapshot at ``x`` (cached for the last ``x``): list of ``SolveResult``."""
+        """Solve every snapshot at ``x`` (kept for the last few ``x``): list of ``SolveResult``."""
         x = np.asarray(x, float)
         key = x.tobytes()
-        if key == self._cache_key:
-            return self._cache
+        known = self._recent.get(key)
+        if known is not None:
+            return known
         roughness = self.roughness(x)
         snaps = self.snapshots(x)
         if self.stacks:
             results = self._solve_stacked(x, roughness, snaps)
             if results is not None:
-                self._cache_key, self._cache = key, results
+                self._recent.put(key, results)
                 return results
         results = []
         # not solve_many: a warm start from the same snapshot at the last parameters beats one from
@@ -244,7 +305,8 @@ class CalibrationProblem:
                 raise CalibrationError(
                     f"the solver did not converge for snapshot '{snap.label}' at {values}: {exc}. "
                     "Check the network (closed valves, isolated areas) or narrow --c-bounds.") from exc
-        self._cache_key, self._cache = key, results
+        results = _Solved(results, stacks=[], stacked=[])
+        self._recent.put(key, results)
         return results
 
     def _kept(self, snap, res) -> None:
@@ -299,10 +361,13 @@ class CalibrationProblem:
 
     @property
     def _stacked(self):
-        """The stacked results behind the cached solution (one per stack), when it was solved in
-        the same stacks (a problem over the same snapshots may hand its cache on)."""
-        c = self._cache
-        return c.stacked if isinstance(c, _Solved) and c.stacks == self.stacks else None
+        """The stacked results behind the last solution (one per stack), when it was solved in
+        the same stacks (a problem over the same snapshots may share its solutions)."""
+        return self._stacked_of(self._cache)
+
+    def _stacked_of(self, results):
+        ok = isinstance(results, _Solved) and results.stacks and results.stacks == self.stacks
+        return results.stacked if ok else None
 
     def simulated_head(self, x) -> np.ndarray:
         """Simulated grade at each reading's node [m]."""
@@ -320,13 +385,31 @@ class CalibrationProblem:
 
     def jacobian(self, x) -> np.ndarray:
         """Analytic Jacobian of ``residuals`` (dense, rows x parameters): one factorization per
-        snapshot, or per stack of snapshots (``stack``)."""
+        snapshot, or per stack of snapshots (``stack``). The head sensitivities are kept with the
+        solutions at ``x``: another call there (other weights, another subset of the readings over
+        the same snapshots) only weights them again."""
         x = np.asarray(x, float)
-        results = self.solve(x)
-        tests, p = self.tests, self.n_params
-        J = np.zeros((self.n_readings + self.n_prior_rows, p))
-        stacked = self._stacked or []
-        in_stack = set()
+        dH = self._head_sensitivities(self.solve(x))
+        J = np.zeros((self.n_readings + self.n_prior_rows, self.n_params))
+        node = self.tests.node
+        for si, rows in enumerate(self._rows):
+            if rows.size:
+                J[rows] = dH[si][node[rows]] / self.sigma_h[rows, None]
+        if self.prior is not None:
+            n = self.n_readings
+            J[n + np.arange(len(self.c_cols)), self.c_cols] = 1.0 / self.prior.spread
+        return J
+
+    def _head_sensitivities(self, results) -> list:
+        """Per snapshot, dH/dp at the junctions at the solutions ``results`` (None for a snapshot
+        without readings here), computed once per solution (``_Solved.dH``)."""
+        known = results.dH if isinstance(results, _Solved) else None
+        if known is not None and known[0] == self.n_params and \
+                all(known[1][si] is not None for si, rows in enumerate(self._rows) if rows.size):
+            return known[1]
+        p = self.n_params
+        dHs = [None] * len(results)
+        stacked = self._stacked_of(results) or []
         if stacked:
             from calib.hydraulics.stacked import stacked_solver
         for members, res in zip(self.stacks, stacked):
@@ -342,21 +425,16 @@ class CalibrationProblem:
             dH, _ = ss.sensitivities(res, dF1, dF2)
             dH = dH.toarray() if sp.issparse(dH) else np.asarray(dH)
             for c, si in enumerate(members):
-                in_stack.add(si)
-                rows = np.flatnonzero(self.reading_snapshot == si)
-                J[rows] = dH[st.junction_map[c, tests.node[rows]]] / self.sigma_h[rows, None]
+                dHs[si] = dH[st.junction_map[c]]
         for si, res in enumerate(results):
-            rows = np.flatnonzero(self.reading_snapshot == si)
-            if rows.size == 0 or si in in_stack:
+            if self._rows[si].size == 0 or dHs[si] is not None:
                 continue
             dF1, dF2 = self._rhs(si, np.asarray(self.solver.dheadloss_droughness(res), float))
             dH, _ = self.solver.sensitivities(res, dF1, dF2)
-            dH = dH.toarray() if sp.issparse(dH) else np.asarray(dH)
-            J[rows] = dH[tests.node[rows]] / self.sigma_h[rows, None]
-        if self.prior is not None:
-            n = self.n_readings
-            J[n + np.arange(len(self.c_cols)), self.c_cols] = 1.0 / self.prior.spread
-        return J
+            dHs[si] = dH.toarray() if sp.issparse(dH) else np.asarray(dH)
+        if isinstance(results, _Solved):
+            results.dH = (p, dHs)
+        return dHs
 
     def _rhs(self, si, dhdc):
         """``-dF/dp`` parts of snapshot ``si``: (dF1 per link, dF2 per junction), dense p columns;

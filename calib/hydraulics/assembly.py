@@ -82,6 +82,8 @@ class SchurPattern:
         self._a21 = None  # incidence A21 over the junctions (``inflow_matrix``)
         self._scratch = None  # factor refactored in place by ``factorize_scratch``
         self._blocks = None  # connected part of each junction (``blocks``)
+        #: numeric factorizations made with this pattern (new or in place), for the benchmarks
+        self.factorizations = 0
         self._factorizer = None if (dense or nj == 0) else _factor.factorizer(
             self.backend, sp.csc_matrix((np.ones(self.nnz), self.indices, self.indptr), shape=(nj, nj)))
 
@@ -185,6 +187,7 @@ class SchurPattern:
 
     def factorize(self, matrix: sp.csc_matrix) -> "SchurFactor":
         """Factor S once (the backend's sparse factorization of the pre-ordered matrix, or dense Cholesky)."""
+        self.factorizations += 1
         if self.dense:
             factor = scipy.linalg.cho_factor(matrix.toarray())
             return SchurFactor(self, matrix, lambda b: scipy.linalg.cho_solve(factor, b))
@@ -284,10 +287,18 @@ class SchurFactor:
     def refactor(self, matrix) -> bool:
         """Factor ``matrix`` (same pattern) in place where the backend can (CHOLMOD); False if not
         done, and then this factor must not be used."""
-        if not hasattr(self.solve_permuted, "refactor") or not self.solve_permuted.refactor(matrix):
+        if not hasattr(self.solve_permuted, "refactor"):
+            return False
+        self.pattern.factorizations += 1
+        if not self.solve_permuted.refactor(matrix):
             return False
         self.matrix = matrix
         return True
+
+    def copy(self) -> "SchurFactor":
+        """An independent copy that ``update`` and ``refactor`` may change (CHOLMOD only:
+        ``can_update``); the original stays as it was."""
+        return SchurFactor(self.pattern, self.matrix, self.solve_permuted.copy())
 
     def update(self, up, down) -> bool:
         """Change the factor in place to that of ``S + U U^T - V V^T`` (``SchurPattern.low_rank``)."""

@@ -89,6 +89,9 @@ class Factorizer:
     def __init__(self, template: sp.csc_matrix):
         self.n = template.shape[0]
         self.work_ratio: float | None = None
+        #: entries of the factor(s) (L, or L and U), set by the first factorization: the memory a
+        #: kept factorization holds (``NetworkSolver`` keeps as many as a budget allows)
+        self.factor_nnz: int | None = None
 
     @staticmethod
     def _ratio(l_counts: np.ndarray, triangles_nnz: int, s_nnz: int) -> float:
@@ -105,6 +108,7 @@ class SuperLUFactorizer(Factorizer):
         if self.work_ratio is None:
             self.work_ratio = self._ratio(np.diff(lu.L.tocsc().indptr), lu.L.nnz + lu.U.nnz,
                                           matrix.nnz)
+            self.factor_nnz = int(lu.L.nnz + lu.U.nnz)
         return lu.solve
 
 
@@ -150,6 +154,7 @@ class CholmodFactorizer(Factorizer):
             counts = np.diff(L.indptr)
             self.work_ratio = self._ratio(counts, 2 * L.nnz, matrix.nnz)
             self.factor_work = float((counts.astype(float) ** 2).sum())
+            self.factor_nnz = int(L.nnz)
             self.update_cost = _path_sums(_etree(L), counts.astype(float))
         return CholmodSolve(f)
 
@@ -162,6 +167,10 @@ class CholmodSolve:
 
     def __call__(self, b):
         return self._f.solve_A(b)
+
+    def copy(self) -> "CholmodSolve":
+        """An independent copy (a memory copy of L, no factorization)."""
+        return CholmodSolve(self._f.copy())
 
     def refactor(self, matrix: sp.csc_matrix) -> bool:
         """Factor ``matrix`` (same pattern) into this factor's memory, which saves allocating a new

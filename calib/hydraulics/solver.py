@@ -20,6 +20,9 @@ Not here: the head-loss laws (``headloss``), the sparse algebra (``assembly``), 
 
 from __future__ import annotations
 
+import itertools
+from collections import OrderedDict
+
 import numpy as np
 import scipy.sparse as sp
 from scipy.sparse.csgraph import connected_components
@@ -44,15 +47,29 @@ HEADLOSS_MODELS = ("hazen-williams", "darcy-weisbach")
 #: one snapshot at a time, 410 -> 278 in stacks of 14 copies (2 columns for 28 valves); grids
 #: with 7 and 38 such valves in one part gained nothing.
 COUPLED_VALVES = 2
+#: Memory for the factorizations kept beside solutions (``NetworkSolver._kept``): 32 MB holds
+#: 38 of the 7,938-pipe grid's (0.84 MB each: every snapshot of its fit, 21) and one at 200k
+#: pipes; at most ``KEPT_FACTORS``. Small enough to stay in a server's last-level cache.
+KEPT_FACTOR_BYTES = 32e6
+KEPT_FACTORS = 64
+_KEYS = itertools.count(1)  # keys of kept factorizations, unique across solvers
 
 
 class _KeptFactor:
-    """The last factorization with the link weights, extra diagonal and fixed junctions of the
-    matrix it now factors (updated in place by ``NetworkSolver._reuse``)."""
+    """A factorization with the link weights, extra diagonal and fixed junctions of the matrix it
+    now factors (updated in place by ``NetworkSolver._reuse``). ``shared``: also kept beside a
+    solution (``NetworkSolver._kept``), so it must be copied before it is changed."""
 
     def __init__(self, factor, w, extra, fixed):
         self.factor, self.w, self.extra, self.fixed = factor, w, extra, fixed
         self.stale = False
+        self.shared = False
+
+    def own(self) -> "_KeptFactor":
+        """This factorization, or a copy of it where it is shared (kept beside a solution)."""
+        if not self.shared:
+            return self
+        return _KeptFactor(self.factor.copy(), self.w.copy(), self.extra.copy(), self.fixed.copy())
 
 
 class NetworkSolver:
@@ -100,7 +117,14 @@ class NetworkSolver:
         self.viscosity = float(viscosity)
         self.reuse_factor = reuse_factor and not dense
         self._reach_cache = Memo()
+        #: a stack of copies (``stacked.StackedNetwork``) whose every copy meeting its own
+        #: tolerances also ends the iteration (``settled``); None for one network
+        self.copies = None
         self._factor = None
+        #: factorizations kept beside solutions: result key -> _KeptFactor (least recently used
+        #: first). A warm start from a solution starts from its factor; the sensitivities at a
+        #: solution solve with it (``sensitivity.sensitivities``).
+        self._kept: OrderedDict = OrderedDict()
         self._matrix = None  # S of the last iteration; its values are replaced each iteration
         self._rough_memo = None  # (roughness bytes, roughness, law coefficient) of the last solve
         self.reuse_max_changed, self.cg_max_iterations = reuse_max_changed, cg_max_iterations
@@ -241,8 +265,87 @@ class NetworkSolver:
         self.valves.start()
         active &= ~fixed_closed
         q[~active] = 0.0
-        return self._iterate(resolved, rough, coef, q, active, fixed_closed,
-                             secant=warm_start is None)
+        self._start_factor(warm_start)
+        result = self._iterate(resolved, rough, coef, q, active, fixed_closed,
+                               secant=warm_start is None)
+        self._keep(result)
+        return result
+
+    # --- factorizations kept beside solutions ------------------------------------------------
+    def _keeps(self) -> bool:
+        """True where factorizations are kept beside solutions: a factor is reused at all
+        (``SchurPattern.reuse_pays``) and its size is known."""
+        return (self.reuse_factor and self.pattern.reuse_pays and self.nj > 0
+                and getattr(self.pattern._factorizer, "factor_nnz", None) is not None)
+
+    def _capacity(self) -> int:
+        nnz = self.pattern._factorizer.factor_nnz
+        return int(max(1, min(KEPT_FACTORS, KEPT_FACTOR_BYTES // (12.0 * nnz + 8.0 * self.nj))))
+
+    def _start_factor(self, warm) -> None:
+        """The factorization a solve starts from: the one kept beside the warm start's solution
+        (a fit solves each snapshot warm from its own last solution: its factor is the best
+        preconditioner there is), else the last one made (a warm start from another loading, as
+        before), else for a cold start memory to factor into (its values are not used)."""
+        if not self._keeps():
+            return  # the last factorization (``_iterate`` marks it stale for a cold start)
+        entry = self._kept.get(getattr(warm, "_factor_key", None))
+        if entry is not None:
+            self._kept.move_to_end(warm._factor_key)
+        elif warm is not None and self._kept:
+            entry = next(reversed(self._kept.values()))
+        else:
+            entry = self._spare()
+            if entry is not None:
+                entry.stale = True
+        self._factor = entry
+
+    def _spare(self) -> _KeptFactor | None:
+        """A kept factorization whose memory may be factored into: the least recently used one
+        when the budget is full (dropped from every solution that keeps it), else None (allocate
+        anew)."""
+        if len({id(e) for e in self._kept.values()}) < self._capacity():
+            return None
+        oldest = next(iter(self._kept.values()))
+        for key in [k for k, e in self._kept.items() if e is oldest]:
+            del self._kept[key]
+        oldest.shared = False
+        return oldest
+
+    def _trim(self) -> None:
+        """Drop the least recently used factorizations past the budget (``_capacity`` distinct
+        ones; at most four solutions per factorization kept)."""
+        cap = self._capacity()
+        while len(self._kept) > 4 * cap or len({id(e) for e in self._kept.values()}) > cap:
+            self._kept.popitem(last=False)
+
+    def _keep(self, result) -> None:
+        """Keep the factorization the solve ended with beside ``result`` (``_factor_key``)."""
+        if self._factor is None or not self._keeps():
+            return
+        key = next(_KEYS)
+        self._factor.shared = True
+        self._factor.stale = False
+        self._kept[key] = self._factor
+        result._factor_key = key
+        self._trim()
+
+    def kept_factor(self, result) -> _KeptFactor | None:
+        """The factorization kept beside ``result`` (shared: not to be changed), or None."""
+        return self._kept.get(getattr(result, "_factor_key", None))
+
+    def keep_factor(self, result, factor, w, extra, fixed) -> None:
+        """Keep ``factor`` (of the matrix with these weights) beside ``result``, in place of
+        the one kept there."""
+        if not self._keeps():
+            return
+        kept = _KeptFactor(factor, w, extra, fixed)
+        kept.shared = True
+        key = getattr(result, "_factor_key", None) or next(_KEYS)
+        self._kept[key] = kept
+        self._kept.move_to_end(key)
+        result._factor_key = key
+        self._trim()
 
     def solve_many(self, snapshots, roughness=None) -> list[SolveResult]:
         """Solve snapshots in turn, each warm-started from the last; pattern and ordering reused."""
@@ -294,8 +397,11 @@ class NetworkSolver:
             e2 = float(np.abs(F2).max(initial=0.0))
             q_ref = max(total_demand, float(np.abs(q).max(initial=0.0)), self.q_eps)
             self.trace.append((dq_max / q_ref, dh_max, e1, e2))
-            if (it > 0 and not changed and dq_max <= self.flow_tol * q_ref
-                    and dh_max <= self.head_tol and e1 <= self.energy_tol and e2 <= mass_tol):
+            if it > 0 and not changed and (
+                    (dq_max <= self.flow_tol * q_ref and dh_max <= self.head_tol
+                     and e1 <= self.energy_tol and e2 <= mass_tol)
+                    or (self.copies is not None
+                        and self.copies.settled(q, dq, dH, F1, F2, demand, self))):
                 self._check_frozen(q, H, active, dynamic, flips)
                 self._check_held(q, active, dynamic, demand)
                 notes = (self.valves.check(q, H, vstate, vflips, vheld, demand, it)
@@ -374,6 +480,8 @@ class NetworkSolver:
             if dH is not None:
                 return dH
         self._factor = None
+        if kept is not None and kept.shared:
+            kept = self._spare() if self._keeps() else None  # never into a kept one
         if kept is not None and kept.factor.refactor(S):  # into the kept factor's memory
             factor = kept.factor
         else:
@@ -418,6 +526,9 @@ class NetworkSolver:
             return None  # nothing to update (CG failed on the small changes) or too costly
         up, down = pat.low_rank(links, w[links] - kept.w[links], nodes,
                                 extra[nodes] - kept.extra[nodes], fixed)
+        if kept.shared:  # kept beside a solution too: change a copy
+            kept = self._factor = kept.own()
+            factor = kept.factor
         if not factor.update(up, down):
             self._factor = None  # rounding made a pivot <= 0: factor anew
             return None

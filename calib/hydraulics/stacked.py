@@ -11,7 +11,10 @@ Used by ``calib.calibration.problem`` for the snapshots of a fit. What changes a
 solves: the stack iterates until its slowest copy has converged (the others take extra, exact
 Newton steps), and the solver's relative tolerances (flow change and mass balance, relative to the
 total demand) are scaled down so that every copy is held to at least the accuracy it would have
-alone (``StackedSolver``). The stopping rule and status logic are the solver's own, unchanged.
+alone (``StackedSolver``); the stack also stops as soon as every copy meets the solver's rule with
+its own reference flow and total demand at the unscaled tolerances (``StackedNetwork.settled``):
+the accuracy each copy has alone, without the stack-wide rule's extra steps. The status logic is
+the solver's own, unchanged.
 Not here: the snapshots' contents (``problem``), the solver's internals.
 """
 
@@ -105,6 +108,8 @@ class StackedNetwork:
             name=f"{net.name} x {k}")
         # stacked id -> original id, for the names a result carries (zones, notes, held draws)
         self._zone_memo: dict = {}
+        #: (flow_tol, mass_tol) of one network alone, for ``settled`` (set by ``StackedSolver``)
+        self.tolerances = (1e-8, 1e-8)
         self._link_ids = np.concatenate([net.pipe_ids, np.asarray(net.pumps.ids, dtype=object),
                                          net.valves.ids]).astype(str)
         self._junction_ids = np.asarray(net.node_ids[:nj]).astype(str)
@@ -170,6 +175,35 @@ class StackedNetwork:
         held = [sn.node_index[str(i)] for i in (result.snapshot.held_head or {})]
         err[held] = 0.0
         return err.reshape(self.k, self.nj).max(axis=1, initial=0.0)
+
+    def per_copy(self, a: np.ndarray, kind: str) -> np.ndarray:
+        """Largest |a| in each copy: ``kind`` "links" (pipes, pumps, valves, the solver's order)
+        or "junctions"."""
+        k = self.k
+        a = np.abs(a)
+        if kind == "junctions":
+            return a.reshape(k, self.nj).max(axis=1, initial=0.0)
+        npp, nu, nv = self.np_, self.nu, self.nv
+        out = a[:k * npp].reshape(k, npp).max(axis=1, initial=0.0)
+        if nu:
+            out = np.maximum(out, a[k * npp:k * (npp + nu)].reshape(k, nu).max(axis=1))
+        if nv:
+            out = np.maximum(out, a[k * (npp + nu):].reshape(k, nv).max(axis=1))
+        return out
+
+    def settled(self, q, dq, dH, F1, F2, demand, solver) -> bool:
+        """True when every copy meets the solver's convergence rule with its own reference flow
+        and total demand, at the tolerances of one network alone (``tolerances``, set by
+        ``StackedSolver``): the stack then stops at its slowest copy's own convergence, not at
+        the stack-wide rule, whose relative tolerances are scaled to the smallest copy."""
+        flow_tol, mass_tol = self.tolerances
+        totals = np.abs(demand).reshape(self.k, self.nj).sum(axis=1)
+        q_ref = np.maximum(np.maximum(totals, self.per_copy(q, "links")), solver.q_eps)
+        return bool(np.all(self.per_copy(dq, "links") <= flow_tol * q_ref)
+                    and np.all(self.per_copy(dH, "junctions") <= solver.head_tol)
+                    and np.all(self.per_copy(F1, "links") <= solver.energy_tol)
+                    and np.all(self.per_copy(F2, "junctions")
+                               <= np.maximum(mass_tol * totals, solver.mass_tol_abs)))
 
     def split(self, result: SolveResult, snaps, demand=None) -> list[SolveResult]:
         """Each copy's ``SolveResult`` out of the stack's: arrays sliced, ids mapped back, the mass
@@ -307,6 +341,8 @@ class StackedSolver:
             energy_tol=b.energy_tol, mass_tol=b.mass_tol, mass_tol_abs=b.mass_tol_abs,
             max_status_changes=b.max_status_changes, viscosity=b.viscosity,
             reuse_factor=b.reuse_factor)
+        self.stack.tolerances = (b.flow_tol, b.mass_tol)  # each copy's own (``settled``)
+        self.solver.copies = self.stack
 
     @property
     def k(self) -> int:

@@ -193,3 +193,29 @@ def test_stacks_are_kept_per_solver_and_size_and_released_with_the_solver():
     del solver, a
     gc.collect()
     assert len(_CACHE) == n - 1
+
+
+def test_a_stack_stops_when_every_copy_meets_its_own_tolerances(demo):
+    # the stack-wide rule holds the relative tolerances to the smallest copy's share of the total
+    # demand; with each copy checked at its own (``StackedNetwork.settled``) the stack stops once
+    # its slowest copy has converged as it would alone. Reference: each copy solved alone with
+    # tolerances 100 x tighter; the stacked copies must agree within the solver's head tolerance.
+    net, snaps = demo
+    snaps = snaps * 3  # 15 copies: the smallest copy's share of the demand about a twentieth
+    c = np.asarray(net.roughness, float)
+    its = {}
+    for per_copy in (True, False):
+        ss = StackedSolver(NetworkSolver(net), len(snaps))
+        if not per_copy:
+            ss.solver.copies = None  # the stack-wide rule alone
+        r0, _ = ss.solve(snaps, roughness=c)
+        r1, parts = ss.solve(snaps, roughness=c * 1.05, warm=r0)  # a fit's next evaluation
+        its[per_copy] = r1.iterations
+        if per_copy:
+            tight = NetworkSolver(net, flow_tol=1e-10, head_tol=1e-8, energy_tol=1e-8,
+                                  mass_tol=1e-10)
+            for snap, part in zip(snaps, parts):
+                ref = tight.solve(snap, roughness=c * 1.05)
+                np.testing.assert_allclose(part.head, ref.head, atol=1e-6, rtol=0)
+                np.testing.assert_allclose(part.flow, ref.flow, atol=1e-8, rtol=0)
+    assert its[True] < its[False]
