@@ -1,7 +1,9 @@
 """Units at the edges: one pint registry for the package, header parsing and the SI conversions.
 
 Inside the package every number is a plain SI float (m, m3/s, Pa, s). pint is used only where values
-come in (CSV headers, command-line options, the app's fields) and go out (files, display).
+come in (CSV headers, command-line options, the app's fields) and go out (files, display). pint is
+imported on first need: the common units' factors are written out here as pint's own values
+(``_FACTORS``, checked against pint by the tests), so a run that meets only those never loads it.
 
 Conventions (printed in reports and outputs):
 
@@ -40,26 +42,47 @@ def _import_pint():
     return pint
 
 
-pint = _import_pint()
+_REGISTRY = {}
 
-try:  # pint keeps its parsed unit definitions in the user's cache folder: 10x faster start
-    ureg = pint.UnitRegistry(cache_folder=":auto:")
-except Exception:  # no writable cache folder (e.g. a locked-down tablet): parse them afresh
-    ureg = pint.UnitRegistry()
-ureg.define("gpm = gallon / minute")
-ureg.define("mgd = 1e6 * gallon / day")
-ureg.define("lps = liter / second")
-Q_ = ureg.Quantity
 
-#: Specific weight of water used to turn pressure into head [Pa per m of water], 60 degF water.
-GAMMA_WATER = float((1 * ureg.ft_H2O_60F).to("Pa").magnitude / 0.3048)
+def _registry():
+    """pint and the package's registry, made on first use (importing pint takes 0.2-0.3 s, and a
+    run that meets only the units of ``_FACTORS`` never needs it): (pint, registry, dimensions)."""
+    if not _REGISTRY:
+        pint = _import_pint()
+        try:  # pint keeps its parsed unit definitions in the user's cache folder: 10x faster start
+            ureg = pint.UnitRegistry(cache_folder=":auto:")
+        except Exception:  # no writable cache folder (e.g. a locked-down tablet): parse them afresh
+            ureg = pint.UnitRegistry()
+        ureg.define("gpm = gallon / minute")
+        ureg.define("mgd = 1e6 * gallon / day")
+        ureg.define("lps = liter / second")
+        dims = {kind: ureg(unit).dimensionality for kind, unit in SI_UNIT.items()}
+        _REGISTRY.update(pint=pint, ureg=ureg, dims=dims)
+    return _REGISTRY["pint"], _REGISTRY["ureg"], _REGISTRY["dims"]
+
+
+def __getattr__(name):
+    # ``units.ureg``, ``units.Q_`` and ``units.pint`` as before, pint loaded when first asked for
+    if name in ("pint", "ureg", "Q_"):
+        pint, ureg, _ = _registry()
+        return {"pint": pint, "ureg": ureg, "Q_": ureg.Quantity}[name]
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+
+
+# The constants and the common units' factors below are pint's own values, to the last bit (hence
+# 0.30479999999999996 for the foot): written out so that a run that meets only these units does not
+# import pint; tests/test_units.py checks each against pint.
+#: Specific weight of water used to turn pressure into head [Pa per m of water], 60 degF water:
+#: pint's ``(1 ft_H2O_60F).to("Pa") / 0.3048``.
+GAMMA_WATER = 9796.853156649997
 #: Standard gravity [m/s2].
 G = 9.80665
 
-PSI = float((1 * ureg.psi).to("Pa").magnitude)
+PSI = 6894.7572931683635  # pint's 1 psi in Pa
 FT = 0.3048
 INCH = 0.0254
-GPM = float((1 * ureg.gpm).to("m**3/s").magnitude)
+GPM = 6.309019639999999e-05  # pint's 1 gpm (US gallon per minute) in m3/s
 
 #: Display units by system; keys are the physical kinds used across the package.
 DISPLAY = {
@@ -70,7 +93,21 @@ DISPLAY = {
 }
 SI_UNIT = {"length": "m", "elevation": "m", "head": "m", "diameter": "m", "flow": "m**3/s",
            "pressure": "Pa", "velocity": "m/s", "headloss": "m"}
-_DIMENSION = {kind: ureg(unit).dimensionality for kind, unit in SI_UNIT.items()}
+
+#: pint's factor to SI of the units files and displays use most, by dimension (see above).
+_FACTORS = {
+    "length": {"m": 1.0, "ft": 0.30479999999999996, "in": 0.0254, "mm": 0.001, "cm": 0.01,
+               "km": 1000.0},
+    "flow": {"m**3/s": 1.0, "gpm": 6.309019639999999e-05, "L/s": 0.0010000000000000002,
+             "lps": 0.0010000000000000002, "mgd": 0.043812636388888875,
+             "m**3/h": 0.0002777777777777778, "L/min": 1.666666666666667e-05},
+    "pressure": {"Pa": 1.0, "kPa": 1000.0, "psi": 6894.7572931683635, "bar": 100000.0,
+                 "MPa": 1000000.0},
+    "velocity": {"m/s": 1.0, "ft/s": 0.30479999999999996},
+}
+_DIMENSION_OF = {"length": "length", "elevation": "length", "head": "length", "diameter": "length",
+                 "headloss": "length", "flow": "flow", "pressure": "pressure",
+                 "velocity": "velocity"}
 
 _HEADER = re.compile(r"^\s*(?P<name>[^\[\]]*?)\s*(\[(?P<unit>[^\[\]]*)\])?\s*$")
 
@@ -96,12 +133,16 @@ def unit_factor(unit: str, kind: str) -> float:
     it has the wrong dimension. Temperature-like offsets are not supported (none of our kinds has one).
     """
     check_unit_text(unit)
+    known = _FACTORS[_DIMENSION_OF[kind]].get(unit)
+    if known is not None:
+        return known
+    pint, ureg, dims = _registry()
     try:
         q = ureg.Quantity(1.0, unit)
     except (pint.errors.UndefinedUnitError, pint.errors.DefinitionSyntaxError, AttributeError,
             TypeError, ValueError, AssertionError) as exc:
         raise ValueError(f"unknown unit '{unit}'") from exc
-    if q.dimensionality != _DIMENSION[kind]:
+    if q.dimensionality != dims[kind]:
         raise ValueError(f"unit '{unit}' is not {_article(kind)} {kind} unit (expected something like "
                          f"{DISPLAY['us'][kind]} or {DISPLAY['si'][kind]})")
     return float(q.to(SI_UNIT[kind]).magnitude)
@@ -115,8 +156,9 @@ def to_si(value, kind: str, default_unit: str | None = None) -> float:
     ``ValueError`` naming what is wrong (not a number, unknown unit, wrong dimension, too large).
     NaN and infinity pass through: the caller's range check (``calib.limits``) refuses them.
     """
-    if isinstance(value, pint.Quantity):
-        if value.dimensionality != _DIMENSION[kind]:
+    pint = sys.modules.get("pint")  # no Quantity can exist before pint is imported
+    if pint is not None and isinstance(value, pint.Quantity):
+        if value.dimensionality != _registry()[2][kind]:
             raise ValueError(f"'{value:~}' is not {_article(kind)} {kind} (expected a unit such as "
                              f"{DISPLAY['us'][kind]} or {DISPLAY['si'][kind]})")
         try:

@@ -2,12 +2,14 @@
 
 ``draw(name, data)`` turns one figure's data (numbers already in display units, labels as text; built
 by ``calib.calibration.report``) into a base64 PNG with matplotlib's Agg canvas (no pyplot, no
-display), each figure drawn once. ``FigureWorker`` runs the same ``draw`` in a separate Python
-process, started before the fit: importing matplotlib and its fonts (about 1.5 s) and drawing the
-PNGs (1-3 s) then run beside the fit and the report's solves instead of after them, on a second core.
-The worker is this file run as a script: it imports numpy and matplotlib only, not ``calib``.
-Anything that goes wrong in the worker (no worker, a crash, an error) is drawn again here, so the
-report is the same with or without it.
+display), each figure drawn once. ``calib.figure_worker.FigureWorker`` (also reachable here) runs
+the same ``draw`` in a separate Python process, started first thing by ``calib fit``: importing
+matplotlib and its fonts (about 0.6 s), making the figures' empty canvases (``LAYOUTS``) and drawing
+the PNGs (about 1.2 s on the demo town) then run beside the fit and the report's solves instead of
+after them, on a second core; the hydrant curves, the largest figure, in a second lane forked from
+the first once matplotlib is loaded. The worker is this file run as a script: it imports numpy and
+matplotlib only, not ``calib``. Anything that goes wrong in the worker (no worker, a crash, an
+error) is drawn again here, so the report is the same with or without it.
 
 Not here: what the figures show (``report.py`` builds their data) or any computation on the fit.
 """
@@ -17,9 +19,7 @@ from __future__ import annotations
 import base64
 import io
 import pickle
-import subprocess
 import sys
-import threading
 
 import numpy as np
 
@@ -65,8 +65,7 @@ def _title(ax, text, **kw):
     ax.set_title(text, y=1.0, **kw)
 
 
-def _observed_vs_simulated(d):
-    fig, ax = _figure((5.6, 5.2))
+def _observed_vs_simulated(d, fig, ax):
     sim, obs, kind, flagged = d["sim"], d["obs"], d["kind"], d["flagged"]
     for k, marker in (("static", "s"), ("residual", "o")):
         sel = (kind == k) & ~flagged
@@ -90,8 +89,7 @@ def _observed_vs_simulated(d):
     return _png(fig)
 
 
-def _residuals_by_test(d):
-    fig, ax = _figure((7.4, 4.0))
+def _residuals_by_test(d, fig, ax):
     xs, z, kind, flagged, thr = d["x"], d["z"], d["kind"], d["flagged"], d["threshold"]
     ax.axhline(0, color="grey", lw=1)
     for sgn in (-1, 1):
@@ -112,8 +110,7 @@ def _residuals_by_test(d):
     return _png(fig)
 
 
-def _c_by_group(d):
-    fig, ax = _figure((8.6, 4.4))
+def _c_by_group(d, fig, ax):
     c, lo_c, hi_c, det, model_c = d["c"], d["low"], d["high"], d["determined"], d["model_c"]
     g = np.arange(len(c))
     c_lo, c_hi = d["c_bounds"]
@@ -152,125 +149,216 @@ def _c_by_group(d):
     return _png(fig)
 
 
-def _hydrant_curves(d):
-    panels, cols = d["panels"], 4
-    rows = int(np.ceil(len(panels) / cols))
+def _curves_layout(n_panels: int, ticks: int = 7):
+    """The curves' canvas and axes; with ``ticks`` tick objects made on each axis (matplotlib
+    makes them on the first draw, a fifth of it, each a copy of the axis' first; the draw uses as
+    many as it needs, made now or then alike)."""
+    rows = int(np.ceil(n_panels / _CURVE_COLUMNS))
     height = 2.9 * rows
-    fig, axes = _figure((11, height), rows, cols, squeeze=False, margins=dict(
+    fig, axes = _figure((11, height), rows, _CURVE_COLUMNS, squeeze=False, margins=dict(
         left=0.06, right=0.99, bottom=0.5 / height, top=1 - 0.7 / height, wspace=0.35,
         hspace=0.45))
-    fu, pu = d["fu"], d["pu"]
-    for k, panel in enumerate(panels):
-        ax = axes[k // cols][k % cols]
-        if panel is None:
-            ax.set_axis_off()
-            continue
-        ax.plot(panel["flow"], panel["pressure"], color="tab:blue")
-        for q_obs, p_obs, flagged in panel["readings"]:
-            ax.scatter([q_obs], [p_obs], color="black" if flagged else "tab:orange",
-                       marker="x" if flagged else "o", zorder=3)
-        ax.axvline(panel["tested"], color="#bbb", lw=0.8, ls=":")
-        _title(ax, panel["title"], fontsize=8)
-        # The trade's N^1.85 axis (NFPA 291): a supply curve is close to a straight line on it.
-        ax.set_xscale("function", functions=(_n185_forward, _n185_inverse))
-        ax.set_xlim(left=0.0)
-        ax.set_xticks(_flow_ticks(panel["flow"][-1]))
-        ax.tick_params(labelsize=7)
-        ax.set_xlabel(f"total test flow [{fu}], N^1.85 scale", fontsize=7)
-        ax.set_ylabel(f"pressure at gauge [{pu}]", fontsize=7)
-    for k in range(len(panels), rows * cols):
-        axes[k // cols][k % cols].set_axis_off()
+    for ax in axes.flat:
+        ax.xaxis.get_major_ticks(ticks)
+        ax.yaxis.get_major_ticks(ticks)
+    return fig, axes
+
+
+_CURVE_COLUMNS = 4
+
+
+def _curve_panel(ax, panel, fu: str, pu: str) -> None:
+    """One test's hydrant curve on ``ax`` (``None``: an empty slot)."""
+    if panel is None:
+        ax.set_axis_off()
+        return
+    ax.plot(panel["flow"], panel["pressure"], color="tab:blue")
+    for q_obs, p_obs, flagged in panel["readings"]:
+        ax.scatter([q_obs], [p_obs], color="black" if flagged else "tab:orange",
+                   marker="x" if flagged else "o", zorder=3)
+    ax.axvline(panel["tested"], color="#bbb", lw=0.8, ls=":")
+    _title(ax, panel["title"], fontsize=8)
+    # The trade's N^1.85 axis (NFPA 291): a supply curve is close to a straight line on it.
+    ax.set_xscale("function", functions=(_n185_forward, _n185_inverse))
+    ax.set_xlim(left=0.0)
+    ax.set_xticks(_flow_ticks(panel["flow"][-1]))
+    ax.tick_params(labelsize=7)
+    ax.set_xlabel(f"total test flow [{fu}], N^1.85 scale", fontsize=7)
+    ax.set_ylabel(f"pressure at gauge [{pu}]", fontsize=7)
+
+
+def _curves_rest(fig, axes, n_panels: int) -> None:
+    """What the curves' figure holds beside the panels: the unused slots off, the title."""
+    for k in range(n_panels, axes.size):
+        axes.flat[k].set_axis_off()
     fig.suptitle("Hydrant curves at each test's first gauge: calibrated model (line), static and "
                  "residual readings (dots; x flagged), flow tested (dotted)", fontsize=10)
+
+
+def _hydrant_curves(d, fig, axes):
+    for k, panel in enumerate(d["panels"]):
+        _curve_panel(axes.flat[k], panel, d["fu"], d["pu"])
+    _curves_rest(fig, axes, len(d["panels"]))
     return _png(fig)
+
+
+class CurvesInProgress:
+    """The hydrant curves' PNG rendered panel by panel as their data comes (``add``), so that
+    only the last panel, the title and the PNG's encoding are left when the page wants it
+    (``finish``): the panels are rendered while the other curves are still being solved.
+
+    The same pixels as ``draw``: Agg renders what ``Figure.draw`` renders, in its order (the
+    figure's patch, the axes in the order they were made, then the title), each panel once its
+    own data is set, onto one canvas; ``finish`` encodes that canvas as ``savefig`` does. Where
+    the figure holds anything else, or a panel given differs from the final data, ``finish``
+    returns None and the figure is drawn afresh.
+    """
+
+    def __init__(self, n_panels: int, made):
+        self.n, (self.fig, self.axes) = n_panels, made
+        self.given: dict[int, tuple] = {}
+        self.rendered = 0
+        self.renderer = None
+
+    def add(self, k: int, panel, fu: str, pu: str) -> None:
+        self.given[k] = (panel, fu, pu)
+        while self.rendered in self.given:
+            panel, fu, pu = self.given[self.rendered]
+            ax = self.axes.flat[self.rendered]
+            _curve_panel(ax, panel, fu, pu)
+            self._render(ax)
+            self.rendered += 1
+
+    def _canvas(self):
+        if self.renderer is None:
+            from matplotlib.backends.backend_agg import FigureCanvasAgg
+            canvas = FigureCanvasAgg(self.fig)
+            canvas._is_saving = True  # as in savefig (animated artists drawn too: there are none)
+            self.renderer = canvas.get_renderer()
+            self.renderer.clear()
+            self.fig.patch.draw(self.renderer)
+        return self.renderer
+
+    def _render(self, artist) -> None:
+        artist.draw(self._canvas())
+
+    def finish(self, d) -> str | None:
+        """The PNG of the figure of ``d`` (the whole data), or None (see the class docstring)."""
+        import matplotlib as mpl
+
+        panels = d["panels"]
+        if len(panels) != self.n or any(
+                not _same_panel(self.given[k], (panels[k], d["fu"], d["pu"]))
+                for k in range(self.rendered)):
+            return None
+        for k in range(self.rendered, self.n):
+            _curve_panel(self.axes.flat[k], panels[k], d["fu"], d["pu"])
+        _curves_rest(self.fig, self.axes, self.n)
+        order = self.fig._get_draw_artists(self._canvas())
+        if order[:self.rendered] != list(self.axes.flat[:self.rendered]):
+            return None
+        for artist in order[self.rendered:]:
+            self._render(artist)
+        buf = io.BytesIO()
+        mpl.image.imsave(buf, self.renderer.buffer_rgba(), format="png", origin="upper",
+                         dpi=self.fig.dpi)  # what savefig's print_png does after its draw
+        return base64.b64encode(buf.getvalue()).decode("ascii")
+
+
+def _same_panel(a, b) -> bool:
+    (pa, fa, ua), (pb, fb, ub) = a, b
+    if (fa, ua) != (fb, ub) or (pa is None) != (pb is None):
+        return False
+    return pa is None or (pa.keys() == pb.keys() and all(
+        np.array_equal(pa[k], pb[k]) if isinstance(pa[k], np.ndarray) else pa[k] == pb[k]
+        for k in pa))
 
 
 FIGURES = {"observed vs simulated": _observed_vs_simulated, "residuals by test": _residuals_by_test,
            "C by group": _c_by_group, "hydrant curves": _hydrant_curves}
 
+#: Each figure's empty canvas and axes, from its ``layout_key`` (the hydrant curves': the number of
+#: panels; the others': None). Made before the data is known (in the worker, while the fit runs:
+#: the curves' 12 axes are a fifth of their draw); the same calls as at draw time, so the same PNG.
+LAYOUTS = {"observed vs simulated": lambda key: _figure((5.6, 5.2)),
+           "residuals by test": lambda key: _figure((7.4, 4.0)),
+           "C by group": lambda key: _figure((8.6, 4.4)),
+           "hydrant curves": _curves_layout}
 
-def draw(name: str, data: dict) -> str:
-    """Figure ``name`` (a key of ``FIGURES``) from its ``data`` as a base64 PNG."""
-    return FIGURES[name](data)
+
+def layout_key(name: str, data: dict):
+    """What figure ``name``'s layout depends on in its ``data`` (see ``LAYOUTS``)."""
+    return len(data["panels"]) if name == "hydrant curves" else None
 
 
-# --- the worker process ---------------------------------------------------------------------------
-class FigureWorker:
-    """A Python process that draws figures while this one goes on: ``submit`` each figure's data as
-    soon as it is known, ``result(name)`` when the page is written (drawn here if the worker could
-    not). ``start()`` returns None where no process can be started; ``close()`` ends it."""
+def draw(name: str, data: dict, made: tuple | None = None) -> str:
+    """Figure ``name`` (a key of ``FIGURES``) from its ``data`` as a base64 PNG. ``made``:
+    ``(key, (figure, axes))`` from ``LAYOUTS[name](key)``, built earlier and not drawn on yet;
+    used when ``key`` is this data's ``layout_key`` (else a new layout is made)."""
+    key = layout_key(name, data)
+    fig_axes = made[1] if made is not None and made[0] == key else LAYOUTS[name](key)
+    return FIGURES[name](data, *fig_axes)
 
-    def __init__(self, proc):
-        self._proc = proc
-        self._done: dict[str, tuple[bool, str]] = {}
-        self._sent: dict[str, dict] = {}
-        self._cond = threading.Condition()
-        self._reader = threading.Thread(target=self._read, daemon=True)
-        self._reader.start()
 
-    @classmethod
-    def start(cls) -> FigureWorker | None:
-        # the script by its path, with this interpreter; -c keeps the script's folder off sys.path
-        code = ("import runpy, sys; sys.path.pop(0); "
-                "runpy.run_path(sys.argv[1], run_name='__calib_figures__')")
-        try:
-            proc = subprocess.Popen([sys.executable, "-c", code, __file__], stdin=subprocess.PIPE,
-                                    stdout=subprocess.PIPE, stderr=subprocess.DEVNULL)
-        except OSError:
-            return None
-        return cls(proc)
-
-    def _read(self):
-        out = self._proc.stdout
-        while True:
-            try:
-                name, ok, value = pickle.load(out)
-            except Exception:  # the worker ended (or broke): whatever is missing is drawn here
-                break
-            with self._cond:
-                self._done[name] = (ok, value)
-                self._cond.notify_all()
-        with self._cond:
-            self._proc_gone = True
-            self._cond.notify_all()
-
-    _proc_gone = False
-
-    def submit(self, name: str, data: dict) -> None:
-        self._sent[name] = data
-        try:
-            pickle.dump((name, data), self._proc.stdin, protocol=pickle.HIGHEST_PROTOCOL)
-            self._proc.stdin.flush()
-        except (OSError, ValueError):
-            pass  # drawn here in result()
-
-    def result(self, name: str) -> str:
-        with self._cond:
-            self._cond.wait_for(lambda: name in self._done or self._proc_gone)
-            ok, value = self._done.get(name, (False, ""))
-        return value if ok else draw(name, self._sent[name])
-
-    def close(self) -> None:
-        """End the worker: at once when a figure is still wanted (the command failed), else when
-        it has read the end of its input."""
-        with self._cond:
-            waiting = any(name not in self._done for name in self._sent) or not self._sent
-        try:
-            self._proc.stdin.close()
-        except OSError:
-            pass
-        if waiting:
-            self._proc.kill()
-        try:
-            self._proc.wait(timeout=5)
-        except subprocess.TimeoutExpired:
-            self._proc.kill()
-            self._proc.wait()
+# --- the worker process: calib.figure_worker starts it and talks to it ----------------------------
+def __getattr__(name):
+    # FigureWorker lives where ``calib fit`` can start it without importing this package (the
+    # package imports the fit and its numerics: 0.9 s the worker would wait for)
+    if name == "FigureWorker":
+        from calib.figure_worker import FigureWorker
+        return FigureWorker
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
 
 
 def _serve(stdin, stdout) -> None:
-    """The worker's loop: read ``(name, data)`` pickles until the input closes, answer each with
+    """One lane of the worker: read ``(kind, name, payload)`` pickles until the input closes.
+    ``("layout", name, key)``: make that figure's canvas and axes now (``LAYOUTS``), while the fit
+    runs; ``("part", name, (k, panel, fu, pu))``: a hydrant-curve panel, rendered at once
+    (``CurvesInProgress``); ``("draw", name, data)``: draw it (on that canvas when the key matches,
+    from the panels rendered so far where they are this data's) and answer
     ``(name, ok, png or error text)``."""
+    made, growing = {}, {}
+    while True:
+        try:
+            kind, name, payload = pickle.load(stdin)
+        except EOFError:
+            return
+        if kind == "layout":
+            try:
+                made[name] = (payload, LAYOUTS[name](payload))
+            except Exception:  # made again when the figure is drawn, where an error is answered
+                pass
+            continue
+        if kind == "part":  # a hydrant-curve panel (k, panel, fu, pu), rendered now
+            try:
+                if name not in growing and name in made:
+                    growing[name] = CurvesInProgress(*made.pop(name))
+                if name in growing:
+                    growing[name].add(*payload)
+            except Exception:  # drawn afresh when the whole figure comes
+                growing.pop(name, None)
+            continue
+        try:
+            png = None
+            if name in growing:
+                try:
+                    png = growing.pop(name).finish(payload)
+                except Exception:
+                    png = None
+            answer = (name, True, png or draw(name, payload, made.pop(name, None)))
+        except Exception as exc:  # the parent draws it again and sees the error itself
+            answer = (name, False, f"{type(exc).__name__}: {exc}")
+        pickle.dump(answer, stdout, protocol=pickle.HIGHEST_PROTOCOL)
+        stdout.flush()
+
+
+def _worker(argv) -> None:
+    """The worker process: load matplotlib and its fonts, then serve its lanes. With ``argv`` =
+    ``[REQUESTS_FD, ANSWERS_FD]`` a second lane on those pipes is a fork of this process made once
+    matplotlib is loaded: two figures drawn at once at no second import, each lane as warm as the
+    other (so the same PNG from either)."""
+    import os
+
     import matplotlib
     matplotlib.use("Agg")
     from matplotlib.figure import Figure  # noqa: F401  (loaded before the first request)
@@ -278,21 +366,28 @@ def _serve(stdin, stdout) -> None:
     fig, ax = _figure((1, 1))
     ax.set_title("0")
     _png(fig)
-    while True:
+    child = 0
+    if len(argv) == 2:
+        requests, answers = (int(v) for v in argv)
         try:
-            name, data = pickle.load(stdin)
-        except EOFError:
-            return
-        try:
-            answer = (name, True, draw(name, data))
-        except Exception as exc:  # the parent draws it again and sees the error itself
-            answer = (name, False, f"{type(exc).__name__}: {exc}")
-        pickle.dump(answer, stdout, protocol=pickle.HIGHEST_PROTOCOL)
-        stdout.flush()
+            child = os.fork()
+        except OSError:  # no second lane: its pipes close below, and the parent draws its figures
+            child = -1
+        if child == 0:
+            null = os.open(os.devnull, os.O_RDWR)
+            os.dup2(null, 0)  # the first lane's pipes are the parent's alone: their ends are seen
+            os.dup2(null, 1)
+            _serve(os.fdopen(requests, "rb"), os.fdopen(answers, "wb"))
+            os._exit(0)
+        os.close(requests)
+        os.close(answers)
+    _serve(sys.stdin.buffer, sys.stdout.buffer)
+    if child > 0:
+        os.waitpid(child, 0)
 
 
 if __name__ == "__calib_figures__":
-    _serve(sys.stdin.buffer, sys.stdout.buffer)
+    _worker(sys.argv[2:])  # argv: -c, this file, then the second lane's pipes if any
     # every answer is flushed: end without the interpreter's teardown of matplotlib's objects
     # (0.2-0.4 s that ``close`` would wait for; 0.02 s this way)
     import os

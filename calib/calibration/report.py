@@ -42,6 +42,12 @@ CAUTIONS = [
 # curve is steep on that axis (the base demand's losses grow linearly there), hence a point at 0.2.
 CURVE_TOLERANCE = 0.01
 CURVE_SCALES = (0.0, 0.2, 1.0, 1.6)  # shares of the test's flow always solved; 0 and 1 the fit's
+# The curve points' solver tolerances: a point is drawn, never printed, and a pixel of a panel is
+# about 0.4 psi (0.3 m of head) on the demo town; heads to 1e-3 m (0.0014 psi) instead of the
+# solver's default 1e-6 m change no pixel and no point chosen (tests/calibration/
+# test_report_parts.py), in a quarter fewer Newton iterations (demo 335 -> 274, 7,938-pipe grid
+# 787 -> 591). Each point still balances mass to 1e-6 of the demand.
+CURVE_SOLVER = dict(flow_tol=1e-5, head_tol=1e-3, energy_tol=1e-4, mass_tol=1e-6)
 
 
 def _same_loading(a, b) -> bool:
@@ -137,18 +143,40 @@ def _figure_data(result, system: str) -> dict[str, dict]:
     return out
 
 
-def _curves_data(result, system: str) -> dict | None:
-    """The hydrant-curve panels (at most 12 tests), each from ``_curve``'s solves; None without tests."""
+#: Hydrant-curve panels drawn at most (the first tests').
+CURVE_PANELS = 12
+
+
+def announce(worker, tests, curves: bool = True) -> None:
+    """Have ``worker`` (a ``figure_worker.FigureWorker``) make the figures' empty canvases now,
+    from what the tests alone decide (the number of curve panels), while the fit runs."""
+    for name in ("observed vs simulated", "residuals by test", "C by group"):
+        worker.layout(name)
+    if curves and tests.n_tests:
+        worker.layout("hydrant curves", min(tests.n_tests, CURVE_PANELS))
+
+
+def _curves_data(result, system: str, on_panel=None) -> dict | None:
+    """The hydrant-curve panels (at most ``CURVE_PANELS`` tests), each from ``_curve``'s solves;
+    None without tests. ``on_panel(k, panel, flow unit, pressure unit)`` is called with each panel
+    as soon as it is known (``None`` for a test without flows or gauges)."""
     t, net = result.tests, result.network
     if not t.n_tests:
         return None
     from calib.hydraulics import NetworkSolver
-    solver = NetworkSolver(net, headloss="hazen-williams")  # one set-up for every curve point
+    # one set-up for every curve point
+    solver = NetworkSolver(net, headloss="hazen-williams", **CURVE_SOLVER)
     pu, fu = units.display_unit("pressure", system), units.display_unit("flow", system)
     rough = result.roughness()
     solutions = getattr(result, "solutions", {})
     known = list(solutions.values())
-    shown = [k for k in range(min(t.n_tests, 12)) if t.flows[k] and (t.test == k).any()]
+    n_panels = min(t.n_tests, CURVE_PANELS)
+    shown = [k for k in range(n_panels) if t.flows[k] and (t.test == k).any()]
+    panels = [None] * n_panels
+    if on_panel is not None:
+        for k in range(n_panels):
+            if k not in shown:  # a test without flows or gauges
+                on_panel(k, None, fu, pu)
 
     def curve(k):
         flows = {str(net.node_ids[n]): q for n, q in t.flows[k].items()}
@@ -157,43 +185,46 @@ def _curves_data(result, system: str) -> dict | None:
         return _curve(solver, rough, flows, heads, gauge, known,
                       solutions.get(f"{t.test_ids[k]} residual"))
 
-    # the curves are independent: shared out between processes, each from a solver holding no
-    # kept factorization (``calib.parallel``), so they come out the same on one core or several
-    from calib import parallel
-    curves = dict(zip(shown, parallel.run(curve, shown, reset=solver.forget,
-                                           workers=parallel.workers_for(net))))
-    panels = []
-    for k in range(min(t.n_tests, 12)):
-        if k not in curves:
-            panels.append(None)
-            continue
+    def panel(j, curve_points):
+        k = shown[j]
         flows = {str(net.node_ids[n]): q for n, q in t.flows[k].items()}
         sel = np.flatnonzero(t.test == k)
         gauge = int(t.node[sel[0]])
         total = sum(flows.values())
-        scales, p = curves[k]
+        scales, p = curve_points
         gh = units.head_to_pressure(t.gauge_height[sel[0]])
         readings = [(units.from_si(0.0 if t.kind[i] == "static" else total, "flow", fu),
                      float(units.from_si(t.pressure[i], "pressure", pu)), bool(result.flag[i]))
                     for i in sel[t.node[sel] == gauge]]
-        panels.append(dict(
+        panels[k] = dict(
             flow=units.from_si(total * scales, "flow", fu),
             pressure=units.from_si(np.array(p) - gh, "pressure", pu), readings=readings,
             tested=units.from_si(total, "flow", fu),
             title=(f"{t.test_ids[k]}: gauge {net.node_ids[gauge]}, "
-                   f"{units.from_si(total, 'flow', fu):.0f} {fu} flowed")))
+                   f"{units.from_si(total, 'flow', fu):.0f} {fu} flowed"))
+        if on_panel is not None:
+            on_panel(k, panels[k], fu, pu)
+
+    # the curves are independent: shared out between processes, each from a solver holding no
+    # kept factorization (``calib.parallel``), so they come out the same on one core or several;
+    # each panel is made (and handed on) as its curve arrives
+    from calib import parallel
+    parallel.run(curve, shown, reset=solver.forget, workers=parallel.workers_for(net), done=panel)
     return dict(panels=panels, fu=fu, pu=pu)
 
 
 def _plot_specs(result, system: str, curves: bool = True, worker=None) -> dict[str, dict]:
-    """Every figure's data, each handed to ``worker`` (a ``figures.FigureWorker``) as soon as it is
+    """Every figure's data, each handed to ``worker`` (a ``figure_worker.FigureWorker``) as soon as it is
     known: the fit's figures are drawn there while the curves are solved here."""
     specs = _figure_data(result, system)
     if worker is not None:
         for name, data in specs.items():
             worker.submit(name, data)
     if curves:
-        data = _curves_data(result, system)
+        # each panel to the worker as soon as it is solved: it renders it while the next are
+        on_panel = None if worker is None else (
+            lambda *panel: worker.submit_part("hydrant curves", panel))
+        data = _curves_data(result, system, on_panel)
         if data is not None:
             specs["hydrant curves"] = data
             if worker is not None:
@@ -267,7 +298,7 @@ def prepare(result, system: str = "us", curves: bool = True, worker=None) -> Rep
 
 def render(result, system: str = "us", curves: bool = True, worker=None,
            parts: ReportParts | None = None) -> str:
-    """The report as one HTML string; ``worker``: a ``figures.FigureWorker`` to draw the figures in
+    """The report as one HTML string; ``worker``: a ``figure_worker.FigureWorker`` to draw the figures in
     (else they are drawn here); ``parts``: ``prepare``'s, made earlier with the same ``worker``."""
     from calib.calibration import figures
     from calib.calibration.export import groups_frame, other_parameters_frame

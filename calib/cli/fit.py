@@ -259,6 +259,20 @@ def summary(result, system: str = "us") -> str:
 
 
 def run(args) -> int:
+    worker = None
+    if not args.no_report:
+        # first thing: a process that loads matplotlib while this one loads the fit's numerics,
+        # makes the figures' canvases and draws them later, beside the fit
+        from calib.figure_worker import FigureWorker
+        worker = FigureWorker.start()
+    try:
+        return _checked(args, worker)
+    finally:
+        if worker is not None:
+            worker.close()
+
+
+def _checked(args, worker) -> int:
     from calib import fileio
     c_bounds = _bounds(args.c_bounds)
     sigma = _sigma(args.sigma)
@@ -275,16 +289,7 @@ def run(args) -> int:
                          expected="a folder for the outputs (created when missing)")
     fileio.check_outputs({"--out": [out / name for name in OUTPUTS]},
                          fileio.input_files(args.network, args.tests))
-    worker = None
-    if not args.no_report:
-        # a process that loads matplotlib now and draws the report's figures later, beside the fit
-        from calib.calibration.figures import FigureWorker
-        worker = FigureWorker.start()
-    try:
-        return _run(args, out, c_bounds, sigma, worker)
-    finally:
-        if worker is not None:
-            worker.close()
+    return _run(args, out, c_bounds, sigma, worker)
 
 
 def _run(args, out, c_bounds, sigma, worker) -> int:
@@ -294,6 +299,9 @@ def _run(args, out, c_bounds, sigma, worker) -> int:
 
     network = read_network(args.network)
     tests = read_tests(args.tests, network, sigma=sigma)
+    if worker is not None:
+        from calib.calibration.report import announce
+        announce(worker, tests)
     # about 100 solves a test on the demo day (fit, refits, interval checks, leave-one-out)
     bar = None if args.quiet else ProgressBar(expected=100 * tests.n_tests)
     report_parts = []

@@ -58,3 +58,20 @@ def test_units_leave_pint_alone_where_dask_is_loaded_first():
         "import pint.compat\n"
         "print(json.dumps(dict(has_dask=bool(pint.compat.HAS_DASK))))")
     assert out["has_dask"] is True
+
+
+def test_reading_the_demo_town_loads_no_pint():
+    # its headers use the units calib.units writes out (pint's own factors): pint's 0.2-0.3 s of
+    # import is not paid; a unit outside them loads it
+    out = _loaded(
+        "import json, sys\n"
+        "from calib.network.io import read_network\n"
+        "from calib.calibration import read_tests\n"
+        "from calib import units\n"
+        "net = read_network('field_samples/tallowmere/network')\n"
+        "tests = read_tests('field_samples/tallowmere/tests', net)\n"
+        "before = 'pint' in sys.modules\n"
+        "units.to_si('1 yd', 'length')\n"
+        "print(json.dumps(dict(before=before, after='pint' in sys.modules, n=tests.n_tests)))")
+    assert out["n"] > 0
+    assert out["before"] is False and out["after"] is True

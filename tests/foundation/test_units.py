@@ -55,3 +55,28 @@ def test_unit_factor_rejects_wrong_dimension():
         units.unit_factor("psi", "length")
     assert units.unit_factor("L/s", "flow") == pytest.approx(1e-3)
     assert math.isclose(units.from_si(1e-3, "flow", "L/s"), 1.0)
+
+
+def test_the_written_out_factors_are_pints_to_the_last_bit():
+    # units._FACTORS and the constants spare a run pint's import; each must be what pint itself
+    # gives (so that outputs stay byte for byte those made through pint)
+    _, ureg, _ = units._registry()
+    for dimension, table in units._FACTORS.items():
+        kinds = [k for k, d in units._DIMENSION_OF.items() if d == dimension]
+        for unit, factor in table.items():
+            for kind in kinds:
+                assert factor == float(ureg.Quantity(1.0, unit).to(units.SI_UNIT[kind]).magnitude), unit
+    assert units.PSI == float((1 * ureg.psi).to("Pa").magnitude)
+    assert units.GPM == float((1 * ureg.gpm).to("m**3/s").magnitude)
+    assert units.GAMMA_WATER == float((1 * ureg.ft_H2O_60F).to("Pa").magnitude / 0.3048)
+
+
+def test_units_outside_the_written_out_ones_still_go_to_pint():
+    # a yard (0.9144 m exactly, NIST SP 811 appendix B, from memory) is not written out
+    assert units.to_si("2 yd", "length") == pytest.approx(1.8288, rel=1e-12)
+    # a written-out unit of another dimension is refused as before, with pint's dimension check
+    with pytest.raises(ValueError, match="unit 'psi' is not a length unit"):
+        units.unit_factor("psi", "length")
+    with pytest.raises(ValueError, match="unknown unit 'furlongz'"):
+        units.to_si("1 furlongz", "length")
+    assert units.to_si(units.Q_(3.0, "ft"), "length") == pytest.approx(0.9144, rel=1e-12)
