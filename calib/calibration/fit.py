@@ -465,7 +465,6 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
             count["stage"] = (f"leave-one-out: {tests.test_ids[tests.test[i]]} "
                               f"{network.node_ids[tests.node[i]]}")
 
-
         # independent refits: shared out between processes, each from the same state
         # (``tasks.on_problem``), so the notes are the same on one core or several
         def refit_one(k):
