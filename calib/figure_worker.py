@@ -93,6 +93,7 @@ class FigureWorker:
             with self._cond:
                 self._done[name] = (ok, value)
                 self._cond.notify_all()
+        answers.close()
         with self._cond:
             self._gone[lane] = True
             self._cond.notify_all()

@@ -110,7 +110,8 @@ def _running_in_group(group):
     alive = []
     for pid in filter(str.isdigit, os.listdir("/proc")):
         try:
-            stat = open(f"/proc/{pid}/stat").read()
+            with open(f"/proc/{pid}/stat") as f:
+                stat = f.read()
         except OSError:
             continue
         fields = stat.rsplit(")", 1)[1].split()
