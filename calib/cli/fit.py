@@ -54,6 +54,8 @@ def register(subparsers) -> None:
     p.add_argument("--threshold", type=float, default=None,
                    help="flag readings whose standardized residual exceeds this fixed cut-off "
                         "(default: the Bonferroni cut-off of --flag-level over the readings)")
+    # flags.FLAG_LEVEL, written out: importing calib.calibration here would load the numerics for
+    # --help (tests/cli/test_fit.py checks that the two agree)
     p.add_argument("--flag-level", type=float, default=0.05, metavar="ALPHA",
                    help="family-wise level of the suspect-reading flag: with no gross error, the "
                         "chance that any reading is flagged (default 0.05; Bonferroni outlier test)")

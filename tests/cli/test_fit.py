@@ -293,3 +293,13 @@ def test_demo_fit_flags_only_the_planted_readings_at_the_stated_level(demo_run):
 def test_flag_level_out_of_range_is_refused_before_the_fit(level, tmp_path, capsys):
     assert main(["fit", str(NETWORK), str(TESTS), "--out", str(tmp_path / "o"), "--flag-level", level]) == 2
     assert "--flag-level" in capsys.readouterr().err
+
+
+def test_the_flag_level_default_is_the_fits():
+    # the command line states the default without importing the fit (a fast --help); it must be
+    # the level the fit itself uses when called from Python
+    from calib.calibration.flags import FLAG_LEVEL
+    from calib.cli import build_parser
+
+    args = build_parser(["fit"]).parse_args(["fit", "network", "tests", "--out", "out"])
+    assert args.flag_level == FLAG_LEVEL
