@@ -72,7 +72,7 @@ def __getattr__(name):
 
 # The constants and the common units' factors below are pint's own values, to the last bit (hence
 # 0.30479999999999996 for the foot): written out so that a run that meets only these units does not
-# import pint; tests/test_units.py checks each against pint.
+# import pint; tests/foundation/test_units.py checks each against pint.
 #: Specific weight of water used to turn pressure into head [Pa per m of water], 60 degF water:
 #: pint's ``(1 ft_H2O_60F).to("Pa") / 0.3048``.
 GAMMA_WATER = 9796.853156649997

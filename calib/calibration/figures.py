@@ -1,15 +1,16 @@
 """The report's figures drawn from plain data, in this process or in a worker process.
 
-``draw(name, data)`` turns one figure's data (numbers already in display units, labels as text; built
-by ``calib.calibration.report``) into a base64 PNG with matplotlib's Agg canvas (no pyplot, no
-display), each figure drawn once. ``calib.figure_worker.FigureWorker`` (also reachable here) runs
-the same ``draw`` in a separate Python process, started first thing by ``calib fit``: importing
-matplotlib and its fonts (about 0.6 s), making the figures' empty canvases (``LAYOUTS``) and drawing
-the PNGs (about 1.2 s on the demo town) then run beside the fit and the report's solves instead of
-after them, on a second core; the hydrant curves, the largest figure, in a second lane forked from
-the first once matplotlib is loaded. The worker is this file run as a script: it imports numpy and
-matplotlib only, not ``calib``. Anything that goes wrong in the worker (no worker, a crash, an
-error) is drawn again here, so the report is the same with or without it.
+``draw(name, data)`` turns one figure's data (numbers already in display units, labels as text;
+built by ``calib.calibration.report``) into a base64 PNG with matplotlib's Agg canvas (no pyplot, no
+display), each figure drawn once. ``calib.figure_worker.FigureWorker`` (outside this package, so
+that ``calib fit`` starts it before importing the fit's numerics) runs the same ``draw`` in a
+separate Python process, started first thing by ``calib fit``: importing matplotlib and its fonts
+(about 0.6 s), making the figures' empty canvases (``LAYOUTS``) and drawing the PNGs (about 1.2 s on
+the demo town) then run beside the fit and the report's solves instead of after them, on a second
+core; the hydrant curves, the largest figure, in a second lane forked from the first once matplotlib
+is loaded. The worker is this file run as a script: it imports numpy and matplotlib only, not
+``calib``. Anything that goes wrong in the worker (no worker, a crash, an error) is drawn again
+here, so the report is the same with or without it.
 
 Not here: what the figures show (``report.py`` builds their data) or any computation on the fit.
 """
@@ -301,15 +302,6 @@ def draw(name: str, data: dict, made: tuple | None = None) -> str:
 
 
 # --- the worker process: calib.figure_worker starts it and talks to it ----------------------------
-def __getattr__(name):
-    # FigureWorker lives where ``calib fit`` can start it without importing this package (the
-    # package imports the fit and its numerics: 0.9 s the worker would wait for)
-    if name == "FigureWorker":
-        from calib.figure_worker import FigureWorker
-        return FigureWorker
-    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
-
-
 def _serve(stdin, stdout) -> None:
     """One lane of the worker: read ``(kind, name, payload)`` pickles until the input closes.
     ``("layout", name, key)``: make that figure's canvas and axes now (``LAYOUTS``), while the fit

@@ -178,18 +178,21 @@ def _curves_data(result, system: str, on_panel=None) -> dict | None:
             if k not in shown:  # a test without flows or gauges
                 on_panel(k, None, fu, pu)
 
-    def curve(k):
+    def loading(k):
+        """Test ``k``'s hydrant flows by id, its readings and the gauge its curve is drawn at."""
         flows = {str(net.node_ids[n]): q for n, q in t.flows[k].items()}
+        sel = np.flatnonzero(t.test == k)
+        return flows, sel, int(t.node[sel[0]])
+
+    def curve(k):
+        flows, _sel, gauge = loading(k)
         heads = {str(net.node_ids[s]): h for s, h in t.source_head[k].items()}
-        gauge = int(t.node[np.flatnonzero(t.test == k)[0]])
         return _curve(solver, rough, flows, heads, gauge, known,
                       solutions.get(f"{t.test_ids[k]} residual"))
 
     def panel(j, curve_points):
         k = shown[j]
-        flows = {str(net.node_ids[n]): q for n, q in t.flows[k].items()}
-        sel = np.flatnonzero(t.test == k)
-        gauge = int(t.node[sel[0]])
+        flows, sel, gauge = loading(k)
         total = sum(flows.values())
         scales, p = curve_points
         gh = units.head_to_pressure(t.gauge_height[sel[0]])
@@ -221,7 +224,7 @@ def _plot_specs(result, system: str, curves: bool = True, worker=None) -> dict[s
         for name, data in specs.items():
             worker.submit(name, data)
     if curves:
-        # each panel to the worker as soon as it is solved: it renders it while the next are
+        # each panel to the worker as soon as it is solved: it renders it while the next are solved
         on_panel = None if worker is None else (
             lambda *panel: worker.submit_part("hydrant curves", panel))
         data = _curves_data(result, system, on_panel)

@@ -7,6 +7,7 @@ import numpy as np
 import pytest
 
 from calib.calibration import figures
+from calib.figure_worker import FigureWorker
 
 
 def _data():
@@ -23,7 +24,7 @@ def _is_png(text):
 def test_worker_draws_the_same_png_as_this_process():
     data = _data()
     here = figures.draw("observed vs simulated", data)
-    worker = figures.FigureWorker.start()
+    worker = FigureWorker.start()
     assert worker is not None
     try:
         worker.submit("observed vs simulated", data)
@@ -37,7 +38,7 @@ def test_worker_draws_the_same_png_as_this_process():
 
 def test_an_error_in_the_worker_is_raised_here_and_a_dead_worker_leaves_the_figure_here():
     data = _data()
-    worker = figures.FigureWorker.start()
+    worker = FigureWorker.start()
     try:
         # an error there is answered as text; the figure is drawn again here, where it raises
         worker.submit("observed vs simulated", dict(data, sim=None))
@@ -84,7 +85,6 @@ def test_a_canvas_made_before_the_data_draws_the_same_png():
 def test_each_lane_draws_what_this_process_draws(lanes):
     # two lanes (the second forked from the first) or one: every figure the same PNG as here,
     # each drawn by the worker, the curves on a canvas announced before their data
-    from calib.figure_worker import FigureWorker
     if lanes == 2 and not hasattr(__import__("os"), "fork"):
         pytest.skip("no fork here: one lane only")
     curves, points = _curves(5), _data()
@@ -125,7 +125,6 @@ def test_a_worker_closed_while_drawing_leaves_no_lane_running():
     # the forked lane too, although it is busy drawing twelve panels (0.5 s and more)
     import os
     import time
-    from calib.figure_worker import FigureWorker
     if not (hasattr(os, "fork") and os.path.isdir("/proc/self")):
         pytest.skip("needs fork and /proc")
     worker = FigureWorker.start(lanes=2)
@@ -169,7 +168,6 @@ def test_curves_rendered_from_other_panels_are_not_used():
 
 def test_the_worker_renders_curve_panels_as_they_come():
     # panels sent one by one (submit_part), then the whole: the worker's PNG is the one drawn here
-    from calib.figure_worker import FigureWorker
     data = _curves(6)
     worker = FigureWorker.start()
     try:

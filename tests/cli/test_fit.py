@@ -160,7 +160,7 @@ def test_bad_tests_folder_exits_2_naming_file_and_row(tmp_path, capsys):
 
 def test_a_failed_fit_ends_the_figure_worker_at_once(tmp_path, capsys, monkeypatch):
     # the report's worker starts before the fit; bad input ends the command, and the worker with it
-    from calib.calibration.figures import FigureWorker
+    from calib.figure_worker import FigureWorker
     started, real = [], FigureWorker.start
     monkeypatch.setattr(FigureWorker, "start",
                         classmethod(lambda cls: started.append(real()) or started[-1]))

@@ -5,7 +5,8 @@ before its first leave-one-out stage, and the page written is complete."""
 from pathlib import Path
 
 import calib.calibration as calibration
-from calib.calibration.figures import FIGURES, FigureWorker
+from calib.calibration.figures import FIGURES
+from calib.figure_worker import FigureWorker
 from calib.cli import main
 
 ROOT = Path(__file__).resolve().parents[2]
