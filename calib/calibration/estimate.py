@@ -286,6 +286,19 @@ def _profile_point(problem, est, i, value, warm):
     return rise, x, slope, trace, drop
 
 
+def _below_cut_at_start(problem, est, i, value, warm, root_cut) -> bool:
+    """True when the profile point at ``value`` (parameter ``i``, the others at ``warm``) lies
+    below the cut-off by more than the end search's tolerance already at its start: the point's
+    Gauss-Newton step or refit only lowers the sum of squares, so the point would decide the same
+    (below the cut, not within ``PROFILE_ROOT_TOL`` of it) and its Jacobian is not needed. One
+    evaluation of the snapshots' residuals (the point itself solves there first anyway)."""
+    x = np.array(warm, float)
+    x[i] = value
+    r = problem.residuals(x)
+    rise = float(r @ r) - float(est.residual @ est.residual)
+    return rise < (root_cut * (1.0 - PROFILE_ROOT_TOL)) ** 2
+
+
 def _profile_end(problem, est, i, direction, cut):
     """One end of the profile-likelihood interval of parameter ``i``: ``(value, reaches_bound, points)``.
 
@@ -317,6 +330,9 @@ def _profile_end(problem, est, i, direction, cut):
             warm = _linearized_end(problem, est, direction * step, trace)
         else:
             warm = np.clip(x_near + (value - near) * trace, problem.lower, problem.upper)
+        if abs(value - bound) <= 1e-9 * room and _below_cut_at_start(problem, est, i, value, warm,
+                                                                      root_cut):
+            return float(bound), True, points + 1  # what the point would decide, without its Jacobian
         rise, x_at, slope, trace_at, drop = _profile_point(problem, est, i, value, warm)
         points += 1
         root = np.sqrt(rise)

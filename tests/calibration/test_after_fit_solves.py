@@ -1,0 +1,84 @@
+"""Less work after the fit (interval checks, refits, report data), with the same answers.
+
+Independent checks: scipy.optimize.least_squares refits at tight tolerances on a fresh problem
+(the profile's conditional minimum the long way).
+"""
+
+import numpy as np
+import pytest
+from scipy import optimize
+
+from calib.calibration.estimate import (PROFILE_ROOT_TOL, _profile_end, _profile_point, estimate,
+                                        refine_intervals)
+from calib.calibration.problem import CalibrationProblem
+from calib.calibration.synthetic import synthetic_tests
+
+
+@pytest.fixture(scope="module")
+def open_high(small):
+    """The small grid's tests at C 150 / 90 / 70: group 0's profile reaches the C bound 160 on
+    its high side (the tests give it a lower limit only)."""
+    net, grp, plan, solver = small
+    tests = synthetic_tests(net, np.array([150.0, 90.0, 70.0])[grp.index], plan, seed=2)
+    prob = CalibrationProblem(net, tests, grp, solver=solver)
+    est = estimate(prob, prob.x0, "linear", 2.0, 60, np.ones(tests.n_readings, dtype=bool))
+    return net, grp, solver, tests, prob, est
+
+
+def _tight_rise(net, grp, solver, tests, est, i, value):
+    """Rise of the weighted sum of squares with parameter ``i`` held at ``value`` and the others
+    refitted by scipy's least_squares to 1e-12, on a problem that keeps nothing."""
+    fresh = CalibrationProblem(net, tests, grp, solver=solver)
+    free = np.flatnonzero(np.arange(len(est.x)) != i)
+
+    def full(z):
+        x = np.array(est.x, float)
+        x[i], x[free] = value, z
+        return x
+
+    sol = optimize.least_squares(lambda z: fresh.residuals(full(z)), est.x[free],
+                                 bounds=(fresh.lower[free], fresh.upper[free]), method="trf",
+                                 xtol=1e-12, ftol=1e-12, gtol=1e-12)
+    r = fresh.residuals(full(sol.x))
+    return float(r @ r) - float(est.residual @ est.residual)
+
+
+def test_a_profile_end_at_the_c_bound_is_decided_without_a_jacobian_there(open_high):
+    net, grp, solver, tests, prob, est = open_high
+    assert not est.scaled  # the weights are the stated sigma's: a fresh problem has the same
+    cut = est.t ** 2
+    asked = []  # the x of every Jacobian the search asks for
+    jacobian = prob.jacobian
+
+    def recording(x):
+        asked.append(np.array(x, float))
+        return jacobian(x)
+
+    prob.jacobian = recording
+    try:
+        end, reaches, points = _profile_end(prob, est, 0, 1.0, cut)
+    finally:
+        del prob.jacobian
+    assert (end, reaches) == (160.0, True) and points >= 1
+    assert not any(x[0] == 160.0 for x in asked)  # there: its residuals only
+    # the long way: the other C refitted tightly at 160, the rise stays below the cut-off by more
+    # than the end search's tolerance (so the full point could not have ended the search there)
+    rise = _tight_rise(net, grp, solver, tests, est, 0, 160.0)
+    assert rise < (np.sqrt(cut) * (1.0 - PROFILE_ROOT_TOL)) ** 2
+    # and the point as the search evaluates it in full (Gauss-Newton step or refit) agrees
+    full_rise = _profile_point(prob, est, 0, 160.0, est.x)[0]
+    assert full_rise == pytest.approx(rise, abs=1e-3 * cut)
+
+
+def test_the_intervals_are_those_of_a_search_that_takes_every_jacobian(open_high, monkeypatch):
+    _net, _grp, _solver, _tests, prob, est = open_high
+    import copy
+
+    from calib.calibration import estimate as estimate_module
+    ours = refine_intervals(prob, copy.deepcopy(est), prob.c_cols)
+    monkeypatch.setattr(estimate_module, "_below_cut_at_start", lambda *a, **k: False)
+    every = refine_intervals(prob, copy.deepcopy(est), prob.c_cols)
+    assert ours.high_open[0] and ours.high[0] == 160.0
+    for name in ("low", "high", "low_open", "high_open"):
+        np.testing.assert_array_equal(getattr(ours, name), getattr(every, name))
+    assert ours.method == every.method
