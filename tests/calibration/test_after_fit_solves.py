@@ -82,3 +82,39 @@ def test_the_intervals_are_those_of_a_search_that_takes_every_jacobian(open_high
     for name in ("low", "high", "low_open", "high_open"):
         np.testing.assert_array_equal(getattr(ours, name), getattr(every, name))
     assert ours.method == every.method
+
+
+def test_an_end_one_newton_step_away_is_taken_without_evaluating_that_step(small, monkeypatch):
+    # the small grid's tests at C 70 / 100 / 130, seed 5: all three groups profiled. Against the
+    # search that evaluates every Newton step (PROFILE_NEWTON_TOL 0: as before), fewer points and
+    # the same ends to rounding; against the long way's profile (scipy least_squares refits to
+    # 1e-12, the end by scipy.optimize.brentq) within the search's own accuracy
+    import copy
+
+    from calib.calibration import estimate as estimate_module
+    net, grp, plan, solver = small
+    tests = synthetic_tests(net, np.array([70.0, 100.0, 130.0])[grp.index], plan, seed=5)
+    prob = CalibrationProblem(net, tests, grp, solver=solver)
+    est = estimate(prob, prob.x0, "linear", 2.0, 60, np.ones(tests.n_readings, dtype=bool))
+    ours = refine_intervals(prob, copy.deepcopy(est), prob.c_cols)
+    monkeypatch.setattr(estimate_module, "PROFILE_NEWTON_TOL", 0.0)
+    every = refine_intervals(prob, copy.deepcopy(est), prob.c_cols)
+    assert ours.method == every.method == ["profile likelihood"] * 3
+    assert ours.n_profile_fits < every.n_profile_fits  # measured: 13 points against 17
+    np.testing.assert_allclose(ours.low, every.low, rtol=0, atol=1e-9)
+    np.testing.assert_allclose(ours.high, every.high, rtol=0, atol=1e-9)
+    cut = est.t ** 2
+    checked = 0
+    for i in range(3):
+        half = est.t * est.sd[i]
+        for end, bound, is_open in ((ours.low[i], 40.0, ours.low_open[i]),
+                                    (ours.high[i], 160.0, ours.high_open[i])):
+            if is_open:
+                continue
+            a, b = sorted((est.x[i], bound))
+            ref = optimize.brentq(
+                lambda c: _tight_rise(net, grp, solver, tests, est, i, c) - cut, a, b, xtol=1e-6)
+            # the search's tolerance is 0.1 % of the root; its Gauss-Newton points add as much
+            assert abs(end - ref) <= 2e-3 * half, (i, end, ref)
+            checked += 1
+    assert checked >= 3
