@@ -316,8 +316,11 @@ def _profile_end(problem, est, i, direction, cut):
     with its slope from the envelope theorem (Venzon and Moolgavkar 1988 solve the same end
     conditions), starting at the linearized end and kept inside a bracket once the cut-off is
     passed (secant, then bisection, where a step would leave it); an end that reaches the bound
-    below the cut-off is the bound. Each point starts from the last point moved along its own
-    profile trace (the first along the linearized trace at the optimum).
+    below the cut-off is the bound (decided from the point's residuals where they already lie
+    below it: ``_below_cut_at_start``). Each point starts from the last point moved along its own
+    profile trace (the first along the linearized trace at the optimum). The search ends at a
+    point within ``PROFILE_ROOT_TOL`` of the cut-off's root, or at the Newton step from a point
+    within ``PROFILE_NEWTON_TOL`` of it, unevaluated.
     """
     x0 = est.x
     bound = problem.lower[i] if direction < 0 else problem.upper[i]
