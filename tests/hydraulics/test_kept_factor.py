@@ -121,3 +121,29 @@ def test_kept_factors_stay_within_their_memory_budget(net, monkeypatch):
         last = s.solve(_loadings(net)[i % 2], roughness=c * (1 + 0.01 * i), warm_start=last)
         assert len({id(e) for e in s._kept.values()}) <= 2 and len(s._kept) <= 8
     assert s.kept_factor(last) is not None  # the newest is kept
+
+
+@pytest.mark.parametrize("backend", BACKENDS)
+def test_cg_steps_stop_at_the_mass_tolerance_without_costing_newton_iterations(net, backend,
+                                                                               monkeypatch):
+    # reference: the same warm solves with a new factorization at every iteration (reuse off,
+    # every step exact), warm-started as a fit makes them (each loading from its own last
+    # solution, C moved by a few % in one group at a time). CG stops at CG_MASS_FRACTION of the
+    # mass tolerance: no solve takes more Newton iterations for it, and the answers agree within
+    # the solver's tolerances
+    monkeypatch.setenv(factor.ENV, backend)
+    c0 = np.asarray(net.roughness, dtype=float)
+    group = np.random.default_rng(8).integers(0, 3, c0.size)
+    reuse, exact = NetworkSolver(net), NetworkSolver(net, reuse_factor=False)
+    last, last_exact, cg_used = {}, {}, 0
+    for step in range(4):
+        c = c0 * np.where(group == step % 3, 1.0 + 0.03 * (step + 1), 1.0)
+        for snap in _loadings(net):
+            got = reuse.solve(snap, roughness=c, warm_start=last.get(snap.label))
+            ref = exact.solve(snap, roughness=c, warm_start=last_exact.get(snap.label))
+            last[snap.label], last_exact[snap.label] = got, ref
+            cg_used += got.iterations - got.factorizations
+            assert got.iterations <= ref.iterations
+            np.testing.assert_allclose(got.head, ref.head, atol=1e-6)  # the head tolerance
+            assert got.max_mass_error <= 1e-8 * (np.abs(net.demand).sum() + 0.06)
+    assert cg_used > 0  # the CG path ran
