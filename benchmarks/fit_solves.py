@@ -9,7 +9,7 @@ and every ``sensitivities`` call (which result, dF1/dp, dF2/dp) in order. ``repl
 calls, in the same order and with the same warm-start chain, on the solver of the checkout ``--code``
 (default this one), made with the fit's tolerances (``--tolerances default``: the solver's own): the same workload for two versions of the solver, whatever path their fits
 would take. Prints solves, Newton iterations, factorizations, CPU time of the solves (per iteration,
-per solve) and of the sensitivities (per call), and the load; with ``--save FILE.npy`` the heads,
+per solve) and of the sensitivities (per call), the solves with a CHOLMOD factor, and the load; with ``--save FILE.npy`` the heads,
 link flows and sensitivities of every call, for a comparison of two versions' answers
 (``compare A.npy B.npy CALLS.pkl NETWORK``). Times are CPU time of this process (the machine is
 shared: wall time moves with the load more). The demo town's data are invented (Tallowmere).
@@ -76,7 +76,9 @@ def replay(calls_path: str, network: str, repeats: int, save: str | None,
     with open(calls_path, "rb") as fh:
         calls = pickle.load(fh)
     net = read_network(network)
+    solves = _count_solves()
     for _ in range(repeats):
+        solves[0] = 0
         solver, results, outs = NetworkSolver(net, **options), {}, []
         t_solve = t_sens = 0.0
         iterations = factorizations = n_solve = n_sens = 0
@@ -107,11 +109,30 @@ def replay(calls_path: str, network: str, repeats: int, save: str | None,
               f"({iterations / n_solve:.2f} a solve), {factorizations} factorizations; solves "
               f"{t_solve:.2f} s CPU ({1e3 * t_solve / iterations:.3f} ms an iteration); "
               f"{n_sens} sensitivities {t_sens:.2f} s ({1e3 * t_sens / max(n_sens, 1):.2f} ms "
-              f"each, {sens_factors} factorizations); solver options {options or 'defaults'}; "
+              f"each, {sens_factors} factorizations); {solves[0]} solves with a CHOLMOD factor; "
+              f"solver options {options or 'defaults'}; "
               f"load {os.getloadavg()[0]:.2f}", flush=True)
     if save:
         np.save(save, np.concatenate(outs))
     return 0
+
+
+def _count_solves() -> list:
+    """Count the solves with a CHOLMOD factor (CG steps and direct solves: two triangular solves
+    each), a load-proof figure; [0] is the count."""
+    count = [0]
+    try:
+        from calib.hydraulics import factor
+        cls = factor.CholmodSolve
+    except (ImportError, AttributeError):
+        return count
+    call = cls.__call__
+
+    def counted(self, b):
+        count[0] += 1
+        return call(self, b)
+    cls.__call__ = counted
+    return count
 
 
 def compare(a: str, b: str, calls_path: str, network: str) -> int:
