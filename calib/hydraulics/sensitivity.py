@@ -96,7 +96,11 @@ def dheadloss_droughness(solver, result: SolveResult) -> np.ndarray:
     active = result._active[: solver.np_]
     q = result.flow
     if solver.headloss == "hazen-williams":
-        r = hl.hazen_williams_resistance(net.length, net.diameter, result.roughness)
+        memo = getattr(solver, "_rough_memo", None)  # (key, roughness, r) of the solver's last solve
+        if memo is not None and memo[1] is result.roughness:
+            r = memo[2]  # the resistances this very solution was solved with: two powers saved
+        else:
+            r = hl.hazen_williams_resistance(net.length, net.diameter, result.roughness)
         hf, _ = hl.hazen_williams_law(q, r, solver.q_eps)
         d = -hl.HW_FLOW_EXPONENT * hf / result.roughness
     else:
