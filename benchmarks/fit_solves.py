@@ -5,14 +5,17 @@
 
 ``record`` runs ``calib fit NETWORK TESTS --no-report`` in this process and keeps every
 ``NetworkSolver.solve`` call (snapshot, roughness, which earlier result it was warm-started from)
-and every ``sensitivities`` call (which result, dF1/dp, dF2/dp) in order. ``replay`` makes the same
-calls, in the same order and with the same warm-start chain, on the solver of the checkout ``--code``
-(default this one), made with the fit's tolerances (``--tolerances default``: the solver's own): the same workload for two versions of the solver, whatever path their fits
-would take. Prints solves, Newton iterations, factorizations, CPU time of the solves (per iteration,
-per solve) and of the sensitivities (per call), the solves with a CHOLMOD factor, and the load; with ``--save FILE.npy`` the heads,
-link flows and sensitivities of every call, for a comparison of two versions' answers
-(``compare A.npy B.npy CALLS.pkl NETWORK``). Times are CPU time of this process (the machine is
-shared: wall time moves with the load more). The demo town's data are invented (Tallowmere).
+and every ``sensitivities`` call (which result, dF1/dp, dF2/dp) in order (record with
+``CALIB_WORKERS=1``: calls in worker processes are not seen). ``replay`` makes the same
+calls, in the same order and with the same warm-start chain, on the solver of the checkout
+``--code`` (default this one), made with the fit's tolerances (``--tolerances default``: the
+solver's own): the same workload for two versions of the solver, whatever path their fits would
+take. Prints solves, Newton iterations, factorizations, CPU time of the solves (per iteration, per
+solve) and of the sensitivities (per call), the solves with a CHOLMOD factor, and the load; with
+``--save FILE.npy`` the heads, link flows and sensitivities of every call, for a comparison of two
+versions' answers (``compare A.npy B.npy CALLS.pkl NETWORK``). Times are CPU time of this process
+(the machine is shared: wall time moves with the load more). The demo town's data are invented
+(Tallowmere).
 """
 
 from __future__ import annotations

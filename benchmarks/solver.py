@@ -7,8 +7,9 @@ demands, two fixed-grade sources on opposite corners feeding a lattice of larger
 median solve time, iterations, the floor measured in the same run (iterations x one sparse assemble +
 factorize + solve of the converged matrix with the best factorization available here - SuperLU on
 the solver's ordering, or CHOLMOD (simplicial and supernodal) with a METIS ordering and its analysis
-kept when scikit-sparse is installed, refactored in place - best of three, timed right after each solve so both see the
-same load; ``--cpu``: CPU time of the process instead of wall time) and the median of
+kept when scikit-sparse is installed, refactored in place - best of three, timed right after each
+solve so both see the same load; ``--cpu``: CPU time of the process instead of wall time) and the
+median of
 the per-repeat ratios, then the time of solve_many on 20 snapshots (demand factors and a flowing
 hydrant). ``--code DIR`` times the solver of another checkout (e.g. main) with this same script.
 The data are invented; no real network.
@@ -166,7 +167,8 @@ def main(argv=None) -> int:
     if backend == "cholmod":  # the BLAS CHOLMOD loaded, and from which work it goes supernodal
         from calib.hydraulics import factor
         blas = getattr(factor, "optimized_blas", lambda: None)() or "reference BLAS"
-        backend += f" ({blas}; supernodal from work {getattr(factor, 'supernodal_from', lambda: 'never')()})"
+        start = getattr(factor, "supernodal_from", lambda: "never")()
+        backend += f" ({blas}; supernodal from work {start})"
     stamp = time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime())
     print(f"# {stamp}, {platform.processor() or platform.machine()}, {os.cpu_count()} cores, "
           f"Python {platform.python_version()}, load {os.getloadavg()[0]:.2f}, "

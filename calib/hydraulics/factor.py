@@ -24,6 +24,7 @@ analysis when it is there; else SuperLU's multiple minimum degree on A^T + A (Li
 
 from __future__ import annotations
 
+import functools
 import os
 import warnings
 
@@ -71,9 +72,11 @@ def choose(name: str | None = None) -> str:
     return name
 
 
+@functools.lru_cache(maxsize=1)
 def optimized_blas() -> str | None:
     """Path of the optimized BLAS (OpenBLAS, MKL, BLIS) loaded into this process for CHOLMOD, or
-    None (the reference BLAS, no CHOLMOD, or not Linux: no /proc/self/maps)."""
+    None (the reference BLAS, no CHOLMOD, or not Linux: no /proc/self/maps). Read once: a process
+    keeps the BLAS it loaded."""
     try:
         import sksparse.cholmod  # noqa: F401  (loads CHOLMOD and the BLAS it links)
         with open("/proc/self/maps") as maps:
@@ -175,8 +178,9 @@ class CholmodFactorizer(Factorizer):
 
     The first factorization is simplicial (it gives the column counts); from the second on the
     factorizations are supernodal where the work is at least ``supernodal_from`` (``mode``; by
-    default ``SUPERNODAL_MIN_WORK`` with an optimized BLAS, else never): ``supernodal``. A low-rank update turns a supernodal factor into a
-    simplicial one (CHOLMOD's update works on ``L D L^T``)."""
+    default ``SUPERNODAL_MIN_WORK`` with an optimized BLAS, else never): ``supernodal``. A
+    low-rank update turns a supernodal factor into a simplicial one (CHOLMOD's update works on
+    ``L D L^T``)."""
 
     name = "cholmod"
 

@@ -96,7 +96,8 @@ def dheadloss_droughness(solver, result: SolveResult) -> np.ndarray:
     active = result._active[: solver.np_]
     q = result.flow
     if solver.headloss == "hazen-williams":
-        memo = getattr(solver, "_rough_memo", None)  # (key, roughness, r) of the solver's last solve
+        # (key, roughness, r) of the solver's last solve
+        memo = getattr(solver, "_rough_memo", None)
         if memo is not None and memo[1] is result.roughness:
             r = memo[2]  # the resistances this very solution was solved with: two powers saved
         else:
