@@ -51,8 +51,7 @@ def sensitivities(solver, result: SolveResult, dF1_dp, dF2_dp):
     S = pat.hold(pat.assemble(w, extra), iso)  # iso includes held junctions
     dH = _solve(solver, result, S, rhs, w, extra, iso) if (rhs.shape[1] and nj) \
         else np.zeros((nj, rhs.shape[1]))
-    dHn = np.vstack([dH, np.zeros((solver.network.n_sources, dH.shape[1]))])
-    dQ = -(wb1 - w[:, None] * (dHn[solver.link_from] - dHn[solver.link_to]))
+    dQ = -(wb1 - w[:, None] * pat.across_junctions(dH))  # sources: dH = 0
     if vector:
         return dH[:, 0], dQ[:, 0]
     return dH, dQ

@@ -238,3 +238,17 @@ def test_solver_with_supernodal_factors_gives_the_dense_answer(monkeypatch):
     np.testing.assert_allclose(got.head, dense.head, atol=1e-6)
     q_ref = np.abs(net.demand).sum()
     np.testing.assert_allclose(got.flow, dense.flow, atol=1e-8 * q_ref * 10)
+
+
+def test_across_junctions_is_the_head_change_difference_along_each_link():
+    # closed form: dh[from] - dh[to] per link, with dh = 0 at the sources (gathers from a padded
+    # array, as the sensitivities computed it before), for p columns and for one vector
+    net = random_looped(200, seed=6, n_sources=3)
+    solver = NetworkSolver(net)
+    pat = solver.pattern
+    dh = np.random.default_rng(4).standard_normal((pat.n, 4))
+    padded = np.vstack([dh, np.zeros((net.n_nodes - pat.n, 4))])
+    ref = padded[solver.link_from] - padded[solver.link_to]
+    assert (solver.link_from >= pat.n).any() or (solver.link_to >= pat.n).any()  # source links
+    np.testing.assert_array_equal(pat.across_junctions(dh), ref)
+    np.testing.assert_array_equal(pat.across_junctions(dh[:, 1]), ref[:, 1])
