@@ -5,14 +5,17 @@
 
 ``record`` runs ``calib fit NETWORK TESTS --no-report`` in this process and keeps every
 ``NetworkSolver.solve`` call (snapshot, roughness, which earlier result it was warm-started from)
-and every ``sensitivities`` call (which result, dF1/dp, dF2/dp) in order. ``replay`` makes the same
-calls, in the same order and with the same warm-start chain, on the solver of the checkout ``--code``
-(default this one): the same workload for two versions of the solver, whatever path their fits
-would take. Prints solves, Newton iterations, factorizations, CPU time of the solves (per iteration,
-per solve) and of the sensitivities (per call), and the load; with ``--save FILE.npy`` the heads,
-link flows and sensitivities of every call, for a comparison of two versions' answers
-(``compare A.npy B.npy CALLS.pkl NETWORK``). Times are CPU time of this process (the machine is
-shared: wall time moves with the load more). The demo town's data are invented (Tallowmere).
+and every ``sensitivities`` call (which result, dF1/dp, dF2/dp) in order (record with
+``CALIB_WORKERS=1``: calls in worker processes are not seen). ``replay`` makes the same
+calls, in the same order and with the same warm-start chain, on the solver of the checkout
+``--code`` (default this one), made with the fit's tolerances (``--tolerances default``: the
+solver's own): the same workload for two versions of the solver, whatever path their fits would
+take. Prints solves, Newton iterations, factorizations, CPU time of the solves (per iteration, per
+solve) and of the sensitivities (per call), the solves with a CHOLMOD factor, and the load; with
+``--save FILE.npy`` the heads, link flows and sensitivities of every call, for a comparison of two
+versions' answers (``compare A.npy B.npy CALLS.pkl NETWORK``). Times are CPU time of this process
+(the machine is shared: wall time moves with the load more). The demo town's data are invented
+(Tallowmere).
 """
 
 from __future__ import annotations
@@ -62,15 +65,24 @@ def record(network: str, tests: str, out: str, options: list[str]) -> int:
     return rc
 
 
-def replay(calls_path: str, network: str, repeats: int, save: str | None) -> int:
+def replay(calls_path: str, network: str, repeats: int, save: str | None,
+           tolerances: str = "fit") -> int:
     import calib
     from calib.hydraulics import NetworkSolver
     from calib.network.io import read_network
+    options = {}
+    if tolerances == "fit":  # the solver options of the fit that was recorded (where they exist)
+        try:
+            from calib.calibration.fit import FIT_TOLERANCES as options
+        except ImportError:
+            options = {}
     with open(calls_path, "rb") as fh:
         calls = pickle.load(fh)
     net = read_network(network)
+    solves = _count_solves()
     for _ in range(repeats):
-        solver, results, outs = NetworkSolver(net), {}, []
+        solves[0] = 0
+        solver, results, outs = NetworkSolver(net, **options), {}, []
         t_solve = t_sens = 0.0
         iterations = factorizations = n_solve = n_sens = 0
         sens_factors = 0  # factorizations in the sensitivities (counted where the code counts)
@@ -100,10 +112,30 @@ def replay(calls_path: str, network: str, repeats: int, save: str | None) -> int
               f"({iterations / n_solve:.2f} a solve), {factorizations} factorizations; solves "
               f"{t_solve:.2f} s CPU ({1e3 * t_solve / iterations:.3f} ms an iteration); "
               f"{n_sens} sensitivities {t_sens:.2f} s ({1e3 * t_sens / max(n_sens, 1):.2f} ms "
-              f"each, {sens_factors} factorizations); load {os.getloadavg()[0]:.2f}", flush=True)
+              f"each, {sens_factors} factorizations); {solves[0]} solves with a CHOLMOD factor; "
+              f"solver options {options or 'defaults'}; "
+              f"load {os.getloadavg()[0]:.2f}", flush=True)
     if save:
         np.save(save, np.concatenate(outs))
     return 0
+
+
+def _count_solves() -> list:
+    """Count the solves with a CHOLMOD factor (CG steps and direct solves: two triangular solves
+    each), a load-proof figure; [0] is the count."""
+    count = [0]
+    try:
+        from calib.hydraulics import factor
+        cls = factor.CholmodSolve
+    except (ImportError, AttributeError):
+        return count
+    call = cls.__call__
+
+    def counted(self, b):
+        count[0] += 1
+        return call(self, b)
+    cls.__call__ = counted
+    return count
 
 
 def compare(a: str, b: str, calls_path: str, network: str) -> int:
@@ -144,8 +176,11 @@ def main(argv=None) -> int:
     parser.add_argument("network")
     parser.add_argument("--repeats", type=int, default=1)
     parser.add_argument("--save", default=None)
+    parser.add_argument("--tolerances", choices=["fit", "default"], default="fit",
+                        help="the solver's tolerances: the fit's (FIT_TOLERANCES, as recorded) "
+                             "or the solver's defaults")
     args = parser.parse_args(argv)
-    return replay(args.calls, args.network, args.repeats, args.save)
+    return replay(args.calls, args.network, args.repeats, args.save, args.tolerances)
 
 
 if __name__ == "__main__":

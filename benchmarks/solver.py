@@ -6,9 +6,10 @@ For each grid of m x m junctions (about 2 m^2 pipes): random C, diameters, lengt
 demands, two fixed-grade sources on opposite corners feeding a lattice of larger mains. Prints the
 median solve time, iterations, the floor measured in the same run (iterations x one sparse assemble +
 factorize + solve of the converged matrix with the best factorization available here - SuperLU on
-the solver's ordering, or CHOLMOD with a METIS ordering and its analysis kept when scikit-sparse is
-installed, refactored in place - best of three, timed right after each solve so both see the
-same load; ``--cpu``: CPU time of the process instead of wall time) and the median of
+the solver's ordering, or CHOLMOD (simplicial and supernodal) with a METIS ordering and its analysis
+kept when scikit-sparse is installed, refactored in place - best of three, timed right after each
+solve so both see the same load; ``--cpu``: CPU time of the process instead of wall time) and the
+median of
 the per-repeat ratios, then the time of solve_many on 20 snapshots (demand factors and a flowing
 hydrant). ``--code DIR`` times the solver of another checkout (e.g. main) with this same script.
 The data are invented; no real network.
@@ -78,13 +79,18 @@ def _floors(solver: NetworkSolver, result):
         from sksparse.cholmod import analyze
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            symbolic = analyze(S, mode="simplicial", ordering_method="metis")
-            numeric = symbolic.cholesky(S)
+            numerics = {mode: analyze(S, mode=mode, ordering_method="metis").cholesky(S)
+                        for mode in ("simplicial", "supernodal")}
 
-        def cholmod(S):  # refactored in place: no new factor allocated
-            numeric.cholesky_inplace(S)
-            return numeric.solve_A
-        out["cholmod"] = cholmod
+        def cholmod(numeric):
+            def factorize(S):  # refactored in place: no new factor allocated
+                numeric.cholesky_inplace(S)
+                return numeric.solve_A
+            return factorize
+        # supernodal too (dense blocks through CHOLMOD's BLAS): the faster one with an optimized
+        # BLAS at 200k pipes, so the floor is the best factorization available here
+        for mode, numeric in numerics.items():
+            out[f"cholmod {mode}"] = cholmod(numeric)
     except ImportError:
         pass
     return pat, w, extra, out
@@ -158,6 +164,11 @@ def main(argv=None) -> int:
     args = parser.parse_args(argv)
     import calib
     backend = getattr(NetworkSolver(square_grid(3)).pattern, "backend", "superlu")
+    if backend == "cholmod":  # the BLAS CHOLMOD loaded, and from which work it goes supernodal
+        from calib.hydraulics import factor
+        blas = getattr(factor, "optimized_blas", lambda: None)() or "reference BLAS"
+        start = getattr(factor, "supernodal_from", lambda: "never")()
+        backend += f" ({blas}; supernodal from work {start})"
     stamp = time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime())
     print(f"# {stamp}, {platform.processor() or platform.machine()}, {os.cpu_count()} cores, "
           f"Python {platform.python_version()}, load {os.getloadavg()[0]:.2f}, "

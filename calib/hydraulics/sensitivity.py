@@ -51,8 +51,7 @@ def sensitivities(solver, result: SolveResult, dF1_dp, dF2_dp):
     S = pat.hold(pat.assemble(w, extra), iso)  # iso includes held junctions
     dH = _solve(solver, result, S, rhs, w, extra, iso) if (rhs.shape[1] and nj) \
         else np.zeros((nj, rhs.shape[1]))
-    dHn = np.vstack([dH, np.zeros((solver.network.n_sources, dH.shape[1]))])
-    dQ = -(wb1 - w[:, None] * (dHn[solver.link_from] - dHn[solver.link_to]))
+    dQ = -(wb1 - w[:, None] * pat.across_junctions(dH))  # sources: dH = 0
     if vector:
         return dH[:, 0], dQ[:, 0]
     return dH, dQ
@@ -96,7 +95,12 @@ def dheadloss_droughness(solver, result: SolveResult) -> np.ndarray:
     active = result._active[: solver.np_]
     q = result.flow
     if solver.headloss == "hazen-williams":
-        r = hl.hazen_williams_resistance(net.length, net.diameter, result.roughness)
+        # (key, roughness, r) of the solver's last solve
+        memo = getattr(solver, "_rough_memo", None)
+        if memo is not None and memo[1] is result.roughness:
+            r = memo[2]  # the resistances this very solution was solved with: two powers saved
+        else:
+            r = hl.hazen_williams_resistance(net.length, net.diameter, result.roughness)
         hf, _ = hl.hazen_williams_law(q, r, solver.q_eps)
         d = -hl.HW_FLOW_EXPONENT * hf / result.roughness
     else:

@@ -560,7 +560,6 @@ def sensitivity_solve(solver, result, w, b1, b2, pat, iso):
         dH = dH0 + dHu @ dq_v[idx]
     else:
         dH = factor(rhs0)
-    dHn = np.vstack([dH, np.zeros((n_src, dH.shape[1]))])
-    dQ = -(wb1 - w[:, None] * (dHn[solver.link_from] - dHn[solver.link_to]))
+    dQ = -(wb1 - w[:, None] * pat.across_junctions(dH))  # sources: dH = 0
     dQ[s] = np.where(act[:, None], dq_v, dQ[s])
     return dH, dQ

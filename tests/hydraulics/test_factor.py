@@ -160,3 +160,95 @@ def test_factor_reuse_with_updates_matches_a_factorization_every_iteration(backe
     q_ref = np.abs(net.demand).sum()
     np.testing.assert_allclose(got.flow, exact.flow, atol=1e-8 * q_ref * 10)
     assert got.max_mass_error <= max(1e-8 * q_ref, 1e-9)
+
+
+def test_optimized_blas_is_found_among_loaded_libraries_outside_python_packages():
+    # paths as /proc/self/maps lists them on Debian with and without OpenBLAS (seen on this
+    # machine): numpy's bundled OpenBLAS is not CHOLMOD's and must not count
+    numpy_copy = "/usr/lib/python3/site-packages/numpy.libs/libscipy_openblas64_-32a4b2a6.so"
+    reference = ["/usr/lib/x86_64-linux-gnu/blas/libblas.so.3.11.0",
+                 "/usr/lib/x86_64-linux-gnu/lapack/liblapack.so.3.11.0", numpy_copy]
+    assert factor.optimized_in(reference) is None
+    serial = "/usr/lib/x86_64-linux-gnu/openblas-serial/libblas.so.3"
+    assert factor.optimized_in(reference[2:] + [serial]) == serial
+    assert factor.optimized_in(["/opt/intel/lib/libmkl_rt.so.2"]) == "/opt/intel/lib/libmkl_rt.so.2"
+
+
+def test_cholmod_mode_choice_names_the_setting(monkeypatch):
+    with pytest.raises(InputError, match="CALIB_CHOLMOD_MODE"):
+        factor.supernodal_from("multifrontal")
+    assert factor.supernodal_from("simplicial") == np.inf
+    assert factor.supernodal_from("supernodal") == 0.0
+    monkeypatch.setattr(factor, "optimized_blas", lambda: None)
+    assert factor.supernodal_from("auto") == np.inf  # the reference BLAS: never supernodal
+    monkeypatch.setattr(factor, "optimized_blas", lambda: "/usr/lib/openblas/libblas.so.3")
+    assert factor.supernodal_from() == factor.SUPERNODAL_MIN_WORK
+    monkeypatch.setenv(factor.MODE_ENV, "simplicial")
+    assert factor.supernodal_from() == np.inf
+
+
+@cholmod
+def test_supernodal_factors_solve_and_update_like_dense_cholesky(monkeypatch):
+    # reference: scipy.linalg.cho_solve (LAPACK potrf) on the same matrices. The first
+    # factorization is simplicial (it gives the column counts), the next ones supernodal L L^T;
+    # an update turns one into simplicial L D L^T, and a refactorization in place of a simplicial
+    # one is refused (a new supernodal factor is made instead)
+    monkeypatch.setenv(factor.MODE_ENV, "supernodal")
+    net = random_looped(120, seed=13, n_sources=2)
+    pat, S = _schur(net, "cholmod")
+    b = np.random.default_rng(2).standard_normal(pat.n)
+    ref = scipy.linalg.cho_solve(scipy.linalg.cho_factor(S.toarray()), b)
+    first = pat.factorize(S)
+    assert not first.solve_permuted.supernodal and pat._factorizer.supernodal
+    second = pat.factorize(S)
+    assert second.solve_permuted.supernodal
+    for F in (first, second):
+        np.testing.assert_allclose(F.solve_permuted(b), ref, rtol=1e-9,
+                                   atol=1e-12 * np.abs(ref).max())
+    assert not first.refactor(S)  # simplicial: the caller factors anew
+    assert second.refactor(S)
+    w = np.random.default_rng(0).uniform(1e-3, 10.0, len(pat.link_from))  # as in _schur
+    w2 = w.copy()
+    w2[[4, 9]] *= [5.0, 0.2]
+    links = np.array([4, 9])
+    up, down = pat.low_rank(links, w2[links] - w[links], np.array([], int), np.zeros(0),
+                            np.zeros(pat.n, dtype=bool))
+    assert second.update(up, down) and not second.solve_permuted.supernodal
+    S2 = pat.assemble(w2)
+    ref2 = scipy.linalg.cho_solve(scipy.linalg.cho_factor(S2.toarray()), b)
+    np.testing.assert_allclose(second.solve_permuted(b), ref2, rtol=1e-8,
+                               atol=1e-10 * np.abs(ref2).max())
+    # a matrix that is not positive definite: the supernodal L L^T stops at the pivot itself
+    bad = pat.assemble(-w)
+    assert not pat.factorize(S).refactor(bad)
+
+
+@cholmod
+def test_solver_with_supernodal_factors_gives_the_dense_answer(monkeypatch):
+    # reference: the same Newton iteration with a dense Cholesky (scipy.linalg.cho_factor); the
+    # reuse path (CG, low-rank updates of a supernodal factor) runs too
+    monkeypatch.setenv(factor.ENV, "cholmod")
+    monkeypatch.setenv(factor.MODE_ENV, "supernodal")
+    monkeypatch.setattr(assembly, "UPDATE_MIN_WORK", 0.0)
+    net = random_looped(1500, seed=11, n_sources=2)
+    solver = NetworkSolver(net)
+    got = solver.solve()
+    assert solver.pattern._factorizer.supernodal and solver.updates >= 1
+    dense = NetworkSolver(net, dense=True).solve()
+    np.testing.assert_allclose(got.head, dense.head, atol=1e-6)
+    q_ref = np.abs(net.demand).sum()
+    np.testing.assert_allclose(got.flow, dense.flow, atol=1e-8 * q_ref * 10)
+
+
+def test_across_junctions_is_the_head_change_difference_along_each_link():
+    # closed form: dh[from] - dh[to] per link, with dh = 0 at the sources (gathers from a padded
+    # array, as the sensitivities computed it before), for p columns and for one vector
+    net = random_looped(200, seed=6, n_sources=3)
+    solver = NetworkSolver(net)
+    pat = solver.pattern
+    dh = np.random.default_rng(4).standard_normal((pat.n, 4))
+    padded = np.vstack([dh, np.zeros((net.n_nodes - pat.n, 4))])
+    ref = padded[solver.link_from] - padded[solver.link_to]
+    assert (solver.link_from >= pat.n).any() or (solver.link_to >= pat.n).any()  # source links
+    np.testing.assert_array_equal(pat.across_junctions(dh), ref)
+    np.testing.assert_array_equal(pat.across_junctions(dh[:, 1]), ref[:, 1])

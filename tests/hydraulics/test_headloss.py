@@ -54,6 +54,18 @@ def test_hazen_williams_law_is_the_law_above_q_eps():
     np.testing.assert_allclose(g, 1.852 * r * np.abs(q) ** 0.852, rtol=1e-14)
 
 
+def test_hazen_williams_law_by_exp_and_log_is_the_power_law_over_the_whole_range():
+    # reference: numpy's power r |Q|^0.852 Q (the closed form) from q_eps to 20 m3/s, both signs,
+    # each pipe its own r; the law computes |Q|^0.852 as exp(0.852 ln|Q|), which must agree to
+    # rounding (a few ulp), not just to the solver's tolerances
+    rng = np.random.default_rng(3)
+    q = np.geomspace(1e-6, 20.0, 4001) * rng.choice([-1.0, 1.0], 4001)
+    r = rng.uniform(1.0, 1e6, q.size)
+    h, g = hl.hazen_williams_law(q, r, q_eps=1e-6)
+    np.testing.assert_allclose(h, r * np.power(np.abs(q), 0.852) * q, rtol=4e-15, atol=0)
+    np.testing.assert_allclose(g, 1.852 * r * np.power(np.abs(q), 0.852), rtol=4e-15, atol=0)
+
+
 def test_hazen_williams_blend_matches_value_and_slope_and_is_monotone():
     # common practice: a C1 blend, odd, with positive slope at zero flow
     r, qe = 1500.0, 1e-6

@@ -8,6 +8,7 @@ import pytest
 
 from calib.hydraulics import NetworkSolver, Snapshot
 from calib.hydraulics import assembly, factor, solver as solver_module
+from calib.hydraulics import headloss as hl
 
 from .conftest import random_looped
 
@@ -121,3 +122,46 @@ def test_kept_factors_stay_within_their_memory_budget(net, monkeypatch):
         last = s.solve(_loadings(net)[i % 2], roughness=c * (1 + 0.01 * i), warm_start=last)
         assert len({id(e) for e in s._kept.values()}) <= 2 and len(s._kept) <= 8
     assert s.kept_factor(last) is not None  # the newest is kept
+
+
+@pytest.mark.parametrize("backend", BACKENDS)
+def test_cg_steps_stop_at_the_mass_tolerance_without_costing_newton_iterations(net, backend,
+                                                                               monkeypatch):
+    # reference: the same warm solves with a new factorization at every iteration (reuse off,
+    # every step exact), warm-started as a fit makes them (each loading from its own last
+    # solution, C moved by a few % in one group at a time). CG stops at CG_MASS_FRACTION of the
+    # mass tolerance: no solve takes more Newton iterations for it, and the answers agree within
+    # the solver's tolerances
+    monkeypatch.setenv(factor.ENV, backend)
+    c0 = np.asarray(net.roughness, dtype=float)
+    group = np.random.default_rng(8).integers(0, 3, c0.size)
+    reuse, exact = NetworkSolver(net), NetworkSolver(net, reuse_factor=False)
+    last, last_exact, cg_used = {}, {}, 0
+    for step in range(4):
+        c = c0 * np.where(group == step % 3, 1.0 + 0.03 * (step + 1), 1.0)
+        for snap in _loadings(net):
+            got = reuse.solve(snap, roughness=c, warm_start=last.get(snap.label))
+            ref = exact.solve(snap, roughness=c, warm_start=last_exact.get(snap.label))
+            last[snap.label], last_exact[snap.label] = got, ref
+            cg_used += got.iterations - got.factorizations
+            assert got.iterations <= ref.iterations
+            np.testing.assert_allclose(got.head, ref.head, atol=1e-6)  # the head tolerance
+            assert got.max_mass_error <= 1e-8 * (np.abs(net.demand).sum() + 0.06)
+    assert cg_used > 0  # the CG path ran
+
+
+def test_dheadloss_droughness_is_that_of_each_results_own_c(net):
+    # closed form: dh/dC = -1.852 h / C with h = 10.67 L Q^1.852 / (C^1.852 D^4.8704) of the
+    # result's own flows and C (headloss.hazen_williams_headloss, independent of the solver's
+    # kept resistances), also for a result solved before the solver moved on to another C
+    solver = NetworkSolver(net)
+    c1 = np.asarray(net.roughness, dtype=float) * 1.02
+    c2 = c1 * 0.9
+    r1 = solver.solve(roughness=c1)
+    d1 = solver.dheadloss_droughness(r1)  # the solver's last C: its kept resistances are used
+    r2 = solver.solve(roughness=c2, warm_start=r1)
+    for res, c in ((r1, c1), (r2, c2), (r1, c1)):  # r1 again: no longer the last C
+        ref = -1.852 * hl.hazen_williams_headloss(res.flow, net.length, net.diameter, c) / c
+        np.testing.assert_allclose(solver.dheadloss_droughness(res), ref, rtol=1e-12,
+                                   atol=1e-12 * np.abs(ref).max())
+    np.testing.assert_array_equal(solver.dheadloss_droughness(r1), d1)
