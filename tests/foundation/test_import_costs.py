@@ -75,3 +75,38 @@ def test_reading_the_demo_town_loads_no_pint():
         "print(json.dumps(dict(before=before, after='pint' in sys.modules, n=tests.n_tests)))")
     assert out["n"] > 0
     assert out["before"] is False and out["after"] is True
+
+
+def test_the_demo_fit_command_loads_no_fortran_wrapper_generator(tmp_path):
+    # scipy's array-API layer star-imports numpy, which loads numpy.f2py (with charset_normalizer
+    # and every text codec) and numpy.testing; the command line has them imported lazily
+    # (calib.unused_modules): made, never run
+    out = _loaded(
+        "import contextlib, io, json, sys\n"
+        "from calib.cli import main\n"
+        "with contextlib.redirect_stdout(io.StringIO()):\n"
+        "    code = main(['fit', 'field_samples/tallowmere/network', 'field_samples/tallowmere/tests',\n"
+        "                 '--out', %r, '--quiet', '--no-report'])\n"
+        "kinds = {m: type(sys.modules[m]).__name__ for m in ('numpy.f2py', 'numpy.testing')\n"
+        "         if m in sys.modules}\n"
+        "print(json.dumps(dict(code=code, kinds=kinds, scipy='scipy.optimize' in sys.modules,\n"
+        "      charset='charset_normalizer' in sys.modules)))" % (str(tmp_path / "out"),))
+    assert out["code"] == 0 and out["scipy"]
+    assert out["charset"] is False
+    assert all(kind == "_LazyModule" for kind in out["kinds"].values()), out["kinds"]
+
+
+def test_a_deferred_module_works_when_used():
+    out = _loaded(
+        "import json, sys\n"
+        "from calib import unused_modules\n"
+        "unused_modules.defer()\n"
+        "import scipy.optimize, numpy\n"
+        "lazy = type(sys.modules['numpy.testing']).__name__\n"
+        "numpy.testing.assert_allclose([1.0], [1.0 + 1e-12])\n"
+        "from numpy.testing import assert_equal\n"
+        "assert_equal(2, 2)\n"
+        "print(json.dumps(dict(lazy=lazy, after=type(sys.modules['numpy.testing']).__name__,\n"
+        "      f2py=numpy.f2py.__name__, run=callable(numpy.f2py.run_main))))")
+    assert out["lazy"] == "_LazyModule" and out["after"] == "module"
+    assert out["f2py"] == "numpy.f2py" and out["run"] is True
