@@ -77,7 +77,8 @@ def test_reading_the_demo_town_loads_no_pint():
     assert out["before"] is False and out["after"] is True
 
 
-def test_the_demo_fit_command_loads_no_fortran_wrapper_generator(tmp_path):
+def test_the_demo_fit_command_loads_neither_pandas_nor_the_fortran_wrapper_generator(tmp_path):
+    # pandas: the readers, the exports and the report's tables are written without it (0.25 s);
     # scipy's array-API layer star-imports numpy, which loads numpy.f2py (with charset_normalizer
     # and every text codec) and numpy.testing; the command line has them imported lazily
     # (calib.unused_modules): made, never run
@@ -86,12 +87,15 @@ def test_the_demo_fit_command_loads_no_fortran_wrapper_generator(tmp_path):
         "from calib.cli import main\n"
         "with contextlib.redirect_stdout(io.StringIO()):\n"
         "    code = main(['fit', 'field_samples/tallowmere/network', 'field_samples/tallowmere/tests',\n"
-        "                 '--out', %r, '--quiet', '--no-report'])\n"
+        "                 '--out', %r, '--quiet'])\n"
         "kinds = {m: type(sys.modules[m]).__name__ for m in ('numpy.f2py', 'numpy.testing')\n"
         "         if m in sys.modules}\n"
         "print(json.dumps(dict(code=code, kinds=kinds, scipy='scipy.optimize' in sys.modules,\n"
-        "      charset='charset_normalizer' in sys.modules)))" % (str(tmp_path / "out"),))
+        "      pandas='pandas' in sys.modules, charset='charset_normalizer' in sys.modules)))"
+        % (str(tmp_path / "out"),))
     assert out["code"] == 0 and out["scipy"]
+    assert (tmp_path / "out" / "report.html").is_file() and (tmp_path / "out" / "groups.csv").is_file()
+    assert out["pandas"] is False
     assert out["charset"] is False
     assert all(kind == "_LazyModule" for kind in out["kinds"].values()), out["kinds"]
 
