@@ -4,7 +4,7 @@ scipy's array-API layer (``scipy._lib.array_api_compat.numpy``) copies numpy's n
 ``from numpy import *``, and numpy's ``__all__`` names its submodules, so ``import scipy.optimize``
 (or ``scipy.sparse``) also loads ``numpy.f2py`` (the Fortran wrapper generator, which loads
 charset_normalizer and every text codec) and ``numpy.testing``: about 0.1 s of the 0.85 s a fit
-command spends on imports (benchmarks/README.md, "C2"), for modules no command uses.
+command spent on imports (benchmarks/README.md, "C2"), for modules no command uses.
 
 ``defer()`` has them imported lazily (``importlib.util.LazyLoader``, the standard library's own
 recipe, through a meta path finder that wraps the usual loader): the module is made when imported
@@ -19,8 +19,10 @@ from __future__ import annotations
 import importlib.util
 import sys
 
-#: Submodules no command calls (what loads them is a star-import in scipy, see above).
-UNUSED = ("numpy.f2py", "numpy.testing")
+#: Submodules no command calls: the two a star-import in scipy loads (see above), and
+#: scipy.spatial, which scipy.optimize's package import loads for its global optimizer shgo
+#: (``from scipy import spatial``; 0.03 s: rotations, k-d trees, qhull).
+UNUSED = ("numpy.f2py", "numpy.testing", "scipy.spatial")
 
 
 class _Deferring:

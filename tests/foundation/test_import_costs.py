@@ -88,7 +88,8 @@ def test_the_demo_fit_command_loads_neither_pandas_nor_the_fortran_wrapper_gener
         "with contextlib.redirect_stdout(io.StringIO()):\n"
         "    code = main(['fit', 'field_samples/tallowmere/network', 'field_samples/tallowmere/tests',\n"
         "                 '--out', %r, '--quiet'])\n"
-        "kinds = {m: type(sys.modules[m]).__name__ for m in ('numpy.f2py', 'numpy.testing')\n"
+        "kinds = {m: type(sys.modules[m]).__name__\n"
+        "         for m in ('numpy.f2py', 'numpy.testing', 'scipy.spatial')\n"
         "         if m in sys.modules}\n"
         "print(json.dumps(dict(code=code, kinds=kinds, scipy='scipy.optimize' in sys.modules,\n"
         "      pandas='pandas' in sys.modules, charset='charset_normalizer' in sys.modules)))"
@@ -97,7 +98,7 @@ def test_the_demo_fit_command_loads_neither_pandas_nor_the_fortran_wrapper_gener
     assert (tmp_path / "out" / "report.html").is_file() and (tmp_path / "out" / "groups.csv").is_file()
     assert out["pandas"] is False
     assert out["charset"] is False
-    assert all(kind == "_LazyModule" for kind in out["kinds"].values()), out["kinds"]
+    assert out["kinds"] and all(kind == "_LazyModule" for kind in out["kinds"].values()), out["kinds"]
 
 
 def test_a_deferred_module_works_when_used():
@@ -110,7 +111,12 @@ def test_a_deferred_module_works_when_used():
         "numpy.testing.assert_allclose([1.0], [1.0 + 1e-12])\n"
         "from numpy.testing import assert_equal\n"
         "assert_equal(2, 2)\n"
+        "spatial = type(sys.modules['scipy.spatial']).__name__\n"
+        "shgo = scipy.optimize.shgo(lambda x: (x[0] - 1.0) ** 2, [(-2.0, 2.0)]).x[0]\n"
         "print(json.dumps(dict(lazy=lazy, after=type(sys.modules['numpy.testing']).__name__,\n"
-        "      f2py=numpy.f2py.__name__, run=callable(numpy.f2py.run_main))))")
+        "      f2py=numpy.f2py.__name__, run=callable(numpy.f2py.run_main), spatial=spatial,\n"
+        "      shgo=float(shgo))))")
     assert out["lazy"] == "_LazyModule" and out["after"] == "module"
     assert out["f2py"] == "numpy.f2py" and out["run"] is True
+    # scipy.optimize's global optimizer loads scipy.spatial when it runs: minimum of (x - 1)^2
+    assert out["spatial"] == "_LazyModule" and abs(out["shgo"] - 1.0) < 1e-6
