@@ -307,7 +307,6 @@ def render(result, system: str = "us", curves: bool = True, worker=None,
            parts: ReportParts | None = None) -> str:
     """The report as one HTML string; ``worker``: a ``figure_worker.FigureWorker`` to draw the figures in
     (else they are drawn here); ``parts``: ``prepare``'s, made earlier with the same ``worker``."""
-    from calib.calibration import figures
     from calib.calibration.export import OTHER_PARAMETERS, groups_columns, other_parameters_rows
     t, net, est = result.tests, result.network, result.estimate
     pu = units.display_unit("pressure", system)
@@ -318,8 +317,11 @@ def render(result, system: str = "us", curves: bool = True, worker=None,
     if parts is None or (parts.system, parts.curves) != (system, curves):
         parts = prepare(result, system, curves, worker)
     specs, fire_flow = parts.specs, parts.fire_flow
-    plots = {name: worker.result(name) if worker is not None else figures.draw(name, data)
-             for name, data in specs.items()}
+    if worker is None:
+        from calib.calibration import figures  # loaded only where no worker draws them
+        plots = {name: figures.draw(name, data) for name, data in specs.items()}
+    else:
+        plots = {name: worker.result(name) for name in specs}
 
     def img(key, alt):
         return (f"<figure><img alt='{e(alt)}' src='data:image/png;base64,{plots[key]}'></figure>"
