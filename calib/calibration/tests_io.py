@@ -72,7 +72,8 @@ class TextTable:
     """A CSV table as read: its header and its rows of stripped text cells (``TestSet.info``).
 
     Plain lists, no pandas (whose import is a quarter of a fit command's start-up): ``table[name]``
-    is a column as a list, ``empty`` and ``len`` as a DataFrame's, ``to_frame()`` the DataFrame.
+    is a column as a numpy object array (``astype``, ``tolist``, comparisons as a Series of text
+    gives them), ``empty`` and ``len`` as a DataFrame's, ``to_frame()`` the DataFrame.
     """
 
     columns: list[str] = field(default_factory=list)
@@ -85,9 +86,9 @@ class TextTable:
     def __len__(self) -> int:
         return len(self.rows)
 
-    def __getitem__(self, name: str) -> list[str]:
+    def __getitem__(self, name: str) -> np.ndarray:
         j = self.columns.index(name)
-        return [r[j] for r in self.rows]
+        return np.array([r[j] for r in self.rows], dtype=object)
 
     def to_frame(self):
         import pandas as pd

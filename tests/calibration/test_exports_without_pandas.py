@@ -66,4 +66,6 @@ def test_the_tests_table_keeps_its_text_and_gives_the_frame(demo_day):
     ref = pd.read_csv(demo_town / "tests" / "tests.csv", dtype=str, keep_default_na=False)
     assert info.columns == list(ref.columns)
     assert info.to_frame().values.tolist() == ref.map(str.strip).values.tolist()
-    assert info["test_id"] == tests.test_ids
+    assert info["test_id"].tolist() == tests.test_ids
+    # a column as calib.loop reads it (a Series of text before): astype, iteration
+    assert [str(t).strip() for t in info["test_id"].astype(str)] == tests.test_ids
