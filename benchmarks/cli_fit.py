@@ -1,7 +1,7 @@
 """Wall time of ``python -m calib fit`` with its report, as a user runs it (run by hand, never in tests).
 
     python benchmarks/cli_fit.py [--code DIR ...] [--repeats 3] [--quick] [--cases help,demo,grid]
-                                 [--outside]
+                                 [--outside] [--timeline]
 
 Cases: the demo town (field_samples/tallowmere) and a generated 64 x 63 grid (7,938 pipes, 5 groups,
 20 tests with two gauges each, handbook prior; base demand 0.03 L/s per junction, source 90 m), written once as a network folder and a tests folder.
@@ -14,6 +14,11 @@ not enough: ``--help`` of the fit command is timed, which loads what the command
 inside the process: wall and CPU, less the report's ``prepare`` where the fit calls it) and
 everything outside it (imports, reading the inputs, exports, the report with its figure worker,
 exit): outside = whole command - fit, wall and CPU (the worker's CPU included).
+``--timeline`` prints, per tree and case, when each step of the command ends, in seconds from the
+moment the process was started (median over the repeats, wall and the main process's CPU):
+interpreter up, imports, inputs read, each phase of the fit as the progress lines name it, the
+report data, each figure's PNG back from the figure worker, the outputs written, the worker ended,
+atexit, and the exit as the parent sees it.
 The grid is invented (calib.calibration.synthetic); no real network.
 """
 
@@ -100,6 +105,89 @@ runpy.run_module("calib", run_name="__main__", alter_sys=True)
 """
 
 
+# Runs ``python -m calib ARGS`` with marks (wall since CALIB_BENCH_T0, CPU of this process) at the
+# end of each step, written as JSON to the file named by CALIB_BENCH_TIMELINE at exit. Wrappers
+# only: the command runs its own code.
+_TIMELINE = """
+import atexit, json, os, sys, time
+T0 = float(os.environ["CALIB_BENCH_T0"])
+marks = []
+def mark(what):
+    marks.append((what, time.time() - T0, time.process_time()))
+mark("interpreter up")
+import runpy
+import calib.cli.fit as cf
+from calib import figure_worker
+def wrap(owner, name, label):
+    inner = getattr(owner, name)
+    def f(*a, **k):
+        try:
+            return inner(*a, **k)
+        finally:
+            mark(label)
+    setattr(owner, name, f)
+inner_run = cf._run
+def _run(*a, **k):
+    mark("command line parsed, worker started")
+    import calib.calibration as cc, calib.network.io as nio, calib.calibration.export as ex
+    import calib.calibration.report as cr
+    mark("imports")
+    wrap(nio, "read_network", "network read")
+    wrap(cc, "read_tests", "tests read")
+    wrap(cc, "fit", "fit call returned")
+    wrap(cr, "prepare", "report data (prepare)")
+    wrap(ex, "write_outputs", "exports written")
+    wrap(cr, "write_report", "report written")
+    return inner_run(*a, **k)
+cf._run = _run
+inner_log = cf.ProgressBar._log
+def _log(self, n, stage):
+    phase = str(stage).partition(":")[0].strip()
+    if phase != self._phase and self._phase is not None:
+        mark("fit phase: " + self._phase)
+    inner_log(self, n, stage)
+cf.ProgressBar._log = _log
+inner_close = cf.ProgressBar.close
+def close(self):
+    if self._phase is not None and not self.tty:
+        mark("fit phase: " + self._phase)
+    inner_close(self)
+cf.ProgressBar.close = close
+inner_result = figure_worker.FigureWorker.result
+def result(self, name):
+    try:
+        return inner_result(self, name)
+    finally:
+        mark("figure back: " + name)
+figure_worker.FigureWorker.result = result
+wrap(figure_worker.FigureWorker, "close", "worker ended")
+def dump():
+    mark("atexit")
+    with open(os.environ["CALIB_BENCH_TIMELINE"], "w") as fh:
+        json.dump(marks, fh)
+atexit.register(dump)
+sys.argv = ["calib"] + sys.argv[1:]
+runpy.run_module("calib", run_name="__main__", alter_sys=True)
+"""
+
+
+def timeline(code: Path, args: list[str]) -> list[tuple[str, float, float]]:
+    """[(step, wall since the start [s], CPU of the main process [s])], the last the exit."""
+    env = dict(os.environ, PYTHONPATH=str(code))
+    with tempfile.NamedTemporaryFile("r", suffix=".json") as note:
+        env["CALIB_BENCH_TIMELINE"] = note.name
+        env["CALIB_BENCH_T0"] = repr(time.time())
+        t0 = time.perf_counter()
+        done = subprocess.run([sys.executable, "-c", _TIMELINE, *args], env=env, cwd=str(code),
+                              capture_output=True, text=True)
+        elapsed = time.perf_counter() - t0
+        if done.returncode != 0:
+            raise SystemExit(f"{code}: calib {' '.join(args)} exited {done.returncode}:\n{done.stderr}")
+        import json
+        marks = [tuple(m) for m in json.loads(Path(note.name).read_text())]
+    return marks + [("exit seen by the parent", elapsed, float("nan"))]
+
+
 def split(code: Path, args: list[str]) -> tuple[float, float, float, float]:
     """(wall, CPU) of the whole command and (wall, CPU) of its fit call [s]."""
     env = dict(os.environ, PYTHONPATH=str(code))
@@ -127,6 +215,8 @@ def main(argv=None) -> int:
                     help="which cases, comma-separated: help, demo, grid (default all three)")
     ap.add_argument("--outside", action="store_true",
                     help="split each fit into the fit call and the rest (imports, inputs, report)")
+    ap.add_argument("--timeline", action="store_true",
+                    help="when each step of the fit command ends (instead of the table of times)")
     args = ap.parse_args(argv)
     trees = [Path(c).resolve() for c in (args.code or [str(HERE)])]
     print(f"# {time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime())}, load "
@@ -142,6 +232,10 @@ def main(argv=None) -> int:
         wanted = {w.strip() for w in args.cases.split(",")}
         cases = {name: case for (name, case), key in zip(cases.items(), ("help", "demo", "grid"))
                  if key in wanted}
+        if args.timeline:
+            _timelines(trees, cases, args.repeats, tmp)
+            print(f"# load at the end {' '.join(f'{v:.2f}' for v in os.getloadavg())}")
+            return 0
         print("| case | " + " | ".join(str(t) for t in trees) + " |")
         print("|---|" + "---|" * len(trees))
         for name, case in cases.items():
@@ -173,6 +267,34 @@ def main(argv=None) -> int:
                     flush=True)
     print(f"# load at the end {' '.join(f'{v:.2f}' for v in os.getloadavg())}")
     return 0
+
+
+def _timelines(trees, cases, repeats, tmp) -> None:
+    """Print each fit case's timeline per tree: median wall and CPU at the end of each step."""
+    for name, case in cases.items():
+        if case[0] == "fit":
+            continue  # --help has no steps
+        runs = {t: [] for t in trees}
+        for r in range(repeats):
+            for t in trees:  # interleaved
+                runs[t].append(timeline(t, ["fit", *case, "--out", str(tmp / f"out{r}")]))
+        print(f"\n{name}: end of each step, s from the process start, median of {repeats} "
+              "(wall / CPU of the main process)")
+        print("| step | " + " | ".join(str(t) for t in trees) + " |")
+        print("|---|" + "---|" * len(trees))
+        steps = list(dict.fromkeys(m[0] for t in trees for run in runs[t] for m in run))
+        for step in steps:
+            cells = []
+            for t in trees:
+                at = [next((m for m in run if m[0] == step), None) for run in runs[t]]
+                at = [m for m in at if m is not None]
+                if not at:
+                    cells.append("-")
+                    continue
+                w = statistics.median(m[1] for m in at)
+                c = statistics.median(m[2] for m in at)
+                cells.append(f"{w:.2f}" + ("" if c != c else f" / {c:.2f}"))
+            print(f"| {step} | " + " | ".join(cells) + " |", flush=True)
 
 
 if __name__ == "__main__":

@@ -31,20 +31,37 @@ Text cells are neutralized against spreadsheet formulas by ``calib.fileio.write_
 from __future__ import annotations
 
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
-import pandas as pd
 
 from calib import fileio, units
+
+if TYPE_CHECKING:
+    import pandas as pd
+
+# Each table is made as named columns (``*_columns``: arrays, lists, a scalar for a whole column),
+# written by ``fileio.write_table`` without pandas (a quarter of a fit command's start-up); the
+# ``*_frame`` functions give the same tables as DataFrames for other callers.
+
+
+def _frame(columns) -> pd.DataFrame:
+    import pandas as pd
+    return pd.DataFrame(dict(columns))
 
 
 def groups_frame(result) -> pd.DataFrame:
     """The groups table (columns in the module docstring); undetermined groups carry no fitted C."""
+    return _frame(groups_columns(result))
+
+
+def groups_columns(result) -> dict:
+    """``groups_frame``'s columns."""
     g = result.grouping
     det = result.c_determined
     low = np.where(result.c_low_open, np.nan, result.c_low)  # a bound is no limit the tests gave
     high = np.where(result.c_high_open, np.nan, result.c_high)
-    frame = pd.DataFrame({
+    columns = {
         "group": g.names,
         "c_factor": np.where(det, np.round(result.c, 2), np.nan),
         "c_low": np.round(low, 2),
@@ -59,36 +76,60 @@ def groups_frame(result) -> pd.DataFrame:
         "at_bound": result.c_at_bound,
         "interval_method": result.c_method,
         "interval_text": [result.limit(i) for i in range(g.n_groups)],
-    })
+    }
     if result.first is not None:
-        frame["c_all_readings"] = np.round(result.first.x[result.c_cols], 2)
-    frame["model_c"] = np.round(g.length_weighted(result.network, result.network.roughness), 1)
-    return frame
+        columns["c_all_readings"] = np.round(result.first.x[result.c_cols], 2)
+    columns["model_c"] = np.round(g.length_weighted(result.network, result.network.roughness), 1)
+    return columns
+
+
+OTHER_PARAMETERS = ("parameter", "value", "low", "high", "unit")
 
 
 def other_parameters_frame(result) -> pd.DataFrame:
     """Demand factors and source grade offsets, when fitted (empty frame otherwise)."""
+    import pandas as pd
+    return pd.DataFrame(other_parameters_rows(result), columns=list(OTHER_PARAMETERS))
+
+
+def other_parameters_rows(result) -> list[list]:
+    """``other_parameters_frame``'s rows, cells in ``OTHER_PARAMETERS`` order."""
     est = result.estimate
-    rows = [{"parameter": p.name, "value": round(float(est.x[i]), 4), "low": round(float(est.low[i]), 4),
-             "high": round(float(est.high[i]), 4), "unit": "[-]" if p.kind == "demand" else "[m]"}
+    return [[p.name, round(float(est.x[i]), 4), round(float(est.low[i]), 4),
+             round(float(est.high[i]), 4), "[-]" if p.kind == "demand" else "[m]"]
             for i, p in enumerate(result.params) if p.kind != "c"]
-    return pd.DataFrame(rows, columns=["parameter", "value", "low", "high", "unit"])
 
 
 def covariance_frame(result) -> pd.DataFrame:
     """Covariance of the group C-factors [C^2] (``estimate.py``), one row and column per group in
     groups.csv order; blank where a group is undetermined (no finite variance). Read by
     ``calib.fireflow`` to carry the C uncertainty into the fire flow."""
+    import pandas as pd
     names = list(result.grouping.names)
-    cov = np.asarray(result.estimate.cov, float)[np.ix_(result.c_cols, result.c_cols)]
-    cov = np.where(np.isfinite(cov), cov, np.nan)
-    frame = pd.DataFrame(cov, columns=names)
+    frame = pd.DataFrame(_covariance(result), columns=names)
     frame.insert(0, "group", names)
     return frame
 
 
+def covariance_columns(result) -> list[tuple]:
+    """``covariance_frame``'s columns, as ``(name, values)`` pairs."""
+    names = list(result.grouping.names)
+    cov = _covariance(result)
+    return [("group", names)] + [(name, cov[:, j]) for j, name in enumerate(names)]
+
+
+def _covariance(result) -> np.ndarray:
+    cov = np.asarray(result.estimate.cov, float)[np.ix_(result.c_cols, result.c_cols)]
+    return np.where(np.isfinite(cov), cov, np.nan)
+
+
 def roughness_frame(result) -> pd.DataFrame:
     """One row per pipe: the C to import (calibrated, or the model's where undetermined) and its source."""
+    return _frame(roughness_columns(result))
+
+
+def roughness_columns(result) -> dict:
+    """``roughness_frame``'s columns."""
     net, g = result.network, result.grouping
     idx = g.index
     gi = np.maximum(idx, 0)
@@ -97,22 +138,27 @@ def roughness_frame(result) -> pd.DataFrame:
     high = np.where(result.c_high_open, np.nan, result.c_high)
     source = np.where(idx < 0, "model: in no group",
                       np.where(det, "calibrated", "model: not determined by the tests"))
-    return pd.DataFrame({
+    return {
         "pipe_id": net.pipe_ids.astype(str),
         "group": [g.names[i] if i >= 0 else "" for i in idx],
         "c_factor": np.round(result.roughness_export(), 2),
         "c_low": np.round(np.where(idx >= 0, low[gi], np.nan), 2),
         "c_high": np.round(np.where(idx >= 0, high[gi], np.nan), 2),
         "c_source": source,
-    })
+    }
 
 
 def readings_frame(result, system: str = "us") -> pd.DataFrame:
     """Every reading with observed and simulated pressure in the display unit of ``system``."""
+    return _frame(readings_columns(result, system))
+
+
+def readings_columns(result, system: str = "us") -> dict:
+    """``readings_frame``'s columns."""
     t, net = result.tests, result.network
     pu = units.display_unit("pressure", system)
     conv = lambda v: np.round(units.from_si(np.asarray(v, float), "pressure", pu), 2)  # noqa: E731
-    return pd.DataFrame({
+    return {
         "test_id": [t.test_ids[i] for i in t.test],
         "node": net.node_ids[t.node].astype(str),
         "kind": t.kind.astype(str),
@@ -124,7 +170,7 @@ def readings_frame(result, system: str = "us") -> pd.DataFrame:
         "flag": result.flag,
         "cook_distance": np.round(result.cook, 3),
         "influence": list(result.influence) or [""] * t.n_readings,
-    })
+    }
 
 
 def has_geometry(network) -> bool:
@@ -136,13 +182,14 @@ def has_geometry(network) -> bool:
 def write_outputs(result, out, system: str = "us") -> list[Path]:
     """Write the csv exports (and pipes.geojson when there is geometry) into folder ``out``."""
     out = Path(out)
-    paths = [fileio.write_csv(out / "groups.csv", groups_frame(result)),
-             fileio.write_csv(out / "roughness.csv", roughness_frame(result)),
-             fileio.write_csv(out / "readings.csv", readings_frame(result, system)),
-             fileio.write_csv(out / "covariance.csv", covariance_frame(result))]
-    other = other_parameters_frame(result)
-    if len(other):
-        paths.append(fileio.write_csv(out / "parameters.csv", other))
+    paths = [fileio.write_table(out / "groups.csv", groups_columns(result)),
+             fileio.write_table(out / "roughness.csv", roughness_columns(result)),
+             fileio.write_table(out / "readings.csv", readings_columns(result, system)),
+             fileio.write_table(out / "covariance.csv", covariance_columns(result))]
+    other = other_parameters_rows(result)
+    if other:
+        paths.append(fileio.write_table(out / "parameters.csv", list(zip(
+            OTHER_PARAMETERS, ([row[j] for row in other] for j in range(len(OTHER_PARAMETERS)))))))
     if has_geometry(result.network):
         from calib.network.io import write_network_geojson
         calibrated = result.network.replace(roughness=result.roughness_export())

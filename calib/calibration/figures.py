@@ -358,6 +358,10 @@ def _worker(argv) -> None:
     fig, ax = _figure((1, 1))
     ax.set_title("0")
     _png(fig)
+    # matplotlib's objects live as long as the worker: kept out of the garbage collector's full
+    # passes while drawing (0.05 -> 0.02 s of the four figures' 1.2 s), and shared by the lanes
+    import gc
+    gc.freeze()
     child = 0
     if len(argv) == 2:
         requests, answers = (int(v) for v in argv)

@@ -269,8 +269,12 @@ def _glance(result, pu: str) -> str:
 
 
 def _info_rows(info):
-    """The tests table, with ISO dates shown as a person writes them (2026-05-14 08:00)."""
-    rows = info.astype(object).where(info.notna(), "").values.tolist()
+    """The tests table (``tests_io.TextTable``, or a DataFrame), with ISO dates shown as a person
+    writes them (2026-05-14 08:00)."""
+    if hasattr(info, "rows"):  # a TextTable: text cells, nothing missing
+        rows = [list(r) for r in info.rows]
+    else:
+        rows = info.astype(object).where(info.notna(), "").values.tolist()
     cols = list(info.columns)
     if "date" in cols:
         j = cols.index("date")
@@ -303,8 +307,7 @@ def render(result, system: str = "us", curves: bool = True, worker=None,
            parts: ReportParts | None = None) -> str:
     """The report as one HTML string; ``worker``: a ``figure_worker.FigureWorker`` to draw the figures in
     (else they are drawn here); ``parts``: ``prepare``'s, made earlier with the same ``worker``."""
-    from calib.calibration import figures
-    from calib.calibration.export import groups_frame, other_parameters_frame
+    from calib.calibration.export import OTHER_PARAMETERS, groups_columns, other_parameters_rows
     t, net, est = result.tests, result.network, result.estimate
     pu = units.display_unit("pressure", system)
     e = html.escape
@@ -314,8 +317,11 @@ def render(result, system: str = "us", curves: bool = True, worker=None,
     if parts is None or (parts.system, parts.curves) != (system, curves):
         parts = prepare(result, system, curves, worker)
     specs, fire_flow = parts.specs, parts.fire_flow
-    plots = {name: worker.result(name) if worker is not None else figures.draw(name, data)
-             for name, data in specs.items()}
+    if worker is None:
+        from calib.calibration import figures  # loaded only where no worker draws them
+        plots = {name: figures.draw(name, data) for name, data in specs.items()}
+    else:
+        plots = {name: worker.result(name) for name in specs}
 
     def img(key, alt):
         return (f"<figure><img alt='{e(alt)}' src='data:image/png;base64,{plots[key]}'></figure>"
@@ -343,9 +349,10 @@ def render(result, system: str = "us", curves: bool = True, worker=None,
         f"<h2>At a glance</h2><p class='glance'>{e(_glance(result, pu))}</p>",
         "<h2>Groups</h2>",
     ]
-    gf = groups_frame(result)
+    gf = groups_columns(result)
     rows = []
-    for i, r in gf.iterrows():
+    for i in range(result.grouping.n_groups):
+        r = {k: v if np.ndim(v) == 0 else v[i] for k, v in gf.items()}  # a scalar: every row's
         if result.c_determined[i]:
             status = r["status"] + (f" ({result.informed[i]:.0%})" if result.prior is not None else "")
             c_text = _fmt(r["c_factor"])
@@ -375,9 +382,9 @@ def render(result, system: str = "us", curves: bool = True, worker=None,
                  "can be trusted, else profile likelihood (Venzon and Moolgavkar 1988; Bates and Watts "
                  "1988), never outside the C bounds. \"C with every reading kept\" is the fit before "
                  "flagged readings were left out; it shows how much they pull.</p>")
-    other = other_parameters_frame(result)
-    if len(other):
-        parts.append(_table(list(other.columns), other.values.tolist()))
+    other = other_parameters_rows(result)
+    if other:
+        parts.append(_table(list(OTHER_PARAMETERS), other))
     parts.append(img("C by group", "C by group against the prior and the C bounds"))
     if result.prior is not None:
         parts.append(f"<p class='note'>Prior: {e(result.prior.source)}.</p>")

@@ -23,7 +23,6 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
-import pandas as pd
 
 from calib import limits, units
 from calib.errors import InputError, Problem
@@ -68,6 +67,34 @@ class GaugeGrades:
         return units.pressure_to_head(self.sigma)
 
 
+@dataclass(frozen=True)
+class TextTable:
+    """A CSV table as read: its header and its rows of stripped text cells (``TestSet.info``).
+
+    Plain lists, no pandas (whose import is a quarter of a fit command's start-up): ``table[name]``
+    is a column as a numpy object array (``astype``, ``tolist``, comparisons as a Series of text
+    gives them), ``empty`` and ``len`` as a DataFrame's, ``to_frame()`` the DataFrame.
+    """
+
+    columns: list[str] = field(default_factory=list)
+    rows: list[list[str]] = field(default_factory=list)
+
+    @property
+    def empty(self) -> bool:
+        return not self.columns or not self.rows
+
+    def __len__(self) -> int:
+        return len(self.rows)
+
+    def __getitem__(self, name: str) -> np.ndarray:
+        j = self.columns.index(name)
+        return np.array([r[j] for r in self.rows], dtype=object)
+
+    def to_frame(self):
+        import pandas as pd
+        return pd.DataFrame(self.rows, columns=self.columns, dtype=object)
+
+
 @dataclass
 class TestSet(GaugeGrades):
     """A season of flow tests in SI, indexed against one network's node numbers.
@@ -85,7 +112,7 @@ class TestSet(GaugeGrades):
     source_head: list[dict[int, float]]  # per test: source node number -> grade [m] (boundary.csv)
     day: np.ndarray  # (n_tests,) index into ``days``
     days: list[str]
-    info: pd.DataFrame  # tests.csv as read (strings), one row per test id, may be empty
+    info: TextTable  # tests.csv as read (strings), one row per test id, may be empty
     test: np.ndarray  # (n_readings,) test index
     node: np.ndarray  # (n_readings,) node number
     kind: np.ndarray  # (n_readings,) "static" | "residual"
@@ -127,10 +154,11 @@ class _Table:
 
     def __init__(self, path: Path, problems: list[Problem], required: tuple[str, ...]):
         self.path, self.name, self.problems = path, path.name, problems
-        self.frame = self._read(path, problems)
+        self.table = self._read(path, problems)
+        self._at = {h: j for j, h in enumerate(self.table.columns)}  # raw header -> cell index
         self.columns: dict[str, str] = {}  # name -> raw header
         self.factor: dict[str, float] = {}
-        for header in self.frame.columns:
+        for header in self.table.columns:
             name, unit = units.parse_header(header)
             name = name.replace(" ", "_")
             if name in self.columns:
@@ -153,7 +181,7 @@ class _Table:
         self.ok = not missing
 
     @staticmethod
-    def _read(path: Path, problems: list[Problem]) -> pd.DataFrame:
+    def _read(path: Path, problems: list[Problem]) -> TextTable:
         """The table as text cells; a row with more cells than the header is a problem (pandas
         would silently take the extra leading cells as an index and shift every column)."""
         try:
@@ -162,11 +190,11 @@ class _Table:
         except (UnicodeDecodeError, csv.Error, OSError) as exc:
             problems.append(Problem(f"cannot be read as CSV ({exc})", file=path.name,
                                     expected="a comma-separated UTF-8 table with a header row"))
-            return pd.DataFrame()
+            return TextTable()
         if not rows:
             problems.append(Problem("the file is empty", file=path.name,
                                     expected="a comma-separated table with a header row"))
-            return pd.DataFrame()
+            return TextTable()
         header = [h.strip() for h in rows[0]]
         for k, h in enumerate(header):
             if h in header[:k]:
@@ -182,7 +210,7 @@ class _Table:
                                         expected="one cell per column (quote text holding commas)"))
                 continue
             body.append((cells + [""] * len(header))[: len(header)])
-        return pd.DataFrame(body, columns=header, dtype=object)
+        return TextTable(header, body)
 
     def require_any(self, names: tuple[str, ...], message: str, expected: str) -> None:
         """A problem, and the table set aside, when none of the columns ``names`` is present."""
@@ -191,12 +219,12 @@ class _Table:
             self.ok = False
 
     def __len__(self) -> int:
-        return len(self.frame)
+        return len(self.table)
 
     def text(self, i: int, name: str) -> str:
         if name not in self.columns:
             return ""
-        return str(self.frame.at[i, self.columns[name]]).strip()  # .at: no row Series per cell
+        return self.table.rows[i][self._at[self.columns[name]]]  # stripped when read
 
     def number(self, i: int, name: str, row_id: str | None, required: bool = False) -> float:
         """The SI value in row i, column ``name``; nan when blank (a problem if ``required``).
@@ -361,14 +389,14 @@ def read_tests(folder, network, sigma: float | None = None) -> TestSet:
         raise InputError(problems)
 
     # tests.csv first: it fixes the order of tests and their dates
-    info = pd.DataFrame()
+    info = TextTable()
     order: list[str] = []
     position: dict[str, int] = {}  # test id -> index in order
     if (folder / "tests.csv").is_file():
         t = _Table(folder / "tests.csv", problems, ("test_id",))
         if t.ok:
-            info = t.frame.rename(columns={t.columns["test_id"]: "test_id"})
-            info["test_id"] = info["test_id"].astype(str).str.strip()
+            info = TextTable(["test_id" if h == t.columns["test_id"] else h for h in t.table.columns],
+                             t.table.rows)
             for i, tid in enumerate(info["test_id"]):
                 if tid == "":
                     problems.append(Problem("test_id is missing", file="tests.csv", row=i + 2,
@@ -520,7 +548,7 @@ def read_tests(folder, network, sigma: float | None = None) -> TestSet:
     dates = ["" for _ in range(n_tests)]
     if not info.empty and "date" in {units.parse_header(c)[0] for c in info.columns}:
         date_col = next(c for c in info.columns if units.parse_header(c)[0] == "date")
-        by_id = dict(zip(info["test_id"], info[date_col].astype(str).str.strip()))
+        by_id = dict(zip(info["test_id"], info[date_col]))
         dates = [by_id.get(t, "")[:10] for t in order]
     days = sorted(set(dates))
     day = np.array([days.index(d) for d in dates], dtype=np.int64)

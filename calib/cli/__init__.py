@@ -43,6 +43,8 @@ def build_parser(argv: list[str] | None = None) -> argparse.ArgumentParser:
 
 def main(argv: list[str] | None = None) -> int:
     """Run the command line; returns the exit code (0 ok, 1 computation failed, 2 bad input)."""
+    from calib import unused_modules
+    unused_modules.defer()  # numpy.f2py, numpy.testing: loaded by a star-import in scipy, never used
     parser = build_parser(sys.argv[1:] if argv is None else argv)
     try:
         args = parser.parse_args(argv)

@@ -27,7 +27,7 @@ from calib import fileio, limits
 from calib.errors import NetworkError, Problem
 from calib.network import pump_curve, validate
 from calib.network.model import Network
-from calib.network.tables import NetworkTables, parse_table, valve_frame
+from calib.network.tables import NetworkTables, parse_table, valve_columns
 from calib.units import DISPLAY, from_si, unit_factor
 
 #: Mean Earth radius R1 of the IUGG [m] (Moritz, "Geodetic Reference System 1980", Bulletin
@@ -344,13 +344,13 @@ def _pump_features(network: Network, units: str, to_map) -> list[dict]:
 
 
 def _valve_features(network: Network, units: str, to_map) -> list[dict]:
-    """Valves with the columns of ``valves.csv`` (``tables.valve_frame``), straight lines."""
+    """Valves with the columns of ``valves.csv`` (``tables.valve_columns``), straight lines."""
     if len(network.valves) == 0:
         return []
-    frame = valve_frame(network, units)
-    columns = {"id": frame["id"].tolist(), "kind": ["valve"] * len(frame)}
-    columns.update({name: _column(frame[name]) if frame[name].dtype.kind == "f"
-                    else frame[name].tolist() for name in frame.columns if name != "id"})
+    given = {name: np.asarray(values) for name, values in valve_columns(network, units).items()}
+    columns = {"id": given["id"].tolist(), "kind": ["valve"] * len(network.valves)}
+    columns.update({name: _column(values) if values.dtype.kind == "f" else values.tolist()
+                    for name, values in given.items() if name != "id"})
     lines = _lines(network, network.valves.from_node, network.valves.to_node, to_map)
     return [_feature(g, p) for g, p in zip(lines, _records(columns))]
 

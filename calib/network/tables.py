@@ -19,8 +19,9 @@ import math
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from typing import TYPE_CHECKING
+
 import numpy as np
-import pandas as pd
 
 from calib import fileio, limits
 from calib.errors import Problem
@@ -28,6 +29,9 @@ from calib.network import pump_curve
 from calib.network.model import (VALVE_TYPE_WORDS, Network, PipeStatus, ValveMode,
                                  ValveType)
 from calib.units import DISPLAY, from_si, parse_header, unit_factor
+
+if TYPE_CHECKING:
+    import pandas as pd  # the writers' frames only: reading a network needs no pandas
 
 #: Physical kinds that need a unit in the header (see ``calib.units.SI_UNIT``).
 UNIT_KINDS = ("elevation", "head", "flow", "length", "diameter", "pressure")
@@ -132,10 +136,22 @@ def _text(cells) -> np.ndarray:
         return np.array([one(v) for v in cells], dtype=object)
 
 
+def _number(cell: str) -> float:
+    """A cell's float (Python's correctly rounded ``float``), NaN where it is no plain decimal
+    number: as ``pandas.to_numeric(errors="coerce")`` read it before, without pandas' import
+    (tests/network/test_tables.py: the same bits on random decimal strings), also refusing what
+    ``float`` alone would take (digit separators ``1_000``, non-ASCII digits)."""
+    if not cell.isascii() or "_" in cell:
+        return math.nan
+    try:
+        return float(cell)
+    except ValueError:
+        return math.nan
+
+
 def _numbers(text: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Parse text to floats; returns (values with NaN where empty or bad, mask of bad cells)."""
-    values = pd.to_numeric(pd.Series(text, dtype=object).where(text != "", None),
-                           errors="coerce").to_numpy(dtype=float, copy=True)
+    values = np.array([_number(c) if c != "" else math.nan for c in text], dtype=float)
     bad = (text != "") & ~np.isfinite(values)
     values[bad] = np.nan
     return values, bad
@@ -345,6 +361,7 @@ def read_tables(folder) -> tuple[NetworkTables | None, list[Problem]]:
 
 def network_frames(network: Network, units: str = "us") -> dict[str, pd.DataFrame]:
     """The tables of ``network`` as DataFrames with unit headers in the ``us`` or ``si`` system."""
+    import pandas as pd
     u = DISPLAY[units]
     nj = network.n_junctions
     status_word = {int(PipeStatus.OPEN): "open", int(PipeStatus.CLOSED): "closed",
@@ -395,13 +412,19 @@ def network_frames(network: Network, units: str = "us") -> dict[str, pd.DataFram
 
 def valve_frame(network: Network, units: str) -> pd.DataFrame:
     """Valves with their setting in the column of their type (the others left empty)."""
+    import pandas as pd
+    return pd.DataFrame(valve_columns(network, units))
+
+
+def valve_columns(network: Network, units: str) -> dict:
+    """``valve_frame``'s columns as arrays and lists, without pandas (the GeoJSON writer's)."""
     u = DISPLAY[units]
     v, ids = network.valves, network.node_ids.astype(str)
     kind_word = {int(code): word for word, code in VALVE_TYPE_WORDS.items()}
     mode_word = {int(ValveMode.ACTIVE): "active", int(ValveMode.OPEN): "open",
                  int(ValveMode.CLOSED): "closed"}
     pressure = np.isin(v.kind, (ValveType.REDUCING, ValveType.SUSTAINING))
-    return pd.DataFrame({
+    return {
         "id": v.ids.astype(str), "from": ids[v.from_node], "to": ids[v.to_node],
         f"diameter [{u['diameter']}]": from_si(v.diameter, "diameter", u["diameter"]),
         "type": [kind_word[int(k)] for k in v.kind],
@@ -411,11 +434,12 @@ def valve_frame(network: Network, units: str) -> pd.DataFrame:
                                         from_si(v.setting, "flow", u["flow"]), np.nan),
         "loss_coefficient": np.where(v.kind == ValveType.THROTTLE, v.setting, np.nan),
         "status": [mode_word[int(m)] for m in v.mode], "minor_loss": v.minor_loss,
-    })
+    }
 
 
 def _pump_frame(network: Network, units: str) -> pd.DataFrame:
     """Pumps as three points of their curve (``pump_curve.curve_points``)."""
+    import pandas as pd
     u = DISPLAY[units]
     pumps, ids = network.pumps, network.node_ids.astype(str)
     frame = {"id": pumps.ids.astype(str), "from": ids[pumps.from_node], "to": ids[pumps.to_node]}

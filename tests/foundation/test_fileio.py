@@ -63,3 +63,51 @@ def test_atomic_write_over_an_existing_file_keeps_its_mode(tmp_path):
     os.chmod(target, 0o640)
     fileio.write_text(target, "new\n")
     assert stat.S_IMODE(target.stat().st_mode) == 0o640 and target.read_text() == "new\n"
+
+
+def test_csv_text_is_the_bytes_pandas_to_csv_writes():
+    # reference: pandas' DataFrame.to_csv through write_csv's neutralizing, for every kind of
+    # column the exports write and the edge cells of each (blank, inf, -0, long, quoted, formula)
+    import io
+
+    import numpy as np
+    import pandas as pd
+
+    from calib import fileio
+
+    columns = {
+        "f": np.array([1.5, np.nan, np.inf, -np.inf, -0.0, 1e-7, 123456789.0]),
+        "i": np.arange(7) * 1000,
+        "b": np.array([True, False] * 3 + [True]),
+        "bool list": [True, False] * 3 + [False],
+        "text": ["a", "b,c", 'q"uote', "=SUM(A1)", "-3.2", "new\nline", ""],
+        "object": np.array(["x", None, "+1", "@a", "\tt", "\u00e9", "y"], dtype=object),
+        "fixed width": np.array(["x", "y", "z", "w", "v", "u", "t"]),
+        "one value": np.nan,
+        "float list": [0.1, 0.2, 1 / 3, 2.0, 1e20, -5.5, 7.0],
+        "int list": [1, 2, 3, 4, 5, 6, 7],
+        "mixed": ["a", 1.5, None, "b", 2, np.nan, "c"],
+        "name, with comma": np.zeros(7),
+        'name "quoted"': np.ones(7),
+    }
+    frame = pd.DataFrame(columns)
+    for col in frame.columns:  # what write_csv does before to_csv
+        if frame[col].dtype == object or pd.api.types.is_string_dtype(frame[col]):
+            frame[col] = frame[col].map(fileio.safe_cell)
+    buf = io.StringIO()
+    frame.to_csv(buf, index=False, float_format="%.6g", lineterminator="\n")
+    assert fileio.csv_text(columns) == buf.getvalue()
+    assert fileio.csv_text(list(columns.items())) == buf.getvalue()  # as (name, values) pairs
+    # no rows: the header alone, as pandas writes it
+    empty = {"a": np.array([], float), "b": []}
+    assert fileio.csv_text(empty) == pd.DataFrame(empty).to_csv(index=False, lineterminator="\n")
+
+
+def test_csv_text_refuses_columns_of_different_lengths():
+    import numpy as np
+    import pytest
+
+    from calib import fileio
+
+    with pytest.raises(ValueError, match="column 'b' has 2 values, the first 3"):
+        fileio.csv_text({"a": np.zeros(3), "b": [1, 2]})

@@ -75,3 +75,50 @@ def test_reading_the_demo_town_loads_no_pint():
         "print(json.dumps(dict(before=before, after='pint' in sys.modules, n=tests.n_tests)))")
     assert out["n"] > 0
     assert out["before"] is False and out["after"] is True
+
+
+def test_the_demo_fit_command_loads_neither_pandas_nor_the_fortran_wrapper_generator(tmp_path):
+    # pandas: the readers, the exports and the report's tables are written without it (0.25 s);
+    # scipy's array-API layer star-imports numpy, which loads numpy.f2py (with charset_normalizer
+    # and every text codec) and numpy.testing; the command line has them imported lazily
+    # (calib.unused_modules): made, never run
+    out = _loaded(
+        "import contextlib, io, json, sys\n"
+        "from calib.cli import main\n"
+        "with contextlib.redirect_stdout(io.StringIO()):\n"
+        "    code = main(['fit', 'field_samples/tallowmere/network', 'field_samples/tallowmere/tests',\n"
+        "                 '--out', %r, '--quiet'])\n"
+        "kinds = {m: type(sys.modules[m]).__name__\n"
+        "         for m in ('numpy.f2py', 'numpy.testing', 'scipy.spatial')\n"
+        "         if m in sys.modules}\n"
+        "print(json.dumps(dict(code=code, kinds=kinds, scipy='scipy.optimize' in sys.modules,\n"
+        "      pandas='pandas' in sys.modules, charset='charset_normalizer' in sys.modules)))"
+        % (str(tmp_path / "out"),))
+    assert out["code"] == 0 and out["scipy"]
+    assert (tmp_path / "out" / "report.html").is_file() and (tmp_path / "out" / "groups.csv").is_file()
+    assert out["pandas"] is False
+    assert out["charset"] is False
+    # each is absent (a scipy that no longer loads it) or made and never run
+    assert all(kind == "_LazyModule" for kind in out["kinds"].values()), out["kinds"]
+
+
+def test_a_deferred_module_works_when_used():
+    out = _loaded(
+        "import json, sys\n"
+        "from calib import unused_modules\n"
+        "unused_modules.defer()\n"
+        "import numpy.f2py, numpy.testing, scipy.spatial, scipy.optimize\n"  # as scipy would
+        "lazy = type(sys.modules['numpy.testing']).__name__\n"
+        "numpy.testing.assert_allclose([1.0], [1.0 + 1e-12])\n"
+        "from numpy.testing import assert_equal\n"
+        "assert_equal(2, 2)\n"
+        "spatial = type(sys.modules['scipy.spatial']).__name__\n"
+        "from scipy.spatial import cKDTree\n"
+        "near = int(cKDTree([[0.0, 0.0], [3.0, 4.0]]).query([2.9, 3.8])[1])\n"
+        "print(json.dumps(dict(lazy=lazy, after=type(sys.modules['numpy.testing']).__name__,\n"
+        "      f2py=numpy.f2py.__name__, run=callable(numpy.f2py.run_main), spatial=spatial,\n"
+        "      near=near)))")
+    assert out["lazy"] == "_LazyModule" and out["after"] == "module"
+    assert out["f2py"] == "numpy.f2py" and out["run"] is True
+    # scipy.spatial loads when first used: the point (3, 4) is the nearer to (2.9, 3.8)
+    assert out["spatial"] == "_LazyModule" and out["near"] == 1
