@@ -125,19 +125,24 @@ def on_problem(problem, task, items, workers: int | None = None, announce=None) 
 
 # --- the snapshots of a fit's evaluations, owned by processes across evaluations -----------------
 _tasks_running = False  # ``on_problem`` runs: its tasks solve in their own process
+_scopes = 0  # ``closing_pools`` functions running: pools open only inside one
 
 
 def closing_pools(func):
-    """``func`` that closes the ``SnapshotPool``s opened while it ran, also on an error or Ctrl-C
-    (their worker processes stopped and reaped): put on ``fit``."""
+    """``func``, inside which ``SnapshotPool``s may open (nowhere else: a problem used on its
+    own solves in this process), closed when it returns, also on an error or Ctrl-C (their
+    worker processes stopped and reaped): put on ``fit``."""
     import functools
 
     @functools.wraps(func)
     def wrapper(*args, **kwargs):
+        global _scopes
         mark = parallel.open_owners()
+        _scopes += 1
         try:
             return func(*args, **kwargs)
         finally:
+            _scopes -= 1
             parallel.close_owners(mark)
     return wrapper
 
@@ -166,7 +171,8 @@ class SnapshotPool:
     is what its solver would start from anyway. So every snapshot's numbers are those of a
     serial run, to the last bit, at any number of processes (tested).
 
-    Started (``start``) at the first solve of a store where more than one process may work
+    Started (``start``) at the first solve of a store inside a ``closing_pools`` function
+    (``fit``), where more than one process may work
     (``parallel.available_workers``, ``parallel.workers_for`` the network: from
     ``parallel.MIN_PIPES`` pipes, or as ``CALIB_WORKERS`` says), not while ``on_problem``'s tasks
     run (it closes every pool first: its tasks solve in their own process) nor inside a worker.
@@ -180,7 +186,8 @@ class SnapshotPool:
     @classmethod
     def start(cls, problem):
         """A pool for ``problem``'s store, or None where it does not apply (see the class)."""
-        if _tasks_running or not parallel.can_fork() or not problem._owned_solvers():
+        if not _scopes or _tasks_running or not parallel.can_fork() or \
+                not problem._owned_solvers():
             return None
         workers = parallel.workers_for(problem.network)
         n = parallel.available_workers() if workers is None else workers
