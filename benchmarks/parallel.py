@@ -18,6 +18,7 @@ import argparse
 import os
 import re
 import resource
+import shutil
 import statistics
 import subprocess
 import sys
@@ -60,6 +61,13 @@ def main(argv=None) -> int:
     ap.add_argument("--default", action="store_true", help="also this tree without CALIB_WORKERS")
     args = ap.parse_args(argv)
     tmp = Path(tempfile.mkdtemp(prefix="calib-parallel-"))
+    try:
+        return _run(args, tmp)
+    finally:
+        shutil.rmtree(tmp, ignore_errors=True)  # the outputs and the written grid
+
+
+def _run(args, tmp: Path) -> int:
     cases = {}
     if "demo" in args.cases:
         demo = HERE / "field_samples" / "tallowmere"
