@@ -218,17 +218,25 @@ def _forked(task, items, reset, done, n_workers) -> list:
         return results
     finally:
         for p in procs:
-            if p.is_alive():
-                p.terminate()
-            p.join(5)
-            if p.is_alive():
-                p.kill()
-                p.join()
-            p.close()
+            _reap(p, 0)
         for c in conns:
             c.close()
         if reset is not None:
             reset()
+
+
+def _reap(p, grace: float) -> None:
+    """End worker process ``p``: ``grace`` seconds to end by itself, then terminated (then
+    killed), and reaped: no zombie left."""
+    if grace:
+        p.join(grace)
+    if p.is_alive():
+        p.terminate()
+    p.join(5)
+    if p.is_alive():
+        p.kill()
+        p.join()
+    p.close()
 
 
 def _worker(task, items, reset, claim, stop_before, conn) -> None:
@@ -350,14 +358,7 @@ class Owners:
             except Exception:
                 pass
         for p in self._procs:
-            p.join(1)
-            if p.is_alive():
-                p.terminate()
-                p.join(5)
-            if p.is_alive():
-                p.kill()
-                p.join()
-            p.close()
+            _reap(p, 1)
         for c in self._conns:
             c.close()
         if self in _open_owners:

@@ -17,26 +17,12 @@ from calib.calibration import tasks
 from calib.calibration.problem import CalibrationProblem
 from calib.calibration.synthetic import grid_network, plan_tests, synthetic_tests
 from calib.errors import CalibrationError, ConvergenceError
-from calib.hydraulics import NetworkSolver
 from calib.calibration.groups import make_groups
+from calib.hydraulics import NetworkSolver
+from tests.foundation.test_parallel import _children
 
 needs_fork = pytest.mark.skipif(not parallel.can_fork() or len(os.sched_getaffinity(0)) < 2,
                                 reason="no fork or one core here: the pool is not used")
-
-
-def _children() -> list[int]:
-    """Pids of this process's live children (zombies included)."""
-    me, out = os.getpid(), []
-    for name in os.listdir("/proc"):
-        if name.isdigit():
-            try:
-                with open(f"/proc/{name}/stat") as f:
-                    fields = f.read().rsplit(")", 1)[1].split()
-            except OSError:
-                continue
-            if int(fields[1]) == me:
-                out.append(int(name))
-    return out
 
 
 @pytest.fixture(scope="module")
@@ -139,8 +125,7 @@ def test_a_snapshot_that_fails_reads_as_serially(grid, unstacked, monkeypatch):
     probe = CalibrationProblem(net, tests, grp, solver=NetworkSolver(net))
     labels = [f"{tests.test_ids[t]} {k}" for t, k in probe.pairs]
     n = len(labels)
-    pool = tasks.SnapshotPool.__new__(tasks.SnapshotPool)
-    share = [0] * n
+    share = [0] * n  # as SnapshotPool deals them to two processes
     order = [0] + sorted(range(1, n), key=lambda i: (probe.pairs[i][1] != "residual", i))
     for j, i in enumerate(order):
         share[i] = j % 2
@@ -176,7 +161,6 @@ def test_a_snapshot_that_fails_reads_as_serially(grid, unstacked, monkeypatch):
     assert f"snapshot '{labels[theirs]}'" in seen["1"][0]
     assert seen["1"] == seen["2"]
     assert set(_children()) == before
-    del pool
 
 
 @needs_fork
