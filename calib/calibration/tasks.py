@@ -196,17 +196,23 @@ class SnapshotPool:
 
     def __init__(self, problem, n: int):
         pairs = problem.pairs
-        # dealt in turn, the residual snapshots (more flow, more iterations) first, then the
-        # static ones; snapshot 0 here (a first solve starts the others from its solution)
-        order = [0] + sorted(range(1, len(pairs)), key=lambda i: (pairs[i][1] != "residual", i))
-        self.share = [0] * len(pairs)
-        for j, i in enumerate(order):
-            self.share[i] = j % n
+        self.share = self.deal(pairs, n)
         self.owned = [[i for i in range(len(pairs)) if self.share[i] == k] for k in range(n)]
         self.n = n
         self._problem = problem
         self._store: dict = {}  # in a worker: tag -> {snapshot: its solution there}
         self.owners = parallel.Owners(self._serve, n)
+
+    @staticmethod
+    def deal(pairs, n: int) -> list:
+        """The share (process) of each snapshot ``(test, kind)``: dealt in turn, the residual
+        snapshots (more flow, more iterations) first, then the static ones; snapshot 0 to this
+        process (a first solve starts the others from its solution, solved first)."""
+        order = [0] + sorted(range(1, len(pairs)), key=lambda i: (pairs[i][1] != "residual", i))
+        share = [0] * len(pairs)
+        for j, i in enumerate(order):
+            share[i] = j % n
+        return share
 
     @property
     def closed(self) -> bool:

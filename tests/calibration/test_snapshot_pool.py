@@ -125,10 +125,7 @@ def test_a_snapshot_that_fails_reads_as_serially(grid, unstacked, monkeypatch):
     probe = CalibrationProblem(net, tests, grp, solver=NetworkSolver(net))
     labels = [f"{tests.test_ids[t]} {k}" for t, k in probe.pairs]
     n = len(labels)
-    share = [0] * n  # as SnapshotPool deals them to two processes
-    order = [0] + sorted(range(1, n), key=lambda i: (probe.pairs[i][1] != "residual", i))
-    for j, i in enumerate(order):
-        share[i] = j % 2
+    share = tasks.SnapshotPool.deal(probe.pairs, 2)
     theirs = min(i for i in range(1, n) if share[i] == 1)
     mine = max(i for i in range(1, n) if share[i] == 0)
     assert theirs < mine
