@@ -66,8 +66,11 @@ def fit_phase(args) -> int:
     """The fit's least-squares evaluations (``estimate`` on the full readings, as ``calib fit``
     makes it first) in this process, at ``CALIB_WORKERS=1`` and ``=2`` in turn, each repeat with
     a fresh solver. Per run: wall, this process's CPU and its time waiting for a core (load),
-    the time it waited for the worker's answers, the worker's CPU, solves and Newton iterations.
-    On a loaded machine wall moves with the load; the CPU split and the waits do less."""
+    the time it waited for the worker's answers, the worker's CPU, solves and Newton iterations,
+    and the critical path: this process's CPU with each request's own share replaced by the
+    longer of its share and the worker's (CPU times sent back with the answers), i.e. the wall
+    time with a core for each process and no cost to pass a request. On a loaded machine wall
+    moves with the load; the CPU times and the critical path much less."""
     sys.path.insert(0, str(HERE))
     import numpy as np
 
@@ -86,17 +89,36 @@ def fit_phase(args) -> int:
     tests = read_tests(folder / "tests", net)
     grouping = make_groups(net, None)
     prior = group_prior(net, grouping, _test_year(tests))
+    # per request: this process's CPU from sending it to waiting for its answer (its own share)
+    # and the worker's CPU on it, sent back beside the answer; their larger one, summed over the
+    # requests, is what the requests would take with a core each ("critical path" below)
     waited = [0.0]
-    answer = parallel.Owners.answer
+    pair = {"asked": 0.0, "mine": 0.0, "theirs": 0.0, "longer": 0.0}
+    ask, answer, serve = parallel.Owners.ask, parallel.Owners.answer, tasks.SnapshotPool._serve
 
-    def timed(self, share):
+    def timed_ask(self, share, request):
+        pair["asked"] = time.process_time()
+        return ask(self, share, request)
+
+    def timed_answer(self, share):
+        mine = time.process_time() - pair["asked"]
         t = time.perf_counter()
         try:
-            return answer(self, share)
+            value, theirs = answer(self, share)
         finally:
             waited[0] += time.perf_counter() - t
+        pair["mine"] += mine
+        pair["theirs"] += theirs
+        pair["longer"] += max(mine, theirs)
+        return value
 
-    parallel.Owners.answer = timed
+    def timed_serve(self, share, request):
+        c = time.process_time()
+        value = serve(self, share, request)
+        return value, time.process_time() - c
+
+    parallel.Owners.ask, parallel.Owners.answer = timed_ask, timed_answer
+    tasks.SnapshotPool._serve = timed_serve
     print(f"{folder}: {net.n_pipes} pipes; load before: {os.getloadavg()}")
     seen: dict = {}
     for _ in range(args.repeats):
@@ -105,6 +127,7 @@ def fit_phase(args) -> int:
             prob = CalibrationProblem(net, tests, grouping, prior=prior,
                                       solver=NetworkSolver(net, **FIT_TOLERANCES))
             waited[0] = 0.0
+            pair.update(mine=0.0, theirs=0.0, longer=0.0)
             kids = resource.getrusage(resource.RUSAGE_CHILDREN)
             run0, queue0 = _sched()
             t0 = time.perf_counter()
@@ -119,18 +142,21 @@ def fit_phase(args) -> int:
             run1, queue1 = _sched()
             after = resource.getrusage(resource.RUSAGE_CHILDREN)
             worker = (after.ru_utime - kids.ru_utime) + (after.ru_stime - kids.ru_stime)
-            row = (wall, run1 - run0, queue1 - queue0, waited[0], worker)
+            # with a core each: this process's CPU with its shares of the requests replaced by
+            # the longer of its share and the worker's
+            path = run1 - run0 - pair["mine"] + pair["longer"]
+            row = (wall, run1 - run0, queue1 - queue0, waited[0], worker, path)
             seen.setdefault(workers, []).append(row + (est.x.tobytes(),))
             print(f"  {workers} worker(s): wall {wall:5.2f} s, this process CPU {row[1]:5.2f} s, "
                   f"waiting for a core {row[2]:5.2f} s, for the worker {row[3]:5.2f} s, worker "
-                  f"CPU {worker:5.2f} s; {prob.n_solves} solves, {prob.n_iterations} "
-                  "iterations", flush=True)
+                  f"CPU {worker:5.2f} s, critical path {path:5.2f} s; {prob.n_solves} solves, "
+                  f"{prob.n_iterations} iterations", flush=True)
     for workers, rows in seen.items():
-        med = [statistics.median(r[i] for r in rows) for i in range(5)]
+        med = [statistics.median(r[i] for r in rows) for i in range(6)]
         print(f"{workers} worker(s), median: wall {med[0]:.2f} s, CPU here {med[1]:.2f} s, "
               f"waiting for a core {med[2]:.2f} s, for the worker {med[3]:.2f} s, worker CPU "
-              f"{med[4]:.2f} s")
-    same = len({r[5] for rows in seen.values() for r in rows}) == 1
+              f"{med[4]:.2f} s, critical path {med[5]:.2f} s")
+    same = len({r[6] for rows in seen.values() for r in rows}) == 1
     print("fitted parameters bit-identical in every run:", same)
     print("load after:", os.getloadavg())
     return 0
