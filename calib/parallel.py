@@ -22,6 +22,10 @@ stops every worker (terminated and reaped: no zombie processes).
 Which work is worth a worker is the caller's choice (``workers=``): a fork and a worker's start
 cost about 15-25 ms here, and a task's result crosses back as a pickle.
 
+``Owners(serve, n)``: worker processes that keep their own state from one request to the next
+(the fit's snapshots, each with its solver, across the fit's evaluations), for work whose state
+is worth keeping where it was made.
+
 Not here: what the tasks compute (``calib.calibration.tasks`` runs the fit's).
 """
 

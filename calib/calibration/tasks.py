@@ -8,6 +8,10 @@ ran it, and the problem is left as it was, but for its counts of solves, solver 
 iterations, which gain every task's. Used for the profile-likelihood interval ends and the
 leave-one-out refits (a task of a few seconds on an 8,000-pipe network); the report's hydrant
 curves use ``calib.parallel`` directly with their own solver.
+
+``SnapshotPool``: the fit's own evaluations, shared out by snapshot between processes that own
+their snapshots across evaluations (``calib.parallel.Owners``), opened only inside a function
+marked ``closing_pools`` (``fit``).
 """
 
 from __future__ import annotations
