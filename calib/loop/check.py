@@ -48,6 +48,7 @@ UNNOTED_SOURCE_SD = 10.0 * units.FT  # [m] a source whose grade was not noted: a
 FLOW_SD = 0.05  # [-] flows from pitot or meter readings, about +/-5 % (1 sd; common practice)
 GAUGE_HEIGHT_SD = 10.0 * units.FT  # [m] cause "gauge height": an offset this large is plausible
 PITOT_SD = 0.30  # [-] cause "pitot": the flow off by up to about a third
+ACTIONS_IN_REASON = 2  # a suspect verdict's reason says the first this many actions "before leaving"
 C_LIMITS = (20.0, 170.0)  # C is kept inside these while searching (a state beyond is implausible)
 SENSITIVE = 0.02  # [m of grade per unit C] below this a reading says little about C
 
@@ -279,7 +280,7 @@ class SequentialCheck:
             lines = [f"suspect: {obs} is outside {f(low)}-{f(high)} {unit} and {why}"]
         ranked = [(c, a) for c, a, _ in causes]
         lines.append("likely causes: " + "; ".join(f"{k + 1}) {c}" for k, (c, _) in enumerate(ranked[:3])))
-        lines.append("before leaving: " + "; then ".join(a for _, a in ranked[:2]))
+        lines.append("before leaving: " + "; then ".join(a for _, a in ranked[:ACTIONS_IN_REASON]))
         return ". ".join(lines), ranked
 
 

@@ -24,6 +24,7 @@ from mobile.services import background, values
 
 TOLERANCE = 5.0 * PSI  # [Pa] see the module docstring
 GAUGE_SIGMA = 1.0 * PSI  # [Pa] the gauge's accuracy the check states (1 psi: a test gauge, common practice)
+MAX_ACTIONS = 3  # a suspect reading's advice names at most this many actions (the likeliest causes')
 
 
 @dataclass
@@ -182,6 +183,7 @@ def run_job(job: CheckJob) -> CheckResult:
         import calib.loop.check  # noqa: F401 - the check's package; loaded when needed
     except ImportError:
         return CheckResult(False, "The model check is not available in this build")
+    from calib.loop.check import ACTIONS_IN_REASON
     try:
         checker, finder, test = _checker(job)
         verdicts = checker.judge(test)
@@ -197,7 +199,9 @@ def run_job(job: CheckJob) -> CheckResult:
         st, rs = [v for v in verdicts if v.node == str(g)]
         advice = [v.reason for v in (st, rs) if v.suspect]
         if advice:
-            advice += [f"Then: {a}." for _, a in (rs if rs.suspect else st).causes[:3]]
+            # the reason already says the first actions ("before leaving: ..."): only the next one
+            advice += [f"Then: {a}." for _, a in
+                       (rs if rs.suspect else st).causes[ACTIONS_IN_REASON:MAX_ACTIONS]]
         out.append(GaugeCheck(str(g), st.observed, rs.observed, st.predicted, rs.predicted, advice,
                               notes=[v.reason for v in (st, rs) if not v.suspect],
                               ranges={"static": (st.low, st.high), "residual": (rs.low, rs.high)},

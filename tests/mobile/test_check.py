@@ -1,11 +1,13 @@
 """The on-site model check: advice rules (common practice) and the check against the network solve."""
 
+import re
 import threading
 
 import pytest
 
 from calib.calibration import predict_test
 from calib.flowtest import pitot_discharge
+from calib.loop.check import ACTIONS_IN_REASON
 from calib.units import FT, GAMMA_WATER, INCH, PSI
 
 from mobile.services import check
@@ -78,6 +80,19 @@ def test_a_planted_offset_is_called_a_gauge_height_problem(service, area):
     result = check.check_test(service, tid)
     assert result.ok and result.gauges[0].suspect
     assert "gauge height" in result.gauges[0].advice[0]
+
+
+def test_a_suspect_readings_advice_says_each_action_once(service, area):
+    """The reason says the first actions "before leaving"; the lines after it add only the next
+    one, so a crew reads no instruction twice (common practice: short, ordered field advice)."""
+    tid = _readings_from_model(service, area, offset=10.0)
+    g = check.check_test(service, tid).gauges[0]
+    assert g.suspect
+    then = [line[len("Then: "):].rstrip(".") for line in g.advice if line.startswith("Then: ")]
+    reasons = [line for line in g.advice if not line.startswith("Then: ")]
+    before = {a for line in reasons for a in re.split(r"; then ", line.split("before leaving: ")[1])}
+    assert then and len(then) <= check.MAX_ACTIONS - ACTIONS_IN_REASON, g.advice
+    assert not before & set(then), g.advice
 
 
 def test_check_runs_in_a_worker_thread(service, area):
