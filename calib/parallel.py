@@ -362,7 +362,7 @@ class Owners:
             except Exception:
                 pass
         for p in self._procs:
-            _reap(p, 1)
+            _reap(p, 0.2)
         for c in self._conns:
             c.close()
         if self in _open_owners:
