@@ -325,3 +325,29 @@ def test_ctrl_c_closes_the_owners_at_once(no_new_children):
         assert kept.answer(1)[:2] == (1, 7)
     finally:
         kept.close()
+
+
+def test_the_benchmark_removes_its_temporary_folder(monkeypatch, tmp_path):
+    # benchmarks/parallel.py writes outputs (and a generated grid) to a calib-parallel-* folder:
+    # gone when it ends, also when a run fails
+    import importlib.util
+    import tempfile
+    from pathlib import Path
+
+    path = Path(__file__).resolve().parents[2] / "benchmarks" / "parallel.py"
+    spec = importlib.util.spec_from_file_location("benchmark_parallel", path)
+    bench = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(bench)
+    monkeypatch.setattr(tempfile, "tempdir", str(tmp_path))
+    made = []
+
+    def fails(args, tmp):
+        made.append(tmp)
+        (tmp / "demo-0").mkdir()  # as a run's output folder
+        raise RuntimeError("a run failed")
+
+    monkeypatch.setattr(bench, "_run", fails)
+    with pytest.raises(RuntimeError, match="a run failed"):
+        bench.main(["--cases", "demo", "--repeats", "1"])
+    assert made and made[0].name.startswith("calib-parallel-") and made[0].parent == tmp_path
+    assert not made[0].exists() and not any(tmp_path.iterdir())
