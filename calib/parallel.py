@@ -22,6 +22,10 @@ stops every worker (terminated and reaped: no zombie processes).
 Which work is worth a worker is the caller's choice (``workers=``): a fork and a worker's start
 cost about 15-25 ms here, and a task's result crosses back as a pickle.
 
+``Owners(serve, n)``: worker processes that keep their own state from one request to the next
+(the fit's snapshots, each with its solver, across the fit's evaluations), for work whose state
+is worth keeping where it was made.
+
 Not here: what the tasks compute (``calib.calibration.tasks`` runs the fit's).
 """
 
@@ -218,17 +222,25 @@ def _forked(task, items, reset, done, n_workers) -> list:
         return results
     finally:
         for p in procs:
-            if p.is_alive():
-                p.terminate()
-            p.join(5)
-            if p.is_alive():
-                p.kill()
-                p.join()
-            p.close()
+            _reap(p, 0)
         for c in conns:
             c.close()
         if reset is not None:
             reset()
+
+
+def _reap(p, grace: float) -> None:
+    """End worker process ``p``: ``grace`` seconds to end by itself, then terminated (then
+    killed), and reaped: no zombie left."""
+    if grace:
+        p.join(grace)
+    if p.is_alive():
+        p.terminate()
+    p.join(5)
+    if p.is_alive():
+        p.kill()
+        p.join()
+    p.close()
 
 
 def _worker(task, items, reset, claim, stop_before, conn) -> None:
@@ -272,3 +284,125 @@ def _portable(exc: BaseException) -> BaseException:
     if hasattr(back, "add_note"):
         back.add_note("raised in a worker process:\n" + tb)
     return back
+
+
+class WorkerLost(RuntimeError):
+    """A worker of ``Owners`` ended without an answer (killed, out of memory)."""
+
+
+_open_owners: list = []  # ``Owners`` not yet closed, oldest first (``close_owners``)
+
+
+class Owners:
+    """Worker processes that each keep their own state from one request to the next.
+
+    ``Owners(serve, n)`` forks ``n - 1`` workers (shares 1 .. n-1; this process is share 0): a
+    worker inherits everything this process holds, then answers each request sent to it with
+    ``serve(share, request)``, in its own memory, which persists between requests (e.g. the
+    solver states of the snapshots it owns). ``ask(share, request)`` sends, ``answer(share)``
+    waits for the reply; between them this process does its own share. An exception in
+    ``serve`` reaches the caller of ``answer`` with its type and message (``_portable``); a
+    worker that died raises ``WorkerLost``. ``close()`` (also on Ctrl-C and errors through
+    ``close_owners``) stops and reaps every worker. Workers run no nested workers, ignore
+    Ctrl-C (the parent's to handle) and end when their parent's end of the pipe closes.
+
+    Only where ``can_fork()``; which work is worth it is the caller's choice (a request and its
+    answer cross as pickles).
+    """
+
+    def __init__(self, serve, n: int):
+        import multiprocessing
+
+        if not can_fork():
+            raise RuntimeError("Owners need fork (see can_fork)")
+        ctx = multiprocessing.get_context("fork")
+        self.n = int(n)
+        self.closed = False
+        self._procs, self._conns = [], []
+        _open_owners.append(self)
+        try:
+            for k in range(1, self.n):
+                here, there = ctx.Pipe(duplex=True)
+                p = ctx.Process(target=_owner, args=(serve, k, there, list(self._conns)),
+                                daemon=True)
+                p.start()
+                there.close()
+                self._procs.append(p)
+                self._conns.append(here)
+        except BaseException:
+            self.close()
+            raise
+
+    def ask(self, share: int, request) -> None:
+        """Send ``request`` to worker ``share`` (1 .. n-1)."""
+        try:
+            self._conns[share - 1].send(request)
+        except (BrokenPipeError, EOFError, OSError) as exc:
+            raise WorkerLost(f"worker {share} is gone ({exc})") from None
+
+    def answer(self, share: int):
+        """The reply of worker ``share`` to the last request; its error raised here."""
+        try:
+            ok, value = self._conns[share - 1].recv()
+        except (EOFError, OSError) as exc:
+            raise WorkerLost(f"worker {share} ended without an answer ({exc or 'no reply'})") \
+                from None
+        if not ok:
+            raise value
+        return value
+
+    def close(self) -> None:
+        """Stop every worker (asked first, then terminated) and reap it; closing twice is fine."""
+        if self.closed:
+            return
+        self.closed = True
+        for c in self._conns:
+            try:
+                c.send(None)
+            except Exception:
+                pass
+        for p in self._procs:
+            _reap(p, 0.2)
+        for c in self._conns:
+            c.close()
+        if self in _open_owners:
+            _open_owners.remove(self)
+
+
+def open_owners() -> int:
+    """How many ``Owners`` are open now (a mark for ``close_owners``)."""
+    return len(_open_owners)
+
+
+def close_owners(mark: int = 0) -> None:
+    """Close the ``Owners`` opened since ``open_owners()`` gave ``mark`` (default: all)."""
+    for o in _open_owners[mark:][::-1]:
+        o.close()
+
+
+def _owner(serve, share, conn, inherited) -> None:
+    """A worker of ``Owners``: answer requests until told to stop or the parent is gone."""
+    global _in_worker
+    _in_worker = True
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    for c in inherited:  # the other workers' pipes: their ends must close when the parent's do
+        c.close()
+    _open_owners.clear()  # the parent's to close, not this copy's
+    try:
+        while True:
+            try:
+                request = conn.recv()
+            except (EOFError, OSError):
+                return
+            if request is None:
+                return
+            try:
+                reply = (True, serve(share, request))
+            except Exception as exc:
+                reply = (False, _portable(exc))
+            try:
+                conn.send(reply)
+            except Exception as exc:  # an answer that does not pickle
+                conn.send((False, _portable(exc)))
+    finally:
+        conn.close()

@@ -29,7 +29,7 @@ from calib.calibration.groups import Grouping, make_groups
 from calib.calibration.priors import GroupPrior, group_prior
 from calib.calibration.estimate import LSQ_TOL, PROFILE, Estimate, estimate, refine_intervals
 from calib.calibration.problem import CalibrationProblem
-from calib.calibration.tasks import on_problem
+from calib.calibration.tasks import closing_pools, on_problem
 from calib.errors import CalibrationError, InputError
 
 LOSSES = ("linear", "soft_l1", "huber", "cauchy")
@@ -163,6 +163,7 @@ def _test_year(tests) -> float:
     return float(np.median(years)) if years else float(_dt.date.today().year)
 
 
+@closing_pools  # the snapshots' worker processes (``tasks.SnapshotPool``) end with the fit
 def fit(network, tests, group_by: str | None = None, grouping: Grouping | None = None,
         prior="handbook", c_bounds=(40.0, 160.0), loss: str = "linear", demand_factor: bool = False,
         source_offsets: bool = False, threshold: float | None = None, refit: bool = True,

@@ -18,6 +18,9 @@ grade H_s: dF1_k = -1 where from_k = s, +1 where to_k = s.
 
 from __future__ import annotations
 
+import copy
+import itertools
+from collections import OrderedDict
 from dataclasses import dataclass
 
 import numpy as np
@@ -43,10 +46,15 @@ class _Solved(list):
     ``jacobian`` asked for them) the head sensitivities at that ``x``: ``dH`` = (number of
     parameters, per snapshot dH/dp at the junctions or None)."""
 
-    def __init__(self, results, stacks, stacked):
+    def __init__(self, results, stacks, stacked, tag: int | None = None):
         super().__init__(results)
         self.stacks, self.stacked = stacks, stacked
         self.dH = None
+        # names these solutions to the processes that own snapshots (``tasks.SnapshotPool``)
+        self.tag = next(_TAGS) if tag is None else tag
+
+
+_TAGS = itertools.count(1)
 
 
 #: Solutions kept per fit (``_Recent``): a least-squares fit comes back to the point before its
@@ -64,6 +72,12 @@ class _Recent:
     def __init__(self, keep: int = RECENT_KEPT):
         self.keep = keep
         self.items: dict = {}
+        #: per snapshot, the solver that solves it and keeps its state (``_owned_solvers``):
+        #: None until the first solve decides, [] where one solver solves them all
+        self.solvers = None
+        #: ``tasks.SnapshotPool`` while the snapshots are shared out between processes; None
+        #: until the first solve decides, False where they are not (or no longer)
+        self.pool = None
 
     def get(self, key):
         """The solutions at ``key`` (then the most recent), or None."""
@@ -103,6 +117,39 @@ def stack_size(network, limit: int | None = None) -> int:
             return 1
         limit = STACK_MAX_PIPES
     return max(1, int(limit) // max(network.n_pipes, 1))
+
+
+#: Memory for the factorizations kept beside the solutions of snapshots that own their solver
+#: state (``CalibrationProblem._owned_solvers``), over all of them: at least one each, else they
+#: share one solver. The solver's own budget (``KEPT_FACTOR_BYTES``, 32 MB: the 7,938-pipe
+#: grid's 21 snapshots at 0.84 MB a factorization).
+OWNED_BYTES = 32e6
+#: Bytes of one kept factorization per pipe where no factorization was made yet to say (0.84 MB
+#: for the 7,938-pipe grid's, measured with CHOLMOD).
+FACTOR_BYTES_PER_PIPE = 110.0
+
+
+def _factor_bytes(solver, network) -> float:
+    """Memory of one factorization kept by ``solver`` (as ``NetworkSolver._capacity`` counts it),
+    estimated from the pipes before its first factorization."""
+    factorizer = getattr(getattr(solver, "pattern", None), "_factorizer", None)
+    nnz = getattr(factorizer, "factor_nnz", None)
+    if nnz is None:
+        return FACTOR_BYTES_PER_PIPE * max(network.n_pipes, 1)
+    return 12.0 * nnz + 8.0 * solver.nj
+
+
+def _snapshot_solver(solver, capacity: int):
+    """A solver for one snapshot: ``solver``'s network, pattern, ordering and settings (shared,
+    not copied), its own state between solves (last and kept factorizations), keeping at most
+    ``capacity`` factorizations beside its solutions."""
+    own = copy.copy(solver)
+    own._kept = OrderedDict()
+    own._factor = None
+    own._matrix = None
+    own._rough_memo = None
+    own._capacity = lambda: capacity  # the instance's budget in place of the solver's
+    return own
 
 
 class CalibrationProblem:
@@ -286,11 +333,16 @@ class CalibrationProblem:
             return known
         roughness = self.roughness(x)
         snaps = self.snapshots(x)
+        self._x_now = x  # named in a convergence error
         if self.stacks:
             results = self._solve_stacked(x, roughness, snaps)
             if results is not None:
                 self._recent.put(key, results)
                 return results
+        if self._owned_solvers():
+            results = self._solve_owned(roughness, snaps)
+            self._recent.put(key, results)
+            return results
         results = []
         # not solve_many: a warm start from the same snapshot at the last parameters beats one from
         # the previous snapshot (a few iterations instead of many)
@@ -301,13 +353,97 @@ class CalibrationProblem:
             try:
                 results.append(self._solve_alone(snap, roughness, warm))
             except ConvergenceError as exc:
-                values = ", ".join(f"{p.name} = {v:.4g}" for p, v in zip(self.params, x))
-                raise CalibrationError(
-                    f"the solver did not converge for snapshot '{snap.label}' at {values}: {exc}. "
-                    "Check the network (closed valves, isolated areas) or narrow --c-bounds.") from exc
+                raise self._not_converged(snap, exc) from exc
         results = _Solved(results, stacks=[], stacked=[])
         self._recent.put(key, results)
         return results
+
+    # --- snapshots that own their solver state (and may be shared out between processes) -----
+    def _owned_solvers(self) -> list:
+        """Per snapshot, a solver of its own (``_snapshot_solver``), or [] where one solver solves
+        them all; decided at the first solve of the solutions' store (``_Recent``).
+
+        A snapshot with a solver of its own gives numbers that depend on its own history only
+        (its warm starts and the factorizations kept beside its own solutions), not on the other
+        snapshots solved between: so the snapshots can be shared out between processes that keep
+        them (``tasks.SnapshotPool``) with the same numbers, to the last bit, at any number of
+        processes. Not for stacked snapshots (one solve for a stack), nor where the snapshots'
+        kept factorizations would not fit in the solver's memory budget at one each
+        (``OWNED_BYTES``), nor for a solver other than a ``NetworkSolver``: there the one
+        solver's numbers stay as they were."""
+        recent = self._recent
+        if recent.solvers is None:
+            from calib.hydraulics import NetworkSolver
+            per = _factor_bytes(self.solver, self.network)
+            n = len(self.pairs)
+            # (another solver, e.g. a wrapper that counts calls, keeps its own ways: one solver)
+            if self.stacks or n < 2 or n * per > OWNED_BYTES or \
+                    not isinstance(self.solver, NetworkSolver):
+                recent.solvers = []
+            else:
+                cap = max(1, int(OWNED_BYTES // (n * per)))
+                recent.solvers = [_snapshot_solver(self.solver, cap) for _ in range(n)]
+        return recent.solvers
+
+    def _solve_owned(self, roughness, snaps) -> "_Solved":
+        """``solve`` with a solver per snapshot, each warm-started from its own last solution (or
+        the shared ``warm``); where one has none (a first solve), from snapshot 0's solution at
+        this ``x``, which is then solved first. Shared out between processes by the store's
+        ``pool`` where it has one (``_pool``), the same numbers either way."""
+        previous = self._cache
+        warm = [previous[i] if previous is not None else self.warm.get(s.label)
+                for i, s in enumerate(snaps)]
+        pool = self._pool()
+        tag = next(_TAGS)
+        if pool:
+            try:
+                results = pool.solve(self, tag, roughness, snaps, warm)
+            except pool.Lost:  # a worker died: the rest here (warm starts without their factors)
+                self._recent.pool = False
+                pool.close()
+                return self._solve_owned(roughness, snaps)
+        else:
+            results = [None] * len(snaps)
+            for i, snap in enumerate(snaps):
+                start = warm[i] if warm[i] is not None or i == 0 else results[0]
+                results[i] = self._solve_snapshot(i, snap, roughness, start)
+                self._count(snap, results[i])
+        return _Solved(results, stacks=[], stacked=[], tag=tag)
+
+    def _solve_snapshot(self, i, snap, roughness, warm):
+        """Snapshot ``i`` by its own solver (not counted: ``_count``); a convergence failure
+        becomes an error that names the snapshot and the parameters."""
+        try:
+            return self._recent.solvers[i].solve(snap, roughness=roughness, warm_start=warm)
+        except ConvergenceError as exc:
+            raise self._not_converged(snap, exc) from exc
+
+    def _count(self, snap, res) -> None:
+        """A solve of one snapshot by one solver call: counted and kept (``_kept``)."""
+        self.n_solver_calls += 1
+        self.n_iterations += res.iterations
+        self._kept(snap, res)
+
+    def _pool(self):
+        """The store's ``tasks.SnapshotPool`` (opened at its first solve where that pays, see
+        ``tasks.SnapshotPool.start``), or False."""
+        recent = self._recent
+        if recent.pool is None:
+            from calib.calibration import tasks
+            recent.pool = tasks.SnapshotPool.start(self) or False
+        return recent.pool if recent.pool and not recent.pool.closed else False
+
+    def _snapshot_dH(self, si, res, solver) -> np.ndarray:
+        """dH/dp at the junctions of snapshot ``si`` at its solution ``res``, by ``solver``."""
+        dF1, dF2 = self._rhs(si, np.asarray(solver.dheadloss_droughness(res), float))
+        dH, _ = solver.sensitivities(res, dF1, dF2)
+        return dH.toarray() if sp.issparse(dH) else np.asarray(dH)
+
+    def _not_converged(self, snap, exc) -> CalibrationError:
+        values = ", ".join(f"{p.name} = {v:.4g}" for p, v in zip(self.params, self._x_now))
+        return CalibrationError(
+            f"the solver did not converge for snapshot '{snap.label}' at {values}: {exc}. "
+            "Check the network (closed valves, isolated areas) or narrow --c-bounds.")
 
     def _kept(self, snap, res) -> None:
         """Keep ``res`` as the last solution of ``snap`` (the next warm start) and count it."""
@@ -426,12 +562,20 @@ class CalibrationProblem:
             dH = dH.toarray() if sp.issparse(dH) else np.asarray(dH)
             for c, si in enumerate(members):
                 dHs[si] = dH[st.junction_map[c]]
-        for si, res in enumerate(results):
-            if self._rows[si].size == 0 or dHs[si] is not None:
-                continue
-            dF1, dF2 = self._rhs(si, np.asarray(self.solver.dheadloss_droughness(res), float))
-            dH, _ = self.solver.sensitivities(res, dF1, dF2)
-            dHs[si] = dH.toarray() if sp.issparse(dH) else np.asarray(dH)
+        need = [si for si in range(len(results)) if self._rows[si].size and dHs[si] is None]
+        owned = self._owned_solvers() if isinstance(results, _Solved) and not results.stacks \
+            else []
+        pool = self._pool() if owned else False
+        if pool and need:
+            try:
+                for si, dH in pool.sensitivities(self, results, need).items():
+                    dHs[si] = dH
+                need = []
+            except pool.Lost:  # a worker died: the rest here
+                self._recent.pool = False
+                pool.close()
+        for si in need:
+            dHs[si] = self._snapshot_dH(si, results[si], owned[si] if owned else self.solver)
         if isinstance(results, _Solved):
             results.dH = (p, dHs)
         return dHs

@@ -237,3 +237,117 @@ def test_small_networks_stay_in_one_process_unless_told(monkeypatch):
     assert parallel.workers_for(SimpleNamespace(n_pipes=7_938)) is None  # the cores decide
     monkeypatch.setenv(parallel.WORKERS_ENV, "2")
     assert parallel.workers_for(SimpleNamespace(n_pipes=531)) is None  # the variable decides
+
+
+# --- Owners: workers that keep their state from one request to the next ------------------------
+class Counter:
+    """A worker's state: each share adds what it is sent to its own total."""
+
+    def __init__(self):
+        self.total = {}
+
+    def serve(self, share, request):
+        if request == "die" and parallel._in_worker:
+            os._exit(3)  # killed, out of memory: no answer
+        if request == "fail":
+            raise CalibrationError(f"the solver did not converge for snapshot 'T{share} static'")
+        if request == "sleep":
+            time.sleep(30)
+        self.total[share] = self.total.get(share, 0) + request
+        return share, self.total[share], os.getpid()
+
+
+@needs_fork
+def test_owners_keep_their_state_between_requests(no_new_children):
+    c = Counter()
+    owners = parallel.Owners(c.serve, 3)
+    try:
+        seen = []
+        for x in (1, 10, 100):
+            for k in (1, 2):
+                owners.ask(k, x * k)
+            seen.append([owners.answer(k) for k in (1, 2)])
+    finally:
+        owners.close()
+    # each worker's total grew by what it was sent, in its own process; this one's is untouched
+    assert [[(k, t) for k, t, _pid in row] for row in seen] == \
+        [[(1, 1), (2, 2)], [(1, 11), (2, 22)], [(1, 111), (2, 222)]]
+    pids = {pid for row in seen for _k, _t, pid in row}
+    assert len(pids) == 2 and os.getpid() not in pids
+    assert c.total == {}
+    assert owners.closed and parallel.open_owners() == 0
+
+
+@needs_fork
+def test_an_owners_error_reaches_the_caller_and_the_worker_goes_on(no_new_children):
+    owners = parallel.Owners(Counter().serve, 2)
+    try:
+        owners.ask(1, "fail")
+        with pytest.raises(CalibrationError, match="did not converge for snapshot 'T1 static'"):
+            owners.answer(1)
+        owners.ask(1, 5)
+        assert owners.answer(1)[:2] == (1, 5)
+    finally:
+        owners.close()
+
+
+@needs_fork
+def test_an_owner_that_died_is_said_lost(no_new_children):
+    owners = parallel.Owners(Counter().serve, 2)
+    try:
+        owners.ask(1, "die")
+        with pytest.raises(parallel.WorkerLost):
+            owners.answer(1)
+    finally:
+        owners.close()
+
+
+@needs_fork
+def test_ctrl_c_closes_the_owners_at_once(no_new_children):
+    # as ``fit`` does (``tasks.closing_pools``): the owners opened inside are closed on the way out
+    from calib.calibration.tasks import closing_pools
+
+    @closing_pools
+    def work():
+        owners = parallel.Owners(Counter().serve, 2)
+        owners.ask(1, "sleep")  # the worker is busy for 30 s
+        time.sleep(0.1)
+        raise KeyboardInterrupt  # as Ctrl-C raises it in the main process
+
+    kept = parallel.Owners(Counter().serve, 2)  # opened before: not the function's to close
+    try:
+        t0 = time.perf_counter()
+        with pytest.raises(KeyboardInterrupt):
+            work()
+        assert time.perf_counter() - t0 < 4.0  # terminated, not waited for
+        assert parallel.open_owners() == 1 and not kept.closed
+        kept.ask(1, 7)
+        assert kept.answer(1)[:2] == (1, 7)
+    finally:
+        kept.close()
+
+
+def test_the_benchmark_removes_its_temporary_folder(monkeypatch, tmp_path):
+    # benchmarks/parallel.py writes outputs (and a generated grid) to a calib-parallel-* folder:
+    # gone when it ends, also when a run fails
+    import importlib.util
+    import tempfile
+    from pathlib import Path
+
+    path = Path(__file__).resolve().parents[2] / "benchmarks" / "parallel.py"
+    spec = importlib.util.spec_from_file_location("benchmark_parallel", path)
+    bench = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(bench)
+    monkeypatch.setattr(tempfile, "tempdir", str(tmp_path))
+    made = []
+
+    def fails(args, tmp):
+        made.append(tmp)
+        (tmp / "demo-0").mkdir()  # as a run's output folder
+        raise RuntimeError("a run failed")
+
+    monkeypatch.setattr(bench, "_run", fails)
+    with pytest.raises(RuntimeError, match="a run failed"):
+        bench.main(["--cases", "demo", "--repeats", "1"])
+    assert made and made[0].name.startswith("calib-parallel-") and made[0].parent == tmp_path
+    assert not made[0].exists() and not any(tmp_path.iterdir())
