@@ -37,9 +37,13 @@ CAUTIONS = [
 
 
 # the hydrant curve's points: the fewest that draw it within this share of its drop (about two
-# pixels of a panel at 100 dpi), found by halving where a midpoint misses the straight line between
-# two points on the N^1.85 axis, on which matplotlib draws each segment straight. Near zero flow the
-# curve is steep on that axis (the base demand's losses grow linearly there), hence a point at 0.2.
+# pixels of a panel at 100 dpi), on the N^1.85 axis, on which matplotlib draws each segment
+# straight. Where a segment's line misses the curve by more, its midpoint on that axis is solved
+# and drawn too. How far a segment's line misses the curve is judged before anything is solved
+# between its ends, on the cubic Hermite interpolant in the scale through the ends' pressures and
+# their slopes dp/ds (``_slope``: implicit differentiation at each solved point, one factorization
+# that the next point's solve starts from). Near zero flow the curve is steep on that axis (the
+# base demand's losses grow linearly there), hence a point at 0.2.
 CURVE_TOLERANCE = 0.01
 CURVE_SCALES = (0.0, 0.2, 1.0, 1.6)  # shares of the test's flow always solved; 0 and 1 the fit's
 # The curve points' solver tolerances: a point is drawn, never printed, and a pixel of a panel is
@@ -78,15 +82,49 @@ def _start_for(solved: dict, s: float, start=None):
                                valve_flow=mix(ra.valve_flow, rb.valve_flow))
 
 
+def _slope(solver, result, column, gauge) -> float:
+    """dp/ds [Pa per unit scale] of the gauge's pressure at a solved curve point, as the test's
+    flows grow with the scale s: implicit differentiation at the solution
+    (``NetworkSolver.sensitivities``) with dF2/ds = ``column`` (minus the test's flow at each
+    flowed junction: F2 = inflow - demand), p = gamma (H - z)."""
+    import scipy.sparse as sp
+
+    dH, _ = solver.sensitivities(result, sp.csr_matrix((len(solver.link_from), 1)), column)
+    return units.GAMMA_WATER * float(np.ravel(dH)[gauge])
+
+
+#: Points inside a segment where its line is compared with the Hermite interpolant.
+_SEGMENT_SAMPLES = np.linspace(0.0, 1.0, 41)[1:-1]
+
+
+def _line_miss(a, b, pa, pb, da, db) -> float:
+    """Largest distance [Pa] between the straight line from (a, pa) to (b, pb) on the N^1.85 axis
+    and the cubic Hermite interpolant in the scale through those points with slopes ``da``, ``db``
+    [Pa per unit scale] (the cubic Hermite basis functions, e.g. Burden and Faires, Numerical
+    Analysis, ch. 3; from memory), sampled at 39 points inside the segment."""
+    t = _SEGMENT_SAMPLES
+    h = b - a
+    cubic = ((2 * t ** 3 - 3 * t ** 2 + 1) * pa + (t ** 3 - 2 * t ** 2 + t) * h * da
+             + (3 * t ** 2 - 2 * t ** 3) * pb + (t ** 3 - t ** 2) * h * db)
+    ua, ub = a ** 1.85, b ** 1.85
+    line = pa + ((a + t * h) ** 1.85 - ua) / (ub - ua) * (pb - pa)
+    return float(np.max(np.abs(cubic - line)))
+
+
 def _curve(solver, rough, flows, heads, gauge, known=(), start=None):
     """Pressure at ``gauge`` [Pa] as the test's ``flows`` are scaled: (scales, pressures).
 
     ``known``: the fit's converged solutions; one with the same loading as a point of the curve is
     that point (these are taken first). Every other point is solved warm-started from the points
-    solved (``_start_for``; first from ``start``, the fit's solution of this test)."""
+    solved (``_start_for``; first from ``start``, the fit's solution of this test). A segment
+    between two points is split at its midpoint on the N^1.85 axis where its line misses the
+    curve's Hermite interpolant by more than ``CURVE_TOLERANCE`` of the drop (``_line_miss``)."""
     from calib.hydraulics import Snapshot
 
-    solved = {}
+    solved, slope = {}, {}
+    column = np.zeros((solver.nj, 1))
+    for n, q in flows.items():
+        column[solver.network.node_index[n], 0] -= q
 
     def loading(s):
         return Snapshot(extra_demand={n: q * s for n, q in flows.items()}, source_head=heads)
@@ -101,6 +139,7 @@ def _curve(solver, rough, flows, heads, gauge, known=(), start=None):
         found = given[s] if s in given else same(s)
         solved[s] = found[0] if found else solver.solve(
             loading(s), roughness=rough, warm_start=_start_for(solved, s, start))
+        slope[s] = _slope(solver, solved[s], column, gauge)
         return float(solved[s].pressure[gauge])
 
     p = {s: at(s) for s in sorted(CURVE_SCALES, key=lambda v: (not given[v], -v))}
@@ -108,10 +147,11 @@ def _curve(solver, rough, flows, heads, gauge, known=(), start=None):
     todo = list(zip(CURVE_SCALES[:-1], CURVE_SCALES[1:]))
     while todo and len(p) < 33:
         a, b = todo.pop()
+        if _line_miss(a, b, p[a], p[b], slope[a], slope[b]) <= tol:
+            continue
         m = ((a ** 1.85 + b ** 1.85) / 2.0) ** (1.0 / 1.85)  # midpoint on the N^1.85 axis
         p[m] = at(m)
-        if abs(p[m] - (p[a] + p[b]) / 2.0) > tol:
-            todo += [(a, m), (m, b)]
+        todo += [(a, m), (m, b)]
     scales = np.array(sorted(p))
     return scales, np.array([p[s] for s in scales])
 
