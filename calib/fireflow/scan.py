@@ -222,8 +222,10 @@ class FireFlowScan:
         members = self._zone_members.get(z, self._all) if z else self._all
         return members[members != i]
 
-    def hydrant(self, node: str) -> HydrantFlow:
-        """All figures for the hydrant at junction ``node``."""
+    def hydrant(self, node: str, start=None) -> HydrantFlow:
+        """All figures for the hydrant at junction ``node``. ``start``: a warm start for its held
+        solve (a solution whose flows are near the held state's, e.g. one a flow test there gave:
+        ``fitsummary.held_start``), else a neighbour's held solve, else a cold start."""
         net, opt = self.network, self.options
         i = net.node_index.get(str(node))
         if i is None or i >= net.n_junctions:
@@ -236,7 +238,7 @@ class FireFlowScan:
             out.note = "cut off from every source by closed pipes: no fire flow"
             out.flow_at_residual = out.flow_system = out.available = 0.0
             return out
-        held = self._at_residual(i, out)
+        held = self._at_residual(i, out, start)
         self._system(i, out, held)
         self._combine(out)
         return out
@@ -245,7 +247,7 @@ class FireFlowScan:
         self.solves += 1
         return self.solver.solve(snapshot, roughness=self.roughness, warm_start=warm)
 
-    def _at_residual(self, i, out):
+    def _at_residual(self, i, out, start=None):
         net, opt = self.network, self.options
         if self.p0[i] <= opt.residual:
             out.flow_at_residual = 0.0
@@ -260,7 +262,7 @@ class FireFlowScan:
         # iterations and 4.2 factorizations against 8.1 and 6.5 from a cold start (secant first
         # step); the static flows are a worse start (12-13: their near-zero slopes at the hydrant
         # overshoot the first step). Results differ between starts only within the tolerances.
-        res = self._solve(snap, self._neighbour_start(i))
+        res = self._solve(snap, start if start is not None else self._neighbour_start(i))
         self.last_held = (i, res)
         out.flow_at_residual = float(next(iter(res.held_flow.values())))
         if self.covariance is not None:

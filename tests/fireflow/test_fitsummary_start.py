@@ -1,0 +1,77 @@
+"""The fit report's fire-flow rows: each flowed hydrant's held solve starts from the flow change
+its flow test made (``fitsummary.held_start``), and gives what a cold start gives."""
+
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from calib.hydraulics import NetworkSolver, Snapshot
+from calib.units import GAMMA_WATER, GPM
+
+TESTS = Path(__file__).resolve().parents[2] / "field_samples" / "tallowmere" / "tests"
+
+
+@pytest.fixture(scope="module")
+def demo_fit(town):
+    from calib.calibration import fit, read_tests
+    return fit(town, read_tests(TESTS, town), influence=False)
+
+
+def _scan(result):
+    from calib.fireflow.fitsummary import covariance_of
+    from calib.fireflow.scan import FireFlowScan
+    return FireFlowScan(result.network, roughness=result.roughness(),
+                        covariance=covariance_of(result))
+
+
+def test_held_solves_from_the_tests_flow_change_match_tight_cold_solves(demo_fit):
+    # reference: the same held snapshot solved cold by a fresh solver to heads within 1e-9 m
+    # (the draw at the held junction is the flow at the residual); the warm start changes where
+    # Newton begins, not where it ends
+    from calib.fireflow.fitsummary import flowed_hydrants, held_start
+    scan = _scan(demo_fit)
+    net = demo_fit.network
+    iterations = {"warm": 0, "cold": 0}
+    seen = 0
+    for node in flowed_hydrants(demo_fit):
+        start = held_start(demo_fit, scan, node)
+        assert start is not None
+        i = net.node_index[node]
+        grade = net.elevation[i] + scan.options.residual / GAMMA_WATER
+        snap = Snapshot(held_head={node: grade})
+        tight = NetworkSolver(net, head_tol=1e-9, flow_tol=1e-12).solve(
+            snap, roughness=demo_fit.roughness())
+        for kind, warm in (("warm", start), ("cold", None)):
+            scan.solver.forget()
+            res = scan.solver.solve(snap, roughness=scan.roughness, warm_start=warm)
+            iterations[kind] += res.iterations
+            q, ref = res.held_flow[node], tight.held_flow[node]
+            assert q == pytest.approx(ref, abs=0.01 * GPM), (node, kind)
+        seen += 1
+    assert seen >= 10
+    assert iterations["warm"] < 0.8 * iterations["cold"], iterations  # counts, not times
+
+
+def test_the_fire_flow_section_is_the_one_cold_starts_give(demo_fit, monkeypatch):
+    # every printed figure (static, available flow, interval, what limits it, class) the same
+    # with and without the start from the test's flow change
+    from calib.fireflow import fitsummary
+    ours = fitsummary.html_section(demo_fit, "us")
+    monkeypatch.setattr(fitsummary, "held_start", lambda result, scan, node: None)
+    cold = fitsummary.html_section(demo_fit, "us")
+    assert ours.count("<tr>") >= 10
+    assert ours == cold
+
+
+def test_no_start_for_a_hydrant_no_test_flowed(demo_fit):
+    from calib.fireflow.fitsummary import flowed_hydrants, held_start
+    scan = _scan(demo_fit)
+    flowed = set(flowed_hydrants(demo_fit))
+    ids = [str(n) for n in demo_fit.network.node_ids[:demo_fit.network.n_junctions]]
+    other = next(n for n in ids if n not in flowed)
+    assert held_start(demo_fit, scan, other) is None
+    start = held_start(demo_fit, scan, sorted(flowed)[0])
+    # the start keeps the scan's static statuses and moves only the flows
+    assert np.array_equal(start._active, scan.static._active)
+    assert not np.array_equal(start.flow, scan.static.flow)
