@@ -136,16 +136,51 @@ def test_curve_reuses_the_fits_solution_of_the_same_loading(grid):
     assert len(calls) == len(scales) - 2  # the two known points are not solved again
 
 
-def test_demo_curves_drawn_within_the_tolerance_of_dense_curves(demo_day, monkeypatch):
+@pytest.fixture(scope="module")
+def demo_result(demo_day):
+    from calib.calibration import fit
+    net, tests = demo_day
+    return fit(net, tests, influence=False)
+
+
+def test_curve_slope_at_the_fits_own_solutions(demo_result):
+    # the curve takes its no-flow and tested points from the fit's converged solutions (solved by
+    # the fit's solver, stacked on the demo town): their slopes are those of fresh tight solves
+    # of the same loadings
+    from calib.calibration.report import CURVE_SOLVER, _slope
+    net, t = demo_result.network, demo_result.tests
+    solver = NetworkSolver(net, **CURVE_SOLVER)
+    tight = NetworkSolver(net, head_tol=1e-10)
+    checked = 0
+    for k in range(t.n_tests):
+        flows = {str(net.node_ids[n]): q for n, q in t.flows[k].items()}
+        heads = {str(net.node_ids[s]): h for s, h in t.source_head[k].items()}
+        column = np.zeros((net.n_junctions, 1))
+        for n, q in flows.items():
+            column[net.node_index[n], 0] -= q
+        gauge = int(t.node[t.test == k][0])
+        for kind, s in (("residual", 1.0), ("static", 0.0)):
+            known = demo_result.solutions.get(f"{t.test_ids[k]} {kind}")
+            if known is None or not flows:
+                continue
+            fresh = tight.solve(Snapshot(extra_demand={n: q * s for n, q in flows.items()},
+                                         source_head=heads), roughness=demo_result.roughness())
+            assert _slope(solver, known, column, gauge) == pytest.approx(
+                _slope(solver, fresh, column, gauge), rel=1e-5)
+            checked += 1
+    assert checked >= 20
+
+
+def test_demo_curves_drawn_within_the_tolerance_of_dense_curves(demo_result, monkeypatch):
     # every hydrant-curve panel of the demo town's report against a dense curve of tight solves
     # at the fitted C. Measured 0.16-1.09 of CURVE_TOLERANCE with the midpoints of every segment
     # solved (the former rule, 96 points) and 0.12-1.09 with the Hermite rule (57 points); the
     # largest is T11's curve, where a reducing valve turns active between two points (a kink no
     # smooth interpolant sees): a little over the tolerance in both, hence the 1.25.
-    from calib.calibration import fit, report
-    net, tests = demo_day
+    from calib.calibration import report
+    result = demo_result
+    net, tests = result.network, result.tests
     monkeypatch.setenv("CALIB_WORKERS", "1")
-    result = fit(net, tests, influence=False)
     data = report._curves_data(result, "us")
     rough = result.roughness()
     seen = 0
