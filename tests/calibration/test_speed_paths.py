@@ -115,7 +115,7 @@ def test_curve_slope_is_the_derivative_of_the_gauge_pressure(grid, demo_day):
             column[network.node_index[n], 0] -= q
         h = 1e-4
         fd = (at(s + h).pressure[gauge] - at(s - h).pressure[gauge]) / (2 * h)
-        assert _slope(tight, at(s), column, gauge) == pytest.approx(fd, rel=1e-4, abs=1e-3)
+        assert _slope(tight, at(s), column, gauge)[0] == pytest.approx(fd, rel=1e-4, abs=1e-3)
         checked += 1
     assert checked >= 5
 
@@ -165,8 +165,8 @@ def test_curve_slope_at_the_fits_own_solutions(demo_result):
                 continue
             fresh = tight.solve(Snapshot(extra_demand={n: q * s for n, q in flows.items()},
                                          source_head=heads), roughness=demo_result.roughness())
-            assert _slope(solver, known, column, gauge) == pytest.approx(
-                _slope(solver, fresh, column, gauge), rel=1e-5)
+            assert _slope(solver, known, column, gauge)[0] == pytest.approx(
+                _slope(solver, fresh, column, gauge)[0], rel=1e-5)
             checked += 1
     assert checked >= 20
 
