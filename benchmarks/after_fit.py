@@ -5,9 +5,9 @@
 Runs ``calib.calibration.fit`` (with the report's data, ``report.prepare`` without figures, from
 the fit's ``on_result`` as ``calib fit`` does) in a fresh process per ``--code`` tree (default:
 this checkout), trees in turn, with ``CALIB_WORKERS=1`` so that every solve is seen and counted
-in one process. Per phase (the fit's own stage names; "report data" is the hydrant curves and the
-fire-flow rows): evaluations of the snapshots (``CalibrationProblem.solve`` calls that solved),
-snapshot solves, solver calls (a stacked solve of K snapshots counts once), Newton iterations,
+in one process. Per phase (the fit's own stage names; the report data in two parts, the hydrant
+curves and the fire-flow rows): evaluations of the snapshots (``CalibrationProblem.solve`` calls
+that solved), snapshot solves, solver calls (a stacked solve of K snapshots counts once), Newton iterations,
 sensitivity calls, and the CPU time of the phase. The counts do not depend on the machine's
 load; the CPU time does a little. Also prints the fitted C and interval ends unrounded, and the
 flags and influence notes, so that two trees' answers can be compared digit by digit.
@@ -65,10 +65,15 @@ network = read_network(net_dir)
 tests = read_tests(tests_dir, network)
 
 def on_result(result):
-    enter("report data")
+    # what ``report.prepare`` does, in its two parts: the figures' data with the hydrant curves,
+    # then the fire-flow section
     if with_report:
-        from calib.calibration.report import prepare
-        prepare(result)
+        from calib.calibration import report
+        from calib.fireflow.fitsummary import html_section
+        enter("report data, hydrant curves")
+        report._plot_specs(result, "us")
+        enter("report data, fire-flow rows")
+        html_section(result, "us")
     enter("leave-one-out")
 
 enter("fit")
