@@ -31,6 +31,16 @@ def flowed_hydrants(result) -> list[str]:
     return list(dict.fromkeys(str(ids[i]) for flows in result.tests.flows for i in flows))
 
 
+def static_start(result):
+    """A warm start for the scan's static solve: the fit's solution of the first test's static
+    loading at the fitted C (it differs from the scan's only in the demand factor and the source
+    grades), None where no test has one. Measured: 3 against 10 Newton iterations from cold on
+    the demo town, 2 against 6 on the 7,938-pipe grid."""
+    tests = result.tests
+    return next((result.solutions[f"{t} static"] for t in tests.test_ids
+                 if f"{t} static" in result.solutions), None)
+
+
 def held_start(result, scan, node: str):
     """A warm start for the held solve at ``node``, a hydrant the tests flowed (None for another):
     the scan's static flows plus the flow change of the first test that flowed it (the fit's
@@ -85,7 +95,7 @@ def html_section(result, system: str = "us", limit: int = 12) -> str:
             "codes, the authority having jurisdiction or a licensed engineer.</p>")
     try:
         scan = FireFlowScan(result.network, roughness=result.roughness(),
-                            covariance=covariance_of(result))
+                            covariance=covariance_of(result), static_start=static_start(result))
         flows = parallel.run(lambda node: scan.hydrant(node, held_start(result, scan, node)), nodes,
                              reset=lambda: _fresh(scan),
                              workers=parallel.workers_for(result.network))

@@ -174,7 +174,10 @@ class FireFlowScan:
     """The state shared by every hydrant of one scan: solver, static solution, zones, groups."""
 
     def __init__(self, network, roughness=None, options: ScanOptions | None = None,
-                 covariance: GroupCovariance | None = None, solver: NetworkSolver | None = None):
+                 covariance: GroupCovariance | None = None, solver: NetworkSolver | None = None,
+                 static_start=None):
+        """``static_start``: a warm start for the static solve (a solution of a loading like the
+        scan's, e.g. a fit's static snapshot: ``fitsummary``), else a cold start."""
         self.network = net = network
         self.options = options or ScanOptions()
         self.options.check()
@@ -182,7 +185,8 @@ class FireFlowScan:
         self.covariance = covariance
         self.solver = solver or NetworkSolver(net, **SCAN_TOLERANCES)
         self.base = Snapshot(demand_factor=self.options.demand_factor, label="fire flow static")
-        self.static = self.solver.solve(self.base, roughness=self.roughness)
+        self.static = self.solver.solve(self.base, roughness=self.roughness,
+                                        warm_start=static_start)
         self.solves = 1
         nj = net.n_junctions
         self.p0 = self.static.pressure[:nj]

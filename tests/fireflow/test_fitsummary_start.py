@@ -1,5 +1,6 @@
-"""The fit report's fire-flow rows: each flowed hydrant's held solve starts from the flow change
-its flow test made (``fitsummary.held_start``), and gives what a cold start gives."""
+"""The fit report's fire-flow rows: the scan's static solve starts from a fit's static solution
+(``fitsummary.static_start``) and each flowed hydrant's held solve from the flow change its flow
+test made (``fitsummary.held_start``); both give what cold starts give."""
 
 from pathlib import Path
 
@@ -53,11 +54,27 @@ def test_held_solves_from_the_tests_flow_change_match_tight_cold_solves(demo_fit
     assert iterations["warm"] < 0.8 * iterations["cold"], iterations  # counts, not times
 
 
+def test_the_static_solve_from_a_fits_static_solution_matches_a_tight_cold_solve(demo_fit):
+    # reference: the scan's loading solved cold by a fresh solver to heads within 1e-9 m
+    from calib.fireflow.fitsummary import static_start
+    from calib.fireflow.scan import FireFlowScan
+    start = static_start(demo_fit)
+    assert start is not None and start.snapshot.label.endswith("static")
+    warm = FireFlowScan(demo_fit.network, roughness=demo_fit.roughness(), static_start=start)
+    cold = FireFlowScan(demo_fit.network, roughness=demo_fit.roughness())
+    tight = NetworkSolver(demo_fit.network, head_tol=1e-9, flow_tol=1e-12).solve(
+        warm.base, roughness=demo_fit.roughness())
+    nj = demo_fit.network.n_junctions
+    np.testing.assert_allclose(warm.static.head[:nj], tight.head[:nj], atol=1e-4)  # its head_tol
+    assert warm.static.iterations < cold.static.iterations
+
+
 def test_the_fire_flow_section_is_the_one_cold_starts_give(demo_fit, monkeypatch):
     # every printed figure (static, available flow, interval, what limits it, class) the same
-    # with and without the start from the test's flow change
+    # with and without the starts from the fit's solutions
     from calib.fireflow import fitsummary
     ours = fitsummary.html_section(demo_fit, "us")
+    monkeypatch.setattr(fitsummary, "static_start", lambda result: None)
     monkeypatch.setattr(fitsummary, "held_start", lambda result, scan, node: None)
     cold = fitsummary.html_section(demo_fit, "us")
     assert ours.count("<tr>") >= 10
