@@ -41,9 +41,9 @@ CAUTIONS = [
 # straight. Where a segment's line misses the curve by more, its midpoint on that axis is solved
 # and drawn too. How far a segment's line misses the curve is judged before anything is solved
 # between its ends, on the cubic Hermite interpolant in the scale through the ends' pressures and
-# their slopes dp/ds (``_slope``: implicit differentiation at each solved point, one factorization
-# that the next point's solve starts from). Near zero flow the curve is steep on that axis (the
-# base demand's losses grow linearly there), hence a point at 0.2.
+# their slopes dp/ds (``_slope``: implicit differentiation at each solved point, one factorization,
+# kept beside the point; the next point's solve starts from the last one kept). Near zero flow the
+# curve is steep on that axis (the base demand's losses grow linearly there), hence a point at 0.2.
 CURVE_TOLERANCE = 0.01
 CURVE_SCALES = (0.0, 0.2, 1.0, 1.6)  # shares of the test's flow always solved; 0 and 1 the fit's
 # The curve points' solver tolerances: a point is drawn, never printed, and a pixel of a panel is

@@ -48,8 +48,8 @@ def held_start(result, scan, node: str):
     where the test has no static reading), scaled from the test's flow to the flow NFPA 291's
     rating formula gives at the scan's residual target, Q_R = Q_F (h_r / h_f)^0.54 with h_r the
     scan's static pressure less the target and h_f the drop the fit's two solutions show at the
-    hydrant (``flowtest.rated_flow``). The change of one test's two loadings balances its
-    draws, so the start balances every junction but the flowed ones. Measured: held solves in 86
+    hydrant (``flowtest.rated_flow``). Where both solutions are the test's, their change balances
+    its draws, so the start balances every junction but the flowed ones. Measured: held solves in 86
     against 137 Newton iterations from cold on the demo town's 12 flowed hydrants, 62 against 89
     on the 7,938-pipe grid's (benchmarks/README.md, "C3"); the figures are the same to the
     solver's tolerance (tests/fireflow/test_fitsummary_start.py)."""
