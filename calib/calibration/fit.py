@@ -46,11 +46,7 @@ LOSSES = ("linear", "soft_l1", "huber", "cauchy")
 #: within 5e-6 m (was 1.4e-9; the readings' sigma is 0.35 m or more), the grid fit's Newton
 #: iterations 3.00 -> 2.05 a solve; groups.csv and readings.csv unchanged on the demo town and
 #: the grid, the full-precision C within 2e-8 relative.
-#: ``predictor``: a snapshot's next solve starts from its last solution moved along the
-#: sensitivities the Jacobian took there (``sensitivity.predict``), within second order of the
-#: new solution: grid fit 2.05 -> 1.50 Newton iterations a solve (not with control valves).
-FIT_TOLERANCES = dict(head_tol=1e-4, flow_tol=1e-3, energy_tol=1e-6, head_step=False,
-                      predictor=True)
+FIT_TOLERANCES = dict(head_tol=1e-4, flow_tol=1e-3, energy_tol=1e-6, head_step=False)
 
 
 @dataclass

@@ -52,65 +52,9 @@ def sensitivities(solver, result: SolveResult, dF1_dp, dF2_dp):
     dH = _solve(solver, result, S, rhs, w, extra, iso) if (rhs.shape[1] and nj) \
         else np.zeros((nj, rhs.shape[1]))
     dQ = -(wb1 - w[:, None] * pat.across_junctions(dH))  # sources: dH = 0
-    _keep_tangent(solver, result, b1, b2, dH)
     if vector:
         return dH[:, 0], dQ[:, 0]
     return dH, dQ
-
-
-#: Largest head sensitivities kept beside a solution for ``predict`` [bytes]: the 7,938-pipe
-#: grid's 4k junctions x 5 parameters take 0.16 MB; a fit keeps a few dozen solutions.
-TANGENT_BYTES = 1e6
-
-
-def _keep_tangent(solver, result, b1, b2, dH) -> None:
-    """Keep ``dF/dp`` (sparse), its Gram matrix and ``dH/dp`` beside ``result`` for ``predict``,
-    in the solver (``NetworkSolver.keep_tangent``: ``forget`` drops them with its factors, so a
-    task's answer does not depend on which tasks ran before it in the same process)."""
-    if dH.size * 8 > TANGENT_BYTES or not dH.size or not hasattr(solver, "keep_tangent"):
-        return
-    B = sp.csr_matrix(np.vstack([b1, b2]))
-    solver.keep_tangent(result, (B, (B.T @ B).toarray(), dH))
-
-
-def predict(solver, result: SolveResult, F1, F2):
-    """Flows of a warm start moved along the sensitivities kept beside ``result``
-    (``NetworkSolver.kept_tangent``), or None.
-
-    ``F1, F2``: the residuals of the new problem (new roughness, demands, source grades) at
-    ``result``'s flows and heads. Where their change from zero is a combination ``B a`` of the
-    parameter columns ``B = [dF1/dp; dF2/dp]`` differentiated there (least squares over the
-    rows; a fit's next evaluation changes only those parameters), the Newton step is
-    ``[dQ; dH] a`` to first order, so the solve starts with what is left of order ``a^2``: a
-    first-order predictor from the sensitivities (continuation along the parameters; e.g.
-    Allgower and Georg (1990), Numerical Continuation Methods, ch. 2). None where what the columns
-    leave unexplained is more than a tenth of the change (2-norm; other parameters changed: the
-    warm start is then used as it is)."""
-    tangent = solver.kept_tangent(result)
-    if tangent is None:
-        return None
-    B, G, dH = tangent
-    F = np.concatenate([F1, F2])
-    if B.shape[0] != len(F):
-        return None
-    # no BLAS below (products of a few columns): on a busy machine its threads wait for cores
-    BF = np.asarray(B.T @ F)
-    try:
-        a = np.linalg.solve(G, BF)
-    except np.linalg.LinAlgError:
-        return None
-    FF = float(np.einsum("i,i->", F, F))
-    left = FF - 2.0 * float(np.einsum("i,i->", a, BF)) + float(np.einsum("i,ij,j->", a, G, a))
-    if not (np.all(np.isfinite(a)) and FF > 0.0 and left <= 0.01 * FF):
-        return None
-    w = np.where(result._active, 1.0 / result._grad, 0.0)
-    b1 = np.asarray(B @ a)[: len(F1)]
-    dh = np.einsum("ij,j->i", dH, a)
-    dq = -w * (b1 - solver.pattern.across_junctions(dh[:, None])[:, 0])
-    q = result.link_flow
-    if not (np.abs(dq).max(initial=0.0) <= 0.5 * max(np.abs(q).max(initial=0.0), solver.q_eps)):
-        return None  # not a small change (or not finite): no first-order prediction
-    return q + dq
 
 
 def _solve(solver, result, S, rhs, w, extra, iso):

@@ -52,9 +52,6 @@ COUPLED_VALVES = 2
 #: pipes; at most ``KEPT_FACTORS``. Small enough to stay in a server's last-level cache.
 KEPT_FACTOR_BYTES = 32e6
 KEPT_FACTORS = 64
-#: Sensitivities kept beside solutions for the predictor (each at most
-#: ``sensitivity.TANGENT_BYTES``): a fit's snapshots at its last few evaluations.
-KEPT_TANGENTS = 64
 #: Conjugate gradients (``_reuse``) stop at this fraction of the mass tolerance: their residual is
 #: the junctions' mass imbalance after the Newton step, which the stop test then holds to the
 #: tolerance; the half leaves room for the rounding between CG's residual and the imbalance
@@ -98,9 +95,6 @@ class NetworkSolver:
       (total demand, or the largest flow when larger); largest head change <= ``head_tol`` [m];
       largest energy residual <= ``energy_tol`` [m]; largest mass-balance error <=
       max(``mass_tol`` x total demand, ``mass_tol_abs`` [m3/s]); and no status change in the last step.
-    - ``predictor=True``: a warm start from a solution whose sensitivities were taken
-      (``sensitivities``) starts from the flows those predict for the new roughness, demands and
-      grades (``sensitivity.predict``), where the change is one of their parameters.
     - ``head_step=False`` leaves the head change out of that rule: the solve then stops on the
       residuals at the returned point (energy, mass) and the flow change alone. The last head
       change lags one iteration behind the heads' error (after a Newton step the error left is
@@ -128,8 +122,7 @@ class NetworkSolver:
                  max_status_changes: int = 8, viscosity: float = hl.NU_WATER_60F,
                  dense: bool = False, reuse_factor: bool = True, reuse_max_changed: int = 20,
                  cg_max_iterations: int = 25, update_ratio: float = 2.0,
-                 update_budget: float = 0.25, head_step: bool = True,
-                 predictor: bool = False):
+                 update_budget: float = 0.25, head_step: bool = True):
         if headloss not in HEADLOSS_MODELS:
             raise InputError(f"unknown head-loss model '{headloss}'", field="headloss",
                              expected=" or ".join(HEADLOSS_MODELS))
@@ -139,7 +132,6 @@ class NetworkSolver:
         self.max_iterations = int(max_iterations)
         self.flow_tol, self.head_tol, self.energy_tol = flow_tol, head_tol, energy_tol
         self.head_step = bool(head_step)
-        self.predictor = bool(predictor)
         self.mass_tol, self.mass_tol_abs = mass_tol, mass_tol_abs
         self.max_status_changes = int(max_status_changes)
         self.viscosity = float(viscosity)
@@ -153,9 +145,6 @@ class NetworkSolver:
         #: first). A warm start from a solution starts from its factor; the sensitivities at a
         #: solution solve with it (``sensitivity.sensitivities``).
         self._kept: OrderedDict = OrderedDict()
-        #: sensitivities kept beside solutions for the predictor (``_predicted``): result key ->
-        #: (dF/dp, its Gram matrix, dH/dp), least recently used first, at most ``KEPT_TANGENTS``
-        self._tangents: OrderedDict = OrderedDict()
         self._matrix = None  # S of the last iteration; its values are replaced each iteration
         self._rough_memo = None  # (roughness bytes, roughness, law coefficient) of the last solve
         self.reuse_max_changed, self.cg_max_iterations = reuse_max_changed, cg_max_iterations
@@ -296,35 +285,11 @@ class NetworkSolver:
         self.valves.start()
         active &= ~fixed_closed
         q[~active] = 0.0
-        if warm_start is not None and not self.nv and self.predictor:
-            q = self._predicted(warm_start, resolved, coef, q, active)
         self._start_factor(warm_start)
         result = self._iterate(resolved, rough, coef, q, active, fixed_closed,
                                secant=warm_start is None)
         self._keep(result)
         return result
-
-    def _predicted(self, warm, resolved, coef, q, active):
-        """The warm start's flows moved along the sensitivities kept beside it, where the new
-        problem differs from the warm start's by the parameters they were taken for
-        (``sensitivity.predict``); else ``q`` as it is. A fit's next evaluation of a snapshot
-        then starts within second order of its solution: measured on the 7,938-pipe grid fit,
-        benchmarks/README.md "B3". Not with control valves (their states and stiff links)."""
-        if self.kept_tangent(warm) is None or not np.array_equal(active, warm._active):
-            return q
-        nj = self.nj
-        H = warm.head.copy()
-        H[nj:] = resolved.source_head
-        H[resolved.held] = resolved.held_head
-        h, _ = self._laws(q, coef)
-        F1 = np.where(active, h - (H[self.link_from] - H[self.link_to]), 0.0)
-        F2 = self.pattern.inflow(q)[:nj] - resolved.demand
-        F2[warm._isolated_mask] = 0.0
-        moved = sensitivity.predict(self, warm, F1, F2)
-        if moved is None:
-            return q
-        moved[~active] = 0.0
-        return moved
 
     # --- factorizations kept beside solutions ------------------------------------------------
     def _keeps(self) -> bool:
@@ -402,19 +367,6 @@ class NetworkSolver:
         result._factor_key = key
         self._trim()
 
-    def keep_tangent(self, result, tangent) -> None:
-        """Keep the sensitivities ``tangent`` taken at ``result`` (``sensitivity.predict``)."""
-        key = getattr(result, "_tangent_key", None) or next(_KEYS)
-        result._tangent_key = key
-        self._tangents[key] = tangent
-        self._tangents.move_to_end(key)
-        while len(self._tangents) > KEPT_TANGENTS:
-            self._tangents.popitem(last=False)
-
-    def kept_tangent(self, result):
-        """The sensitivities kept beside ``result`` by this solver, or None."""
-        return self._tangents.get(getattr(result, "_tangent_key", None))
-
     def solve_many(self, snapshots, roughness=None) -> list[SolveResult]:
         """Solve snapshots in turn, each warm-started from the last; pattern and ordering reused."""
         results, last = [], None
@@ -430,7 +382,6 @@ class NetworkSolver:
         answer in any process, in any order)."""
         self._factor = None
         self._kept.clear()
-        self._tangents.clear()
 
     def _iterate(self, resolved, rough, coef, q, active, fixed_closed, secant):
         net, nj, pat = self.network, self.nj, self.pattern

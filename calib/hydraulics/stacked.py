@@ -342,7 +342,7 @@ class StackedSolver:
             max_iterations=b.max_iterations, flow_tol=b.flow_tol, head_tol=b.head_tol,
             energy_tol=b.energy_tol, mass_tol=b.mass_tol, mass_tol_abs=b.mass_tol_abs,
             max_status_changes=b.max_status_changes, viscosity=b.viscosity,
-            reuse_factor=b.reuse_factor, head_step=b.head_step, predictor=b.predictor)
+            reuse_factor=b.reuse_factor, head_step=b.head_step)
         self.stack.tolerances = (b.flow_tol, b.mass_tol)  # each copy's own (``settled``)
         self.solver.copies = self.stack
 
