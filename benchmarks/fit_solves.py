@@ -2,6 +2,7 @@
 
     python benchmarks/fit_solves.py record NETWORK TESTS CALLS.pkl [fit options...]
     python benchmarks/fit_solves.py replay CALLS.pkl NETWORK [--code DIR] [--repeats N]
+    python benchmarks/fit_solves.py phases NETWORK TESTS [--code DIR]
 
 ``record`` runs ``calib fit NETWORK TESTS --no-report`` in this process and keeps every
 ``NetworkSolver.solve`` call (snapshot, roughness, which earlier result it was warm-started from)
@@ -16,6 +17,12 @@ solve) and of the sensitivities (per call), the solves with a CHOLMOD factor, an
 versions' answers (``compare A.npy B.npy CALLS.pkl NETWORK``). Times are CPU time of this process
 (the machine is shared: wall time moves with the load more). The demo town's data are invented
 (Tallowmere).
+
+``phases`` runs ``calib.calibration.fit`` (no report) in this process on one core
+(``CALIB_WORKERS=1``: every solve is seen) and prints per phase of the fit (the ``progress``
+stage, leave-one-out refits together): solver calls, Newton iterations and factorizations per
+call, sensitivity calls and the phase's CPU time. A stacked solve (the demo town's snapshots
+solved as one network) counts as one call. Run it for two checkouts (``--code``) in turn.
 """
 
 from __future__ import annotations
@@ -120,6 +127,56 @@ def replay(calls_path: str, network: str, repeats: int, save: str | None,
     return 0
 
 
+def phases(network: str, tests: str) -> int:
+    os.environ["CALIB_WORKERS"] = "1"
+    import calib
+    from calib.calibration import fit, read_tests
+    from calib.hydraulics import solver as solver_module
+    from calib.network.io import read_network
+    cls = solver_module.NetworkSolver
+    solve, sens = cls.solve, cls.sensitivities
+    rows: dict = {}
+    now = {"calls": 0, "iterations": 0, "factorizations": 0, "sens": 0}
+
+    def counted_solve(self, *args, **kwargs):
+        res = solve(self, *args, **kwargs)
+        now["calls"] += 1
+        now["iterations"] += res.iterations
+        now["factorizations"] += res.factorizations
+        return res
+
+    def counted_sensitivities(self, *args, **kwargs):
+        now["sens"] += 1
+        return sens(self, *args, **kwargs)
+
+    last = [time.process_time()]
+
+    def progress(_n, stage):
+        stage = stage.split(":")[0]
+        row = rows.setdefault(stage, dict.fromkeys((*now, "cpu"), 0.0))
+        for k in now:
+            row[k] += now[k]
+            now[k] = 0
+        t = time.process_time()
+        row["cpu"] += t - last[0]
+        last[0] = t
+
+    cls.solve, cls.sensitivities = counted_solve, counted_sensitivities
+    net = read_network(network)
+    t0 = time.process_time()
+    fit(net, read_tests(tests, net), progress=progress)
+    total = time.process_time() - t0
+    print(f"{Path(calib.__file__).parents[1]}: fit CPU {total:.2f} s, load "
+          f"{os.getloadavg()[0]:.2f}")
+    for stage, r in rows.items():
+        n = max(r["calls"], 1)
+        print(f"  {stage}: {r['calls']:.0f} solver calls, {r['iterations']:.0f} iterations "
+              f"({r['iterations'] / n:.2f} a call), {r['factorizations']:.0f} factorizations "
+              f"({r['factorizations'] / n:.2f} a call), {r['sens']:.0f} sensitivity calls, "
+              f"{r['cpu']:.2f} s CPU")
+    return 0
+
+
 def _count_solves() -> list:
     """Count the solves with a CHOLMOD factor (CG steps and direct solves: two triangular solves
     each), a load-proof figure; [0] is the count."""
@@ -168,6 +225,8 @@ def main(argv=None) -> int:
         del argv[i:i + 2]
     if argv and argv[0] == "record" and len(argv) >= 4:
         return record(argv[1], argv[2], argv[3], argv[4:])
+    if argv and argv[0] == "phases" and len(argv) == 3:
+        return phases(argv[1], argv[2])
     if argv and argv[0] == "compare" and len(argv) == 5:
         return compare(*argv[1:])
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])

@@ -200,7 +200,8 @@ class StackedNetwork:
         totals = np.abs(demand).reshape(self.k, self.nj).sum(axis=1)
         q_ref = np.maximum(np.maximum(totals, self.per_copy(q, "links")), solver.q_eps)
         return bool(np.all(self.per_copy(dq, "links") <= flow_tol * q_ref)
-                    and np.all(self.per_copy(dH, "junctions") <= solver.head_tol)
+                    and ((not solver.head_step and not solver.nv)
+                         or np.all(self.per_copy(dH, "junctions") <= solver.head_tol))
                     and np.all(self.per_copy(F1, "links") <= solver.energy_tol)
                     and np.all(self.per_copy(F2, "junctions")
                                <= np.maximum(mass_tol * totals, solver.mass_tol_abs)))
@@ -341,7 +342,7 @@ class StackedSolver:
             max_iterations=b.max_iterations, flow_tol=b.flow_tol, head_tol=b.head_tol,
             energy_tol=b.energy_tol, mass_tol=b.mass_tol, mass_tol_abs=b.mass_tol_abs,
             max_status_changes=b.max_status_changes, viscosity=b.viscosity,
-            reuse_factor=b.reuse_factor)
+            reuse_factor=b.reuse_factor, head_step=b.head_step)
         self.stack.tolerances = (b.flow_tol, b.mass_tol)  # each copy's own (``settled``)
         self.solver.copies = self.stack
 

@@ -112,8 +112,8 @@ def test_a_profile_end_starts_at_the_point_its_check_solved_and_ends_where_a_fre
 
 
 def test_the_fits_solver_tolerances_give_the_answers_of_a_tight_solver(demo_day):
-    # the fit's own solver stops at heads to 0.1 mm (FIT_TOLERANCES); Newton's quadratic
-    # convergence leaves the returned heads far closer than that. Reference: the same fit of the
+    # the fit's own solver stops on an energy residual of 1e-6 m (FIT_TOLERANCES), which leaves
+    # the returned heads within a few 1e-6 m of the solution. Reference: the same fit of the
     # demo town (every phase: fit, the refit without its gross error, interval checks,
     # leave-one-out) with a solver at heads to 1e-8 m (100 times the default's accuracy), flows
     # to 1e-9 and mass to 1e-10 of the demand (10 and 100 times); tighter, SuperLU's rounding
