@@ -221,6 +221,13 @@ def _read_feature(file, row, feature, scale, tables, geometry, problems, outside
 
 
 # --- writing -------------------------------------------------------------------------------------
+#
+# Each kind of feature is built as a table (``_Table``): its geometries and its properties by column.
+# ``network_features`` turns the tables into dicts; ``write_network_geojson`` writes the same text
+# json.dumps writes for each of those dicts (``separators=(",", ":")``, ASCII), but encodes a column
+# at a time (``_texts``) and joins pre-formatted strings: a third of the time on the 7,938-pipe grid
+# (benchmarks/README.md, "C4"); tests/network/test_geojson_text.py holds it to json.dumps byte for
+# byte.
 
 def _clean(value):
     """A JSON-safe scalar: NaN becomes null, numpy scalars become Python ones."""
@@ -235,7 +242,152 @@ def _clean(value):
 
 def _column(values) -> list:
     """A column as JSON-safe Python values (NaN -> null)."""
-    return [_clean(v) for v in np.asarray(values).tolist()]
+    array = np.asarray(values)
+    if array.dtype.kind == "f":  # the common case, without a call per value: the same values
+        out = array.astype(float).tolist()
+        for i in np.flatnonzero(~np.isfinite(array)).tolist():
+            out[i] = None
+        return out
+    return [_clean(v) for v in array.tolist()]
+
+
+_encode_string = json.encoder.encode_basestring_ascii  # what json.dumps uses (ensure_ascii)
+_compact = json.JSONEncoder(separators=(",", ":"))
+
+
+def _text(value) -> str:
+    """One value as json.dumps(value, separators=(",", ":")) writes it: the C encoder's order of
+    checks (None, True, False, str, int, float; then lists, dicts) and its repr of numbers."""
+    if value is None:
+        return "null"
+    if value is True:
+        return "true"
+    if value is False:
+        return "false"
+    if isinstance(value, str):
+        return _encode_string(value)
+    if isinstance(value, int):
+        return int.__repr__(value)
+    if isinstance(value, float) and math.isfinite(value):
+        return float.__repr__(value)
+    return _compact.encode(value)  # lists, dicts, NaN, and what json refuses (its own error)
+
+
+def _texts(values: list) -> list[str]:
+    """``_text`` of every value of a column; a column of floats or of text in one pass."""
+    kinds = set(map(type, values))
+    if kinds <= {float, type(None)} and all(math.isfinite(v) for v in values if v is not None):
+        return _float_texts(values)
+    if kinds <= {str}:
+        return list(map(_encode_string, values))
+    return list(map(_text, values))
+
+
+def _float_texts(values) -> list[str]:
+    """``float.__repr__`` of each value, "null" for None or a value that is not finite; each
+    distinct value (by its bits: -0.0 is not 0.0) formatted once (a column repeats many)."""
+    bits, inverse = np.unique(np.array(values, dtype=float).view(np.int64), return_inverse=True)
+    texts = [float.__repr__(v) if math.isfinite(v) else "null" for v in bits.view(float).tolist()]
+    return list(map(texts.__getitem__, inverse.ravel().tolist()))
+
+
+class _Nodes:
+    """Every node's map coordinates (lists of floats) and, made once for all the tables that
+    draw from them, the text ``[x,y]`` of each (None where one is not finite)."""
+
+    def __init__(self, x: list, y: list):
+        self.x, self.y, self._texts = x, y, None
+
+    def texts(self) -> list:
+        if self._texts is None:
+            self._texts = _pairs_text(self.x, self.y)
+        return self._texts
+
+
+def _pairs_text(x: list, y: list) -> list:
+    """``"[x,y]"`` for each pair of finite floats, None where either is not finite."""
+    tx, ty = _float_texts(x), _float_texts(y)
+    return [None if a == "null" or b == "null" else f"[{a},{b}]" for a, b in zip(tx, ty)]
+
+
+class _Geometry:
+    """The geometries of one table: Points at ``nodes`` (``_Nodes``) numbered ``at_node``, or
+    LineStrings straight from node ``at_node[k]`` to ``to_node[k]`` unless ``vertices[k]`` gives
+    link k's line; in map units. A feature with a coordinate that is not finite has no geometry
+    (null)."""
+
+    def __init__(self, kind: str, nodes: _Nodes, at_node: list, to_node=None, vertices=None):
+        self.kind, self.nodes, self.vertices = kind, nodes, vertices
+        self.at_node, self.to_node = at_node, to_node
+
+    def _kept(self, k: int):
+        return self.vertices[k] if self.vertices is not None and self.vertices[k] else None
+
+    def at(self, k: int):
+        """Feature k's geometry as a dict (None where a coordinate is not finite)."""
+        x, y, i = self.nodes.x, self.nodes.y, self.at_node[k]
+        if self.kind == "Point":
+            c = [x[i], y[i]]
+            flat = c
+        else:
+            j = self.to_node[k]
+            c = self._kept(k) or [[x[i], y[i]], [x[j], y[j]]]
+            flat = [a for pair in c for a in pair]
+        return {"type": self.kind, "coordinates": c} if all(map(math.isfinite, flat)) else None
+
+    def dicts(self) -> list:
+        return [self.at(k) for k in range(len(self.at_node))]
+
+    def texts(self) -> list[str]:
+        """``_text`` of each of ``dicts()``, made from the coordinates' texts."""
+        head = '{"type":"%s","coordinates":' % self.kind
+        pairs = self.nodes.texts()
+        if self.kind == "Point":
+            return ["null" if pairs[i] is None else head + pairs[i] + "}" for i in self.at_node]
+        out = []
+        for k, (i, j) in enumerate(zip(self.at_node, self.to_node)):
+            kept = self._kept(k)
+            if kept is None:
+                line = [pairs[i], pairs[j]]
+            elif all(len(v) == 2 for v in kept):
+                line = _pairs_text([v[0] for v in kept], [v[1] for v in kept])
+            else:  # vertices with more than x, y (no reader makes them): as json writes them
+                out.append(_text(self.at(k)))
+                continue
+            out.append("null" if None in line else head + "[" + ",".join(line) + "]}")
+        return out
+
+
+class _Table:
+    """One kind of feature: geometries and property columns (lists of JSON-safe values, in the
+    order written); a property named in ``optional`` is left out of a feature where it is None."""
+
+    def __init__(self, geometry: _Geometry, columns: dict, optional=()):
+        self.geometry, self.columns, self.optional = geometry, columns, tuple(optional)
+
+    def features(self) -> list[dict]:
+        props = _records(self.columns)
+        for p in props:
+            for key in [k for k in self.optional if p.get(k, 0) is None]:
+                del p[key]
+        return [_feature(g, p) for g, p in zip(self.geometry.dicts(), props)]
+
+    def texts(self) -> list[str]:
+        """Each feature as json.dumps(feature, separators=(",", ":")) writes it."""
+        cells = []
+        for name, values in self.columns.items():
+            key = _encode_string(name) + ":"
+            texts = _texts(values)
+            if name in self.optional:
+                cells.append(["" if v is None else key + t for v, t in zip(values, texts)])
+            else:
+                cells.append([key + t for t in texts])
+        if self.optional:
+            props = [",".join(filter(None, row)) for row in zip(*cells)]
+        else:
+            props = list(map(",".join, zip(*cells)))
+        return ['{"type":"Feature","geometry":' + g + ',"properties":{' + p + "}}"
+                for g, p in zip(self.geometry.texts(), props)]
 
 
 def _records(columns: dict) -> list[dict]:
@@ -244,61 +396,62 @@ def _records(columns: dict) -> list[dict]:
     return [dict(zip(names, row)) for row in zip(*(columns[n] for n in names))]
 
 
-def _points(network: Network, to_map) -> list:
-    x, y = to_map(network.x).tolist(), to_map(network.y).tolist()
-    return [{"type": "Point", "coordinates": [a, b]} if math.isfinite(a) and math.isfinite(b)
-            else None for a, b in zip(x, y)]
+def _line_geometry(nodes: _Nodes, frm, to, to_map, vertices=None) -> _Geometry:
+    """LineStrings from the kept vertices, else straight from node to node (null without x/y)."""
+    if vertices is not None:
+        vertices = [to_map(np.asarray(v, dtype=float)).tolist() if v else None for v in vertices]
+    return _Geometry("LineString", nodes, np.asarray(frm).tolist(), np.asarray(to).tolist(),
+                     vertices)
 
 
-def _lines(network: Network, frm, to, to_map, geometry=None) -> list:
-    """LineStrings from the kept vertices, else straight from node to node (None without x/y)."""
-    ends = np.stack([network.x[frm], network.y[frm], network.x[to], network.y[to]], axis=1)
-    ends = to_map(ends).tolist()
-    lines = []
-    for k, (x0, y0, x1, y1) in enumerate(ends):
-        if geometry is not None and geometry[k]:
-            coords = to_map(np.asarray(geometry[k], dtype=float)).tolist()
-        else:
-            coords = [[x0, y0], [x1, y1]]
-        ok = all(math.isfinite(c) for pair in coords for c in pair)
-        lines.append({"type": "LineString", "coordinates": coords} if ok else None)
-    return lines
-
-
-def network_features(network: Network, units: str = "us", length_unit: str | None = "ft") -> dict:
-    """The FeatureCollection of ``network`` as a dict (see ``write_network_geojson``)."""
+def _tables(network: Network, units: str, to_map) -> list[_Table]:
+    """Junctions, sources, pipes, pumps and valves, in the order written."""
     u = DISPLAY[units]
-    to_map = (lambda v: np.asarray(v, float)) if length_unit is None else \
-        (lambda v: from_si(np.asarray(v, float), "length", length_unit))
     nj, ids = network.n_junctions, network.node_ids.astype(str)
     elevation = from_si(network.elevation, "elevation", u["elevation"])
-    junctions = _records({
+    nodes = _Nodes(to_map(network.x).tolist(), to_map(network.y).tolist())
+    junctions = _Table(_Geometry("Point", nodes, list(range(nj))), {
         "id": ids[:nj].tolist(), "kind": ["junction"] * nj,
         f"elevation [{u['elevation']}]": _column(elevation[:nj]),
         f"demand [{u['flow']}]": _column(from_si(network.demand, "flow", u["flow"])),
         "hydrant": np.where(network.hydrant, "yes", "no").tolist(),
         "zone": network.zone[:nj].tolist()})
-    sources = _records({
+    floor, level_max = f"floor [{u['elevation']}]", f"level_max [{u['head']}]"
+    # a tank's floor and depth only where the network gives them
+    sources = _Table(_Geometry("Point", nodes, list(range(nj, len(ids)))), {
         "id": ids[nj:].tolist(), "kind": ["source"] * network.n_sources,
         "source_kind": network.source_kind.tolist(),
         f"head [{u['head']}]": _column(from_si(network.source_head, "head", u["head"])),
         f"elevation [{u['elevation']}]": _column(elevation[nj:]),
         "zone": network.zone[nj:].tolist(),
-        f"floor [{u['elevation']}]": _column(from_si(network.source_floor, "elevation",
-                                                     u["elevation"])),
-        f"level_max [{u['head']}]": _column(from_si(network.source_level_max, "head", u["head"]))})
-    for props in sources:  # a tank's floor and depth only where the network gives them
-        for key in [k for k, v in props.items() if k.startswith(("floor ", "level_max ")) and v is None]:
-            del props[key]
-    points = _points(network, to_map)
-    features = [_feature(g, p) for g, p in zip(points, junctions + sources)]
-    features += _pipe_features(network, units, to_map)
-    features += _pump_features(network, units, to_map)
-    features += _valve_features(network, units, to_map)
+        floor: _column(from_si(network.source_floor, "elevation", u["elevation"])),
+        level_max: _column(from_si(network.source_level_max, "head", u["head"]))},
+        optional=(floor, level_max))
+    tables = [junctions, sources, _pipe_table(network, units, nodes, to_map)]
+    if len(network.pumps):
+        tables.append(_pump_table(network, units, nodes, to_map))
+    if len(network.valves):
+        tables.append(_valve_table(network, units, nodes, to_map))
+    return tables
+
+
+def _header(network: Network, length_unit: str | None) -> dict:
     collection = {"type": "FeatureCollection", "name": network.name}
     if length_unit is not None:
         collection["length_unit"] = length_unit
-    collection["features"] = features
+    return collection
+
+
+def _to_map(length_unit: str | None):
+    return (lambda v: np.asarray(v, float)) if length_unit is None else \
+        (lambda v: from_si(np.asarray(v, float), "length", length_unit))
+
+
+def network_features(network: Network, units: str = "us", length_unit: str | None = "ft") -> dict:
+    """The FeatureCollection of ``network`` as a dict (see ``write_network_geojson``)."""
+    collection = _header(network, length_unit)
+    collection["features"] = [f for table in _tables(network, units, _to_map(length_unit))
+                              for f in table.features()]
     return collection
 
 
@@ -306,12 +459,12 @@ def _feature(geometry, props) -> dict:
     return {"type": "Feature", "geometry": geometry, "properties": props}
 
 
-def _pipe_features(network: Network, units: str, to_map) -> list[dict]:
+def _pipe_table(network: Network, units: str, nodes: _Nodes, to_map) -> _Table:
     u = DISPLAY[units]
     ids = network.node_ids.astype(str)
     words = np.array(["open", "closed", "check"], dtype=object)  # indexed by PipeStatus code
     rh_unit = "mm" if units == "si" else "in"
-    props = _records({
+    columns = {
         "id": network.pipe_ids.astype(str).tolist(), "kind": ["pipe"] * network.n_pipes,
         "from": ids[network.pipe_from].tolist(), "to": ids[network.pipe_to].tolist(),
         f"length [{u['length']}]": _column(from_si(network.length, "length", u["length"])),
@@ -321,16 +474,14 @@ def _pipe_features(network: Network, units: str, to_map) -> list[dict]:
         "material": network.material.tolist(), "installed": _column(network.installed),
         "status": words[network.status].tolist(), "minor_loss": _column(network.minor_loss),
         f"roughness_height [{rh_unit}]": _column(from_si(network.roughness_height, "length",
-                                                         rh_unit))})
-    lines = _lines(network, network.pipe_from, network.pipe_to, to_map, network.pipe_geometry)
-    return [_feature(g, p) for g, p in zip(lines, props)]
+                                                         rh_unit))}
+    return _Table(_line_geometry(nodes, network.pipe_from, network.pipe_to, to_map,
+                                 network.pipe_geometry), columns)
 
 
-def _pump_features(network: Network, units: str, to_map) -> list[dict]:
+def _pump_table(network: Network, units: str, nodes: _Nodes, to_map) -> _Table:
     """Pumps as three points of their curve (``pump_curve.curve_points``)."""
     u, pumps = DISPLAY[units], network.pumps
-    if len(pumps) == 0:
-        return []
     ids = network.node_ids.astype(str)
     columns = {"id": pumps.ids.astype(str).tolist(), "kind": ["pump"] * len(pumps),
                "from": ids[pumps.from_node].tolist(), "to": ids[pumps.to_node].tolist()}
@@ -339,20 +490,17 @@ def _pump_features(network: Network, units: str, to_map) -> list[dict]:
         columns[f"head_{i} [{u['head']}]"] = _column(from_si(h, "head", u["head"]))
         columns[f"flow_{i} [{u['flow']}]"] = _column(from_si(q, "flow", u["flow"]))
     columns["speed"] = _column(pumps.speed)
-    lines = _lines(network, pumps.from_node, pumps.to_node, to_map)
-    return [_feature(g, p) for g, p in zip(lines, _records(columns))]
+    return _Table(_line_geometry(nodes, pumps.from_node, pumps.to_node, to_map), columns)
 
 
-def _valve_features(network: Network, units: str, to_map) -> list[dict]:
+def _valve_table(network: Network, units: str, nodes: _Nodes, to_map) -> _Table:
     """Valves with the columns of ``valves.csv`` (``tables.valve_columns``), straight lines."""
-    if len(network.valves) == 0:
-        return []
     given = {name: np.asarray(values) for name, values in valve_columns(network, units).items()}
     columns = {"id": given["id"].tolist(), "kind": ["valve"] * len(network.valves)}
     columns.update({name: _column(values) if values.dtype.kind == "f" else values.tolist()
                     for name, values in given.items() if name != "id"})
-    lines = _lines(network, network.valves.from_node, network.valves.to_node, to_map)
-    return [_feature(g, p) for g, p in zip(lines, _records(columns))]
+    return _Table(_line_geometry(nodes, network.valves.from_node, network.valves.to_node,
+                                 to_map), columns)
 
 
 def write_network_geojson(network: Network, path, units: str = "us",
@@ -363,10 +511,10 @@ def write_network_geojson(network: Network, path, units: str = "us",
     (``Network.x/y`` and pipe vertices) are written in ``length_unit`` with a top-level
     ``"length_unit"`` member; pass ``None`` for a network read as longitude/latitude, whose
     coordinates are written as they are. Every pipe carries its ``length`` property, so a read back
-    gives the same lengths whatever the geometry.
+    gives the same lengths whatever the geometry. One feature a line (small files, readable
+    diffs), each as json.dumps(feature, separators=(",", ":")) writes ``network_features``' own.
     """
-    collection = network_features(network, units, length_unit)
-    features = collection.pop("features")
-    head = json.dumps(collection)[:-1]  # one feature a line: small files, readable diffs
-    body = ",\n".join(json.dumps(f, separators=(",", ":")) for f in features)
+    head = json.dumps(_header(network, length_unit))[:-1]
+    body = ",\n".join(text for table in _tables(network, units, _to_map(length_unit))
+                      for text in table.texts())
     return fileio.write_text(path, f'{head}, "features": [\n{body}\n]}}\n')
