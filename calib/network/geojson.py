@@ -222,7 +222,8 @@ def _read_feature(file, row, feature, scale, tables, geometry, problems, outside
 
 # --- writing -------------------------------------------------------------------------------------
 #
-# Each kind of feature is built as a table (``_Table``): its geometries and its properties by column.
+# Each kind of feature is built as a table (``_Table``): its geometries and its properties by
+# column.
 # ``network_features`` turns the tables into dicts; ``write_network_geojson`` writes the same text
 # json.dumps writes for each of those dicts (``separators=(",", ":")``, ASCII), but encodes a column
 # at a time (``_texts``) and joins pre-formatted strings: a third of the time on the 7,938-pipe grid

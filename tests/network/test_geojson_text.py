@@ -29,7 +29,8 @@ def reference_text(network, units="us", length_unit="ft") -> str:
 def assert_same_text(network, tmp_path, units="us", length_unit="ft"):
     path = write_network_geojson(network, tmp_path / "n.geojson", units=units,
                                  length_unit=length_unit)
-    written, expected = path.read_text(encoding="utf-8"), reference_text(network, units, length_unit)
+    written = path.read_text(encoding="utf-8")
+    expected = reference_text(network, units, length_unit)
     if written != expected:  # the first line that differs, for the message
         pairs = zip(written.splitlines(), expected.splitlines())
         line = next((w, e) for w, e in pairs if w != e) if written.count("\n") == \
