@@ -141,18 +141,40 @@ def csv_text(columns, float_format: str = "%.6g") -> str:
             raise ValueError(f"column '{name}' has {len(arr)} values, the first {n}")
         kind = arr.dtype.kind
         if kind == "f":
-            cells.append(["" if v != v else float_format % v for v in arr.tolist()])
+            cells.append(_float_cells(arr, float_format))
         elif kind in "biu":
             cells.append([str(v) for v in arr.tolist()])
         else:
             source = values if isinstance(values, list) else arr.tolist()
-            cells.append(["" if v is None or (isinstance(v, float) and v != v)
-                          else str(safe_cell(v)) for v in source])
+            cells.append(_text_cells(source))
     buf = io.StringIO()
     writer = csv.writer(buf, lineterminator="\n")  # pandas' dialect: excel, minimal quoting
     writer.writerow([str(name) for name, _ in pairs])
     writer.writerows(zip(*cells))
     return buf.getvalue()
+
+
+def _float_cells(arr, float_format: str) -> list[str]:
+    """``float_format % v`` of each value, NaN blank; each distinct value (by its bits: -0.0 is
+    not 0.0) formatted once: an export's columns repeat a few values (a group's C on each of its
+    pipes)."""
+    import numpy as np
+
+    bits, inverse = np.unique(np.ascontiguousarray(arr, dtype=float).view(np.int64),
+                              return_inverse=True)
+    texts = ["" if v != v else float_format % v for v in bits.view(float).tolist()]
+    return list(map(texts.__getitem__, inverse.ravel().tolist()))
+
+
+def _text_cells(source: list) -> list[str]:
+    """Text cells, None and NaN blank, neutralized by ``safe_cell``; a column of text alone (each
+    value its own cell text) made once per distinct value."""
+    def cell(v):
+        return "" if v is None or (isinstance(v, float) and v != v) else str(safe_cell(v))
+    if set(map(type, source)) <= {str, type(None)}:
+        memo = {v: cell(v) for v in set(source)}
+        return list(map(memo.__getitem__, source))
+    return [cell(v) for v in source]
 
 
 def _scalar(value) -> bool:

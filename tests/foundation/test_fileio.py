@@ -103,6 +103,35 @@ def test_csv_text_is_the_bytes_pandas_to_csv_writes():
     assert fileio.csv_text(empty) == pd.DataFrame(empty).to_csv(index=False, lineterminator="\n")
 
 
+def test_csv_text_of_repeated_values_is_the_bytes_pandas_to_csv_writes():
+    # reference: pandas' DataFrame.to_csv, as above; csv_text formats each distinct value once,
+    # so repeats, -0.0 beside 0.0 (different text: "-0" and "0") and NaNs with other payloads
+    # must each still come out as pandas writes them
+    import io
+    import struct
+
+    import numpy as np
+    import pandas as pd
+
+    from calib import fileio
+
+    other_nan = struct.unpack("<d", struct.pack("<Q", 0x7FF8000000000123))[0]
+    floats = np.array([64.44, 0.0, -0.0, np.nan, 64.44, other_nan, -0.0, 1 / 3, 0.0, 64.44])
+    assert floats.view(np.int64)[3] != floats.view(np.int64)[5]  # two NaN bit patterns
+    columns = {"c": floats, "c32": floats.astype(np.float32),
+               "group": ["G1", "G2", "G1", "=G1", None, "G2", "G1", "", "=G1", "G1"],
+               "source": np.array(["calibrated", "model"] * 5, dtype=object)}
+    frame = pd.DataFrame(columns)
+    for col in frame.columns:  # what write_csv does before to_csv
+        if frame[col].dtype == object or pd.api.types.is_string_dtype(frame[col]):
+            frame[col] = frame[col].map(fileio.safe_cell)
+    buf = io.StringIO()
+    frame.to_csv(buf, index=False, float_format="%.6g", lineterminator="\n")
+    text = fileio.csv_text(columns)
+    assert text == buf.getvalue()
+    assert text.splitlines()[3].startswith("-0,") and "'=G1" in text
+
+
 def test_csv_text_refuses_columns_of_different_lengths():
     import numpy as np
     import pytest
