@@ -190,8 +190,17 @@ def _curves_layout(n_panels: int, ticks: int = 7):
 _CURVE_COLUMNS = 4
 
 
-def _curve_panel(ax, panel, fu: str, pu: str) -> None:
-    """One test's hydrant curve on ``ax`` (``None``: an empty slot)."""
+def _outer(k: int, n_panels: int) -> tuple[bool, bool]:
+    """(x label, y label) of slot ``k`` of ``n_panels``: the axis titles on the outer panels only
+    (the bottom slot of each column, the left column), as small multiples are labelled: every
+    panel's axes measure the same quantities in the same units. One label per panel cost a fifth
+    of the figure's drawing (24 long texts of the 12 panels' 150)."""
+    return k + _CURVE_COLUMNS >= n_panels, k % _CURVE_COLUMNS == 0
+
+
+def _curve_panel(ax, panel, fu: str, pu: str, xlabel: bool = True, ylabel: bool = True) -> None:
+    """One test's hydrant curve on ``ax`` (``None``: an empty slot); with its axis titles where
+    ``xlabel``, ``ylabel`` (``_outer``)."""
     if panel is None:
         ax.set_axis_off()
         return
@@ -217,8 +226,10 @@ def _curve_panel(ax, panel, fu: str, pu: str) -> None:
     ax.set_xlim(left=0.0)
     ax.set_xticks(_flow_ticks(panel["flow"][-1]))
     ax.tick_params(labelsize=7)
-    ax.set_xlabel(f"total test flow [{fu}], N^1.85 scale", fontsize=7)
-    ax.set_ylabel(f"pressure at gauge [{pu}]", fontsize=7)
+    if xlabel:
+        ax.set_xlabel(f"total test flow [{fu}], N^1.85 scale", fontsize=7)
+    if ylabel:
+        ax.set_ylabel(f"pressure at gauge [{pu}]", fontsize=7)
 
 
 def _curves_rest(fig, axes, n_panels: int) -> None:
@@ -231,7 +242,7 @@ def _curves_rest(fig, axes, n_panels: int) -> None:
 
 def _hydrant_curves(d, fig, axes):
     for k, panel in enumerate(d["panels"]):
-        _curve_panel(axes.flat[k], panel, d["fu"], d["pu"])
+        _curve_panel(axes.flat[k], panel, d["fu"], d["pu"], *_outer(k, len(d["panels"])))
     _curves_rest(fig, axes, len(d["panels"]))
     return _png(fig)
 
@@ -259,7 +270,7 @@ class CurvesInProgress:
         while self.rendered in self.given:
             panel, fu, pu = self.given[self.rendered]
             ax = self.axes.flat[self.rendered]
-            _curve_panel(ax, panel, fu, pu)
+            _curve_panel(ax, panel, fu, pu, *_outer(self.rendered, self.n))
             self._render(ax)
             self.rendered += 1
 
@@ -286,7 +297,7 @@ class CurvesInProgress:
                 for k in range(self.rendered)):
             return None
         for k in range(self.rendered, self.n):
-            _curve_panel(self.axes.flat[k], panels[k], d["fu"], d["pu"])
+            _curve_panel(self.axes.flat[k], panels[k], d["fu"], d["pu"], *_outer(k, self.n))
         _curves_rest(self.fig, self.axes, self.n)
         order = self.fig._get_draw_artists(self._canvas())
         if order[:self.rendered] != list(self.axes.flat[:self.rendered]):

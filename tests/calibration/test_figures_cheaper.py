@@ -61,7 +61,7 @@ def test_a_matplotlibrc_savefig_setting_is_left_to_savefig(monkeypatch):
     assert ours != figures.draw("observed vs simulated", data)  # tight differs from the default
 
 
-def _panel_one_scatter_per_reading(ax, panel, fu, pu):
+def _panel_one_scatter_per_reading(ax, panel, fu, pu, xlabel=True, ylabel=True):
     """``figures._curve_panel`` as it was: one ``scatter`` call per reading."""
     if panel is None:
         ax.set_axis_off()
@@ -76,8 +76,10 @@ def _panel_one_scatter_per_reading(ax, panel, fu, pu):
     ax.set_xlim(left=0.0)
     ax.set_xticks(figures._flow_ticks(panel["flow"][-1]))
     ax.tick_params(labelsize=7)
-    ax.set_xlabel(f"total test flow [{fu}], N^1.85 scale", fontsize=7)
-    ax.set_ylabel(f"pressure at gauge [{pu}]", fontsize=7)
+    if xlabel:
+        ax.set_xlabel(f"total test flow [{fu}], N^1.85 scale", fontsize=7)
+    if ylabel:
+        ax.set_ylabel(f"pressure at gauge [{pu}]", fontsize=7)
 
 
 def test_curve_markers_in_runs_draw_what_one_scatter_per_reading_draws(monkeypatch):
@@ -92,3 +94,21 @@ def test_curve_markers_in_runs_draw_what_one_scatter_per_reading_draws(monkeypat
     ours = figures.draw("hydrant curves", data)
     monkeypatch.setattr(figures, "_curve_panel", _panel_one_scatter_per_reading)
     assert ours == figures.draw("hydrant curves", data)
+
+
+@pytest.mark.parametrize("n_panels", [12, 7, 3])
+def test_curve_axis_titles_on_the_outer_panels_only(n_panels):
+    # small multiples: the x title under the bottom panel of each column, the y title beside
+    # each row's first panel; the others without (their axes measure the same in the same units)
+    q = np.array([0.0, 300.0, 1000.0, 1600.0])
+    panel = dict(flow=q, pressure=80.0 - 4e-6 * q ** 1.85, readings=[(0.0, 80.0, False)],
+                 tested=1000.0, title="T1: gauge J1, 1000 gpm flowed")
+    fig, axes = figures._curves_layout(n_panels)
+    figures._hydrant_curves(dict(panels=[panel] * n_panels, fu="gpm", pu="psi"), fig, axes)
+    cols = figures._CURVE_COLUMNS
+    for k in range(n_panels):
+        ax = axes.flat[k]
+        below = k + cols < n_panels  # another panel under it in its column
+        assert ax.get_xlabel() == ("" if below else "total test flow [gpm], N^1.85 scale"), k
+        assert ax.get_ylabel() == ("pressure at gauge [psi]" if k % cols == 0 else ""), k
+    assert sum(bool(ax.get_xlabel()) for ax in axes.flat) == min(cols, n_panels)
