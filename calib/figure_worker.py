@@ -35,6 +35,26 @@ def _cores() -> int:
         return os.cpu_count() or 1
 
 
+def same_data(a, b) -> bool:
+    """True when two figures' data are equal: dicts, lists and tuples item by item, numpy arrays
+    by shape and values (NaN equal to NaN), anything else by ``==``."""
+    if isinstance(a, dict) or isinstance(b, dict):
+        return (isinstance(a, dict) and isinstance(b, dict) and a.keys() == b.keys()
+                and all(same_data(a[k], b[k]) for k in a))
+    if isinstance(a, (list, tuple)) or isinstance(b, (list, tuple)):
+        return (type(a) is type(b) and len(a) == len(b)
+                and all(same_data(u, v) for u, v in zip(a, b)))
+    if hasattr(a, "shape") or hasattr(b, "shape"):  # numpy arrays (numpy is loaded by then)
+        import numpy as np
+        a, b = np.asarray(a), np.asarray(b)
+        if a.shape != b.shape or a.dtype.kind != b.dtype.kind:
+            return False
+        return bool(np.array_equal(a, b, equal_nan=a.dtype.kind in "fc"))
+    if isinstance(a, float) and isinstance(b, float) and a != a and b != b:
+        return True  # both NaN
+    return type(a) is type(b) and a == b
+
+
 class FigureWorker:
     """A Python process that draws figures while this one goes on: ``layout`` each figure as soon
     as its shape is known, ``submit`` its data as soon as that is known, ``result(name)`` when the
@@ -46,6 +66,10 @@ class FigureWorker:
         self._lanes = lanes  # [(requests file, answers file)], the first the process's stdin/stdout
         self._done: dict[str, tuple[bool, str]] = {}
         self._sent: dict[str, dict] = {}
+        # draws asked for and answered per figure: a figure submitted again with other data is
+        # waited for until its last draw is answered (a lane answers in the order it is asked)
+        self._asked: dict[str, int] = {}
+        self._answered: dict[str, int] = {}
         self._gone = [False] * len(lanes)
         self._cond = threading.Condition()
         for i, (_, answers) in enumerate(lanes):
@@ -92,6 +116,7 @@ class FigureWorker:
                 break
             with self._cond:
                 self._done[name] = (ok, value)
+                self._answered[name] = self._answered.get(name, 0) + 1
                 self._cond.notify_all()
         answers.close()
         with self._cond:
@@ -117,14 +142,23 @@ class FigureWorker:
         self._send(name, ("part", name, part))
 
     def submit(self, name: str, data: dict) -> None:
+        """Have figure ``name`` drawn from ``data``; the same data submitted again is not drawn
+        again (``same_data``: e.g. the readings' figures, submitted as soon as the fit knows them
+        and again with the report's other figures)."""
+        if name in self._sent and same_data(self._sent[name], data):
+            return
         self._sent[name] = data
+        with self._cond:
+            self._asked[name] = self._asked.get(name, 0) + 1
         self._send(name, ("draw", name, data))
 
     def result(self, name: str) -> str:
         lane = self._lane(name)
         with self._cond:
-            self._cond.wait_for(lambda: name in self._done or self._gone[lane])
-            ok, value = self._done.get(name, (False, ""))
+            self._cond.wait_for(lambda: self._answered.get(name, 0) >= self._asked.get(name, 0)
+                                or self._gone[lane])
+            ok, value = (self._done.get(name, (False, ""))
+                         if self._answered.get(name, 0) >= self._asked.get(name, 0) else (False, ""))
         if ok:
             return value
         from calib.calibration.figures import draw
@@ -134,7 +168,8 @@ class FigureWorker:
         """End the worker: at once when a figure is still wanted (the command failed), else when
         its lanes have read the end of their input."""
         with self._cond:
-            waiting = any(name not in self._done for name in self._sent) or not self._sent
+            waiting = any(self._answered.get(name, 0) < n for name, n in self._asked.items()) \
+                or not self._sent
         for requests, _ in self._lanes:
             try:
                 requests.close()

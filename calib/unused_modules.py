@@ -19,10 +19,14 @@ from __future__ import annotations
 import importlib.util
 import sys
 
-#: Submodules no command calls: the two a star-import in scipy loads (see above), and
+#: Submodules no command calls: the two a star-import in scipy loads (see above),
 #: scipy.spatial, which scipy.optimize's package import loads for its global optimizer shgo
-#: (``from scipy import spatial``; 0.03 s: rotations, k-d trees, qhull).
-UNUSED = ("numpy.f2py", "numpy.testing", "scipy.spatial")
+#: (``from scipy import spatial``; 0.03 s: rotations, k-d trees, qhull), and the compiled part of
+#: scipy.linalg.interpolative, which linprog's redundancy removal imports (``interp_decomp``,
+#: never called by ``least_squares``) and which imports scipy.fft: 0.07-0.08 s of the 0.8-0.9 s
+#: that ``import scipy.optimize, scipy.sparse.linalg, scipy.special`` took here (CPU, medians of
+#: 9 fresh interpreters, benchmarks/README.md "A4"). An extension module defers like any other.
+UNUSED = ("numpy.f2py", "numpy.testing", "scipy.spatial", "scipy.linalg._decomp_interpolative")
 
 
 class _Deferring:

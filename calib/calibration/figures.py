@@ -45,8 +45,30 @@ def _flow_ticks(q_max: float, most: int = 4) -> np.ndarray:
 
 
 def _png(fig) -> str:
+    """The figure as a base64 PNG at 100 dpi, what ``fig.savefig(buf, format="png", dpi=100)``
+    writes, in one draw. With a layout engine (constrained layout) savefig draws twice: once with
+    drawing disabled to run the layout, then for the pixels; here the layout is run alone and the
+    figure drawn once (the same bytes: tests/calibration/test_figures_cheaper.py), a tenth less."""
+    import matplotlib as mpl
+
     buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=100)  # one draw: the layout is made during it
+    engine = fig.get_layout_engine()
+    rc = mpl.rcParams
+    if (engine is None or fig.dpi != 100 or rc["savefig.bbox"] is not None
+            or rc["savefig.transparent"] or "auto" != rc["savefig.facecolor"]
+            or "auto" != rc["savefig.edgecolor"]):  # a matplotlibrc's savefig settings: savefig
+        fig.savefig(buf, format="png", dpi=100)
+        return base64.b64encode(buf.getvalue()).decode("ascii")
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    canvas = FigureCanvasAgg(fig)
+    canvas._is_saving = True  # as in savefig
+    canvas.get_renderer()  # the layout measures text on it
+    engine.execute(fig)
+    fig.set_layout_engine("none")  # laid out: savefig turns it off for its drawing pass too
+    canvas.draw()
+    mpl.image.imsave(buf, canvas.buffer_rgba(), format="png", origin="upper",
+                     dpi=fig.dpi)  # what savefig's print_png does after its draw
     return base64.b64encode(buf.getvalue()).decode("ascii")
 
 
@@ -168,15 +190,35 @@ def _curves_layout(n_panels: int, ticks: int = 7):
 _CURVE_COLUMNS = 4
 
 
-def _curve_panel(ax, panel, fu: str, pu: str) -> None:
-    """One test's hydrant curve on ``ax`` (``None``: an empty slot)."""
+def _outer(k: int, n_panels: int) -> tuple[bool, bool]:
+    """(x label, y label) of slot ``k`` of ``n_panels``: the axis titles on the outer panels only
+    (the bottom slot of each column, the left column), as small multiples are labelled: every
+    panel's axes measure the same quantities in the same units. One label per panel cost a fifth
+    of the figure's drawing (24 long texts of the 12 panels' 150)."""
+    return k + _CURVE_COLUMNS >= n_panels, k % _CURVE_COLUMNS == 0
+
+
+def _curve_panel(ax, panel, fu: str, pu: str, xlabel: bool = True, ylabel: bool = True) -> None:
+    """One test's hydrant curve on ``ax`` (``None``: an empty slot); with its axis titles where
+    ``xlabel``, ``ylabel`` (``_outer``)."""
     if panel is None:
         ax.set_axis_off()
         return
     ax.plot(panel["flow"], panel["pressure"], color="tab:blue")
-    for q_obs, p_obs, flagged in panel["readings"]:
-        ax.scatter([q_obs], [p_obs], color="black" if flagged else "tab:orange",
-                   marker="x" if flagged else "o", zorder=3)
+    # one collection per run of readings alike (flagged or not), in the readings' order: the
+    # markers are drawn in the same order as one collection per reading, at half the artists
+    readings = panel["readings"]
+    start = 0
+    while start < len(readings):
+        flagged = readings[start][2]
+        end = start + 1
+        while end < len(readings) and readings[end][2] == flagged:
+            end += 1
+        run = readings[start:end]
+        ax.scatter([r[0] for r in run], [r[1] for r in run],
+                   color="black" if flagged else "tab:orange", marker="x" if flagged else "o",
+                   zorder=3)
+        start = end
     ax.axvline(panel["tested"], color="#bbb", lw=0.8, ls=":")
     _title(ax, panel["title"], fontsize=8)
     # The trade's N^1.85 axis (NFPA 291): a supply curve is close to a straight line on it.
@@ -184,8 +226,10 @@ def _curve_panel(ax, panel, fu: str, pu: str) -> None:
     ax.set_xlim(left=0.0)
     ax.set_xticks(_flow_ticks(panel["flow"][-1]))
     ax.tick_params(labelsize=7)
-    ax.set_xlabel(f"total test flow [{fu}], N^1.85 scale", fontsize=7)
-    ax.set_ylabel(f"pressure at gauge [{pu}]", fontsize=7)
+    if xlabel:
+        ax.set_xlabel(f"total test flow [{fu}], N^1.85 scale", fontsize=7)
+    if ylabel:
+        ax.set_ylabel(f"pressure at gauge [{pu}]", fontsize=7)
 
 
 def _curves_rest(fig, axes, n_panels: int) -> None:
@@ -198,7 +242,7 @@ def _curves_rest(fig, axes, n_panels: int) -> None:
 
 def _hydrant_curves(d, fig, axes):
     for k, panel in enumerate(d["panels"]):
-        _curve_panel(axes.flat[k], panel, d["fu"], d["pu"])
+        _curve_panel(axes.flat[k], panel, d["fu"], d["pu"], *_outer(k, len(d["panels"])))
     _curves_rest(fig, axes, len(d["panels"]))
     return _png(fig)
 
@@ -226,7 +270,7 @@ class CurvesInProgress:
         while self.rendered in self.given:
             panel, fu, pu = self.given[self.rendered]
             ax = self.axes.flat[self.rendered]
-            _curve_panel(ax, panel, fu, pu)
+            _curve_panel(ax, panel, fu, pu, *_outer(self.rendered, self.n))
             self._render(ax)
             self.rendered += 1
 
@@ -253,7 +297,7 @@ class CurvesInProgress:
                 for k in range(self.rendered)):
             return None
         for k in range(self.rendered, self.n):
-            _curve_panel(self.axes.flat[k], panels[k], d["fu"], d["pu"])
+            _curve_panel(self.axes.flat[k], panels[k], d["fu"], d["pu"], *_outer(k, self.n))
         _curves_rest(self.fig, self.axes, self.n)
         order = self.fig._get_draw_artists(self._canvas())
         if order[:self.rendered] != list(self.axes.flat[:self.rendered]):

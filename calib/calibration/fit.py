@@ -169,12 +169,26 @@ def _test_year(tests) -> float:
     return float(np.median(years)) if years else float(_dt.date.today().year)
 
 
+@dataclass
+class FitReadings:
+    """The readings' part of a fit, final before its interval checks (``fit``'s ``on_readings``):
+    what the report's observed-against-simulated and residual figures show. The same names and
+    values as in the ``FitResult`` (``threshold``: its ``options["threshold"]``)."""
+
+    tests: object
+    simulated: np.ndarray  # per reading: simulated gauge pressure [Pa]
+    z: np.ndarray  # per reading: standardized residual, observed minus simulated [-]
+    flag: list  # per reading: why it is suspect, or ""
+    threshold: float  # the flag's cut-off on |z| [-]
+
+
 @closing_pools  # the snapshots' worker processes (``tasks.SnapshotPool``) end with the fit
 def fit(network, tests, group_by: str | None = None, grouping: Grouping | None = None,
         prior="handbook", c_bounds=(40.0, 160.0), loss: str = "linear", demand_factor: bool = False,
         source_offsets: bool = False, threshold: float | None = None, refit: bool = True,
         influence: bool = True, solver=None, progress=None, year: float | None = None,
-        max_nfev: int = 60, flag_level: float = _flags.FLAG_LEVEL, on_result=None) -> FitResult:
+        max_nfev: int = 60, flag_level: float = _flags.FLAG_LEVEL, on_result=None,
+        on_readings=None) -> FitResult:
     """Fit group C-factors (and optional demand factors, source grade offsets) to a ``TestSet``.
 
     ``prior``: ``"handbook"`` (``priors.group_prior``), ``"none"``/None, or a ``GroupPrior``.
@@ -187,7 +201,9 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
     a detail after a colon where the phase repeats (``"leave-one-out: T04 J316"``).
     ``on_result(result)`` is called with the ``FitResult`` before the leave-one-out refits, which then
     only add their notes to ``result.influence`` (and their solves to ``n_solves``): what needs the
-    rest, such as the report's figures, can start then.
+    rest, such as the report's figures, can start then. ``on_readings(readings)`` is called earlier
+    still, once with a ``FitReadings`` as soon as the simulated readings, standardized residuals and
+    flags are final: before the interval checks, which change none of them.
     """
     if loss not in LOSSES:
         raise InputError(f"unknown loss '{loss}'", field="--loss", expected=", ".join(LOSSES))
@@ -288,34 +304,52 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
         prob.recall(est.x, at_new)
         z_used, cook_used = _diagnostics(est, prob)
 
-    # intervals that can be trusted: profile likelihood where the linearized one cannot stand
     # the snapshots' solutions at the result, as ``estimate`` left them
     at_result = prob.solve(est.x)
+    # every reading (left-out ones too) at the final parameters: the problem of all readings
+    full = make(np.ones(n, dtype=bool), x0=est.x)
+
+    def simulate():
+        """Simulated values, standardized residuals and flags of every reading at ``est.x``; none
+        of them depends on the intervals (the interval checks change no ``est.x``, ``s2`` or
+        ``used``)."""
+        count["stage"] = "simulate every reading"
+        h_sim = full.simulated_head(est.x)
+        results = full.solve(est.x)
+        simulated = units.head_to_pressure(h_sim - tests.elevation - tests.gauge_height)
+        # shown as observed minus simulated; for left-out readings it is the prediction error
+        z = (tests.hgl - h_sim) / (tests.sigma_head * np.sqrt(est.s2))
+        z[est.used] = -z_used
+        cut = cut_for(est)
+        for i in np.flatnonzero(gross):
+            flag[i] = (f"standardized residual {z_with[i]:+.1f} beyond +/-{cut_with[i]:.2f} "
+                       f"({z[i]:+.1f} against the refit); left out")
+        # a reading that survives the refit but is still beyond the cut-off
+        for i in np.flatnonzero(est.used & (np.abs(z) > cut)):
+            flag[i] = f"standardized residual {z[i]:+.1f} beyond +/-{cut:.2f}"
+        if on_readings is not None:
+            on_readings(FitReadings(tests=tests, simulated=simulated, z=z, flag=list(flag),
+                                    threshold=cut))
+        return results, simulated, z, cut
+
+    # Before the interval checks where the problem of all readings shares the fit's kept solutions
+    # (the same snapshots): it reads the solutions at ``est.x`` and solves nothing, so the checks
+    # start from the same state. Otherwise (a test with every reading left out) it solves, and
+    # does that after the checks, as it always did, from the warm starts they leave.
+    early = full._recent is prob._recent
+    if early:
+        results, simulated, z, cut = simulate()
+    # intervals that can be trusted: profile likelihood where the linearized one cannot stand
     count["stage"] = "interval checks (profile likelihood where needed)"
     est = refine_intervals(prob, est, prob.c_cols)
     prob.recall(est.x, at_result)  # the interval checks solved elsewhere since
-
-    # simulated values for every reading (left-out ones too) at the final parameters
-    count["stage"] = "simulate every reading"
-    full = make(np.ones(n, dtype=bool), x0=est.x)
-    h_sim = full.simulated_head(est.x)
-    results = full.solve(est.x)
-    simulated = units.head_to_pressure(h_sim - tests.elevation - tests.gauge_height)
-    # shown as observed minus simulated; for left-out readings it is the prediction error
-    z = (tests.hgl - h_sim) / (tests.sigma_head * np.sqrt(est.s2))
-    z[est.used] = -z_used
+    if not early:
+        results, simulated, z, cut = simulate()
     cook = np.full(n, np.nan)
     cook[est.used] = cook_used
     p = prob.n_params
-    cut = cut_for(est)
     rule = (f"fixed cut-off +/-{cut:g}" if threshold is not None else
             f"Bonferroni cut-off +/-{cut:.2f} over {n_family} readings at family-wise level {flag_level:g}")
-    for i in np.flatnonzero(gross):
-        flag[i] = (f"standardized residual {z_with[i]:+.1f} beyond +/-{cut_with[i]:.2f} "
-                   f"({z[i]:+.1f} against the refit); left out")
-    # a reading that survives the refit but is still beyond the cut-off
-    for i in np.flatnonzero(est.used & (np.abs(z) > cut)):
-        flag[i] = f"standardized residual {z[i]:+.1f} beyond +/-{cut:.2f}"
     findings: list[str] = []
 
     # influence: Cook's distance, then leave-one-out refits of the strongest candidates

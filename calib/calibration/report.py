@@ -166,21 +166,39 @@ def _curve(solver, rough, flows, heads, gauge, known=(), start=None):
     return scales, np.array([p[s] for s in scales])
 
 
-def _figure_data(result, system: str) -> dict[str, dict]:
-    """The data of the three figures of the fit itself (no solves), in display units."""
-    t = result.tests
+def _readings_data(tests, simulated, z, flag, threshold, system: str) -> dict[str, dict]:
+    """The data of the two figures of the readings (observed against simulated, residuals by
+    test), in display units: from a ``FitResult`` or, before its interval checks, from the fit's
+    ``FitReadings`` (the same values)."""
+    t = tests
     pu = units.display_unit("pressure", system)
     conv = lambda v: units.from_si(np.asarray(v, float), "pressure", pu)  # noqa: E731
-    flagged = np.array([bool(f) for f in result.flag])
+    flagged = np.array([bool(f) for f in flag])
     kind = np.asarray(t.kind).astype(str)
     out = {}
     out["observed vs simulated"] = dict(
-        sim=conv(result.simulated), obs=conv(t.pressure), kind=kind, flagged=flagged, pu=pu,
+        sim=conv(simulated), obs=conv(t.pressure), kind=kind, flagged=flagged, pu=pu,
         band=units.from_si(2.0 * units.PSI, "pressure", pu))  # AWWA ECAC (1999) +/-2 psi, as in the criteria
     out["residuals by test"] = dict(
-        x=t.test + np.where(t.kind == "static", -0.12, 0.12), z=np.asarray(result.z, float),
-        kind=kind, flagged=flagged, threshold=result.options.get("threshold", 3.0),
-        test_ids=[str(i) for i in t.test_ids])
+        x=t.test + np.where(t.kind == "static", -0.12, 0.12), z=np.asarray(z, float),
+        kind=kind, flagged=flagged, threshold=threshold, test_ids=[str(i) for i in t.test_ids])
+    return out
+
+
+def submit_readings(worker, readings, system: str = "us") -> None:
+    """Hand the readings' two figures to ``worker`` (a ``figure_worker.FigureWorker``) as soon as
+    the fit knows them (``fit``'s ``on_readings``, a ``FitReadings``): drawn there during the
+    interval checks. ``prepare`` submits the same data again, which the worker does not draw twice."""
+    r = readings
+    for name, data in _readings_data(r.tests, r.simulated, r.z, r.flag, r.threshold,
+                                     system).items():
+        worker.submit(name, data)
+
+
+def _figure_data(result, system: str) -> dict[str, dict]:
+    """The data of the three figures of the fit itself (no solves), in display units."""
+    out = _readings_data(result.tests, result.simulated, result.z, result.flag,
+                         result.options.get("threshold", 3.0), system)
     c_lo, c_hi = result.options.get("c_bounds", (40.0, 160.0))
     out["C by group"] = dict(
         c=np.asarray(result.c, float), low=np.where(np.isfinite(result.c_low), result.c_low, c_lo),

@@ -316,12 +316,18 @@ def _run(args, out, c_bounds, sigma, worker) -> int:
             bar.stage("report data (hydrant curves, fire flow)")
         report_parts.append(prepare(result, args.units, worker=worker))
 
+    def readings_figures(readings):
+        # the readings' figures are final before the interval checks: drawn beside them
+        from calib.calibration.report import submit_readings
+        submit_readings(worker, readings, args.units)
+
     try:
         result = fit(network, tests, group_by=args.group_by, prior=args.prior, c_bounds=c_bounds,
                      loss=args.loss, demand_factor=args.demand_factor,
                      source_offsets=args.source_offsets, threshold=args.threshold,
                      flag_level=args.flag_level, progress=bar,
-                     on_result=None if args.no_report else prepare_report)
+                     on_result=None if args.no_report else prepare_report,
+                     on_readings=None if worker is None else readings_figures)
     finally:
         if bar is not None:
             bar.close()

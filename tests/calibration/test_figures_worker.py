@@ -180,3 +180,40 @@ def test_the_worker_renders_curve_panels_as_they_come():
     finally:
         worker.close()
     assert there == figures.draw("hydrant curves", data)
+
+
+def test_the_same_data_submitted_again_is_drawn_once_and_other_data_is_drawn_again():
+    # the readings' figures go to the worker as soon as the fit knows them and again with the
+    # report's other figures: the same data is not drawn twice; changed data is, and the page
+    # gets the PNG of the last data (not an earlier answer still on its way)
+    from calib.figure_worker import same_data
+    data = _data()
+    again = {k: (v.copy() if isinstance(v, np.ndarray) else v) for k, v in data.items()}
+    changed = dict(data, obs=data["obs"] + 1.0)
+    assert same_data(data, again) and not same_data(data, changed)
+    worker = FigureWorker.start()
+    try:
+        worker.submit("observed vs simulated", data)
+        worker.submit("observed vs simulated", again)
+        assert worker._asked["observed vs simulated"] == 1
+        first = worker.result("observed vs simulated")
+        worker.submit("observed vs simulated", changed)
+        assert worker._asked["observed vs simulated"] == 2
+        last = worker.result("observed vs simulated")
+        assert worker._answered["observed vs simulated"] == 2
+    finally:
+        worker.close()
+    assert first == figures.draw("observed vs simulated", data)
+    assert last == figures.draw("observed vs simulated", changed) != first
+
+
+def test_same_data_compares_arrays_lists_and_nan():
+    from calib.figure_worker import same_data
+    nan = float("nan")
+    assert same_data(dict(a=np.array([1.0, nan]), b=[("x", 1.0)], c=nan),
+                     dict(a=np.array([1.0, nan]), b=[("x", 1.0)], c=nan))
+    assert not same_data(dict(a=np.array([1.0, 2.0])), dict(a=np.array([1.0, 2.0, 3.0])))
+    assert not same_data(dict(a=np.array([1, 2])), dict(a=np.array(["1", "2"])))
+    assert not same_data(dict(b=[1.0, 2.0]), dict(b=(1.0, 2.0)))
+    assert not same_data(dict(a=1.0), dict(b=1.0))
+    assert not same_data(None, dict())

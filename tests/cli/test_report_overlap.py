@@ -1,6 +1,7 @@
 """``calib fit`` hands the report's figures to its worker before the fit's leave-one-out refits, so
 that they are drawn beside those refits (issue 14): every figure is submitted inside the fit call,
-before its first leave-one-out stage, and the page written is complete."""
+before its first leave-one-out stage, the readings' two before the interval checks, each drawn
+once, and the page written is complete."""
 
 from pathlib import Path
 
@@ -32,17 +33,32 @@ def test_figures_go_to_the_worker_before_the_leave_one_out_refits(tmp_path, caps
         events.append(("submit", name))
         return real_submit(self, name, data)
 
+    real_send = FigureWorker._send
+    drawn = []  # the draws asked of the worker
+
+    def send(self, name, message):
+        if message[0] == "draw":
+            drawn.append(name)
+        return real_send(self, name, message)
+
     monkeypatch.setattr(calibration, "fit", fit)  # the command looks it up here when it runs
     monkeypatch.setattr(FigureWorker, "submit", submit)
+    monkeypatch.setattr(FigureWorker, "_send", send)
     code = main(["fit", str(DEMO / "network"), str(DEMO / "tests"), "--out", str(tmp_path)])
     err = capsys.readouterr().err
     assert code == 0, err
     submitted = [i for i, (kind, _) in enumerate(events) if kind == "submit"]
-    assert sorted(events[i][1] for i in submitted) == sorted(FIGURES)  # each figure once
+    assert {events[i][1] for i in submitted} == set(FIGURES)
+    assert sorted(drawn) == sorted(FIGURES)  # each figure drawn once
     loo = [i for i, (kind, name) in enumerate(events)
            if kind == "stage" and name.startswith("leave-one-out")]
     assert loo, events  # the demo fit does refit readings one at a time
     assert max(submitted) < min(loo)
+    checks = [i for i, (kind, name) in enumerate(events)
+              if kind == "stage" and name.startswith("interval checks")]
+    assert checks, events  # the demo fit checks intervals
+    for name in ("observed vs simulated", "residuals by test"):  # final before the checks
+        assert events.index(("submit", name)) < min(checks)
     # the phase line of the report's own work, without fit solves
     assert "report data (hydrant curves, fire flow): " in err
     page = (tmp_path / "report.html").read_text()

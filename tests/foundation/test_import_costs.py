@@ -89,15 +89,18 @@ def test_the_demo_fit_command_loads_neither_pandas_nor_the_fortran_wrapper_gener
         "    code = main(['fit', 'field_samples/tallowmere/network', 'field_samples/tallowmere/tests',\n"
         "                 '--out', %r, '--quiet'])\n"
         "kinds = {m: type(sys.modules[m]).__name__\n"
-        "         for m in ('numpy.f2py', 'numpy.testing', 'scipy.spatial')\n"
+        "         for m in ('numpy.f2py', 'numpy.testing', 'scipy.spatial',\n"
+        "                   'scipy.linalg._decomp_interpolative')\n"
         "         if m in sys.modules}\n"
         "print(json.dumps(dict(code=code, kinds=kinds, scipy='scipy.optimize' in sys.modules,\n"
+        "      fft='scipy.fft' in sys.modules,\n"
         "      pandas='pandas' in sys.modules, charset='charset_normalizer' in sys.modules)))"
         % (str(tmp_path / "out"),))
     assert out["code"] == 0 and out["scipy"]
     assert (tmp_path / "out" / "report.html").is_file() and (tmp_path / "out" / "groups.csv").is_file()
     assert out["pandas"] is False
     assert out["charset"] is False
+    assert out["fft"] is False  # loaded only by the compiled part of scipy.linalg.interpolative
     # each is absent (a scipy that no longer loads it) or made and never run
     assert all(kind == "_LazyModule" for kind in out["kinds"].values()), out["kinds"]
 
@@ -122,3 +125,23 @@ def test_a_deferred_module_works_when_used():
     assert out["f2py"] == "numpy.f2py" and out["run"] is True
     # scipy.spatial loads when first used: the point (3, 4) is the nearer to (2.9, 3.8)
     assert out["spatial"] == "_LazyModule" and out["near"] == 1
+
+
+def test_a_deferred_extension_module_works_when_used():
+    # scipy.linalg.interpolative's compiled part (deferred: it loads scipy.fft) is made, not run,
+    # by scipy.optimize's import, and works when called: an interpolative decomposition of a
+    # matrix of rank 2 finds rank 2 (closed form: two independent columns, the rest their sums)
+    out = _loaded(
+        "import json, sys\n"
+        "import numpy as np\n"
+        "from calib import unused_modules\n"
+        "unused_modules.defer()\n"
+        "import scipy.optimize\n"
+        "lazy = type(sys.modules['scipy.linalg._decomp_interpolative']).__name__\n"
+        "fft = 'scipy.fft' in sys.modules\n"
+        "from scipy.linalg.interpolative import interp_decomp\n"
+        "a = np.array([[1.0, 0.0], [0.0, 1.0], [2.0, 3.0], [1.0, 5.0]])\n"
+        "k, idx, proj = interp_decomp(np.hstack([a, a @ [[1.0], [1.0]]]), 1e-10)\n"
+        "print(json.dumps(dict(lazy=lazy, fft=fft, k=int(k), after='scipy.fft' in sys.modules)))")
+    assert out["lazy"] == "_LazyModule" and out["fft"] is False
+    assert out["k"] == 2 and out["after"] is True
