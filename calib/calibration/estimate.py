@@ -29,7 +29,9 @@
   instead of a refit (one evaluation of the snapshots a point; ``_profile_point``). A point within
   1 % of the cut-off's root ends the search at its Newton step, unevaluated (its error is second
   order; ``PROFILE_NEWTON_TOL``); an end at a C bound whose start already lies below the cut-off
-  is decided from its residuals, without the point's Jacobian.
+  is decided from its residuals, without the point's Jacobian. The columns' searches run as tasks
+  on the machine's cores (``tasks.on_problem``); a column whose linearized interval fails on its
+  face (no evaluation needed) has its two ends as two tasks.
 """
 
 from __future__ import annotations
