@@ -118,3 +118,68 @@ def test_an_end_one_newton_step_away_is_taken_without_evaluating_that_step(small
             assert abs(end - ref) <= 2e-3 * half, (i, end, ref)
             checked += 1
     assert checked >= 3
+
+
+def test_a_column_ruled_out_on_its_face_runs_its_ends_as_two_tasks(open_high, monkeypatch):
+    # group 0's linearized interval reaches past the C bound 160 (no evaluation needed to rule it
+    # out): its two ends are two tasks, each from the problem's state, with the ends a search of
+    # that end alone finds (bit for bit); the low end against the long way's profile (scipy
+    # least_squares refits to 1e-12): its root within the search's tolerance of the cut-off's
+    import copy
+
+    from calib.calibration import estimate as estimate_module
+    from calib.calibration.tasks import on_problem
+    net, grp, solver, tests, prob, est = open_high
+    assert estimate_module._linear_ruled_out(prob, est, 0)
+    seen = []
+
+    def spy(problem, task, items, *args, **kwargs):
+        seen.append(list(items))
+        return on_problem(problem, task, items, *args, **kwargs)
+
+    monkeypatch.setattr(estimate_module, "on_problem", spy)
+    ours = refine_intervals(prob, copy.deepcopy(est), prob.c_cols)
+    assert (0, -1.0) in seen[0] and (0, 1.0) in seen[0] and (0, None) not in seen[0]
+    cut = est.t ** 2
+    alone = on_problem(prob, lambda end: _profile_end(prob, est, 0, end, cut), [-1.0, 1.0])
+    assert (ours.low[0], ours.low_open[0]) == alone[0][:2]
+    assert (ours.high[0], ours.high_open[0]) == alone[1][:2] == (160.0, True)
+    rise = _tight_rise(net, grp, solver, tests, est, 0, ours.low[0])
+    assert abs(np.sqrt(rise) / np.sqrt(cut) - 1.0) <= 2 * PROFILE_ROOT_TOL
+
+
+def test_a_leave_one_out_refit_ends_at_a_small_gauss_newton_step(small, monkeypatch):
+    # against scipy.optimize.least_squares from the fit's x at 1e-12 (the long way): each C within
+    # twice the step tolerance (the step taken is within it; what it leaves is about rho/(1-rho)
+    # of it, rho the ratio of successive steps); against the refit that evaluates until
+    # least_squares' own tolerance stops it (LOO_STEP_TOL 0: as before), fewer solves
+    import importlib
+    fitmod = importlib.import_module("calib.calibration.fit")  # the module; the package exports fit()
+    net, grp, plan, solver = small
+    tests = synthetic_tests(net, np.array([70.0, 100.0, 130.0])[grp.index], plan, seed=11)
+    n = tests.n_readings
+    used = np.ones(n, dtype=bool)
+    prob = CalibrationProblem(net, tests, grp, solver=solver)
+    est = estimate(prob, prob.x0, "linear", 2.0, 60, used)
+    h = np.sum(est.jac[:n] * (est.jac[:n] @ est.cov), axis=1)  # leverages
+    tol = fitmod.LOO_STEP_TOL * np.minimum(est.sd, 1.0)
+    ended_early = 0
+    for row in np.argsort(-h)[:3]:
+        mask = used.copy()
+        mask[row] = False
+
+        def refit(step_tol):
+            monkeypatch.setattr(fitmod, "LOO_STEP_TOL", step_tol)
+            p = CalibrationProblem(net, tests.subset(mask), grp, solver=solver)
+            return fitmod.loo_refit(est, p, int(row)), p.n_solves
+
+        (fast, n_fast), (plain, n_plain) = refit(0.02), refit(0.0)
+        ref_prob = CalibrationProblem(net, tests.subset(mask), grp, solver=solver)
+        ref = optimize.least_squares(ref_prob.residuals, est.x, jac=ref_prob.jacobian,
+                                     bounds=(ref_prob.lower, ref_prob.upper), method="trf",
+                                     x_scale="jac", max_nfev=100, xtol=1e-12, ftol=1e-12, gtol=1e-12)
+        assert fast.status > 0 and ref.status > 0
+        assert np.all(np.abs(fast.x - ref.x) <= 2.0 * tol)
+        assert n_fast <= n_plain
+        ended_early += fast.status == 3 and n_fast < n_plain
+    assert ended_early >= 1
