@@ -74,12 +74,6 @@ def _solve(solver, result, S, rhs, w, extra, iso):
             np.array_equal(kept.w, w) and np.array_equal(kept.extra, extra):
         return kept.factor(rhs)
     pat = solver.pattern
-    rtol = getattr(solver, "sensitivity_rtol", None)
-    if rtol is not None and kept is not None and not kept.stale and \
-            np.array_equal(kept.fixed, iso):
-        dH = _by_cg(pat, S, kept.factor, rhs, rtol, getattr(solver, "sensitivity_cg_max", 0))
-        if dH is not None:
-            return dH
     if keeps:
         spare = solver._spare()
         factor = spare.factor if spare is not None and spare.factor.refactor(S) else None
@@ -87,21 +81,6 @@ def _solve(solver, result, S, rhs, w, extra, iso):
         solver.keep_factor(result, factor, w.copy(), extra.copy(), iso.copy())
         return factor(rhs)
     return pat.factorize_scratch(S)(rhs)
-
-
-def _by_cg(pat, S, factor, rhs, rtol, max_iterations):
-    """``S^-1 rhs`` column by column by conjugate gradients preconditioned with ``factor`` (the
-    one the solve ended with: a few links' weights away from S), each column to a largest
-    residual of ``rtol`` x its largest entry (``SchurPattern.pcg``); None when a column needs
-    more than ``max_iterations`` steps (the caller then factors S)."""
-    out = np.empty_like(rhs)
-    for j in range(rhs.shape[1]):
-        b = rhs[:, j]
-        x = pat.pcg(S, factor, b, rtol * float(np.abs(b).max(initial=0.0)), max_iterations)
-        if x is None:
-            return None
-        out[:, j] = x
-    return out
 
 
 def dheadloss_droughness(solver, result: SolveResult) -> np.ndarray:

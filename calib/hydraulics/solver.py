@@ -122,8 +122,7 @@ class NetworkSolver:
                  max_status_changes: int = 8, viscosity: float = hl.NU_WATER_60F,
                  dense: bool = False, reuse_factor: bool = True, reuse_max_changed: int = 20,
                  cg_max_iterations: int = 25, update_ratio: float = 2.0,
-                 update_budget: float = 0.25, head_step: bool = True,
-                 sensitivity_rtol: float | None = None, sensitivity_cg_max: int = 25):
+                 update_budget: float = 0.25, head_step: bool = True):
         if headloss not in HEADLOSS_MODELS:
             raise InputError(f"unknown head-loss model '{headloss}'", field="headloss",
                              expected=" or ".join(HEADLOSS_MODELS))
@@ -149,8 +148,6 @@ class NetworkSolver:
         self._matrix = None  # S of the last iteration; its values are replaced each iteration
         self._rough_memo = None  # (roughness bytes, roughness, law coefficient) of the last solve
         self.reuse_max_changed, self.cg_max_iterations = reuse_max_changed, cg_max_iterations
-        self.sensitivity_rtol = None if sensitivity_rtol is None else float(sensitivity_rtol)
-        self.sensitivity_cg_max = int(sensitivity_cg_max)
         self.update_ratio, self.update_budget = float(update_ratio), float(update_budget)
         self.nj, self.np_, self.nu = net.n_junctions, net.n_pipes, len(net.pumps)
         self.nv = len(net.valves)  # valves: links after the pumps
