@@ -68,8 +68,8 @@ def _solve(solver, result, S, rhs, w, extra, iso):
     grid's fit, that factor is never close to S at the solution (the last Newton steps are solved
     by CG with an older factor: link weights 1-100 % away), and a CG step with the p columns costs
     a fifth of a factorization. The report's hydrant-curve slopes (one column each) the same
-    (benchmarks/README.md, C5): CG to 1e-10 of the right-hand side needs 14-22 steps there, about
-    a factorization's time; 56 of 87 factorizations saved, the curves' CPU unchanged."""
+    (benchmarks/README.md, C5): CG to 1e-10 of the right-hand side mostly needs 14-25 steps,
+    at 9-10 steps to a factorization's time; 56 of 87 factorizations saved, the CPU unchanged."""
     keeps = hasattr(solver, "kept_factor") and solver._keeps()
     kept = solver.kept_factor(result) if keeps else None
     if kept is not None and not kept.stale and np.array_equal(kept.fixed, iso) and \
