@@ -65,11 +65,22 @@ def test_atomic_write_over_an_existing_file_keeps_its_mode(tmp_path):
     assert stat.S_IMODE(target.stat().st_mode) == 0o640 and target.read_text() == "new\n"
 
 
+def _pandas_csv(columns):
+    """The reference text: pandas' DataFrame.to_csv of ``columns`` after what write_csv does first."""
+    import io
+
+    frame = pd.DataFrame(columns)
+    for col in frame.columns:
+        if frame[col].dtype == object or pd.api.types.is_string_dtype(frame[col]):
+            frame[col] = frame[col].map(fileio.safe_cell)
+    buf = io.StringIO()
+    frame.to_csv(buf, index=False, float_format="%.6g", lineterminator="\n")
+    return buf.getvalue()
+
+
 def test_csv_text_is_the_bytes_pandas_to_csv_writes():
     # reference: pandas' DataFrame.to_csv through write_csv's neutralizing, for every kind of
     # column the exports write and the edge cells of each (blank, inf, -0, long, quoted, formula)
-    import io
-
     import numpy as np
     import pandas as pd
 
@@ -90,14 +101,9 @@ def test_csv_text_is_the_bytes_pandas_to_csv_writes():
         "name, with comma": np.zeros(7),
         'name "quoted"': np.ones(7),
     }
-    frame = pd.DataFrame(columns)
-    for col in frame.columns:  # what write_csv does before to_csv
-        if frame[col].dtype == object or pd.api.types.is_string_dtype(frame[col]):
-            frame[col] = frame[col].map(fileio.safe_cell)
-    buf = io.StringIO()
-    frame.to_csv(buf, index=False, float_format="%.6g", lineterminator="\n")
-    assert fileio.csv_text(columns) == buf.getvalue()
-    assert fileio.csv_text(list(columns.items())) == buf.getvalue()  # as (name, values) pairs
+    reference = _pandas_csv(columns)
+    assert fileio.csv_text(columns) == reference
+    assert fileio.csv_text(list(columns.items())) == reference  # as (name, values) pairs
     # no rows: the header alone, as pandas writes it
     empty = {"a": np.array([], float), "b": []}
     assert fileio.csv_text(empty) == pd.DataFrame(empty).to_csv(index=False, lineterminator="\n")
@@ -107,11 +113,9 @@ def test_csv_text_of_repeated_values_is_the_bytes_pandas_to_csv_writes():
     # reference: pandas' DataFrame.to_csv, as above; csv_text formats each distinct value once,
     # so repeats, -0.0 beside 0.0 (different text: "-0" and "0") and NaNs with other payloads
     # must each still come out as pandas writes them
-    import io
     import struct
 
     import numpy as np
-    import pandas as pd
 
     from calib import fileio
 
@@ -121,14 +125,9 @@ def test_csv_text_of_repeated_values_is_the_bytes_pandas_to_csv_writes():
     columns = {"c": floats, "c32": floats.astype(np.float32),
                "group": ["G1", "G2", "G1", "=G1", None, "G2", "G1", "", "=G1", "G1"],
                "source": np.array(["calibrated", "model"] * 5, dtype=object)}
-    frame = pd.DataFrame(columns)
-    for col in frame.columns:  # what write_csv does before to_csv
-        if frame[col].dtype == object or pd.api.types.is_string_dtype(frame[col]):
-            frame[col] = frame[col].map(fileio.safe_cell)
-    buf = io.StringIO()
-    frame.to_csv(buf, index=False, float_format="%.6g", lineterminator="\n")
+    reference = _pandas_csv(columns)
     text = fileio.csv_text(columns)
-    assert text == buf.getvalue()
+    assert text == reference
     assert text.splitlines()[3].startswith("-0,") and "'=G1" in text
 
 
