@@ -66,3 +66,22 @@ def series_case():
     """Builder of the closed-form case of two pipes in series (``_series_case``), shared by the
     curve_fit cross-check (test_fit.py) and the profile-interval checks (test_intervals_scale.py)."""
     return _series_case
+
+
+@pytest.fixture
+def small_fitted(small):
+    """The ``small`` grid's tests (C 70/100/130, seed 11) linearized at its prior: what the
+    leave-one-out checks start from (test_after_fit_solves.py, test_speed_paths.py)."""
+    from calib.calibration.estimate import estimate
+    from calib.calibration.problem import CalibrationProblem
+    from calib.calibration.synthetic import synthetic_tests
+
+    net, grp, plan, solver = small
+    tests = synthetic_tests(net, np.array([70.0, 100.0, 130.0])[grp.index], plan, seed=11)
+    n = tests.n_readings
+    used = np.ones(n, dtype=bool)
+    prob = CalibrationProblem(net, tests, grp, solver=solver)
+    est = estimate(prob, prob.x0, "linear", 2.0, 60, used)
+    leverage = np.sum(est.jac[:n] * (est.jac[:n] @ est.cov), axis=1)
+    return SimpleNamespace(net=net, grp=grp, solver=solver, tests=tests, used=used, est=est,
+                           leverage=leverage)

@@ -148,20 +148,17 @@ def test_a_column_ruled_out_on_its_face_runs_its_ends_as_two_tasks(open_high, mo
     assert abs(np.sqrt(rise) / np.sqrt(cut) - 1.0) <= 2 * PROFILE_ROOT_TOL
 
 
-def test_a_leave_one_out_refit_ends_at_a_small_gauss_newton_step(small, monkeypatch):
+def test_a_leave_one_out_refit_ends_at_a_small_gauss_newton_step(small_fitted, monkeypatch):
     # against scipy.optimize.least_squares from the fit's x at 1e-12 (the long way): each C within
     # twice the step tolerance (the step taken is within it; what it leaves is about rho/(1-rho)
     # of it, rho the ratio of successive steps); against the refit that evaluates until
     # least_squares' own tolerance stops it (LOO_STEP_TOL 0: as before), fewer solves
     import importlib
     fitmod = importlib.import_module("calib.calibration.fit")  # the module; the package exports fit()
-    net, grp, plan, solver = small
-    tests = synthetic_tests(net, np.array([70.0, 100.0, 130.0])[grp.index], plan, seed=11)
-    n = tests.n_readings
-    used = np.ones(n, dtype=bool)
-    prob = CalibrationProblem(net, tests, grp, solver=solver)
-    est = estimate(prob, prob.x0, "linear", 2.0, 60, used)
-    h = np.sum(est.jac[:n] * (est.jac[:n] @ est.cov), axis=1)  # leverages
+    case = small_fitted
+    net, grp, solver, tests, used, est = (case.net, case.grp, case.solver, case.tests, case.used,
+                                          case.est)
+    h = case.leverage
     tol = fitmod.LOO_STEP_TOL * np.minimum(est.sd, 1.0)
     ended_early = 0
     for row in np.argsort(-h)[:3]:
@@ -173,7 +170,7 @@ def test_a_leave_one_out_refit_ends_at_a_small_gauss_newton_step(small, monkeypa
             p = CalibrationProblem(net, tests.subset(mask), grp, solver=solver)
             return fitmod.loo_refit(est, p, int(row)), p.n_solves
 
-        (fast, n_fast), (plain, n_plain) = refit(0.02), refit(0.0)
+        (fast, n_fast), (_plain, n_plain) = refit(0.02), refit(0.0)
         ref_prob = CalibrationProblem(net, tests.subset(mask), grp, solver=solver)
         ref = optimize.least_squares(ref_prob.residuals, est.x, jac=ref_prob.jacobian,
                                      bounds=(ref_prob.lower, ref_prob.upper), method="trf",

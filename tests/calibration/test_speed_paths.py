@@ -244,23 +244,18 @@ def test_extrapolated_start_takes_the_rest_of_steadily_shrinking_steps():
     assert _extrapolated_start(lin, np.array([1.0]), np.array([0.5]))[0] == 1.0
 
 
-def test_leave_one_out_refit_agrees_with_a_long_refit_from_the_fit(small):
+def test_leave_one_out_refit_agrees_with_a_long_refit_from_the_fit(small_fitted):
     # the fit's shortcut (one-step start, extrapolated) against the plain way: least_squares from
     # the fit's solution with tight tolerances and many evaluations (reference: scipy.optimize)
     from scipy import optimize
 
-    from calib.calibration.estimate import estimate
     from calib.calibration.fit import _loo_start, loo_refit
     from calib.calibration.problem import CalibrationProblem
-    from calib.calibration.synthetic import synthetic_tests
 
-    net, grp, plan, solver = small
-    tests = synthetic_tests(net, np.array([70.0, 100.0, 130.0])[grp.index], plan, seed=11)
-    n = tests.n_readings
-    used = np.ones(n, dtype=bool)
-    prob = CalibrationProblem(net, tests, grp, solver=solver)
-    est = estimate(prob, prob.x0, "linear", 2.0, 60, used)
-    h = np.sum(est.jac[:n] * (est.jac[:n] @ est.cov), axis=1)  # leverages
+    case = small_fitted
+    net, grp, solver, tests, used, est = (case.net, case.grp, case.solver, case.tests, case.used,
+                                          case.est)
+    h = case.leverage
     for row in np.argsort(-h)[:2]:
         mask = used.copy()
         mask[row] = False
