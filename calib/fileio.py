@@ -154,16 +154,21 @@ def csv_text(columns, float_format: str = "%.6g") -> str:
     return buf.getvalue()
 
 
-def _float_cells(arr, float_format: str) -> list[str]:
-    """``float_format % v`` of each value, NaN blank; each distinct value (by its bits: -0.0 is
-    not 0.0) formatted once: an export's columns repeat a few values (a group's C on each of its
-    pipes)."""
+def distinct_float_texts(values, text) -> list[str]:
+    """``text(v)`` of each float of ``values`` (None counts as NaN), called once per distinct value
+    (by its bits: -0.0 is not 0.0): an export's columns repeat a few values (a group's C on each of
+    its pipes, a node's coordinates at each pipe end)."""
     import numpy as np
 
-    bits, inverse = np.unique(np.ascontiguousarray(arr, dtype=float).view(np.int64),
+    bits, inverse = np.unique(np.ascontiguousarray(values, dtype=float).view(np.int64),
                               return_inverse=True)
-    texts = ["" if v != v else float_format % v for v in bits.view(float).tolist()]
+    texts = [text(v) for v in bits.view(float).tolist()]
     return list(map(texts.__getitem__, inverse.ravel().tolist()))
+
+
+def _float_cells(arr, float_format: str) -> list[str]:
+    """``float_format % v`` of each value, NaN blank (``distinct_float_texts``)."""
+    return distinct_float_texts(arr, lambda v: "" if v != v else float_format % v)
 
 
 def _text_cells(source: list) -> list[str]:

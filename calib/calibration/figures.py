@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import base64
 import io
+import itertools
 import pickle
 import sys
 
@@ -207,18 +208,11 @@ def _curve_panel(ax, panel, fu: str, pu: str, xlabel: bool = True, ylabel: bool 
     ax.plot(panel["flow"], panel["pressure"], color="tab:blue")
     # one collection per run of readings alike (flagged or not), in the readings' order: the
     # markers are drawn in the same order as one collection per reading, at half the artists
-    readings = panel["readings"]
-    start = 0
-    while start < len(readings):
-        flagged = readings[start][2]
-        end = start + 1
-        while end < len(readings) and readings[end][2] == flagged:
-            end += 1
-        run = readings[start:end]
+    for flagged, run in itertools.groupby(panel["readings"], key=lambda r: r[2]):
+        run = list(run)
         ax.scatter([r[0] for r in run], [r[1] for r in run],
                    color="black" if flagged else "tab:orange", marker="x" if flagged else "o",
                    zorder=3)
-        start = end
     ax.axvline(panel["tested"], color="#bbb", lw=0.8, ls=":")
     _title(ax, panel["title"], fontsize=8)
     # The trade's N^1.85 axis (NFPA 291): a supply curve is close to a straight line on it.

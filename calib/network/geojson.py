@@ -285,11 +285,10 @@ def _texts(values: list) -> list[str]:
 
 
 def _float_texts(values) -> list[str]:
-    """``float.__repr__`` of each value, "null" for None or a value that is not finite; each
-    distinct value (by its bits: -0.0 is not 0.0) formatted once (a column repeats many)."""
-    bits, inverse = np.unique(np.array(values, dtype=float).view(np.int64), return_inverse=True)
-    texts = [float.__repr__(v) if math.isfinite(v) else "null" for v in bits.view(float).tolist()]
-    return list(map(texts.__getitem__, inverse.ravel().tolist()))
+    """``float.__repr__`` of each value, "null" for None or a value that is not finite
+    (``fileio.distinct_float_texts``: each distinct value formatted once)."""
+    return fileio.distinct_float_texts(
+        values, lambda v: float.__repr__(v) if math.isfinite(v) else "null")
 
 
 class _Nodes:
