@@ -104,7 +104,10 @@ def test_curve_slope_is_the_derivative_of_the_gauge_pressure(grid, demo_day):
             cases.append((demo, flows, heads, int(tests.node[tests.test == k][0]), 1.0))
     checked = 0
     for network, flows, heads, gauge, s in cases:
-        tight = NetworkSolver(network, head_tol=1e-10, flow_tol=1e-12)
+        # flows to 1e-9 of the reference flow: with SuperLU (no CHOLMOD) the demo town's links
+        # at its reducing valves keep moving by about 1e-10 m3/s from round-off, so a tighter
+        # flow_tol never stops there; the central difference's error from that is ~1e-7 of fd
+        tight = NetworkSolver(network, head_tol=1e-10, flow_tol=1e-9)
 
         def at(v):
             return tight.solve(Snapshot(extra_demand={k: q * v for k, q in flows.items()},
