@@ -7,8 +7,8 @@ Backends:
   ``pip install "hydrant-calib[cholmod]"`` (needs SuiteSparse's headers: ``libsuitesparse-dev`` on
   Debian). The symbolic analysis (ordering, elimination tree, column counts) is made once per network
   and kept; each factorization is then numeric only, simplicial ``L D L^T`` (no BLAS needed), or
-  supernodal ``L L^T`` (dense blocks through BLAS) where CHOLMOD links an optimized BLAS and the
-  factorization is large (``SUPERNODAL_MIN_WORK``; ``supernodal_from``).
+  supernodal ``L L^T`` (dense blocks through BLAS) where the factorization is large
+  (``SUPERNODAL_MIN_WORK``; ``supernodal_from``), whichever BLAS CHOLMOD links.
 - ``"superlu"``: scipy's SuperLU in symmetric mode without pivoting on the pre-ordered matrix. Always
   there (also in the Android build); the fallback.
 
@@ -40,10 +40,17 @@ CHOLMOD_ORDERING = "metis"  # measured best over amd and nesdis from 10k pipes u
 MODE_ENV = "CALIB_CHOLMOD_MODE"
 CHOLMOD_MODES = ("auto", "simplicial", "supernodal")
 #: Work of a factorization (sum of squared column counts of L) from which CHOLMOD's supernodal
-#: factorization is used when its BLAS is an optimized one. Measured with Debian's OpenBLAS
-#: (serial) on the benchmark grids (benchmarks/README.md, B2): supernodal 2.0x / 1.6x slower at
-#: work 4.5e7 / 1.2e8 (50k / 100k pipes), 1.3-1.4x faster at 4.2e8 (200k pipes); with the
-#: reference BLAS it is slower at every size.
+#: factorization is used, whatever BLAS CHOLMOD links: a fixed rule, so that a network's results do
+#: not depend on timings made at run time. Measured on the benchmark grids (benchmarks/README.md,
+#: B2 and A6), supernodal over simplicial time of one factorization:
+#: - 2-core EPYC VM, 8 MB L3, reference BLAS: 0.96 / 0.72 / 0.50 at work 3.9e7 / 1.2e8 / 4.2e8
+#:   (50k / 100k / 200k pipes); whole cold solves 1.11 / 0.88 / 0.60;
+#: - the former machine, reference BLAS: 1.9 at 4.5e7, 1.19 at 4.2e8; with OpenBLAS (serial)
+#:   2.0 / 1.6 / 0.70 at 4.5e7 / 1.2e8 / 4.2e8.
+#: From 2e8 (between 100k and 200k pipes) one machine kind gains 2x where the other loses 19 %.
+#: CHOLMOD's own switch (supernodal where flops / nnz(L) >= 40, ``Common->supernodal_switch``;
+#: Chen, Davis, Hager and Rajamanickam 2008) would go supernodal from 20k pipes (flops / nnz(L)
+#: 55; 1.2x slower on the VM) and puts the 7,938-pipe calibration grid (39.9) on its edge.
 SUPERNODAL_MIN_WORK = 2e8
 _OPTIMIZED_BLAS = ("openblas", "mkl", "blis")
 
@@ -102,15 +109,15 @@ def optimized_in(paths) -> str | None:
 
 def supernodal_from(name: str | None = None) -> float:
     """Work of a factorization from which CHOLMOD factors supernodally: ``name``, else
-    ``$CALIB_CHOLMOD_MODE``, else ``auto``: ``SUPERNODAL_MIN_WORK`` when an optimized BLAS is
-    loaded (``optimized_blas``), else never (inf). ``supernodal`` forces it at every size (0; for
-    checks), ``simplicial`` never."""
+    ``$CALIB_CHOLMOD_MODE``, else ``auto``: ``SUPERNODAL_MIN_WORK``, whichever BLAS is loaded
+    (``optimized_blas`` only says which, for the benchmarks). ``supernodal`` forces it at every
+    size (0; for checks), ``simplicial`` never (inf)."""
     name = (name or os.environ.get(MODE_ENV) or "auto").strip().lower()
     if name not in CHOLMOD_MODES:
         raise InputError(f"unknown CHOLMOD mode '{name}'", field=MODE_ENV,
                          expected=", ".join(CHOLMOD_MODES))
     if name == "auto":
-        return SUPERNODAL_MIN_WORK if optimized_blas() is not None else np.inf
+        return SUPERNODAL_MIN_WORK
     return 0.0 if name == "supernodal" else np.inf
 
 
@@ -178,7 +185,7 @@ class CholmodFactorizer(Factorizer):
 
     The first factorization is simplicial (it gives the column counts); from the second on the
     factorizations are supernodal where the work is at least ``supernodal_from`` (``mode``; by
-    default ``SUPERNODAL_MIN_WORK`` with an optimized BLAS, else never): ``supernodal``. A
+    default ``SUPERNODAL_MIN_WORK``): ``supernodal``. A
     low-rank update turns a supernodal factor into a simplicial one (CHOLMOD's update works on
     ``L D L^T``)."""
 

@@ -179,10 +179,13 @@ def test_cholmod_mode_choice_names_the_setting(monkeypatch):
         factor.supernodal_from("multifrontal")
     assert factor.supernodal_from("simplicial") == np.inf
     assert factor.supernodal_from("supernodal") == 0.0
+    # a fixed work threshold whichever BLAS is loaded (results must not depend on the machine's
+    # timings): the same with the reference BLAS and with an optimized one
     monkeypatch.setattr(factor, "optimized_blas", lambda: None)
-    assert factor.supernodal_from("auto") == np.inf  # the reference BLAS: never supernodal
+    assert factor.supernodal_from("auto") == factor.SUPERNODAL_MIN_WORK
     monkeypatch.setattr(factor, "optimized_blas", lambda: "/usr/lib/openblas/libblas.so.3")
     assert factor.supernodal_from() == factor.SUPERNODAL_MIN_WORK
+    assert 0.0 < factor.SUPERNODAL_MIN_WORK < np.inf
     monkeypatch.setenv(factor.MODE_ENV, "simplicial")
     assert factor.supernodal_from() == np.inf
 
