@@ -227,6 +227,35 @@ def test_supernodal_factors_solve_and_update_like_dense_cholesky(monkeypatch):
 
 
 @cholmod
+@pytest.mark.parametrize("min_work", [0.0, 1e30])
+def test_a_first_supernodal_factorization_gives_the_simplicial_column_counts(monkeypatch,
+                                                                             min_work):
+    # reference: the column counts of the dense Cholesky factor of the same matrix
+    # (numpy.linalg.cholesky, LAPACK potrf: structural zeros stay exact zeros with random
+    # weights) and scipy.linalg.cho_solve. A network from SUPERNODAL_FIRST_JUNCTIONS junctions
+    # is factored supernodally at once, turned into L D L^T for its counts; the next
+    # factorizations are supernodal only where the work reaches SUPERNODAL_MIN_WORK
+    monkeypatch.setattr(factor, "SUPERNODAL_FIRST_JUNCTIONS", 0)
+    monkeypatch.setattr(factor, "SUPERNODAL_MIN_WORK", min_work)
+    net = random_looped(150, seed=17, n_sources=2)
+    pat, S = _schur(net, "cholmod")
+    dense_counts = (np.linalg.cholesky(S.toarray()) != 0).sum(axis=0)
+    b = np.random.default_rng(3).standard_normal(pat.n)
+    ref = scipy.linalg.cho_solve(scipy.linalg.cho_factor(S.toarray()), b)
+    fz = pat._factorizer
+    assert fz._first_supernodal
+    first = pat.factorize(S)
+    assert not first.solve_permuted.supernodal  # now L D L^T: it can take low-rank updates
+    assert fz.factor_work == float((dense_counts.astype(float) ** 2).sum())
+    assert fz.factor_nnz == int(dense_counts.sum())
+    second = pat.factorize(S)
+    assert second.solve_permuted.supernodal == (min_work == 0.0) == fz.supernodal
+    for F in (first, second):
+        np.testing.assert_allclose(F.solve_permuted(b), ref, rtol=1e-9,
+                                   atol=1e-12 * np.abs(ref).max())
+
+
+@cholmod
 def test_solver_with_supernodal_factors_gives_the_dense_answer(monkeypatch):
     # reference: the same Newton iteration with a dense Cholesky (scipy.linalg.cho_factor); the
     # reuse path (CG, low-rank updates of a supernodal factor) runs too
