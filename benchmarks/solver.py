@@ -168,7 +168,10 @@ def main(argv=None) -> int:
         from calib.hydraulics import factor
         blas = getattr(factor, "optimized_blas", lambda: None)() or "reference BLAS"
         start = getattr(factor, "supernodal_from", lambda: "never")()
-        backend += f" ({blas}; supernodal from work {start})"
+        start = f"{start:.3g}" if isinstance(start, float) else start
+        first = getattr(factor, "SUPERNODAL_FIRST_JUNCTIONS", None)  # main before session 22: none
+        first = "" if first is None else f", the first factorization from {first} junctions"
+        backend += f" ({blas}; supernodal from work {start}{first})"
     stamp = time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime())
     print(f"# {stamp}, {platform.processor() or platform.machine()}, {os.cpu_count()} cores, "
           f"Python {platform.python_version()}, load {os.getloadavg()[0]:.2f}, "

@@ -7,8 +7,8 @@ Backends:
   ``pip install "hydrant-calib[cholmod]"`` (needs SuiteSparse's headers: ``libsuitesparse-dev`` on
   Debian). The symbolic analysis (ordering, elimination tree, column counts) is made once per network
   and kept; each factorization is then numeric only, simplicial ``L D L^T`` (no BLAS needed), or
-  supernodal ``L L^T`` (dense blocks through BLAS) where CHOLMOD links an optimized BLAS and the
-  factorization is large (``SUPERNODAL_MIN_WORK``; ``supernodal_from``).
+  supernodal ``L L^T`` (dense blocks through BLAS) where the factorization is large
+  (``SUPERNODAL_MIN_WORK``; ``supernodal_from``), whichever BLAS CHOLMOD links.
 - ``"superlu"``: scipy's SuperLU in symmetric mode without pivoting on the pre-ordered matrix. Always
   there (also in the Android build); the fallback.
 
@@ -40,11 +40,26 @@ CHOLMOD_ORDERING = "metis"  # measured best over amd and nesdis from 10k pipes u
 MODE_ENV = "CALIB_CHOLMOD_MODE"
 CHOLMOD_MODES = ("auto", "simplicial", "supernodal")
 #: Work of a factorization (sum of squared column counts of L) from which CHOLMOD's supernodal
-#: factorization is used when its BLAS is an optimized one. Measured with Debian's OpenBLAS
-#: (serial) on the benchmark grids (benchmarks/README.md, B2): supernodal 2.0x / 1.6x slower at
-#: work 4.5e7 / 1.2e8 (50k / 100k pipes), 1.3-1.4x faster at 4.2e8 (200k pipes); with the
-#: reference BLAS it is slower at every size.
+#: factorization is used, whatever BLAS CHOLMOD links: a fixed rule, so that a network's results do
+#: not depend on timings made at run time. Measured on the benchmark grids (benchmarks/README.md,
+#: B2 and A6), supernodal over simplicial time of one factorization:
+#: - 2-core EPYC VM, 8 MB L3, reference BLAS: 0.96 / 0.72 / 0.50 at work 3.9e7 / 1.2e8 / 4.2e8
+#:   (50k / 100k / 200k pipes); whole cold solves 1.11 / 0.88 / 0.60;
+#: - the former machine, reference BLAS: 1.9 at 4.5e7, 1.19 at 4.2e8; with OpenBLAS (serial)
+#:   2.0 / 1.6 / 0.70 at 4.5e7 / 1.2e8 / 4.2e8.
+#: From 2e8 (between 100k and 200k pipes) one machine kind gains 2x where the other loses 19 %.
+#: CHOLMOD's own switch (supernodal where flops / nnz(L) >= 40, ``Common->supernodal_switch``;
+#: Chen, Davis, Hager and Rajamanickam 2008) would go supernodal from 20k pipes (flops / nnz(L)
+#: 55; 1.2x slower on the VM) and puts the 7,938-pipe calibration grid (39.9) on its edge.
 SUPERNODAL_MIN_WORK = 2e8
+#: From this many junctions the first factorization of a network, which gives the column counts
+#: of L and so the work the rule above needs, is supernodal too (then turned into ``L D L^T`` for
+#: the counts: the same counts as a simplicial one); it stays simplicial where the work turns out
+#: below ``SUPERNODAL_MIN_WORK``. The square grids' work is about 13 n^1.5 (n junctions), so 2e8
+#: is reached from about 60k junctions; sparser (real) networks need more. Measured on the 2-core
+#: EPYC VM at 200k pipes (100k junctions): the first factorization with its counts 0.79 s against
+#: 1.28 s simplicial (benchmarks/README.md, A6).
+SUPERNODAL_FIRST_JUNCTIONS = 50_000
 _OPTIMIZED_BLAS = ("openblas", "mkl", "blis")
 
 
@@ -102,15 +117,15 @@ def optimized_in(paths) -> str | None:
 
 def supernodal_from(name: str | None = None) -> float:
     """Work of a factorization from which CHOLMOD factors supernodally: ``name``, else
-    ``$CALIB_CHOLMOD_MODE``, else ``auto``: ``SUPERNODAL_MIN_WORK`` when an optimized BLAS is
-    loaded (``optimized_blas``), else never (inf). ``supernodal`` forces it at every size (0; for
-    checks), ``simplicial`` never."""
+    ``$CALIB_CHOLMOD_MODE``, else ``auto``: ``SUPERNODAL_MIN_WORK``, whichever BLAS is loaded
+    (``optimized_blas`` only says which, for the benchmarks). ``supernodal`` forces it at every
+    size (0; for checks), ``simplicial`` never (inf)."""
     name = (name or os.environ.get(MODE_ENV) or "auto").strip().lower()
     if name not in CHOLMOD_MODES:
         raise InputError(f"unknown CHOLMOD mode '{name}'", field=MODE_ENV,
                          expected=", ".join(CHOLMOD_MODES))
     if name == "auto":
-        return SUPERNODAL_MIN_WORK if optimized_blas() is not None else np.inf
+        return SUPERNODAL_MIN_WORK
     return 0.0 if name == "supernodal" else np.inf
 
 
@@ -176,9 +191,10 @@ class CholmodFactorizer(Factorizer):
     column to the root of the elimination tree, which a rank-one update visits (Davis and Hager
     (1999), "Modifying a sparse Cholesky factorization", SIAM J. Matrix Anal. Appl. 20(3)).
 
-    The first factorization is simplicial (it gives the column counts); from the second on the
+    The first factorization gives the column counts: simplicial, or supernodal turned into
+    ``L D L^T`` from ``SUPERNODAL_FIRST_JUNCTIONS`` junctions; from the second on the
     factorizations are supernodal where the work is at least ``supernodal_from`` (``mode``; by
-    default ``SUPERNODAL_MIN_WORK`` with an optimized BLAS, else never): ``supernodal``. A
+    default ``SUPERNODAL_MIN_WORK``): ``supernodal``. A
     low-rank update turns a supernodal factor into a simplicial one (CHOLMOD's update works on
     ``L D L^T``)."""
 
@@ -190,16 +206,23 @@ class CholmodFactorizer(Factorizer):
         self._not_pd = CholmodNotPositiveDefiniteError
         self._analyze = analyze
         self._template = template
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            # the pattern is already in the fill-reducing order (``ordering``): no new permutation
-            self._symbolic = analyze(template, mode="simplicial", ordering_method="natural")
         self._fallback = SuperLUFactorizer(template)
         self._supernodal_from = supernodal_from(mode)
+        #: the first factorization is supernodal (large networks where the mode allows it)
+        self._first_supernodal = bool(self.n >= SUPERNODAL_FIRST_JUNCTIONS
+                                      and np.isfinite(self._supernodal_from))
+        self._symbolic = self._analysis("supernodal" if self._first_supernodal else "simplicial")
         #: True once the factorizations are supernodal (set after the first one)
         self.supernodal = False
         self.update_cost: np.ndarray | None = None
         self.factor_work: float | None = None
+
+    def _analysis(self, mode: str):
+        """CHOLMOD's symbolic analysis of the template for ``mode``; the pattern is already in
+        the fill-reducing order (``ordering``): no new permutation."""
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            return self._analyze(self._template, mode=mode, ordering_method="natural")
 
     def factor(self, matrix: sp.csc_matrix):
         try:
@@ -210,26 +233,33 @@ class CholmodFactorizer(Factorizer):
             # a zero pivot (rounding in a badly scaled S): LU without pivoting, as before this
             # backend existed, still gives the step
             return self._fallback.factor(matrix)
-        if not self.supernodal and not np.all(f.D() > 0):
+        first = self.work_ratio is None
+        if not (self.supernodal or (first and self._first_supernodal)) and not np.all(f.D() > 0):
             # S is positive definite in exact arithmetic: a pivot <= 0 means rounding has made it
             # singular (e.g. a pipe of absurd diameter); said as SuperLU says an exact zero pivot.
             # (A supernodal L L^T stops at such a pivot itself: CholmodNotPositiveDefiniteError.)
             raise RuntimeError("matrix is numerically singular (a pivot of its L D L^T <= 0)")
-        solve = CholmodSolve(f, self, self.supernodal)
-        if self.work_ratio is None:
-            L = f.L_D()[0].tocsc()  # the simplicial factor is L D L^T (no square roots)
-            counts = np.diff(L.indptr)
-            self.work_ratio = self._ratio(counts, 2 * L.nnz, matrix.nnz)
-            self.factor_work = float((counts.astype(float) ** 2).sum())
-            self.factor_nnz = int(L.nnz)
-            self.update_cost = _path_sums(_etree(L), counts.astype(float))
-            if self.factor_work >= self._supernodal_from:
-                with warnings.catch_warnings():
-                    warnings.simplefilter("ignore")
-                    self._symbolic = self._analyze(self._template, mode="supernodal",
-                                                   ordering_method="natural")
-                self.supernodal = True
-        return solve
+        if not first:
+            return CholmodSolve(f, self, self.supernodal)
+        # L D L^T in one CSC matrix (D on the diagonal, no square roots); a supernodal L L^T is
+        # turned into it here, in place. Its explicit zeros (the supernodes' padding) are no
+        # entries of L: without them the counts are a simplicial factorization's. (``LD`` and
+        # not scikit-sparse's ``L_D``, which builds L anew through tril + identity as CSR: 0.43
+        # against 0.04 s at 200k pipes, the same counts.)
+        LD = f.LD()
+        LD.eliminate_zeros()
+        counts = np.diff(LD.indptr)
+        self.work_ratio = self._ratio(counts, 2 * LD.nnz, matrix.nnz)
+        self.factor_work = float((counts.astype(float) ** 2).sum())
+        self.factor_nnz = int(LD.nnz)
+        self.update_cost = _path_sums(_etree(LD), counts.astype(float))
+        if self.factor_work >= self._supernodal_from:
+            if not self._first_supernodal:
+                self._symbolic = self._analysis("supernodal")
+            self.supernodal = True
+        elif self._first_supernodal:
+            self._symbolic = self._analysis("simplicial")
+        return CholmodSolve(f, self, False)
 
 
 class CholmodSolve:
@@ -281,13 +311,16 @@ class CholmodSolve:
 
 
 def _etree(L: sp.csc_matrix) -> np.ndarray:
-    """Parent of each column in the elimination tree of a lower triangular factor (-1: a root):
-    the row of the first entry below the diagonal."""
+    """Parent of each column in the elimination tree of a lower triangular factor in CSC with its
+    diagonal stored (-1: a root): the row of the first entry below the diagonal, one
+    ``minimum.reduceat`` over the columns (every column holds its diagonal, so none is empty;
+    ``np.minimum.at`` took 0.37-0.52 s at 200k pipes, this 0.02 s)."""
     n = L.shape[0]
+    if n == 0:
+        return np.zeros(0, dtype=np.int64)
     rows, cols = L.indices, np.repeat(np.arange(n), np.diff(L.indptr))
-    below = rows > cols
-    parent = np.full(n, n, dtype=np.int64)
-    np.minimum.at(parent, cols[below], rows[below])
+    below = np.where(rows > cols, rows, n)
+    parent = np.minimum.reduceat(below, L.indptr[:-1]).astype(np.int64)
     parent[parent == n] = -1
     return parent
 

@@ -179,10 +179,13 @@ def test_cholmod_mode_choice_names_the_setting(monkeypatch):
         factor.supernodal_from("multifrontal")
     assert factor.supernodal_from("simplicial") == np.inf
     assert factor.supernodal_from("supernodal") == 0.0
+    # a fixed work threshold whichever BLAS is loaded (results must not depend on the machine's
+    # timings): the same with the reference BLAS and with an optimized one
     monkeypatch.setattr(factor, "optimized_blas", lambda: None)
-    assert factor.supernodal_from("auto") == np.inf  # the reference BLAS: never supernodal
+    assert factor.supernodal_from("auto") == factor.SUPERNODAL_MIN_WORK
     monkeypatch.setattr(factor, "optimized_blas", lambda: "/usr/lib/openblas/libblas.so.3")
     assert factor.supernodal_from() == factor.SUPERNODAL_MIN_WORK
+    assert 0.0 < factor.SUPERNODAL_MIN_WORK < np.inf
     monkeypatch.setenv(factor.MODE_ENV, "simplicial")
     assert factor.supernodal_from() == np.inf
 
@@ -221,6 +224,35 @@ def test_supernodal_factors_solve_and_update_like_dense_cholesky(monkeypatch):
     # a matrix that is not positive definite: the supernodal L L^T stops at the pivot itself
     bad = pat.assemble(-w)
     assert not pat.factorize(S).refactor(bad)
+
+
+@cholmod
+@pytest.mark.parametrize("min_work", [0.0, 1e30])
+def test_a_first_supernodal_factorization_gives_the_simplicial_column_counts(monkeypatch,
+                                                                             min_work):
+    # reference: the column counts of the dense Cholesky factor of the same matrix
+    # (numpy.linalg.cholesky, LAPACK potrf: structural zeros stay exact zeros with random
+    # weights) and scipy.linalg.cho_solve. A network from SUPERNODAL_FIRST_JUNCTIONS junctions
+    # is factored supernodally at once, turned into L D L^T for its counts; the next
+    # factorizations are supernodal only where the work reaches SUPERNODAL_MIN_WORK
+    monkeypatch.setattr(factor, "SUPERNODAL_FIRST_JUNCTIONS", 0)
+    monkeypatch.setattr(factor, "SUPERNODAL_MIN_WORK", min_work)
+    net = random_looped(150, seed=17, n_sources=2)
+    pat, S = _schur(net, "cholmod")
+    dense_counts = (np.linalg.cholesky(S.toarray()) != 0).sum(axis=0)
+    b = np.random.default_rng(3).standard_normal(pat.n)
+    ref = scipy.linalg.cho_solve(scipy.linalg.cho_factor(S.toarray()), b)
+    fz = pat._factorizer
+    assert fz._first_supernodal
+    first = pat.factorize(S)
+    assert not first.solve_permuted.supernodal  # now L D L^T: it can take low-rank updates
+    assert fz.factor_work == float((dense_counts.astype(float) ** 2).sum())
+    assert fz.factor_nnz == int(dense_counts.sum())
+    second = pat.factorize(S)
+    assert second.solve_permuted.supernodal == (min_work == 0.0) == fz.supernodal
+    for F in (first, second):
+        np.testing.assert_allclose(F.solve_permuted(b), ref, rtol=1e-9,
+                                   atol=1e-12 * np.abs(ref).max())
 
 
 @cholmod
