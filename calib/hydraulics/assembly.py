@@ -213,7 +213,10 @@ class SchurPattern:
         rest little): each step costs one triangular solve instead of a factorization. Stops when
         the largest residual is <= ``tol`` (the residual of this system is the junction mass
         imbalance after the Newton step, in m3/s); returns None if that takes, or after three steps
-        is on course to take, more than ``max_iterations`` steps. Source: Hestenes and Stiefel (1952), J. Res. NBS 49(6), the
+        is on course to take, more than ``max_iterations`` steps, and where it breaks down (a
+        curvature ``p^T S p`` or ``r^T z`` that is not positive: S or the old factor is no longer
+        positive definite in floating point, e.g. a pipe of absurd diameter; the caller then
+        factors S itself, which says so). Source: Hestenes and Stiefel (1952), J. Res. NBS 49(6), the
         preconditioned form as in Saad, Iterative Methods for Sparse Linear Systems (2003), alg. 9.1.
         """
         perm, inv = self.perm, self.inv
@@ -227,7 +230,10 @@ class SchurPattern:
         rz = _dot(r, z)
         for k in range(1, max_iterations + 1):
             sp_ = matrix @ p
-            alpha = rz / _dot(p, sp_)
+            curvature = _dot(p, sp_)
+            if not (rz > 0.0 and curvature > 0.0):  # also NaN: a breakdown, not a step
+                return None
+            alpha = rz / curvature
             x += alpha * p
             r -= alpha * sp_
             rk = np.abs(r).max()

@@ -284,3 +284,26 @@ def test_across_junctions_is_the_head_change_difference_along_each_link():
     assert (solver.link_from >= pat.n).any() or (solver.link_to >= pat.n).any()  # source links
     np.testing.assert_array_equal(pat.across_junctions(dh), ref)
     np.testing.assert_array_equal(pat.across_junctions(dh[:, 1]), ref[:, 1])
+
+
+@pytest.mark.parametrize("backend", BACKENDS)
+def test_pcg_solves_like_dense_and_gives_up_at_a_breakdown(backend):
+    # reference: numpy.linalg.solve on the changed matrix. CG preconditioned with the factor of
+    # an older S converges where S changed little; where S is no longer positive definite (a link
+    # weight of the wrong sign, as round-off can leave one of absurd size) its curvature p^T S p
+    # is not positive: CG must give up (None, the caller factors anew), never divide by zero
+    # (Hestenes and Stiefel 1952: the method needs a positive definite matrix)
+    net = random_looped(80, seed=3, n_sources=2)
+    solver = NetworkSolver(net)
+    pat = SchurPattern(solver.nj, solver.link_from, solver.link_to, net.n_nodes, backend=backend)
+    w = np.random.default_rng(0).uniform(1e-3, 10.0, len(solver.link_from))
+    old = pat.factorize(pat.assemble(w))
+    w2 = w.copy()
+    w2[:3] *= 1.5
+    S2 = pat.assemble(w2)
+    b = np.random.default_rng(2).standard_normal(pat.n)
+    x = pat.pcg(S2, old, b, tol=1e-12, max_iterations=50)
+    ref = np.linalg.solve(S2.toarray(), b[pat.perm])
+    np.testing.assert_allclose(x[pat.perm], ref, rtol=1e-8, atol=1e-10)
+    assert pat.pcg(-S2, old, b, tol=1e-12, max_iterations=50) is None
+    assert pat.pcg(0.0 * S2, old, b, tol=1e-12, max_iterations=50) is None
