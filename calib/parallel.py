@@ -22,6 +22,10 @@ stops every worker (terminated and reaped: no zombie processes).
 Which work is worth a worker is the caller's choice (``workers=``): a fork and a worker's start
 cost about 15-25 ms here, and a task's result crosses back as a pickle.
 
+``run_jobs(jobs)``: the tasks of several independent ``Job``s (each with its own ``reset``) in one
+``run``, taken in the order of their ranks: no process waits for the other at the end of each
+job, and a job's ``finished`` comes as soon as its own last result is in.
+
 ``Owners(serve, n)``: worker processes that keep their own state from one request to the next
 (the fit's snapshots, each with its solver, across the fit's evaluations), for work whose state
 is worth keeping where it was made.
@@ -116,6 +120,78 @@ def run(task, items, reset=None, workers: int | None = None, done=None) -> list:
     if n <= 1 or not can_fork():
         return _serial(task, items, reset, done)
     return _forked(task, items, reset, done, n)
+
+
+class Job:
+    """Independent tasks for ``run_jobs``: ``task(item)`` for each of ``items``, each from the state
+    ``reset()`` puts back (called before each of them, in the process that runs it, and once at
+    the end). ``done(index, answer)``: called here with what each task returned, as it arrives (in
+    completion order); ``finished(values)``: called here once every result of this job is in
+    (items' order), while the other jobs' tasks may still run; ``after(values)``: called once the whole run has ended and
+    every job's state is put back (e.g. to add up counts that ``reset`` puts back). ``unwrap``:
+    a task's value from what it returned, as ``finished``, ``after`` and the caller see it
+    (default: what it returned). ``rank``: where its tasks come in ``run_jobs``' order, a number or
+    a function of the item (lower first; equal ranks in the jobs' and the items' order)."""
+
+    def __init__(self, task, items, reset=None, done=None, finished=None, after=None,
+                 unwrap=None, rank=0):
+        self.task, self.items, self.reset = task, list(items), reset
+        self.done, self.finished, self.after, self.unwrap = done, finished, after, unwrap
+        self.rank = rank
+
+    def rank_of(self, item):
+        return self.rank(item) if callable(self.rank) else self.rank
+
+    def values(self, results) -> list:
+        return list(results) if self.unwrap is None else [self.unwrap(v) for v in results]
+
+
+def run_jobs(jobs, workers: int | None = None) -> list:
+    """Every task of every ``Job`` in ``jobs``, in one ``run``: the tasks claimed in the order of
+    their ranks (``Job.rank``; equal ranks in the jobs' order, a job's tasks in its items'), so
+    that one job's last tasks and the next job's first share the processes instead of one process
+    waiting for the other at each job's end (long tasks first, short ones last even out the
+    processes' shares).
+    Each task starts from its own job's state (its ``reset``); the same values whatever the
+    number of processes. Returns per job the list of its values. Errors: as ``run`` (the first
+    failing task in that order; tasks after it are not started)."""
+    jobs = [j for j in jobs if j is not None]
+    flat = sorted(((j, i) for j, job in enumerate(jobs) for i in range(len(job.items))),
+                  key=lambda ji: jobs[ji[0]].rank_of(jobs[ji[0]].items[ji[1]]))
+    results = [[_MISSING] * len(job.items) for job in jobs]
+    left = [len(job.items) for job in jobs]
+
+    def one(pair):
+        job = jobs[pair[0]]
+        if job.reset is not None:
+            job.reset()
+        return job.task(job.items[pair[1]])
+
+    def done(k, value):
+        j, i = flat[k]
+        job = jobs[j]
+        results[j][i] = value
+        if job.done is not None:
+            job.done(i, value)
+        left[j] -= 1
+        if not left[j] and job.finished is not None:
+            job.finished(job.values(results[j]))
+
+    for j, job in enumerate(jobs):  # a job without tasks is finished before any task starts
+        if not left[j] and job.finished is not None:
+            job.finished([])
+    try:
+        if flat:
+            run(one, flat, workers=workers, done=done)
+    finally:
+        for job in jobs:
+            if job.reset is not None:
+                job.reset()
+    values = [job.values(res) for job, res in zip(jobs, results)]
+    for job, vals in zip(jobs, values):
+        if job.after is not None:
+            job.after(vals)
+    return values
 
 
 def _serial(task, items, reset, done) -> list:

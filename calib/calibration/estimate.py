@@ -41,7 +41,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy import optimize, special
 
-from calib.calibration.tasks import on_problem
+from calib.calibration.tasks import on_problem, problem_job
 
 #: Far from quadratic: the rise of the sum of squares at a linearized interval end, along the
 #: linearized profile trace, outside this share of the expected q^2 (the half-width off by about a
@@ -433,6 +433,29 @@ def refine_intervals(problem, est: Estimate, columns) -> Estimate:
 
     Every interval is clipped to the parameter's bounds. ``problem`` must be the one ``est`` came from.
     """
+    task, items, apply = _interval_plan(problem, est, columns)
+    return apply(on_problem(problem, task, items))
+
+
+def interval_job(problem, est: Estimate, columns, finished=None, rank=(1, 3)):
+    """``refine_intervals`` as a ``parallel.Job`` (``tasks.problem_job``), to run beside other
+    independent work (``tasks.run_jobs``): ``est`` gets its intervals once the job's last task is
+    in, then ``finished(est)`` is called (where given). ``rank``: of a column's task (its check,
+    then both ends: the longer tasks) and of a single end's task (a column ruled out on its
+    face)."""
+    task, items, apply = _interval_plan(problem, est, columns)
+
+    def done(found):
+        apply(found)
+        if finished is not None:
+            finished(est)
+    return problem_job(problem, task, items, finished=done,
+                       rank=lambda item: rank[0] if item[1] is None else rank[1])
+
+
+def _interval_plan(problem, est: Estimate, columns):
+    """``(task, items, apply)``: the interval checks of ``columns`` as independent tasks, and
+    ``apply(values)``, which writes their ends into ``est`` and returns it."""
     cut = est.t ** 2
     low = np.clip(est.low, problem.lower, problem.upper)
     high = np.clip(est.high, problem.lower, problem.upper)
@@ -466,15 +489,18 @@ def refine_intervals(problem, est: Estimate, columns) -> Estimate:
     for i in columns:
         split = _linear_ruled_out(problem, est, i)
         items += [(i, -1.0), (i, 1.0)] if split else [(i, None)]
-    found: dict = {}
-    for (i, end), ends in zip(items, on_problem(problem, task, items)):
-        if ends is not None:
-            found.setdefault(i, []).extend(ends)
-    fits = 0
-    for i, ends in found.items():
-        (low[i], low_open[i], f1), (high[i], high_open[i], f2) = ends
-        fits += f1 + f2
-        method[i] = PROFILE
-    est.low, est.high, est.low_open, est.high_open = low, high, low_open, high_open
-    est.method, est.n_profile_fits = method, fits
-    return est
+
+    def apply(values):
+        found: dict = {}
+        for (i, _end), ends in zip(items, values):
+            if ends is not None:
+                found.setdefault(i, []).extend(ends)
+        fits = 0
+        for i, ends in found.items():
+            (low[i], low_open[i], f1), (high[i], high_open[i], f2) = ends
+            fits += f1 + f2
+            method[i] = PROFILE
+        est.low, est.high, est.low_open, est.high_open = low, high, low_open, high_open
+        est.method, est.n_profile_fits = method, fits
+        return est
+    return task, items, apply

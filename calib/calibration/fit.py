@@ -21,15 +21,16 @@ from functools import cached_property
 import numpy as np
 from scipy import optimize
 
-from calib import units
+from calib import parallel, units
 from calib.calibration import criteria as _criteria
 from calib.calibration import flags as _flags
 from calib.calibration import zones
 from calib.calibration.groups import Grouping, make_groups
 from calib.calibration.priors import GroupPrior, group_prior
-from calib.calibration.estimate import LSQ_TOL, PROFILE, Estimate, estimate, refine_intervals
+from calib.calibration.estimate import (LSQ_TOL, PROFILE, Estimate, estimate, interval_job,
+                                        refine_intervals)
 from calib.calibration.problem import CalibrationProblem
-from calib.calibration.tasks import closing_pools, on_problem
+from calib.calibration.tasks import closing_pools, problem_job, run_jobs
 from calib.errors import CalibrationError, InputError
 
 LOSSES = ("linear", "soft_l1", "huber", "cauchy")
@@ -49,8 +50,27 @@ LOSSES = ("linear", "soft_l1", "huber", "cauchy")
 FIT_TOLERANCES = dict(head_tol=1e-4, flow_tol=1e-3, energy_tol=1e-6, head_step=False)
 
 
+class _GroupC:
+    """The fitted C per group of a fit's ``params``, ``estimate``, ``grouping`` and ``network``
+    (``FitResult``, ``FittedModel``)."""
+
+    @property
+    def c(self) -> np.ndarray:
+        """Fitted C per group."""
+        return self.estimate.x[self.c_cols]
+
+    @cached_property
+    def c_cols(self) -> np.ndarray:
+        """Columns of the group C-factors among the parameters (built once; ``params`` is fixed)."""
+        return np.array([i for i, p in enumerate(self.params) if p.kind == "c"], dtype=np.int64)
+
+    def roughness(self) -> np.ndarray:
+        """Per-pipe C of the fit as solved (pipes in no group keep the model's)."""
+        return self.grouping.per_pipe(self.c, self.network.roughness)
+
+
 @dataclass
-class FitResult:
+class FitResult(_GroupC):
     """Everything the exports, the report and the command line show."""
 
     network: object
@@ -79,17 +99,7 @@ class FitResult:
     options: dict = field(default_factory=dict)
     solutions: dict = field(default_factory=dict, repr=False)  # snapshot label -> SolveResult, final x
 
-    # --- convenience views -------------------------------------------------------------------
-    @property
-    def c(self) -> np.ndarray:
-        """Fitted C per group."""
-        return self.estimate.x[self.c_cols]
-
-    @cached_property
-    def c_cols(self) -> np.ndarray:
-        """Columns of the group C-factors among the parameters (built once; ``params`` is fixed)."""
-        return np.array([i for i, p in enumerate(self.params) if p.kind == "c"], dtype=np.int64)
-
+    # --- convenience views (``c``, ``c_cols``, ``roughness``: ``_GroupC``) -----------------------
     @property
     def c_at_bound(self) -> np.ndarray:
         """Per group: True where the fitted C sits at a bound."""
@@ -129,10 +139,6 @@ class FitResult:
     def limit(self, g: int) -> str:
         """What the tests say about group ``g``'s C, in words (interval or one-sided limit)."""
         return limit_text(self.estimate, int(self.c_cols[g]))
-
-    def roughness(self) -> np.ndarray:
-        """Per-pipe C of the fit as solved (pipes in no group keep the model's)."""
-        return self.grouping.per_pipe(self.c, self.network.roughness)
 
     def roughness_export(self) -> np.ndarray:
         """Per-pipe C for the office model: calibrated where the tests determine the group, else the model's."""
@@ -182,13 +188,39 @@ class FitReadings:
     threshold: float  # the flag's cut-off on |z| [-]
 
 
+@dataclass
+class FittedModel(_GroupC):
+    """The fit as final before its interval checks (``fit``'s ``on_fitted``): its parameters, the
+    readings' flags and the snapshots' solutions at the result, what the report's hydrant curves
+    and fire-flow rows solve from. The same names and values as in the ``FitResult``; its
+    ``estimate`` is the same object, whose intervals the checks fill in while the jobs run (read
+    its x, covariance and sd, not its intervals)."""
+
+    network: object
+    tests: object
+    grouping: Grouping
+    params: list
+    estimate: Estimate
+    flag: list  # per reading: why it is suspect, or ""
+    solutions: dict = field(default_factory=dict, repr=False)  # snapshot label -> SolveResult
+
+
+#: Where the work after the fit comes in its one run of tasks (``fit``'s ``on_fitted``;
+#: ``calib.parallel.Job.rank``, lower first): the caller's work whose results are drawn (the
+#: report's hydrant curves, 0) before the interval checks of whole columns (each its linearized
+#: check and both profile ends: the longest tasks), then the leave-one-out refits, then the
+#: single profile ends of columns ruled out on their face, then short work whose results are
+#: only written (the report's fire-flow rows, 4), which evens out the processes' shares at the end.
+RANK_COLUMN, RANK_LOO, RANK_END = 1, 2, 3
+
+
 @closing_pools  # the snapshots' worker processes (``tasks.SnapshotPool``) end with the fit
 def fit(network, tests, group_by: str | None = None, grouping: Grouping | None = None,
         prior="handbook", c_bounds=(40.0, 160.0), loss: str = "linear", demand_factor: bool = False,
         source_offsets: bool = False, threshold: float | None = None, refit: bool = True,
         influence: bool = True, solver=None, progress=None, year: float | None = None,
         max_nfev: int = 60, flag_level: float = _flags.FLAG_LEVEL, on_result=None,
-        on_readings=None) -> FitResult:
+        on_readings=None, on_fitted=None) -> FitResult:
     """Fit group C-factors (and optional demand factors, source grade offsets) to a ``TestSet``.
 
     ``prior``: ``"handbook"`` (``priors.group_prior``), ``"none"``/None, or a ``GroupPrior``.
@@ -197,13 +229,24 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
     ``flag_level`` (``flags.outlier_cut``; Cook and Weisberg 1982), stated in the flags and findings.
     ``influence``: leave-one-out refits of the most influential remaining readings (Cook's D > 4/n, at
     most two) to say how far each moves the C-factors.
-    ``progress(n_solves, stage)`` is called after every solver call; ``stage`` names the phase, with
-    a detail after a colon where the phase repeats (``"leave-one-out: T04 J316"``).
-    ``on_result(result)`` is called with the ``FitResult`` before the leave-one-out refits, which then
-    only add their notes to ``result.influence`` (and their solves to ``n_solves``): what needs the
-    rest, such as the report's figures, can start then. ``on_readings(readings)`` is called earlier
-    still, once with a ``FitReadings`` as soon as the simulated readings, standardized residuals and
-    flags are final: before the interval checks, which change none of them.
+    ``progress(n_solves, stage)`` is called after every solver call, and once with the solves so
+    far as the work after the refits starts (its first tasks may solve none of the fit's
+    snapshots); ``stage`` names the phase, with a detail after a colon where the phase repeats
+    (``"interval checks and leave-one-out: T04 J316"``).
+    ``on_result(result)`` is called with the ``FitResult`` as soon as the interval checks are done,
+    while the leave-one-out refits may still run; they then only add their notes to
+    ``result.influence`` (and their solves to ``n_solves``, which is final when ``fit`` returns):
+    what needs the rest, such as the report's figures, can start then. ``on_readings(readings)`` is called earlier still, once with
+    a ``FitReadings`` as soon as the simulated readings, standardized residuals and flags are
+    final: before the interval checks, which change none of them.
+    ``on_fitted(fitted)`` is called once with a ``FittedModel`` as soon as the parameters, their
+    covariance and the flags are final (before the interval checks, unless the problem of every
+    reading solves snapshots of its own: then after them) and returns ``calib.parallel.Job``s (or
+    None): independent work with the fitted C, such as the report's solves. They run with the
+    interval checks and the leave-one-out refits in one run of tasks on the machine's cores
+    (``tasks.run_jobs``; theirs first), each task from its own job's state (``Job.reset``), so
+    that their numbers do not depend on the order or the number of processes; their ``done``
+    and ``finished`` are called in this process, before ``fit`` returns.
     """
     if loss not in LOSSES:
         raise InputError(f"unknown loss '{loss}'", field="--loss", expected=", ".join(LOSSES))
@@ -339,158 +382,30 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
     early = full._recent is prob._recent
     if early:
         results, simulated, z, cut = simulate()
-    # intervals that can be trusted: profile likelihood where the linearized one cannot stand
-    count["stage"] = "interval checks (profile likelihood where needed)"
-    est = refine_intervals(prob, est, prob.c_cols)
-    prob.recall(est.x, at_result)  # the interval checks solved elsewhere since
-    if not early:
-        results, simulated, z, cut = simulate()
     cook = np.full(n, np.nan)
     cook[est.used] = cook_used
     p = prob.n_params
-    rule = (f"fixed cut-off +/-{cut:g}" if threshold is not None else
-            f"Bonferroni cut-off +/-{cut:.2f} over {n_family} readings at family-wise level {flag_level:g}")
-    findings: list[str] = []
-
     # influence: Cook's distance, then leave-one-out refits of the strongest candidates
     n_used = int(est.used.sum())
     used_idx = np.flatnonzero(est.used)
     leaning = [""] * n  # the influence notes (``influence`` is the option)
     for i in used_idx[cook[used_idx] > 1.0]:
         leaning[i] = f"Cook's distance {cook[i]:.2f} > 1"
-    # identifiability
-    cov = est.cov
-    d = np.sqrt(np.abs(np.diag(cov)))
-    with np.errstate(invalid="ignore", divide="ignore"):
-        corr = cov / np.outer(d, d)
-    corr[~np.isfinite(corr)] = np.nan
-    np.fill_diagonal(corr, 1.0)
-    names = [q.name for q in prob.params]
-    together = [(names[a], names[b], float(corr[a, b])) for a in range(p) for b in range(a + 1, p)
-                if np.isfinite(corr[a, b]) and abs(corr[a, b]) > 0.9]
-    sd_c = est.sd[prob.c_cols]
-    cc = prob.c_cols
-    c_bound = est.at_bound[cc]
-    both_open = est.low_open[cc] & est.high_open[cc]
-    if gp is not None:
-        # share of each group's precision that comes from the tests: 1 - posterior var / prior var
-        # (the readings' rows carry their scale s^2 already; the prior's rows their stated spread)
-        post_var = sd_c ** 2
-        informed = np.clip(1.0 - post_var / gp.spread ** 2, 0.0, 1.0)
-        informed[~np.isfinite(informed)] = 0.0
-        status = ["informed" if s > 0.5 else "weakly informed" if s > 0.1 else "undetermined"
-                  for s in informed]
-    else:
-        # no prior to compare with: judge by the final interval's half-width (share left undefined)
-        half = (est.high[cc] - est.low[cc]) / 2.0
-        informed = np.full(len(sd_c), np.nan)
-        status = ["undetermined" if not np.isfinite(h) or h > 50 else
-                  "weakly informed" if h > 15 or est.low_open[c] or est.high_open[c] else "informed"
-                  for h, c in zip(half, cc)]
-    # a C on a bound is not a fitted value, and an interval from bound to bound says nothing: the tests
-    # do not determine such a group (they may give a one-sided limit)
-    status = ["undetermined" if c_bound[g] or both_open[g] else st for g, st in enumerate(status)]
-
-    # statistics and criteria over the readings used
-    resid_pa = tests.pressure - simulated
-    rmse = float(np.sqrt(np.mean(resid_pa[est.used] ** 2)))
-    # largest head loss across the system: highest source grade minus lowest junction grade
-    nj = network.n_junctions
-    max_hl = 0.0
-    if nj and network.n_sources:
-        static_heads = [np.asarray(res.head, float) for (_t, kind), res in zip(full.pairs, results)
-                        if kind == "static"]
-        max_hl = max([0.0] + [float(h[nj:].max() - h[:nj].min()) for h in static_heads])
-    head_err = units.pressure_to_head(resid_pa[est.used])
-    crit = _criteria.wrc_1989(head_err, max_hl) + _criteria.awwa_ecac_1999(resid_pa[est.used])
-
-    # findings in words
-    findings.append(est.scale_note[0].upper() + est.scale_note[1:] + ".")
-    model_c = grouping.length_weighted(network, network.roughness)
-    for g, name in enumerate(grouping.names):
-        col = prob.c_cols[g]
-        limit = limit_text(est, col)
-        if status[g] == "undetermined":
-            if est.at_bound[col] and not (est.low_open[col] and est.high_open[col]):
-                why = (f"its C goes to the bound {est.x[col]:.0f} of {c_bounds[0]:g}-{c_bounds[1]:g}, "
-                       "which is no fitted value. Check the model (closed valves, diameters) there")
-            elif gp is not None:
-                why = f"its C stays near its prior {gp.c[g]:.0f} with the prior's width"
-            else:
-                why = "the readings hardly change with its C"
-            findings.append(f"Group {name}: the tests do not determine it ({limit}); {why}. The exports "
-                            f"keep the model's C ({model_c[g]:.0f}) for its pipes.")
-            lo, hi = est.low[col], est.high[col]
-            if not est.low_open[col] and model_c[g] < lo or not est.high_open[col] and model_c[g] > hi:
-                findings.append(f"Group {name}: the model's C {model_c[g]:.0f} is outside what the tests "
-                                f"allow ({limit}): review that group before using the model.")
-        elif status[g] == "weakly informed":
-            if gp is not None:
-                findings.append(f"Group {name}: the tests inform it weakly ({informed[g]:.0%} of its "
-                                "precision comes from them; its C leans on the prior).")
-            else:
-                findings.append(f"Group {name}: the tests inform it weakly (95 % interval "
-                                f"{est.low[col]:.0f}-{est.high[col]:.0f}).")
-        if est.method[col] == PROFILE and status[g] != "undetermined":
-            findings.append(f"Group {name}: the linearized interval could not be trusted (at or past a C "
-                            "bound, or a sum of squares far from quadratic); its interval is the profile "
-                            "likelihood one (Venzon and Moolgavkar 1988; Bates and Watts 1988).")
-    for a, b, r in together:
-        findings.append(f"{a} and {b} move together (correlation {r:+.2f}): the tests determine a "
-                        "combination of them better than each alone.")
-    findings.append(_flag_rule_text(threshold, cut, n_family, flag_level, est.scaled))
-    if first is not None:
-        moved = np.abs(first.x[prob.c_cols] - est.x[prob.c_cols])
-        findings.append(f"{int(gross.sum())} reading(s) beyond the cut-off were left out one at a "
-                        f"time and the fit repeated; C moved by up to {moved.max():.1f} between the fit "
-                        "with every reading and the result (both are in groups.csv).")
-    for (t, kind), res in zip(full.pairs, results):
-        neg = list(getattr(res, "negative_pressure", []) or [])
-        if neg:
-            findings.append(f"Test {tests.test_ids[t]} ({kind}): the calibrated model gives negative "
-                            f"pressure at {', '.join(neg[:5])}{' ...' if len(neg) > 5 else ''}; it "
-                            "cannot carry the test's flows as modelled (check diameters and valves).")
-    on_flowing = sorted({(int(t), int(nd)) for t, nd, k in zip(tests.test, tests.node, tests.kind)
-                         if k == "residual" and int(nd) in tests.flows[int(t)]})
-    for t, nd in on_flowing:
-        findings.append(f"Test {tests.test_ids[t]}: the gauge at {network.node_ids[nd]} is on a flowing "
-                        "hydrant; its residual includes the loss in the hydrant lateral, which the "
-                        "model does not hold (common practice: gauge a neighbouring hydrant).")
-    for i, reason in face.items():
-        findings.append(f"Reading {tests.test_ids[tests.test[i]]} / {network.node_ids[tests.node[i]]} "
-                        f"({tests.kind[i]}) fails a face check: {reason}; left out.")
-    sig_m = float(np.median(tests.sigma_head)) * (np.sqrt(est.s2) if not est.sigma_stated else 1.0)
-    if sig_m > 0.5:
-        what = ("The gauges' stated accuracy" if est.sigma_stated
-                else "The readings' scatter (no accuracy was stated)")
-        findings.append(f"{what} ({sig_m:.2f} m of head) is coarser than the "
-                        "WRc 0.5 m tolerance: that criterion cannot be met by these gauges alone.")
-    if loss != "linear":
-        findings.append(f"Robust loss '{loss}' (f_scale {f_scale:g} standardized units): the intervals "
-                        "are the linearized ones at the solution.")
-    findings.extend(zones.test_findings(network, tests, full, results))  # valves and zones
-    findings.extend(tests.notes)
-
-    result = FitResult(network=network, tests=tests, grouping=grouping, prior=gp, params=prob.params,
-                     estimate=est, first=first, corr=corr, move_together=together, informed=informed,
-                     status=status, simulated=simulated, z=z, cook=cook, flag=flag, rmse=rmse,
-                     criteria=crit, max_headloss=max_hl, findings=findings, influence=leaning,
-                     n_solves=sum(pr.n_solves for pr in problems),
-                     options=dict(group_by=group_by or "group column", prior=prior if isinstance(prior, str)
-                                  else ("none" if prior is None else "given"), c_bounds=tuple(c_bounds),
-                                  loss=loss, demand_factor=demand_factor, source_offsets=source_offsets,
-                                  threshold=cut, flag_level=None if threshold is not None else flag_level,
-                                  flag_rule=rule),
-                     solutions={res.snapshot.label: res for res in results})
-    if on_result is not None:
-        on_result(result)  # everything but the leave-one-out notes is final: e.g. draw the figures now
-
+    # the leave-one-out candidates: from the fit's x, covariance and Jacobian, which the interval
+    # checks leave as they are
+    cand = []
     if influence and n_used > p + 1:
         cand = [i for i in used_idx[np.argsort(-cook[used_idx])][:2] if cook[i] > 4.0 / n_used]
-        sd_c = est.sd[prob.c_cols]
         # the one-step estimate moves no C by a third of an sd: no flag, no refit
         cand = [i for i in cand
                 if _loo_screen(est, prob, int(np.searchsorted(used_idx, i)), loss) >= LOO_SCREEN]
+    done: dict = {}  # "result": the FitResult; "refits": the leave-one-out refits
+
+    def loo_job(stage):
+        """The leave-one-out refits as a job (``tasks.problem_job``), each from the state of the
+        fit's problems now; the progress names each refit's reading after ``stage``."""
+        if not cand:
+            return None
         loo_probs = []
         for i in cand:
             mask = est.used.copy()
@@ -503,25 +418,211 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
 
         def announce(k):
             i = cand[k]
-            count["stage"] = (f"leave-one-out: {tests.test_ids[tests.test[i]]} "
+            count["stage"] = (f"{stage}: {tests.test_ids[tests.test[i]]} "
                               f"{network.node_ids[tests.node[i]]}")
 
-        # independent refits: shared out between processes, each from the same state
-        # (``tasks.on_problem``), so the notes are the same on one core or several
         def refit_one(k):
             announce(k)
             return loo_refit(est, loo_probs[k], int(np.searchsorted(used_idx, cand[k])), loss,
                              f_scale)
 
-        refits = on_problem(loo_probs, refit_one, range(len(cand)), announce=announce)
-        for i, loo in zip(cand, refits):
-            shift = np.abs(loo.x[prob.c_cols] - est.x[prob.c_cols])
-            rel = np.where(np.isfinite(sd_c) & (sd_c > 0), shift / np.where(sd_c > 0, sd_c, 1), 0.0)
-            g = int(np.argmax(rel))
-            if rel[g] > 1.0:
-                text = (f"leaving it out moves C of {grouping.names[g]} by "
-                        f"{shift[g]:.1f} ({rel[g]:.1f} sd)")
-                leaning[i] = leaning[i] + "; " + text if leaning[i] else text
+        return problem_job(loo_probs, refit_one, range(len(cand)), announce=announce,
+                           finished=lambda refits: done.__setitem__("refits", refits),
+                           rank=RANK_LOO)
+
+    def report_jobs():
+        """``on_fitted``'s jobs: the caller's work with the fitted C (the report's solves)."""
+        if on_fitted is None:
+            return []
+        fitted = FittedModel(network=network, tests=tests, grouping=grouping, params=prob.params,
+                             estimate=est, flag=list(flag),
+                             solutions={res.snapshot.label: res for res in results})
+        return [j for j in on_fitted(fitted) or () if j is not None]
+
+    def conclude(est):
+        """The ``FitResult`` (everything but the leave-one-out notes), handed to ``on_result``."""
+        rule = (f"fixed cut-off +/-{cut:g}" if threshold is not None else
+                f"Bonferroni cut-off +/-{cut:.2f} over {n_family} readings at family-wise level {flag_level:g}")
+        findings: list[str] = []
+
+        # identifiability
+        cov = est.cov
+        d = np.sqrt(np.abs(np.diag(cov)))
+        with np.errstate(invalid="ignore", divide="ignore"):
+            corr = cov / np.outer(d, d)
+        corr[~np.isfinite(corr)] = np.nan
+        np.fill_diagonal(corr, 1.0)
+        names = [q.name for q in prob.params]
+        together = [(names[a], names[b], float(corr[a, b])) for a in range(p) for b in range(a + 1, p)
+                    if np.isfinite(corr[a, b]) and abs(corr[a, b]) > 0.9]
+        sd_c = est.sd[prob.c_cols]
+        cc = prob.c_cols
+        c_bound = est.at_bound[cc]
+        both_open = est.low_open[cc] & est.high_open[cc]
+        if gp is not None:
+            # share of each group's precision that comes from the tests: 1 - posterior var / prior var
+            # (the readings' rows carry their scale s^2 already; the prior's rows their stated spread)
+            post_var = sd_c ** 2
+            informed = np.clip(1.0 - post_var / gp.spread ** 2, 0.0, 1.0)
+            informed[~np.isfinite(informed)] = 0.0
+            status = ["informed" if s > 0.5 else "weakly informed" if s > 0.1 else "undetermined"
+                      for s in informed]
+        else:
+            # no prior to compare with: judge by the final interval's half-width (share left undefined)
+            half = (est.high[cc] - est.low[cc]) / 2.0
+            informed = np.full(len(sd_c), np.nan)
+            status = ["undetermined" if not np.isfinite(h) or h > 50 else
+                      "weakly informed" if h > 15 or est.low_open[c] or est.high_open[c] else "informed"
+                      for h, c in zip(half, cc)]
+        # a C on a bound is not a fitted value, and an interval from bound to bound says nothing: the tests
+        # do not determine such a group (they may give a one-sided limit)
+        status = ["undetermined" if c_bound[g] or both_open[g] else st for g, st in enumerate(status)]
+
+        # statistics and criteria over the readings used
+        resid_pa = tests.pressure - simulated
+        rmse = float(np.sqrt(np.mean(resid_pa[est.used] ** 2)))
+        # largest head loss across the system: highest source grade minus lowest junction grade
+        nj = network.n_junctions
+        max_hl = 0.0
+        if nj and network.n_sources:
+            static_heads = [np.asarray(res.head, float) for (_t, kind), res in zip(full.pairs, results)
+                            if kind == "static"]
+            max_hl = max([0.0] + [float(h[nj:].max() - h[:nj].min()) for h in static_heads])
+        head_err = units.pressure_to_head(resid_pa[est.used])
+        crit = _criteria.wrc_1989(head_err, max_hl) + _criteria.awwa_ecac_1999(resid_pa[est.used])
+
+        # findings in words
+        findings.append(est.scale_note[0].upper() + est.scale_note[1:] + ".")
+        model_c = grouping.length_weighted(network, network.roughness)
+        for g, name in enumerate(grouping.names):
+            col = prob.c_cols[g]
+            limit = limit_text(est, col)
+            if status[g] == "undetermined":
+                if est.at_bound[col] and not (est.low_open[col] and est.high_open[col]):
+                    why = (f"its C goes to the bound {est.x[col]:.0f} of {c_bounds[0]:g}-{c_bounds[1]:g}, "
+                           "which is no fitted value. Check the model (closed valves, diameters) there")
+                elif gp is not None:
+                    why = f"its C stays near its prior {gp.c[g]:.0f} with the prior's width"
+                else:
+                    why = "the readings hardly change with its C"
+                findings.append(f"Group {name}: the tests do not determine it ({limit}); {why}. The exports "
+                                f"keep the model's C ({model_c[g]:.0f}) for its pipes.")
+                lo, hi = est.low[col], est.high[col]
+                if not est.low_open[col] and model_c[g] < lo or not est.high_open[col] and model_c[g] > hi:
+                    findings.append(f"Group {name}: the model's C {model_c[g]:.0f} is outside what the tests "
+                                    f"allow ({limit}): review that group before using the model.")
+            elif status[g] == "weakly informed":
+                if gp is not None:
+                    findings.append(f"Group {name}: the tests inform it weakly ({informed[g]:.0%} of its "
+                                    "precision comes from them; its C leans on the prior).")
+                else:
+                    findings.append(f"Group {name}: the tests inform it weakly (95 % interval "
+                                    f"{est.low[col]:.0f}-{est.high[col]:.0f}).")
+            if est.method[col] == PROFILE and status[g] != "undetermined":
+                findings.append(f"Group {name}: the linearized interval could not be trusted (at or past a C "
+                                "bound, or a sum of squares far from quadratic); its interval is the profile "
+                                "likelihood one (Venzon and Moolgavkar 1988; Bates and Watts 1988).")
+        for a, b, r in together:
+            findings.append(f"{a} and {b} move together (correlation {r:+.2f}): the tests determine a "
+                            "combination of them better than each alone.")
+        findings.append(_flag_rule_text(threshold, cut, n_family, flag_level, est.scaled))
+        if first is not None:
+            moved = np.abs(first.x[prob.c_cols] - est.x[prob.c_cols])
+            findings.append(f"{int(gross.sum())} reading(s) beyond the cut-off were left out one at a "
+                            f"time and the fit repeated; C moved by up to {moved.max():.1f} between the fit "
+                            "with every reading and the result (both are in groups.csv).")
+        for (t, kind), res in zip(full.pairs, results):
+            neg = list(getattr(res, "negative_pressure", []) or [])
+            if neg:
+                findings.append(f"Test {tests.test_ids[t]} ({kind}): the calibrated model gives negative "
+                                f"pressure at {', '.join(neg[:5])}{' ...' if len(neg) > 5 else ''}; it "
+                                "cannot carry the test's flows as modelled (check diameters and valves).")
+        on_flowing = sorted({(int(t), int(nd)) for t, nd, k in zip(tests.test, tests.node, tests.kind)
+                             if k == "residual" and int(nd) in tests.flows[int(t)]})
+        for t, nd in on_flowing:
+            findings.append(f"Test {tests.test_ids[t]}: the gauge at {network.node_ids[nd]} is on a flowing "
+                            "hydrant; its residual includes the loss in the hydrant lateral, which the "
+                            "model does not hold (common practice: gauge a neighbouring hydrant).")
+        for i, reason in face.items():
+            findings.append(f"Reading {tests.test_ids[tests.test[i]]} / {network.node_ids[tests.node[i]]} "
+                            f"({tests.kind[i]}) fails a face check: {reason}; left out.")
+        sig_m = float(np.median(tests.sigma_head)) * (np.sqrt(est.s2) if not est.sigma_stated else 1.0)
+        if sig_m > 0.5:
+            what = ("The gauges' stated accuracy" if est.sigma_stated
+                    else "The readings' scatter (no accuracy was stated)")
+            findings.append(f"{what} ({sig_m:.2f} m of head) is coarser than the "
+                            "WRc 0.5 m tolerance: that criterion cannot be met by these gauges alone.")
+        if loss != "linear":
+            findings.append(f"Robust loss '{loss}' (f_scale {f_scale:g} standardized units): the intervals "
+                            "are the linearized ones at the solution.")
+        findings.extend(zones.test_findings(network, tests, full, results))  # valves and zones
+        findings.extend(tests.notes)
+
+        result = FitResult(network=network, tests=tests, grouping=grouping, prior=gp, params=prob.params,
+                         estimate=est, first=first, corr=corr, move_together=together, informed=informed,
+                         status=status, simulated=simulated, z=z, cook=cook, flag=flag, rmse=rmse,
+                         criteria=crit, max_headloss=max_hl, findings=findings, influence=leaning,
+                         n_solves=sum(pr.n_solves for pr in problems),
+                         options=dict(group_by=group_by or "group column", prior=prior if isinstance(prior, str)
+                                      else ("none" if prior is None else "given"), c_bounds=tuple(c_bounds),
+                                      loss=loss, demand_factor=demand_factor, source_offsets=source_offsets,
+                                      threshold=cut, flag_level=None if threshold is not None else flag_level,
+                                      flag_rule=rule),
+                         solutions={res.snapshot.label: res for res in results})
+        done["result"] = result
+        if on_result is not None:
+            on_result(result)  # all but the leave-one-out notes is final: e.g. draw the figures now
+
+    # The work after the fit, independent once x is final: the interval checks, the caller's jobs
+    # (the report's hydrant curves and fire-flow rows) and the leave-one-out refits, each task
+    # from the same state as alone (``tasks.problem_job``), so every number is the same on one
+    # core or several and in any order. Where the problem of every reading shared the fit's
+    # solutions (``early``) they share one run of tasks (``tasks.run_jobs``): no process waits at
+    # the end of one phase for the other's last task. The caller's jobs go first, so that what
+    # is drawn from them (the curves) is drawn while the rest is solved.
+    workers = parallel.workers_for(network)
+
+    def enter(stage):
+        # the phase starts now: its first tasks may solve nothing of the fit's (the report's)
+        count["stage"] = stage
+        if progress is not None:
+            progress(count["n"], stage)
+
+    if early:
+        extra = report_jobs()
+        names = ["interval checks"] + (["report data"] if extra else []) + \
+            (["leave-one-out"] if cand else [])
+        stage = (", ".join(names[:-1]) + " and " + names[-1] if len(names) > 1
+                 else "interval checks (profile likelihood where needed)")
+        enter(stage)
+        run_jobs(extra + [interval_job(prob, est, prob.c_cols, finished=conclude,
+                                       rank=(RANK_COLUMN, RANK_END)), loo_job(stage)], workers)
+        prob.recall(est.x, at_result)
+    else:
+        # the problem of every reading solves (a test whose every reading is left out): after the
+        # interval checks, from the warm starts they leave, as it always did
+        count["stage"] = "interval checks (profile likelihood where needed)"
+        est = refine_intervals(prob, est, prob.c_cols)
+        prob.recall(est.x, at_result)  # the interval checks solved elsewhere since
+        results, simulated, z, cut = simulate()
+        extra = report_jobs()
+        conclude(est)
+        names = (["report data"] if extra else []) + (["leave-one-out"] if cand else [])
+        stage = " and ".join(names)
+        if stage:
+            enter(stage)
+        run_jobs(extra + [loo_job(stage)], workers)
+    result = done["result"]
+
+    sd_c = est.sd[prob.c_cols]
+    for i, loo in zip(cand, done.get("refits", ())):
+        shift = np.abs(loo.x[prob.c_cols] - est.x[prob.c_cols])
+        rel = np.where(np.isfinite(sd_c) & (sd_c > 0), shift / np.where(sd_c > 0, sd_c, 1), 0.0)
+        g = int(np.argmax(rel))
+        if rel[g] > 1.0:
+            text = (f"leaving it out moves C of {grouping.names[g]} by "
+                    f"{shift[g]:.1f} ({rel[g]:.1f} sd)")
+            leaning[i] = leaning[i] + "; " + text if leaning[i] else text
 
     result.n_solves = sum(pr.n_solves for pr in problems)
     return result

@@ -6,9 +6,12 @@ and C with its interval against the prior, the model's C before and the C bounds
 the readings fit (observed vs simulated, residuals by test); hydrant curves; parameter correlation;
 the tests; the method and its sources. This module builds each figure's data (the hydrant curves from
 few warm-started solves); ``figures.py`` draws them, each once, here or in a worker process that
-``calib fit`` starts before the fit. ``prepare`` makes the figures' data and the fire-flow section;
-``calib fit`` calls it from the fit's ``on_result``, before the leave-one-out refits, so the worker
-draws beside them. The page is written atomically through ``calib.fileio``.
+``calib fit`` starts before the fit. ``Solves`` holds the report's solves (the hydrant curves and
+the fire-flow rows) as jobs that ``calib fit`` hands to the fit (``on_fitted``), to run with its
+interval checks and leave-one-out refits; ``prepare`` makes the figures' data (and, without
+``Solves``, those solves too); ``calib fit`` calls it from the fit's ``on_result``, as soon as the
+intervals are known, so the worker draws beside the rest. The page is written atomically through
+``calib.fileio``.
 """
 
 from __future__ import annotations
@@ -228,9 +231,24 @@ def _curves_data(result, system: str, on_panel=None) -> dict | None:
     """The hydrant-curve panels (at most ``CURVE_PANELS`` tests), each from ``_curve``'s solves;
     None without tests. ``on_panel(k, panel, flow unit, pressure unit)`` is called with each panel
     as soon as it is known (``None`` for a test without flows or gauges)."""
+    from calib import parallel
+    out: dict = {}
+    job = _curves_job(result, system, on_panel, lambda data: out.__setitem__("data", data))
+    if job is None:
+        return None
+    parallel.run_jobs([job], workers=parallel.workers_for(result.network))
+    return out["data"]
+
+
+def _curves_job(result, system: str, on_panel=None, finished=None):
+    """``_curves_data`` as a ``calib.parallel.Job`` (None without tests): one task per curve, each
+    from a solver holding no kept factorization, so the curves come out the same on one core or
+    several, beside any other work; ``finished(data)`` once the last is in. ``result``: a
+    ``FitResult`` or the fit's ``FittedModel`` (the same C, flags and solutions)."""
     t, net = result.tests, result.network
     if not t.n_tests:
         return None
+    from calib import parallel
     from calib.hydraulics import NetworkSolver
     # one set-up for every curve point
     solver = NetworkSolver(net, headloss="hazen-williams", **CURVE_SOLVER)
@@ -276,12 +294,44 @@ def _curves_data(result, system: str, on_panel=None) -> dict | None:
         if on_panel is not None:
             on_panel(k, panels[k], fu, pu)
 
-    # the curves are independent: shared out between processes, each from a solver holding no
-    # kept factorization (``calib.parallel``), so they come out the same on one core or several;
+    def whole(_values):
+        if finished is not None:
+            finished(dict(panels=panels, fu=fu, pu=pu))
+
     # each panel is made (and handed on) as its curve arrives
-    from calib import parallel
-    parallel.run(curve, shown, reset=solver.forget, workers=parallel.workers_for(net), done=panel)
-    return dict(panels=panels, fu=fu, pu=pu)
+    # drawn while the rest is solved: first in ``fit``'s run of tasks (``fit.RANK_COLUMN``)
+    return parallel.Job(curve, shown, reset=solver.forget, done=panel, finished=whole, rank=0)
+
+
+class Solves:
+    """The report's solves, the hydrant curves and the fire-flow rows, as ``calib.parallel.Job``s
+    (``jobs``) that ``fit`` runs beside its interval checks and leave-one-out refits as soon as
+    the fitted C are final (``fit``'s ``on_fitted``, which gives ``fitted``): each curve panel goes
+    to ``worker`` as it is solved, the whole figure when the last is in, so that it is drawn
+    while the rest is solved. ``prepare(..., solves=)`` takes their results from here."""
+
+    def __init__(self, fitted, system: str = "us", curves: bool = True, worker=None):
+        from calib.fireflow.fitsummary import fire_flow_job
+        self.fitted, self.system, self.curves = fitted, system, curves
+        self.curve_data = None  # the hydrant curves' data (None without tests)
+        self.fire_rows = None  # the fire-flow rows (``fitsummary.fire_flow_job``)
+        jobs = []
+        if curves:
+            on_panel = None if worker is None else (
+                lambda *panel: worker.submit_part("hydrant curves", panel))
+
+            def curves_done(data):
+                self.curve_data = data
+                if worker is not None:
+                    worker.submit("hydrant curves", data)
+            jobs.append(_curves_job(fitted, system, on_panel, curves_done))
+        jobs.append(fire_flow_job(fitted, finished=lambda rows: setattr(self, "fire_rows", rows)))
+        self.jobs = [j for j in jobs if j is not None]
+
+    def fire_flow(self) -> str:
+        """The fire-flow section from the rows solved (``fitsummary.html_section``)."""
+        from calib.fireflow.fitsummary import html_section
+        return html_section(self.fitted, self.system, rows=self.fire_rows)
 
 
 def _plot_specs(result, system: str, curves: bool = True, worker=None) -> dict[str, dict]:
@@ -355,17 +405,37 @@ def _info_rows(info):
 @dataclasses.dataclass
 class ReportParts:
     """What the page needs beyond the fit's tables, made by ``prepare``: each figure's data (already
-    handed to the worker) and the fire-flow section."""
+    handed to the worker) and the fire-flow section; where they come from ``Solves`` still at
+    work, taken from there when the page is made (``complete``)."""
     system: str
     curves: bool
     specs: dict
-    fire_flow: str
+    fire_flow: str | None
+    solves: Solves | None = None
+
+    def complete(self) -> None:
+        """The hydrant curves' data and the fire-flow section from ``solves``, now done."""
+        if self.solves is None:
+            return
+        if self.solves.curve_data is not None:
+            self.specs["hydrant curves"] = self.solves.curve_data
+        self.fire_flow = self.solves.fire_flow()
+        self.solves = None
 
 
-def prepare(result, system: str = "us", curves: bool = True, worker=None) -> ReportParts:
+def prepare(result, system: str = "us", curves: bool = True, worker=None,
+            solves: Solves | None = None) -> ReportParts:
     """The figures' data, each handed to ``worker`` as soon as it is known, then the fire-flow
     section (its solves while the worker draws). Needs nothing the leave-one-out refits add, so
-    ``calib fit`` calls it from the fit's ``on_result``: the figures are drawn beside those refits."""
+    ``calib fit`` calls it from the fit's ``on_result``: the figures are drawn beside those refits.
+    ``solves``: the report's ``Solves`` for the same units and curves, run by the fit (the
+    curves and fire-flow rows are then not solved here)."""
+    if solves is not None and (solves.system, solves.curves) == (system, curves):
+        specs = _figure_data(result, system)
+        if worker is not None:
+            for name, data in specs.items():
+                worker.submit(name, data)
+        return ReportParts(system, curves, specs, None, solves)
     from calib.fireflow.fitsummary import html_section  # fire flow with the fitted C
     specs = _plot_specs(result, system, curves, worker)
     return ReportParts(system, curves, specs, html_section(result, system))
@@ -384,6 +454,7 @@ def render(result, system: str = "us", curves: bool = True, worker=None,
     group_by = result.options.get("group_by")
     if parts is None or (parts.system, parts.curves) != (system, curves):
         parts = prepare(result, system, curves, worker)
+    parts.complete()
     specs, fire_flow = parts.specs, parts.fire_flow
     if worker is None:
         from calib.calibration import figures  # loaded only where no worker draws them

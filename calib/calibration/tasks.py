@@ -6,8 +6,10 @@ snapshot, shared with the fit's other problems, put back in place) and a solver 
 factorization. So a task's numbers do not depend on the tasks before it nor on the process that
 ran it, and the problem is left as it was, but for its counts of solves, solver calls and
 iterations, which gain every task's. Used for the profile-likelihood interval ends and the
-leave-one-out refits (a task of a few seconds on an 8,000-pipe network); the report's hydrant
-curves use ``calib.parallel`` directly with their own solver.
+leave-one-out refits (a task of a few seconds on an 8,000-pipe network). ``problem_job``: the
+same tasks as a ``calib.parallel.Job``; ``run_jobs`` runs several jobs in one run of tasks
+(``fit``: the interval checks, the leave-one-out refits and the report's hydrant curves and
+fire-flow rows, each job's tasks from its own state).
 
 ``SnapshotPool``: the fit's own evaluations, shared out by snapshot between processes that own
 their snapshots across evaluations (``calib.parallel.Owners``), opened only inside a function
@@ -68,19 +70,14 @@ def forget_factors(problem) -> None:
             stacked_solver(problem.solver, k).solver.forget()
 
 
-def on_problem(problem, task, items, workers: int | None = None, announce=None) -> list:
-    """``[task(item) for item in items]``, each from ``problem``'s state at the call (see the module
-    docstring), run by ``calib.parallel.run`` on up to ``workers`` processes (default
-    ``parallel.workers_for`` the problem's network). ``problem`` may be a
-    list of problems (e.g. one per leave-one-out refit, sharing warm starts and a solver): each
-    keeps its own counts. Each problem's ``progress`` hears of the solves of a task run here as
-    they come, of a worker's when its task ends (after ``announce(index)`` where given)."""
+def problem_job(problem, task, items, announce=None, finished=None, rank=0) -> parallel.Job:
+    """``task(item)`` for each of ``items`` as a ``parallel.Job``, each from ``problem``'s state now
+    (see the module docstring). ``problem`` may be a list of problems (e.g. one per leave-one-out
+    refit, sharing warm starts and a solver): each keeps its own counts, which gain every task's
+    when the run ends. Each problem's ``progress`` hears of the solves of a task run here as they
+    come, of a worker's when its task ends (after ``announce(index)`` where given).
+    ``finished(values)``: called once every task's value is in; ``rank``: ``parallel.Job``'s."""
     problems = list(problem) if isinstance(problem, (list, tuple)) else [problem]
-    items = list(items)
-    if not items:
-        return []
-    # the snapshots' pools end here: the tasks solve in their own process, from forgotten factors
-    parallel.close_owners()
     kept = [_Kept(p) for p in problems]
     progress = [p.progress for p in problems]
     base = [[getattr(p, name) for name in _COUNTS] for p in problems]
@@ -102,7 +99,7 @@ def on_problem(problem, task, items, workers: int | None = None, announce=None) 
                        for p, b0 in zip(problems, base)], worker
 
     def done(i, out):
-        value, deltas, worker = out
+        _value, deltas, worker = out
         if worker and announce is not None:
             announce(i)
         for j, d in enumerate(deltas):
@@ -113,18 +110,43 @@ def on_problem(problem, task, items, workers: int | None = None, announce=None) 
                 for k in range(d[0]):
                     progress[j](n0 + k + 1)
 
-    if workers is None:
-        workers = parallel.workers_for(problems[0].network)
+    def after(_outs):  # the counts, once ``reset`` has put the problems back for the last time
+        for p, b0, a in zip(problems, base, added):
+            for name, b, d in zip(_COUNTS, b0, a):
+                setattr(p, name, b + d)
+
+    return parallel.Job(one, items, reset=reset, done=done, finished=finished, after=after,
+                        unwrap=lambda out: out[0], rank=rank)
+
+
+def run_jobs(jobs, workers: int | None = None) -> list:
+    """``parallel.run_jobs`` for the fit's work: the snapshots' pools closed first (the tasks
+    solve in their own process, from forgotten factors), none opened while the tasks run."""
     global _tasks_running
+    jobs = [j for j in jobs if j is not None]
+    if any(job.items for job in jobs):
+        parallel.close_owners()
     busy, _tasks_running = _tasks_running, True
     try:
-        outs = parallel.run(one, items, reset=reset, workers=workers, done=done)
+        return parallel.run_jobs(jobs, workers=workers)
     finally:
         _tasks_running = busy
-    for p, b0, a in zip(problems, base, added):
-        for name, b, d in zip(_COUNTS, b0, a):
-            setattr(p, name, b + d)
-    return [value for value, _counts, _worker in outs]
+
+
+def on_problem(problem, task, items, workers: int | None = None, announce=None) -> list:
+    """``[task(item) for item in items]``, each from ``problem``'s state at the call (see the module
+    docstring), run by ``calib.parallel.run`` on up to ``workers`` processes (default
+    ``parallel.workers_for`` the problem's network). ``problem`` may be a
+    list of problems (e.g. one per leave-one-out refit, sharing warm starts and a solver): each
+    keeps its own counts. Each problem's ``progress`` hears of the solves of a task run here as
+    they come, of a worker's when its task ends (after ``announce(index)`` where given)."""
+    problems = list(problem) if isinstance(problem, (list, tuple)) else [problem]
+    items = list(items)
+    if not items:
+        return []
+    if workers is None:
+        workers = parallel.workers_for(problems[0].network)
+    return run_jobs([problem_job(problems, task, items, announce=announce)], workers)[0]
 
 
 # --- the snapshots of a fit's evaluations, owned by processes across evaluations -----------------

@@ -306,15 +306,21 @@ def _run(args, out, c_bounds, sigma, worker) -> int:
         announce(worker, tests)
     # about 100 solves a test on the demo day (fit, refits, interval checks, leave-one-out)
     bar = None if args.quiet else ProgressBar(expected=100 * tests.n_tests)
-    report_parts = []
+    report_parts, report_solves = [], []
+
+    def solve_report(fitted):
+        # the fitted C are final: the report's curves and fire-flow rows are solved by the fit
+        # beside its interval checks and leave-one-out refits, each curve drawn as it comes
+        from calib.calibration.report import Solves
+        report_solves.append(Solves(fitted, args.units, worker=worker))
+        return report_solves[-1].jobs
 
     def prepare_report(result):
         # the fit is final but for its leave-one-out notes: hand the figures to the worker now, so
         # that it draws them beside those refits instead of after the fit
         from calib.calibration.report import prepare
-        if bar is not None:
-            bar.stage("report data (hydrant curves, fire flow)")
-        report_parts.append(prepare(result, args.units, worker=worker))
+        report_parts.append(prepare(result, args.units, worker=worker,
+                                    solves=report_solves[0] if report_solves else None))
 
     def readings_figures(readings):
         # the readings' figures are final before the interval checks: drawn beside them
@@ -327,6 +333,7 @@ def _run(args, out, c_bounds, sigma, worker) -> int:
                      source_offsets=args.source_offsets, threshold=args.threshold,
                      flag_level=args.flag_level, progress=bar,
                      on_result=None if args.no_report else prepare_report,
+                     on_fitted=None if args.no_report else solve_report,
                      on_readings=None if worker is None else readings_figures)
     finally:
         if bar is not None:

@@ -82,25 +82,57 @@ def _fresh(scan) -> None:
     scan.solver.forget()
 
 
-def html_section(result, system: str = "us", limit: int = 12) -> str:
-    """``<h2>Fire flow ...</h2>`` with a table for the flowed hydrants (at most ``limit``)."""
+def fire_flow_job(result, limit: int = 12, finished=None):
+    """The rows of ``html_section`` as a ``calib.parallel.Job``, one task per flowed hydrant (at most
+    ``limit``), each from the scan as a hydrant finds it first (``_fresh``), so the rows are the
+    same on one core or several, beside any other work; ``finished(rows)`` once the last is in.
+    A row is a ``HydrantFlow``, or a ``NotComputed`` where the scan failed there; where the scan
+    cannot start, no job: ``finished`` gets that failure at once."""
+    nodes = flowed_hydrants(result)[:limit]
+    try:
+        scan = FireFlowScan(result.network, roughness=result.roughness(),
+                            covariance=covariance_of(result), static_start=static_start(result))
+    except CalibError as exc:
+        if finished is not None:
+            finished([NotComputed(str(exc))])
+        return None
+
+    def row(node):
+        try:
+            return scan.hydrant(node, held_start(result, scan, node))
+        except CalibError as exc:  # the section says so; the rows after it are not shown
+            return NotComputed(str(exc))
+    # short tasks, only written: last in ``calib fit``'s run of tasks (after its interval ends,
+    # ``calib.calibration.fit.RANK_END``), where they even out the processes' shares
+    return parallel.Job(row, nodes, reset=lambda: _fresh(scan), finished=finished, rank=4)
+
+
+@dataclasses.dataclass
+class NotComputed:
+    """A fire-flow row that could not be computed, and why."""
+    why: str
+
+
+def html_section(result, system: str = "us", limit: int = 12, rows=None) -> str:
+    """``<h2>Fire flow ...</h2>`` with a table for the flowed hydrants (at most ``limit``); ``rows``:
+    those of ``fire_flow_job`` where it ran already (else they are solved here)."""
     e = html.escape
     fu, pu = units.display_unit("flow", system), units.display_unit("pressure", system)
-    nodes = flowed_hydrants(result)[:limit]
     head = ("<h2>Fire flow with the fitted C</h2><p>Model estimate of the flow available at 20 psi "
             "residual (and 20 psi elsewhere in its hydraulic zone), average-day demand, at the hydrants the "
             "tests flowed; 95 % interval from the C covariance (first order). For every hydrant, "
             "with a map: <code>python -m calib fireflow NETWORK --fit THIS_FOLDER --out "
             "THIS_FOLDER/fireflow.csv</code>. An estimate: it does not replace flow tests, local "
             "codes, the authority having jurisdiction or a licensed engineer.</p>")
-    try:
-        scan = FireFlowScan(result.network, roughness=result.roughness(),
-                            covariance=covariance_of(result), static_start=static_start(result))
-        flows = parallel.run(lambda node: scan.hydrant(node, held_start(result, scan, node)), nodes,
-                             reset=lambda: _fresh(scan),
-                             workers=parallel.workers_for(result.network))
-    except CalibError as exc:
-        return head + f"<p>Not computed: {e(str(exc))}</p>"
+    if rows is None:
+        found: dict = {}
+        job = fire_flow_job(result, limit, finished=lambda r: found.__setitem__("rows", r))
+        parallel.run_jobs([job], workers=parallel.workers_for(result.network))
+        rows = found["rows"]
+    failed = next((f for f in rows if isinstance(f, NotComputed)), None)
+    if failed is not None:
+        return head + f"<p>Not computed: {e(failed.why)}</p>"
+    flows = rows
     q = lambda v: f"{units.from_si(v, 'flow', fu):.0f}" if np.isfinite(v) else "-"  # noqa: E731
     rows = "".join(
         f"<tr><td>{e(f.node)}</td><td>{units.from_si(f.static, 'pressure', pu):.1f}</td>"

@@ -11,7 +11,7 @@ checks: a case with such a test checks that branch.
 
 import numpy as np
 
-from calib import units
+from calib import parallel, units
 from calib.calibration import fit
 from calib.calibration.synthetic import synthetic_tests
 
@@ -69,7 +69,18 @@ def test_a_test_left_out_whole_hands_its_readings_on_after_the_checks(small):
     for i in mine[tests.kind[mine] == "residual"]:
         s = static[tests.node[static] == tests.node[i]][0]
         tests.pressure[i] = tests.pressure[s] + 1 * units.PSI
-    result, stages, calls = _run(net, tests, grouping=grp, prior="none", solver=solver)
+    fitted, ran = [], []
+
+    def on_fitted(f):  # the caller's work with the fitted C: after the checks on this branch
+        fitted.append(f)
+        return [parallel.Job(lambda k: ran.append(k) or k, range(3))]
+
+    result, stages, calls = _run(net, tests, grouping=grp, prior="none", solver=solver,
+                                 on_fitted=on_fitted)
+    assert len(fitted) == 1 and sorted(ran) == [0, 1, 2]  # its jobs ran, once each
+    f = fitted[0]
+    assert np.array_equal(f.c, result.c) and f.flag == list(result.flag)
+    assert f.solutions.keys() == result.solutions.keys()
     assert not result.estimate.used[mine].any()
     assert len(calls) == 1
     readings, before = calls[0]

@@ -112,7 +112,10 @@ def test_the_demo_fit_and_its_report_data_bit_identical_at_one_and_two_workers(d
         out[workers] = dict(
             ends=(est.x.tobytes(), est.low.tobytes(), est.high.tobytes()),
             influence=list(result.influence), n_solves=result.n_solves,
-            stages=stages,  # every solve reported once, the refits' readings in order
+            # every solve reported once, under its phase, the refits' readings named: in one run
+            # of tasks the processes' reports interleave in the order their tasks end
+            stages=sorted(s.split(":")[0] for s in stages),
+            readings=sorted({s.split(":", 1)[1] for s in stages if ":" in s}),
             fire=fire, curves=[None if p is None else (p["flow"].tobytes(), p["pressure"].tobytes())
                     for p in curves["panels"]])
     assert any(out["1"]["influence"])  # the case does refit and note

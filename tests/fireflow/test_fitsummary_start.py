@@ -95,3 +95,35 @@ def test_no_start_for_a_hydrant_no_test_flowed(demo_fit):
     # the start keeps the scan's static statuses and moves only the flows
     assert np.array_equal(start._active, scan.static._active)
     assert not np.array_equal(start.flow, scan.static.flow)
+
+
+@pytest.mark.parametrize("workers", ["1", "2"])
+def test_a_row_that_fails_says_so_as_the_first_failure_in_order(demo_fit, monkeypatch, workers):
+    # the fire-flow rows run as a job (``fire_flow_job``, beside other work in ``calib fit``):
+    # where hydrants fail, the section names the first failing hydrant in the table's order, as a
+    # loop over the hydrants that stops at its first error would; the same section from the job's
+    # rows and from ``html_section`` alone, on one process and on two
+    from calib import parallel
+    from calib.errors import CalibrationError
+    from calib.fireflow import fitsummary
+    from calib.fireflow.scan import FireFlowScan
+
+    monkeypatch.setenv(parallel.WORKERS_ENV, workers)
+    nodes = fitsummary.flowed_hydrants(demo_fit)[:12]
+    bad = {nodes[2], nodes[5]}
+    real = FireFlowScan.hydrant
+
+    def hydrant(self, node, start=None):
+        if node in bad:
+            raise CalibrationError(f"the solver did not converge at {node}")
+        return real(self, node, start)
+
+    monkeypatch.setattr(FireFlowScan, "hydrant", hydrant)
+    alone = fitsummary.html_section(demo_fit, "us")
+    assert f"Not computed: the solver did not converge at {nodes[2]}</p>" in alone
+    rows = []
+    job = fitsummary.fire_flow_job(demo_fit, finished=rows.extend)
+    parallel.run_jobs([job, parallel.Job(lambda k: k, range(3))])
+    assert fitsummary.html_section(demo_fit, "us", rows=rows) == alone
+    monkeypatch.setattr(FireFlowScan, "hydrant", real)
+    assert "<table>" in fitsummary.html_section(demo_fit, "us")  # without the failures: the table

@@ -239,6 +239,70 @@ def test_small_networks_stay_in_one_process_unless_told(monkeypatch):
     assert parallel.workers_for(SimpleNamespace(n_pipes=531)) is None  # the variable decides
 
 
+
+# --- run_jobs: several jobs' tasks in one run ------------------------------------------------------
+def _jobs(log):
+    """Two ``State`` jobs whose tasks change their own state (each put back by its own reset), a
+    job without tasks, and the order of the callbacks in ``log``."""
+    a, b = State(), State()
+    a.value, b.value = 10, 1000
+
+    def job(name, s, start, items, rank):
+        return parallel.Job(s.task, items, reset=lambda: setattr(s, "value", start),
+                            done=lambda i, r: log.append(("done", name, i)),
+                            finished=lambda values: log.append(("finished", name, list(values))),
+                            after=lambda values: log.append(("after", name, s.value)),
+                            unwrap=lambda r: r[0], rank=rank)
+    return [job("a", a, 10, [1, 2, 3], 1), job("none", State(), 10, [], 0),
+            job("b", b, 1000, [5, 6], lambda x: 0 if x == 6 else 2)]
+
+
+@pytest.mark.parametrize("workers", [1, 2])
+def test_jobs_in_one_run_give_each_jobs_serial_values(workers, no_new_children, request):
+    # reference: each job alone, its tasks from its own reset state (``run``); across jobs the
+    # tasks are taken by rank (b's 6 first, a's, then b's 5), every value as alone
+    if workers > 1:
+        if not parallel.can_fork():
+            pytest.skip("no fork on this platform")
+        request.getfixturevalue("worker_busy")  # a worker takes tasks too
+    log = []
+    out = parallel.run_jobs(_jobs(log), workers=workers)
+    assert out == [[11, 12, 13], [], [1005, 1006]]
+    finished = [e for e in log if e[0] == "finished"]
+    assert finished[0] == ("finished", "none", [])  # no tasks: finished before any task starts
+    assert sorted(finished[1:]) == [("finished", "a", [11, 12, 13]), ("finished", "b", [1005, 1006])]
+    for name, n in (("a", 3), ("b", 2)):  # each task reported once, before its job is finished
+        dones = [i for i, e in enumerate(log) if e[:2] == ("done", name)]
+        assert len(dones) == n and max(dones) < log.index(next(e for e in finished if e[1] == name))
+    # ``after``: once the run has ended, with every job's state put back
+    assert [e for e in log if e[0] == "after"] == [("after", "a", 10), ("after", "none", 10),
+                                                   ("after", "b", 1000)]
+    assert log[-3:] == [e for e in log if e[0] == "after"]
+
+
+def test_jobs_run_in_the_order_of_their_ranks():
+    order = []
+    jobs = [parallel.Job(lambda x: order.append(x), items, rank=rank)
+            for items, rank in (([1, 2], 1), ([3], 0), ([4, 5], lambda x: 2 if x == 4 else 0))]
+    parallel.run_jobs(jobs, workers=1)
+    assert order == [3, 5, 1, 2, 4]  # rank 0 in the jobs' order, then 1, then 2
+
+
+@needs_fork
+@pytest.mark.parametrize("workers", [1, 2])
+def test_first_error_of_the_jobs_reaches_the_caller(workers, no_new_children):
+    # the first failing task in the run's order, as ``run`` raises it; every job's state put back
+    resets, finished = [], []
+    jobs = [parallel.Job(lambda x: x, [0, 3], reset=lambda: resets.append("a"),
+                         finished=finished.append),
+            parallel.Job(_failing, range(8), reset=lambda: resets.append("b"),
+                         finished=finished.append)]
+    with pytest.raises(CalibrationError, match="snapshot 'T3 residual'"):
+        parallel.run_jobs(jobs, workers=workers)
+    assert "a" in resets and "b" in resets and resets[-2:] == ["a", "b"]
+    assert finished == [[0, 3]]  # the first job's tasks all ran: it was finished; not the other
+
+
 # --- Owners: workers that keep their state from one request to the next ------------------------
 class Counter:
     """A worker's state: each share adds what it is sent to its own total."""
