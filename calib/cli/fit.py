@@ -165,7 +165,8 @@ class ProgressBar:
             return
         what = self._phase
         if len(self._details) > 1:
-            what += f" ({len(self._details)} readings: {', '.join(self._details)})"
+            # sorted: the leave-one-out refits of two processes report in either order
+            what += f" ({len(self._details)} readings: {', '.join(sorted(self._details))})"
         elif self._details:
             what += f" {self._details[0]}"
         solves = f"{self._n - self._phase_n0} solves, " if self._n > self._phase_n0 else ""
