@@ -379,7 +379,7 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
     # (the same snapshots): it reads the solutions at ``est.x`` and solves nothing, so the checks
     # start from the same state. Otherwise (a test with every reading left out) it solves, and
     # does that after the checks, as it always did, from the warm starts they leave.
-    early = full._recent is prob._recent
+    early = full.shares_solutions_with(prob)
     if early:
         results, simulated, z, cut = simulate()
     cook = np.full(n, np.nan)

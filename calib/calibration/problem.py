@@ -288,6 +288,11 @@ class CalibrationProblem:
         self._recent = other._recent
         return True
 
+    def shares_solutions_with(self, other: "CalibrationProblem") -> bool:
+        """True when this problem and ``other`` keep one set of solutions (``share`` made them):
+        what one solves, the other reads without solving."""
+        return self._recent is other._recent
+
     def recall(self, x, results) -> None:
         """Keep ``results`` (from ``solve(x)``) again as the most recent solution at ``x``."""
         self._recent.put(np.asarray(x, float).tobytes(), results)

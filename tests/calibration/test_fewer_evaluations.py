@@ -58,7 +58,9 @@ def test_kept_sensitivities_are_weighted_again_and_match_a_fresh_problem(case):
     keep = np.ones(tests.n_readings, dtype=bool)
     keep[np.flatnonzero(tests.kind == "residual")[0]] = False
     sub = CalibrationProblem(net, tests.subset(keep), grp, solver=counting, stack=False)
+    assert not sub.shares_solutions_with(prob)
     assert sub.pairs == prob.pairs and sub.share(prob)
+    assert sub.shares_solutions_with(prob) and prob.shares_solutions_with(sub)
     Js = sub.jacobian(x)
     assert counting.n_sensitivities == calls and sub.n_solves == 0
     np.testing.assert_array_equal(Js[:sub.n_readings], J1[:prob.n_readings][keep])
