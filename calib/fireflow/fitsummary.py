@@ -125,20 +125,18 @@ def html_section(result, system: str = "us", limit: int = 12, rows=None) -> str:
             "THIS_FOLDER/fireflow.csv</code>. An estimate: it does not replace flow tests, local "
             "codes, the authority having jurisdiction or a licensed engineer.</p>")
     if rows is None:
-        found: dict = {}
-        job = fire_flow_job(result, limit, finished=lambda r: found.__setitem__("rows", r))
-        parallel.run_jobs([job], workers=parallel.workers_for(result.network))
-        rows = found["rows"]
+        rows = []  # filled by the job's ``finished`` (at once where the scan cannot start)
+        parallel.run_jobs([fire_flow_job(result, limit, finished=rows.extend)],
+                          workers=parallel.workers_for(result.network))
     failed = next((f for f in rows if isinstance(f, NotComputed)), None)
     if failed is not None:
         return head + f"<p>Not computed: {e(failed.why)}</p>"
-    flows = rows
     q = lambda v: f"{units.from_si(v, 'flow', fu):.0f}" if np.isfinite(v) else "-"  # noqa: E731
-    rows = "".join(
+    cells = "".join(
         f"<tr><td>{e(f.node)}</td><td>{units.from_si(f.static, 'pressure', pu):.1f}</td>"
         f"<td>{q(f.available)}</td><td>{q(f.low)} - {q(f.high)}</td>"
         f"<td>{e(f.limiting_node if f.available == f.flow_system else 'own residual')}</td>"
-        f"<td>{e(f.hydrant_class)}</td><td>{e(f.note)}</td></tr>" for f in flows)
+        f"<td>{e(f.hydrant_class)}</td><td>{e(f.note)}</td></tr>" for f in rows)
     return (head + f"<table><tr><th>hydrant</th><th>static [{pu}]</th><th>available [{fu}]</th>"
             f"<th>95 % interval [{fu}]</th><th>limited by</th><th>NFPA 291 class</th><th>note</th>"
-            f"</tr>{rows}</table>")
+            f"</tr>{cells}</table>")

@@ -239,7 +239,6 @@ def test_small_networks_stay_in_one_process_unless_told(monkeypatch):
     assert parallel.workers_for(SimpleNamespace(n_pipes=531)) is None  # the variable decides
 
 
-
 # --- run_jobs: several jobs' tasks in one run ------------------------------------------------------
 def _jobs(log):
     """Two ``State`` jobs whose tasks change their own state (each put back by its own reset), a
