@@ -25,13 +25,19 @@ def _model_step(g, H, D, mu, x, lower, upper):
     With ``H + mu diag(D) = L L^T`` (Cholesky) the model is ``1/2 |L^T p + L^-1 g|^2`` less a
     constant, so the bounded step is the bounded linear least-squares problem solved by
     ``scipy.optimize.lsq_linear`` (bounded-variable least squares, Stark and Parker 1995); the
-    unbounded minimizer where it lies strictly inside. None where the matrix is not positive
-    definite.
+    unbounded minimizer where it lies strictly inside. A matrix that is singular but not indefinite
+    (a parameter no residual depends on: a zero column of J) gets a ridge of 1e-12 of its largest
+    diagonal entry, so that such a parameter's step is zero (its gradient is). None where the
+    matrix is not positive definite even then.
     """
+    M = H + mu * np.diag(D)
     try:
-        L = linalg.cholesky(H + mu * np.diag(D), lower=True)
+        L = linalg.cholesky(M, lower=True)
     except linalg.LinAlgError:
-        return None
+        try:
+            L = linalg.cholesky(M + 1e-12 * np.max(np.abs(np.diag(M))) * np.eye(len(g)), lower=True)
+        except linalg.LinAlgError:
+            return None
     b = -linalg.solve_triangular(L, g, lower=True)
     p = linalg.solve_triangular(L.T, b, lower=False)
     lo, hi = lower - x, upper - x

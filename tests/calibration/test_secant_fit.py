@@ -125,3 +125,26 @@ def test_demo_fit_lands_closer_to_the_tight_optimum_in_fewer_evaluations(demo_da
         off.append(np.max(np.abs(x - ref.x)))
     assert off[0] < 1e-4 < off[1]
     assert est.nfev < old.nfev
+
+
+def test_a_parameter_no_residual_depends_on_stays_put_and_the_others_are_fitted():
+    # a zero column of J (a group no reading sees, no prior): J^T J is singular; the other two
+    # parameters reach scipy least_squares' tight minimizer and the third keeps its start
+    rng = np.random.default_rng(0)
+    A = rng.normal(size=(10, 3))
+    A[:, 1] = 0.0
+    b = rng.normal(size=10)
+
+    def fun(x):
+        return A @ x + 0.1 * (A @ x) ** 2 - b
+
+    def jac(x):
+        return A + 0.2 * (A @ x)[:, None] * A
+
+    x0 = np.array([1.0, 2.0, 3.0])
+    lo, hi = np.full(3, -10.0), np.full(3, 10.0)
+    sol = secant_least_squares(fun, jac, x0, lo, hi, ftol=1e-11)
+    ref = optimize.least_squares(fun, x0, jac=jac, bounds=(lo, hi), method="trf", xtol=1e-12,
+                                 ftol=1e-12, gtol=1e-12)
+    assert sol.status == 2 and sol.x[1] == 2.0
+    np.testing.assert_allclose(sol.x[[0, 2]], ref.x[[0, 2]], atol=1e-6)
