@@ -52,7 +52,7 @@ def secant_least_squares(fun, jac, x0, lower, upper, ftol: float, max_nfev: int 
 
     Model Hessian ``J^T J + S`` (``J = jac(x)``, analytic). ``S`` starts at zero (or ``S0``: the
     estimate of a fit of the same residuals at other weights) and after every accepted step ``s``
-    takes the structured secant update of Dennis, Gay and Welsch (1981, section 3)::
+    takes the structured secant update of Dennis, Gay and Welsch (1981)::
 
         y  = J+^T r+ - J^T r              the change of the gradient
         y# = (J+ - J)^T r+                the part of it that S stands for
