@@ -4,8 +4,11 @@ Outside references: the profile likelihood's definition (Venzon and Moolgavkar 1
 Statistics 37(1): the interval end is where the sum of squares minimized over the other
 parameters with this one held fixed has risen by the cut-off), computed the long way with
 scipy.optimize.least_squares at tolerances 1e-12 on a problem that keeps nothing, and its
-crossing of the cut-off by scipy.optimize.brentq.
+crossing of the cut-off by scipy.optimize.brentq; for the fallback to the refit, a made-up closed
+form whose Gauss-Newton step overshoots, against scipy.optimize.least_squares at 1e-12.
 """
+
+from types import SimpleNamespace
 
 import numpy as np
 import pytest
@@ -115,3 +118,36 @@ def test_profile_ends_agree_with_the_tight_profile_in_fewer_evaluations(three_gr
         assert abs(end - ref) <= abs(end_1 - ref) + 0.1 * tol, (i, d, end, end_1, ref)
         checked += 1
     assert checked >= 3
+
+
+class _Curved:
+    """Two parameters, the first held: residuals ``[exp(x1) - 20 - x0, 0.01 (x1 - 2)]`` (a made-up
+    closed form whose Gauss-Newton step from x1 = 0 overshoots to about 19: the sum of squares
+    rises there). Counts its evaluations."""
+
+    lower, upper = np.array([-5.0, -5.0]), np.array([30.0, 30.0])
+
+    def __init__(self):
+        self.calls = 0
+
+    def residuals(self, x):
+        self.calls += 1
+        return np.array([np.exp(x[1]) - 20.0 - x[0], 0.01 * (x[1] - 2.0)])
+
+    def jacobian(self, x):
+        return np.array([[-1.0, np.exp(x[1])], [0.0, 0.01]])
+
+
+def test_a_step_that_raises_the_sum_of_squares_falls_back_to_the_refit():
+    # the closed form above: the iterate at x1 = 19 raises the sum of squares, so the least-squares
+    # refit decides from the start; the point's minimum against scipy's least_squares at 1e-12
+    p = _Curved()
+    est = SimpleNamespace(residual=np.zeros(2), t=1.96)
+    rise, x_at, _slope, _trace, drop = E._profile_point(p, est, 0, 0.5, np.array([0.5, 0.0]))
+    sol = optimize.least_squares(lambda z: p.residuals(np.array([0.5, z[0]])), [0.0],
+                                 jac=lambda z: p.jacobian(np.array([0.5, z[0]]))[:, 1:],
+                                 xtol=1e-12, ftol=1e-12, gtol=1e-12)
+    assert drop == 0.0  # the refit's point
+    assert x_at[0] == 0.5
+    assert x_at[1] == pytest.approx(sol.x[0], abs=1e-3)
+    assert rise == pytest.approx(float(sol.fun @ sol.fun), rel=1e-3)
