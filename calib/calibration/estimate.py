@@ -4,8 +4,9 @@
   the residuals' curvature (Dennis, Gay and Welsch 1981, NL2SOL; ``secant.secant_least_squares``),
   which converges superlinearly where Gauss-Newton steps shrink only by about half (a weakly
   determined C pulled by the prior); a robust loss (``soft_l1``, ``huber``) with
-  ``scipy.optimize.least_squares`` (trust-region reflective). The profile points' refits and the
-  leave-one-out refits keep ``least_squares`` (the secant model did not pay there).
+  ``scipy.optimize.least_squares`` (trust-region reflective). A profile point refits the others by
+  Gauss-Newton iterations, ``least_squares`` only where they fail; the leave-one-out refits keep
+  ``least_squares`` (the secant model did not pay in either).
 - The readings' scale. When nobody stated the gauges' accuracy (no ``sigma`` column, no ``--sigma``)
   the readings' variance comes from their scatter, ``s^2 = S_r / (n_r - p)`` (S_r the weighted sum of
   squares of the readings at the nominal 1 psi, n_r readings, p the parameters they determine: the trace
@@ -31,7 +32,9 @@
   a one-sided limit only. The end search takes Newton steps on the signed root of the rise with its
   slope from the envelope theorem; a profile point whose start (moved along the last point's own
   profile trace) is within a small Gauss-Newton step of the conditional minimum takes that step
-  instead of a refit (one evaluation of the snapshots a point; ``_profile_point``). A point within
+  instead of a refit (one evaluation of the snapshots a point; ``_profile_point``); a start
+  further away takes Gauss-Newton iterations (one evaluation each) until such a step, and only
+  where they fail (a step that raises the sum of squares or leaves the bounds) a refit. A point within
   1 % of the cut-off's root ends the search at its Newton step, unevaluated (its error is second
   order; ``PROFILE_NEWTON_TOL``); an end at a C bound whose start already lies below the cut-off
   is decided from its residuals, without the point's Jacobian. The columns' searches run as tasks
@@ -270,6 +273,9 @@ PROFILE_ROOT_TOL = 0.001
 #: ``PROFILE_ROOT_TOL``). Where the search evaluated that step it took it as the end: the
 #: 7,938-pipe grid's G2 low and G5 low ends are the same bits, one evaluation each fewer.
 PROFILE_NEWTON_TOL = 0.01
+#: Evaluations of a profile point's Gauss-Newton iterations (its start's included) before a
+#: least-squares refit decides (``_profile_point``).
+PROFILE_GN_ITERATIONS = 4
 
 
 def _profile_point(problem, est, i, value, warm):
@@ -278,10 +284,18 @@ def _profile_point(problem, est, i, value, warm):
     ``rise`` is the weighted sum of squares' rise over the optimum with the other parameters at
     their conditional minimum ``x``; ``slope`` d(rise)/d(value) there (envelope theorem: the partial
     derivative ``2 j_i^T r``); ``trace`` how the others move with the value there
-    (``-(J_f^T J_f)^-1 J_f^T j_i``), for the next point's start. One evaluation of the snapshots at
-    ``warm`` (with the value set) when its Gauss-Newton step is small (``PROFILE_STEP_SHARE``);
-    else a refit (``_profile_rise``) and its Jacobian. ``drop``: how much the Gauss-Newton step
-    taken lowered the sum of squares (0 after a refit).
+    (``-(J_f^T J_f)^-1 J_f^T j_i``), for the next point's start. Gauss-Newton iterations of the
+    other parameters from ``warm`` (with the value set), one evaluation of the snapshots each
+    (residuals and Jacobian, which the point needs anyway). A start whose step inside the bounds
+    lowers the sum of squares by at most ``PROFILE_STEP_SHARE`` of the cut-off takes that step,
+    unevaluated, as its refit; a later iterate takes its step once it lowers the sum by at most
+    ``PROFILE_END_SHARE`` (converged as tightly as an end needs: a refitted point may be an end,
+    and its slope and trace seed the next point). A step that leaves the bounds or raises the sum
+    of squares, or no small step within ``PROFILE_GN_ITERATIONS`` evaluations: a least-squares
+    refit from the last iterate decides (``_profile_rise``), as every start far from the
+    conditional minimum did before (the 7,938-pipe grid's three such points: 2, 1 and 1
+    evaluations after their start, where the refits took 3, 2 and 2).
+    ``drop``: how much the Gauss-Newton step taken lowered the sum of squares (0 after a refit).
     """
     x = np.array(warm, float)
     x[i] = value
@@ -292,22 +306,34 @@ def _profile_point(problem, est, i, value, warm):
     J = problem.jacobian(x)
     drop = 0.0
     if free.size:
-        Jf = J[:, free]
-        dz = np.linalg.lstsq(Jf, -r, rcond=None)[0]
-        z = x[free] + dz
-        r_min = r + Jf @ dz
-        drop = float(r @ r) - float(r_min @ r_min)
         lo, hi = problem.lower[free], problem.upper[free]
-        if np.all(np.isfinite(dz)) and np.all(z > lo) and np.all(z < hi) and \
-                drop <= PROFILE_STEP_SHARE * cut:
-            x = x.copy()
-            x[free] = z  # the step's residuals r_min are the linear model's at z
-        else:
+        for k in range(PROFILE_GN_ITERATIONS):
+            Jf = J[:, free]
+            dz = np.linalg.lstsq(Jf, -r, rcond=None)[0]
+            z = x[free] + dz
+            r_min = r + Jf @ dz
+            drop = float(r @ r) - float(r_min @ r_min)
+            inside = bool(np.all(np.isfinite(dz)) and np.all(z > lo) and np.all(z < hi))
+            # the start by the one-step rule; an iterate as tight as an end needs (a refit's
+            # point may be an end, so is this one; its slope and trace seed the next points)
+            share = PROFILE_STEP_SHARE if k == 0 else PROFILE_END_SHARE
+            if inside and drop <= share * cut:
+                x = x.copy()
+                x[free] = z  # the step's residuals r_min are the linear model's at z
+                break
+            if inside and k + 1 < PROFILE_GN_ITERATIONS:
+                x_next = x.copy()
+                x_next[free] = z
+                r_next = problem.residuals(x_next)
+                if float(r_next @ r_next) < float(r @ r):
+                    x, r, J = x_next, r_next, problem.jacobian(x_next)
+                    continue
             _rise, x = _profile_rise(problem, est, i, value, x)
             r_min = problem.residuals(x)
             J = problem.jacobian(x)
             Jf = J[:, free]
             drop = 0.0
+            break
         trace = np.zeros(len(x))
         trace[free] = np.linalg.lstsq(Jf, -J[:, i], rcond=None)[0]
     else:

@@ -4,8 +4,8 @@ Method (published names kept):
 - Bounded nonlinear weighted least squares, weights 1/sigma per reading: the Gauss-Newton model with
   a structured secant estimate of the residuals' curvature (Dennis, Gay and Welsch 1981, NL2SOL;
   ``secant.py``), or ``scipy.optimize.least_squares`` (trust-region reflective) with an optional
-  robust loss (``soft_l1``, ``huber``); C bounded (40-160 by default). Weighted least squares over several loadings after Lansey and Basnet (1991), J. Water
-  Resour. Plann. Manage. 117(1).
+  robust loss (``soft_l1``, ``huber``); C bounded (40-160 by default). Weighted least squares
+  over several loadings after Lansey and Basnet (1991), J. Water Resour. Plann. Manage. 117(1).
 - Intervals, the variance factor and undetermined parameters: ``estimate.py``.
 - A gross error must not drag the others: readings flagged by the face checks are left out from the
   start; then one reading at a time whose standardized residual exceeds the threshold (of the three
