@@ -226,10 +226,12 @@ def _at_bound(problem, x, active_mask=None) -> np.ndarray:
 
 
 # --- intervals that can be trusted ---------------------------------------------------------------
-def _profile_rise(problem, est, i, value, x_warm):
+def _profile_rise(problem, est, i, value, x_warm, max_nfev=8, tol=1e-4):
     """Rise of the weighted sum of squares when parameter ``i`` is held at ``value`` and the others refit.
 
     Returns ``(rise, x)``; the weights are those of ``est`` (``problem.sigma_h`` as ``estimate`` left it).
+    ``max_nfev`` and ``tol`` (scipy's xtol, ftol, gtol) are the refit's: loose, as a profile point
+    needs (a reference profile refits tightly: benchmarks/profile_points.py).
     """
     x_full = np.array(x_warm, float)
     x_full[i] = value
@@ -245,8 +247,8 @@ def _profile_rise(problem, est, i, value, x_warm):
         z0 = np.clip(x_full[free], lo + 1e-9 * (hi - lo), hi - 1e-9 * (hi - lo))
         sol = optimize.least_squares(lambda z: problem.residuals(embed(z)), z0,
                                      jac=lambda z: problem.jacobian(embed(z))[:, free],
-                                     bounds=(lo, hi), method="trf", x_scale="jac", max_nfev=8,
-                                     xtol=1e-4, ftol=1e-4, gtol=1e-4)
+                                     bounds=(lo, hi), method="trf", x_scale="jac",
+                                     max_nfev=max_nfev, xtol=tol, ftol=tol, gtol=tol)
         x_full = embed(sol.x)
     r = problem.residuals(x_full)
     return max(float(r @ r) - S0, 0.0), x_full
