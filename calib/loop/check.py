@@ -279,8 +279,8 @@ class SequentialCheck:
         else:
             lines = [f"suspect: {obs} is outside {f(low)}-{f(high)} {unit} and {why}"]
         ranked = [(c, a) for c, a, _ in causes]
-        lines.append("likely causes: " + "; ".join(f"{k + 1}) {c}" for k, (c, _) in enumerate(ranked[:3])))
-        lines.append("before leaving: " + "; then ".join(a for _, a in ranked[:ACTIONS_IN_REASON]))
+        lines.append("Likely causes: " + "; ".join(f"{k + 1}) {c}" for k, (c, _) in enumerate(ranked[:3])))
+        lines.append("Before leaving: " + "; then ".join(a for _, a in ranked[:ACTIONS_IN_REASON]))
         return ". ".join(lines), ranked
 
 

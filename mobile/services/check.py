@@ -199,7 +199,7 @@ def run_job(job: CheckJob) -> CheckResult:
         st, rs = [v for v in verdicts if v.node == str(g)]
         advice = [v.reason for v in (st, rs) if v.suspect]
         if advice:
-            # the reason already says the first actions ("before leaving: ..."): only the next one
+            # the reason already says the first actions ("Before leaving: ..."): only the next one
             advice += [f"Then: {a}." for _, a in
                        (rs if rs.suspect else st).causes[ACTIONS_IN_REASON:MAX_ACTIONS]]
         out.append(GaugeCheck(str(g), st.observed, rs.observed, st.predicted, rs.predicted, advice,

@@ -59,7 +59,7 @@ def test_demo_day_no_good_reading_suspect_and_the_planted_one_is(demo):
     assert suspect == [planted]
     v = next(v for v in verdicts if v.suspect)
     # the planted error is on one reading only: re-reading it ranks first, and the words say so
-    assert "misread" in v.causes[0][0] and "before leaving" in v.reason
+    assert "misread" in v.causes[0][0] and "Before leaving" in v.reason
     # ok readings say what explains them; the 1930s cast iron (true C 58) is older than the model's 100
     # (T05: the day's first test on the CI-1930s mains)
     t05 = [v for v in verdicts if v.test_id == "T05" and v.kind == "residual"]

@@ -90,7 +90,7 @@ def test_a_suspect_readings_advice_says_each_action_once(service, area):
     assert g.suspect
     then = [line[len("Then: "):].rstrip(".") for line in g.advice if line.startswith("Then: ")]
     reasons = [line for line in g.advice if not line.startswith("Then: ")]
-    before = {a for line in reasons for a in re.split(r"; then ", line.split("before leaving: ")[1])}
+    before = {a for line in reasons for a in re.split(r"; then ", line.split("Before leaving: ")[1])}
     assert then and len(then) <= check.MAX_ACTIONS - ACTIONS_IN_REASON, g.advice
     assert not before & set(then), g.advice
 
