@@ -72,14 +72,18 @@ def test_stacked_residuals_and_jacobian_match_one_by_one_and_finite_differences(
 
 def test_fit_is_the_same_with_and_without_stacks(small, monkeypatch):
     # a whole fit (estimate, flags, profile intervals, leave-one-out) on the 50-pipe grid: the printed
-    # C and interval ends (0.1) and the flags are the same; the parameters agree to 1e-4
+    # C and interval ends (0.1) and the flags are the same; the parameters agree to 1e-4 of their
+    # standard deviation. (A fit resolves C only to the residuals' numerical noise: with SuperLU's
+    # round-off the one-by-one fit stops 2.4e-4 in C, 1.5e-5 sd, from the stacked one, both within
+    # 3e-4 of a fit with a 1e5 times tighter solver and stop, where least_squares at LSQ_TOL stopped
+    # 4e-3 away; common practice: a fit's numerical error is judged against its statistical one.)
     net, grp, plan, solver = small
     tests = synthetic_tests(net, TRUTH[grp.index], plan, seed=21, solver=solver)
     tests.pressure[3] += 8 * units.PSI  # a gross error, so that the refit and flags run
     stacked = fit(net, tests, grouping=grp, prior="none", solver=NetworkSolver(net))
     monkeypatch.setattr(problem_module, "STACK_MAX_NETWORK_PIPES", 0)
     one = fit(net, tests, grouping=grp, prior="none", solver=NetworkSolver(net))
-    np.testing.assert_allclose(stacked.c, one.c, atol=1e-4)
+    np.testing.assert_array_less(np.abs(stacked.c - one.c), 1e-4 * one.c_sd)
     np.testing.assert_array_equal(np.round(stacked.c_low, 1), np.round(one.c_low, 1))
     np.testing.assert_array_equal(np.round(stacked.c_high, 1), np.round(one.c_high, 1))
     assert stacked.flag == one.flag and any(stacked.flag)
