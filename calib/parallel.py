@@ -127,11 +127,12 @@ class Job:
     ``reset()`` puts back (called before each of them, in the process that runs it, and once at
     the end). ``done(index, answer)``: called here with what each task returned, as it arrives (in
     completion order); ``finished(values)``: called here once every result of this job is in
-    (items' order), while the other jobs' tasks may still run; ``after(values)``: called once the whole run has ended and
-    every job's state is put back (e.g. to add up counts that ``reset`` puts back). ``unwrap``:
-    a task's value from what it returned, as ``finished``, ``after`` and the caller see it
-    (default: what it returned). ``rank``: where its tasks come in ``run_jobs``' order, a number or
-    a function of the item (lower first; equal ranks in the jobs' and the items' order)."""
+    (items' order), while the other jobs' tasks may still run; ``after(values)``: called once the
+    whole run has ended and every job's state is put back (e.g. to add up counts that ``reset``
+    puts back). ``unwrap``: a task's value from what it returned, as ``finished``, ``after`` and
+    the caller see it (default: what it returned). ``rank``: where its tasks come in ``run_jobs``'
+    order, a number or a function of the item (lower first; equal ranks in the jobs' and the
+    items' order)."""
 
     def __init__(self, task, items, reset=None, done=None, finished=None, after=None,
                  unwrap=None, rank=0):

@@ -237,9 +237,10 @@ def fit(network, tests, group_by: str | None = None, grouping: Grouping | None =
     ``on_result(result)`` is called with the ``FitResult`` as soon as the interval checks are done,
     while the leave-one-out refits may still run; they then only add their notes to
     ``result.influence`` (and their solves to ``n_solves``, which is final when ``fit`` returns):
-    what needs the rest, such as the report's figures, can start then. ``on_readings(readings)`` is called earlier still, once with
-    a ``FitReadings`` as soon as the simulated readings, standardized residuals and flags are
-    final: before the interval checks, which change none of them.
+    what needs the rest, such as the report's figures, can start then. ``on_readings(readings)``
+    is called earlier still, once with a ``FitReadings`` as soon as the simulated readings,
+    standardized residuals and flags are final: before the interval checks, which change none of
+    them.
     ``on_fitted(fitted)`` is called once with a ``FittedModel`` as soon as the parameters, their
     covariance and the flags are final (before the interval checks, unless the problem of every
     reading solves snapshots of its own: then after them) and returns ``calib.parallel.Job``s (or

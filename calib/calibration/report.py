@@ -232,12 +232,12 @@ def _curves_data(result, system: str, on_panel=None) -> dict | None:
     None without tests. ``on_panel(k, panel, flow unit, pressure unit)`` is called with each panel
     as soon as it is known (``None`` for a test without flows or gauges)."""
     from calib import parallel
-    out: dict = {}
-    job = _curves_job(result, system, on_panel, lambda data: out.__setitem__("data", data))
+    data: list = []  # the job's ``finished`` puts the curves' data here
+    job = _curves_job(result, system, on_panel, data.append)
     if job is None:
         return None
     parallel.run_jobs([job], workers=parallel.workers_for(result.network))
-    return out["data"]
+    return data[0]
 
 
 def _curves_job(result, system: str, on_panel=None, finished=None):
